@@ -1,0 +1,62 @@
+"""Checks at the public boundary, one message template for all of them.
+
+"Expected `name` to have shape (..., 4), got (5, 3)." Internal helpers trust
+their callers; only public functions call these.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import numpy as np
+
+__all__ = [
+    "as_float_array",
+    "check_last_axis",
+    "check_one_of",
+    "check_positive",
+    "check_finite",
+]
+
+
+def as_float_array(value, name: str, *, dtype=np.float64) -> np.ndarray:
+    """Return ``value`` as a float array (a copy only when needed); TypeError for non-numbers."""
+    try:
+        arr = np.asarray(value, dtype=dtype)
+    except (TypeError, ValueError) as exc:
+        raise TypeError(
+            f"Expected `{name}` to be an array of numbers, got {type(value).__name__}."
+        ) from exc
+    return arr
+
+
+def check_last_axis(arr: np.ndarray, name: str, size: int) -> None:
+    """Raise ValueError unless ``arr`` has shape (..., size)."""
+    if arr.ndim == 0 or arr.shape[-1] != size:
+        raise ValueError(f"Expected `{name}` to have shape (..., {size}), got {arr.shape}.")
+
+
+def check_one_of(value, name: str, allowed: Iterable) -> None:
+    """Raise ValueError unless ``value`` is one of a closed set of options."""
+    allowed = tuple(allowed)
+    if value not in allowed:
+        raise ValueError(f"Expected `{name}` to be one of {allowed}, got {value!r}.")
+
+
+def check_positive(value: float, name: str, *, allow_zero: bool = False) -> None:
+    """Raise ValueError unless ``value`` is a finite number > 0 (or >= 0)."""
+    ok = np.isfinite(value) and (value >= 0 if allow_zero else value > 0)
+    if not ok:
+        bound = ">= 0" if allow_zero else "> 0"
+        raise ValueError(f"Expected `{name}` to be a finite number {bound}, got {value!r}.")
+
+
+def check_finite(arr: np.ndarray, name: str) -> None:
+    """Raise ValueError naming the first row that holds a NaN or infinity."""
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        first = np.argwhere(bad)[0]
+        index = tuple(int(i) for i in first[:-1]) if arr.ndim > 1 else (int(first[0]),)
+        raise ValueError(
+            f"Expected `{name}` to be finite everywhere, got a non-finite value at index {index}."
+        )
