@@ -1,0 +1,226 @@
+"""Tables to CSV, JSON, Markdown and LaTeX, written atomically.
+
+A table is a dict of equal-length 1-D arrays keyed by column name; the column
+definitions of :mod:`inclination.report.columns` fix the order, the number
+format and what "absent" means: NaN for floats, a negative number for ids and
+counts, an empty string for text. Absent values are written empty (CSV,
+Markdown, LaTeX) or ``null`` (JSON), never as a made-up number.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+
+import numpy as np
+
+from ._io import write_json_atomic, write_text_atomic
+
+__all__ = [
+    "format_cell",
+    "table_rows",
+    "write_csv",
+    "write_table_json",
+    "write_markdown",
+    "write_latex",
+    "latex_indices",
+]
+
+
+def _absent(value, kind: str) -> bool:
+    if kind == "float":
+        return value is None or not math.isfinite(float(value))
+    if kind == "int":
+        return value is None or int(value) < 0
+    if kind == "str":
+        return value is None or str(value) == ""
+    return value is None
+
+
+def format_cell(value, column) -> str:
+    """Text form of one value; absent values become the empty string.
+
+    Examples
+    --------
+    >>> from inclination.report.columns import Column
+    >>> format_cell(float("nan"), Column("x_um", "float", 3))
+    ''
+    >>> format_cell(1.23456, Column("x_um", "float", 2))
+    '1.23'
+    """
+    if _absent(value, column.kind):
+        return ""
+    if column.kind == "float":
+        text = f"{float(value):.{column.decimals}f}"
+        # "-0.000" reads as a sign that is not there.
+        return text[1:] if re.fullmatch(r"-0\.?0*", text) else text
+    if column.kind == "int":
+        return str(int(value))
+    if column.kind == "bool":
+        return "true" if bool(value) else "false"
+    return str(value)
+
+
+def _check_table(table, columns) -> int:
+    missing = [c.name for c in columns if c.name not in table]
+    if missing:
+        raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
+    lengths = {c.name: len(table[c.name]) for c in columns}
+    if len(set(lengths.values())) > 1:
+        raise ValueError(f"Expected columns of equal length, got {lengths}.")
+    return next(iter(lengths.values()), 0)
+
+
+def table_rows(table, columns) -> list[dict]:
+    """Rows as JSON-ready dicts (absent values as None).
+
+    Examples
+    --------
+    >>> from inclination.report.columns import Column
+    >>> table_rows({"a": np.array([1.5, np.nan])}, [Column("a", "float", 1)])
+    [{'a': 1.5}, {'a': None}]
+    """
+    n = _check_table(table, columns)
+    rows = []
+    for i in range(n):
+        row = {}
+        for c in columns:
+            v = table[c.name][i]
+            if _absent(v, c.kind):
+                row[c.name] = None
+            elif c.kind == "float":
+                row[c.name] = round(float(v), c.decimals + 3)
+            elif c.kind == "int":
+                row[c.name] = int(v)
+            elif c.kind == "bool":
+                row[c.name] = bool(v)
+            else:
+                row[c.name] = str(v)
+        rows.append(row)
+    return rows
+
+
+def write_csv(path, table, columns):
+    """Write a table as CSV with a header row; returns the path."""
+    n = _check_table(table, columns)
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow([c.name for c in columns])
+    for i in range(n):
+        writer.writerow([format_cell(table[c.name][i], c) for c in columns])
+    return write_text_atomic(path, buf.getvalue())
+
+
+def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
+    """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
+    document = {
+        "schema_version": schema_version,
+        "meta": meta,
+        "columns": [
+            {"name": c.name, "kind": c.kind, "description": c.description} for c in columns
+        ],
+        "rows": table_rows(table, columns),
+    }
+    return write_json_atomic(path, document)
+
+
+def write_markdown(path, table, columns, *, title: str, notes: str = ""):
+    """Write a pipe table with a title and notes; returns the path."""
+    n = _check_table(table, columns)
+    lines = [f"# {title}", ""]
+    if notes:
+        lines += [notes, ""]
+    lines.append("| " + " | ".join(c.name for c in columns) + " |")
+    lines.append(
+        "|" + "|".join("---:" if c.kind in ("int", "float") else "---" for c in columns) + "|"
+    )
+    for i in range(n):
+        cells = [format_cell(table[c.name][i], c).replace("|", "\\|") for c in columns]
+        lines.append("| " + " | ".join(cells) + " |")
+    if n == 0:
+        lines.append("")
+        lines.append("(no rows)")
+    return write_text_atomic(path, "\n".join(lines) + "\n")
+
+
+def latex_indices(text: str) -> str:
+    r"""Miller indices "(1 1 -1)" in LaTeX with overbars for negative indices.
+
+    Examples
+    --------
+    >>> latex_indices("(1 -1 0)")
+    '$(1\\,\\bar{1}\\,0)$'
+    >>> latex_indices("")
+    ''
+    """
+    if not text:
+        return ""
+    m = re.fullmatch(r"([\(\[\{<])\s*(.*?)\s*([\)\]\}>])", text.strip())
+    if not m:
+        return _latex_escape(text)
+    open_, body, close = m.groups()
+    parts = []
+    for tok in body.split():
+        parts.append(rf"\bar{{{tok[1:]}}}" if tok.startswith("-") else tok)
+    brackets = {"{": r"\{", "}": r"\}", "<": r"\langle ", ">": r"\rangle"}
+    return f"${brackets.get(open_, open_)}" + r"\,".join(parts) + f"{brackets.get(close, close)}$"
+
+
+def _latex_escape(text: str) -> str:
+    return (
+        str(text)
+        .replace("\\", r"\textbackslash{}")
+        .replace("&", r"\&")
+        .replace("%", r"\%")
+        .replace("_", r"\_")
+        .replace("#", r"\#")
+    )
+
+
+def write_latex(path, table, columns, *, caption: str, label: str, sigma_of: dict | None = None):
+    """Write a booktabs ``table`` environment; returns the path.
+
+    ``sigma_of`` maps a value column to its uncertainty column; the pair is
+    written as one cell ``v \\pm σ``. Columns whose values look like Miller
+    indices are written with overbars.
+    """
+    sigma_of = dict(sigma_of or {})
+    n = _check_table(table, columns)
+    shown = [c for c in columns if c.name not in sigma_of.values()]
+    by_name = {c.name: c for c in columns}
+    head = [_latex_escape(c.name) for c in shown]
+    lines = [
+        r"% Requires \usepackage{booktabs}.",
+        r"\begin{table}",
+        r"\centering",
+        r"\caption{" + _latex_escape(caption) + "}",
+        r"\label{" + label + "}",
+        r"\begin{tabular}{"
+        + "".join("r" if c.kind in ("int", "float") else "l" for c in shown)
+        + "}",
+        r"\toprule",
+        " & ".join(head) + r" \\",
+        r"\midrule",
+    ]
+    for i in range(n):
+        cells = []
+        for c in shown:
+            text = format_cell(table[c.name][i], c)
+            if c.name in sigma_of and text:
+                s = format_cell(table[sigma_of[c.name]][i], by_name[sigma_of[c.name]])
+                text = f"${text} \\pm {s}$" if s else text
+            elif re.fullmatch(r"[\(\[\{<][-\d ]+[\)\]\}>]", text):
+                text = latex_indices(text)
+            else:
+                text = _latex_escape(text)
+            cells.append(text)
+        lines.append(" & ".join(cells) + r" \\")
+    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
+    return write_text_atomic(path, "\n".join(lines) + "\n")
+
+
+def as_object_column(values) -> np.ndarray:
+    """A string column as an object array (helper for building tables)."""
+    return np.asarray(list(values), dtype=object)

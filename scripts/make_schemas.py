@@ -1,0 +1,19 @@
+"""Write the table schemas into schemas/ from the column definitions.
+
+Run after changing inclination/report/columns.py: python scripts/make_schemas.py
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from inclination.report.schemas import SCHEMAS, render  # noqa: E402
+
+if __name__ == "__main__":
+    for name in SCHEMAS:
+        (ROOT / "schemas" / f"{name}.schema.json").write_text(render(name), encoding="utf-8")
+        print(f"schemas/{name}.schema.json")

@@ -1,0 +1,163 @@
+"""Table writers: absent values, round trips, schema validity, LaTeX form, atomic output."""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+import jsonschema
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from inclination.errors import InputError
+from inclination.report._io import staged_output_dir, write_json_atomic
+from inclination.report.columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, Column
+from inclination.report.schemas import SCHEMAS, render
+from inclination.report.tables import (
+    format_cell,
+    latex_indices,
+    write_csv,
+    write_latex,
+    write_markdown,
+    write_table_json,
+)
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _boundary_table(n=3):
+    rng = np.random.default_rng(0)
+    table = {}
+    for c in BOUNDARY_COLUMNS:
+        if c.kind == "float":
+            table[c.name] = rng.uniform(0, 1, n)  # inside every column's range
+        elif c.kind == "int":
+            table[c.name] = np.arange(1, n + 1)
+        elif c.kind == "bool":
+            table[c.name] = np.zeros(n, bool)
+        else:
+            table[c.name] = np.array([""] * n, dtype=object)
+    table["plane_a"] = np.array(["(1 1 -1)", "", "(0 0 1)"], dtype=object)
+    table["sense"] = np.array(["agrees", "", "undecided"], dtype=object)
+    table["measured_dip_deg"][1] = np.nan
+    table["candidates_within_tolerance"][2] = 0
+    return table
+
+
+def test_committed_schemas_equal_fresh_rendering():
+    # The schemas are generated from the column lists (scripts/make_schemas.py); a
+    # difference means someone edited one without the other.
+    for name in SCHEMAS:
+        committed = (ROOT / "schemas" / f"{name}.schema.json").read_text(encoding="utf-8")
+        assert committed == render(name), f"schemas/{name}.schema.json is stale"
+
+
+def test_json_round_trip_validates_against_schema(tmp_path):
+    table = _boundary_table()
+    path = write_table_json(
+        tmp_path / "b.json", table, BOUNDARY_COLUMNS, schema_version="1.0", meta={}
+    )
+    doc = json.loads(path.read_text())
+    schema = json.loads(render("boundaries"))
+    jsonschema.Draft202012Validator.check_schema(schema)
+    jsonschema.validate(doc, schema)
+    assert doc["rows"][1]["measured_dip_deg"] is None
+    assert doc["rows"][1]["plane_a"] is None
+    assert doc["rows"][2]["candidates_within_tolerance"] == 0
+    assert_allclose(doc["rows"][0]["length_um"], table["length_um"][0], rtol=0, atol=1e-6)
+
+
+def test_schema_rejects_made_up_values(tmp_path):
+    table = _boundary_table()
+    table["sense"][0] = "maybe"
+    doc = json.loads(
+        write_table_json(
+            tmp_path / "b.json", table, BOUNDARY_COLUMNS, schema_version="1.0", meta={}
+        ).read_text()
+    )
+    with pytest.raises(jsonschema.ValidationError, match="maybe"):
+        jsonschema.validate(doc, json.loads(render("boundaries")))
+
+
+def test_csv_absent_values_are_empty(tmp_path):
+    table = _boundary_table()
+    path = write_csv(tmp_path / "b.csv", table, BOUNDARY_COLUMNS)
+    rows = list(csv.DictReader(path.read_text().splitlines()))
+    assert len(rows) == 3
+    assert rows[1]["measured_dip_deg"] == ""
+    assert rows[1]["plane_a"] == ""
+    assert rows[0]["plane_a"] == "(1 1 -1)"
+    assert list(rows[0]) == [c.name for c in BOUNDARY_COLUMNS]
+
+
+def test_format_cell_rules():
+    assert format_cell(-0.0001, Column("x", "float", 3)) == "0.000"
+    assert format_cell(-1, Column("n", "int")) == ""
+    assert format_cell(True, Column("b", "bool")) == "true"
+
+
+def test_latex_overbars_and_booktabs(tmp_path):
+    # LaTeX convention for negative Miller indices: an overbar (International Tables, Vol. A).
+    assert latex_indices("(1 1 -1)") == r"$(1\,1\,\bar{1})$"
+    assert latex_indices("{1 1 1}") == r"$\{1\,1\,1\}$"
+    table = {
+        "plane": np.array(["(1 -1 0)"], dtype=object),
+        "dip_deg": np.array([54.7]),
+        "s_deg": np.array([0.4]),
+    }
+    cols = (Column("plane", "str"), Column("dip_deg", "float", 1), Column("s_deg", "float", 1))
+    text = write_latex(
+        tmp_path / "t.tex",
+        table,
+        cols,
+        caption="Test",
+        label="tab:t",
+        sigma_of={"dip_deg": "s_deg"},
+    ).read_text()
+    assert r"\toprule" in text and r"\bottomrule" in text
+    assert r"$54.7 \pm 0.4$" in text
+    assert r"\bar{1}" in text
+
+
+def test_markdown_empty_table(tmp_path):
+    table = {c.name: np.array([]) for c in GRAIN_COLUMNS}
+    text = write_markdown(tmp_path / "g.md", table, GRAIN_COLUMNS, title="Grains").read_text()
+    assert "(no rows)" in text
+
+
+def test_unequal_columns_refused(tmp_path):
+    with pytest.raises(ValueError, match="equal length"):
+        write_csv(
+            tmp_path / "x.csv",
+            {"a": np.zeros(2), "b": np.zeros(3)},
+            (Column("a", "float"), Column("b", "float")),
+        )
+
+
+def test_staged_output_dir_refuses_and_keeps_old_results(tmp_path):
+    out = tmp_path / "out"
+    with staged_output_dir(out) as stage:
+        (stage / "a.txt").write_text("first")
+    assert (out / "a.txt").read_text() == "first"
+    with pytest.raises(InputError, match="--overwrite"):
+        with staged_output_dir(out):
+            pass
+    # A run that fails part-way leaves the earlier results untouched.
+    with pytest.raises(RuntimeError):
+        with staged_output_dir(out, overwrite=True) as stage:
+            (stage / "a.txt").write_text("second")
+            raise RuntimeError("boom")
+    assert (out / "a.txt").read_text() == "first"
+    with staged_output_dir(out, overwrite=True) as stage:
+        (stage / "b.txt").write_text("second")
+    assert sorted(p.name for p in out.iterdir()) == ["b.txt"]
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_json_nan_becomes_null(tmp_path):
+    path = write_json_atomic(
+        tmp_path / "x.json", {"a": float("nan"), "b": np.float32(1.5), "c": np.arange(2)}
+    )
+    assert json.loads(path.read_text()) == {"a": None, "b": 1.5, "c": [0, 1]}
