@@ -1,0 +1,619 @@
+"""Low-level map readers: text tables, grid placement from coordinates, npz and TIFF arrays.
+
+These functions return plain arrays; :func:`inclination.maps.read_map` turns them
+into an :class:`~inclination.maps.OrientationMap` and converts frames. Every
+failure is an :class:`~inclination.errors.InputError` naming the file and, for a
+table, the line (1-based, as a text editor counts) and the column.
+
+Why this text parser. A 4-million-point table is about 200 MB of text;
+``numpy.loadtxt`` and the csv module turn each cell into a Python object and
+take tens of seconds. Here the file is read once as bytes, line ends become
+delimiters (``bytes.replace`` runs at memory speed), empty cells become ``nan``
+by two more replacements, and ``numpy.fromstring`` converts the whole buffer
+in C. Ragged rows are found before parsing from the positions of delimiters
+and line ends (two vectorised passes over a uint8 view), so a row with a
+missing or extra cell is reported by its line instead of shifting every value
+after it. A cell that is not a number stops ``fromstring``; only then is the
+slow path taken, line by line, to name the offending line and column.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ._schemas import load_schema
+from .errors import InputError
+
+__all__ = [
+    "Table",
+    "GridPlacement",
+    "read_table",
+    "place_on_grid",
+    "read_npz_arrays",
+    "read_tiff_arrays",
+    "TABLE_DELIMITERS",
+]
+
+#: Default delimiter of each table format (None: any run of spaces or tabs).
+TABLE_DELIMITERS = {"csv": ",", "tsv": "\t", "text": None}
+
+# Coordinates may sit off their grid point by this fraction of a step (issue 3, §2).
+_OFF_GRID_FRACTION = 0.01
+_SQRT3_2 = np.sqrt(3.0) / 2.0
+
+
+@dataclass(frozen=True)
+class Table:
+    """A parsed text table.
+
+    Attributes
+    ----------
+    header : tuple of str
+        Column names, in file order.
+    values : ndarray, shape (N, C) float64
+        One row per data line; empty cells are NaN.
+    first_line : int
+        1-based line number of the first data row (row k is on line first_line + k).
+    """
+
+    header: tuple
+    values: np.ndarray
+    first_line: int
+
+    def line_of(self, row: int) -> int:
+        """The 1-based file line of data row ``row``."""
+        return self.first_line + int(row)
+
+
+def _decode_header(line: bytes, delimiter, path) -> tuple:
+    try:
+        text = line.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(
+            "Expected a UTF-8 text header row, got undecodable bytes.", path=path, pointer="line 1"
+        ) from None
+    cells = text.split() if delimiter is None else text.split(delimiter)
+    names = tuple(c.strip().strip('"').strip("'").strip() for c in cells)
+    if not names or any(not n for n in names):
+        raise InputError(
+            f"Expected a header row of non-empty column names, got {text.strip()!r}.",
+            path=path,
+            pointer="header",
+        )
+    seen = set()
+    for n in names:
+        if n in seen:
+            raise InputError(
+                f"Expected distinct column names, got {n!r} twice.", path=path, pointer="header"
+            )
+        seen.add(n)
+    return names
+
+
+def _fields_per_line(body: bytes, delimiter) -> np.ndarray:
+    """Number of fields on each line of ``body`` (lines split at b'\\n')."""
+    arr = np.frombuffer(body, dtype=np.uint8)
+    if delimiter is None:
+        # A field starts at a printable byte (> 32) that follows a space, tab or line end.
+        printable = arr > 32
+        starts = np.flatnonzero(printable[1:] & ~printable[:-1]) + 1
+        if printable.size and printable[0]:
+            starts = np.concatenate([[0], starts])
+        line_ends = np.flatnonzero(arr == 10)
+        bounds = np.searchsorted(starts, line_ends)
+        return np.diff(np.concatenate([[0], bounds, [starts.size]]))
+    events = np.flatnonzero((arr == ord(delimiter)) | (arr == 10))
+    newline_events = np.flatnonzero(arr[events] == 10)
+    per_line_delims = np.diff(np.concatenate([[-1], newline_events, [events.size]])) - 1
+    return per_line_delims + 1
+
+
+def _locate_bad_cell(body: bytes, delimiter, header, first_line, path):
+    """Slow path: find the first cell that is not a number and raise for it."""
+    lines = body.split(b"\n")
+    block = 4096
+    for start in range(0, len(lines), block):
+        chunk = lines[start : start + block]
+        for k, line in enumerate(chunk):
+            cells = line.split() if delimiter is None else line.split(delimiter.encode())
+            for c, cell in enumerate(cells):
+                text = cell.strip().strip(b'"')
+                if not text:
+                    continue
+                try:
+                    float(text)
+                except ValueError:
+                    shown = text[:40].decode("utf-8", "replace")
+                    name = header[c] if c < len(header) else f"#{c + 1}"
+                    raise InputError(
+                        f"Expected a number in column {name!r}, got {shown!r}.",
+                        path=path,
+                        pointer=f"line {first_line + start + k}",
+                    ) from None
+    raise InputError(  # pragma: no cover - fromstring refused a buffer float() accepts
+        "Expected numbers in every cell, got a buffer numpy could not parse.", path=path
+    )
+
+
+def read_table(path, *, delimiter=None, whitespace=False) -> Table:
+    """Read a delimited text table with a header row into a float array.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file. Leading lines starting with ``#`` are skipped; the next line
+        is the header. A UTF-8 byte-order mark and CR line ends are accepted.
+    delimiter : str, optional
+        One character (``','``, ``'\\t'``, ``';'`` ...). Ignored when ``whitespace``.
+    whitespace : bool, default False
+        Fields are separated by any run of spaces or tabs.
+
+    Returns
+    -------
+    Table
+
+    Raises
+    ------
+    InputError
+        Empty file, no data rows, a ragged row (first one named), a cell that
+        is not a number (first one named), a header that cannot be read.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> p = Path(tempfile.mkdtemp()) / "t.csv"
+    >>> _ = p.write_text("a,b\\n1,2\\n3,\\n")
+    >>> t = read_table(p, delimiter=",")
+    >>> t.header, t.values.tolist(), t.first_line
+    (('a', 'b'), [[1.0, 2.0], [3.0, nan]], 2)
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("Expected an existing file, got none at this path.", path=path) from None
+    except OSError as exc:
+        raise InputError(f"Expected a readable file, got {exc.strerror}.", path=path) from None
+    delim = None if whitespace or delimiter in (None, " ") else delimiter
+    if delim is not None and (len(delim) != 1 or delim in "\n\r\"'."):
+        raise ValueError(f"Expected `delimiter` to be one character, got {delimiter!r}.")
+    if raw.startswith(b"\xef\xbb\xbf"):
+        raw = raw[3:]
+    if b"\r" in raw:
+        raw = raw.replace(b"\r", b"")
+    line_no = 1
+    while raw.startswith(b"#"):
+        cut = raw.find(b"\n")
+        raw = b"" if cut < 0 else raw[cut + 1 :]
+        line_no += 1
+    if not raw.strip():
+        raise InputError("Expected a header row and data rows, got an empty file.", path=path)
+    cut = raw.find(b"\n")
+    header_line, body = (raw, b"") if cut < 0 else (raw[:cut], raw[cut + 1 :])
+    header = _decode_header(header_line, delim, path)
+    first_line = line_no + 1
+    # Only line ends are stripped at the end: a tab or comma there may close an empty cell.
+    body = body.rstrip(b"\n")
+    if delim is None:
+        body = body.rstrip()
+    if not body.strip():
+        raise InputError("Expected data rows after the header, got none.", path=path)
+    if b'"' in body:
+        body = body.replace(b'"', b"")
+
+    n_cols = len(header)
+    fields = _fields_per_line(body, delim)
+    bad = np.flatnonzero(fields != n_cols)
+    if bad.size:
+        k = int(bad[0])
+        raise InputError(
+            f"Expected {n_cols} fields on every row (as in the header), got {int(fields[k])}.",
+            path=path,
+            pointer=f"line {first_line + k}",
+        )
+
+    if delim is None:
+        text, sep = body, " "
+    else:
+        d = delim.encode()
+        if d == b"\t":
+            # numpy treats whitespace in `sep` as "any whitespace", which would merge
+            # empty tab-separated cells; a comma keeps every cell.
+            body, d = body.replace(b"\t", b","), b","
+        text = body.replace(b"\n", d)
+        pair = d + d
+        if pair in text:
+            text = text.replace(pair, d + b"nan" + d).replace(pair, d + b"nan" + d)
+        if text.startswith(d):
+            text = b"nan" + text
+        if text.endswith(d):
+            text = text + b"nan"
+        sep = d.decode()
+    try:
+        flat = np.fromstring(text, dtype=np.float64, sep=sep)
+    except ValueError:
+        flat = None
+    n_rows = fields.size
+    if flat is None or flat.size != n_rows * n_cols:
+        _locate_bad_cell(body, None if delim is None else d.decode(), header, first_line, path)
+    values = flat.reshape(n_rows, n_cols)
+    return Table(header=header, values=values, first_line=first_line)
+
+
+@dataclass(frozen=True)
+class GridPlacement:
+    """Where each table row sits on the map grid (conventions §1, in S).
+
+    Attributes
+    ----------
+    row, col : ndarray, shape (N,) int64
+        Grid indices of each table row.
+    shape : tuple of int
+        (H, W).
+    origin_sample_um : tuple of float
+        Position of grid point (0, 0) in the frame the coordinates were given
+        in after turning into S axes (µm).
+    step_x_um, step_y_um : float
+        Steps along X_S and Y_S; on a hexagonal grid both are the in-row
+        neighbour distance and rows are ``step·√3/2`` apart.
+    grid : {'square', 'hexagonal'}
+    """
+
+    row: np.ndarray
+    col: np.ndarray
+    shape: tuple
+    origin_sample_um: tuple
+    step_x_um: float
+    step_y_um: float
+    grid: str
+
+
+def _spacing(values: np.ndarray) -> tuple[float, float]:
+    """(position of the first line, spacing) of coordinates clustered on regular lines.
+
+    Points may sit up to 1 % of a step off their line while neighbouring lines
+    are at least a step apart, so sorted unique values jump either by under
+    2 % of a step (one line) or by a step or more (the next line). Clusters are
+    split where a jump exceeds a fifth of the smallest gap between clusters,
+    found by shrinking the cut from a fifth of the largest jump (wide bands of
+    missing lines would otherwise hide the step). Returns spacing 0 for a
+    single line.
+    """
+    u = np.unique(values)
+    if u.size == 1:
+        return float(u[0]), 0.0
+    d = np.diff(u)
+    cut = 0.2 * d.max()
+    for _ in range(64):
+        label = np.concatenate([[0], np.cumsum(d > cut)])
+        centres = np.bincount(label, weights=u) / np.bincount(label)
+        gaps = np.diff(centres)
+        if gaps.size == 0:
+            return float(centres[0]), 0.0
+        new_cut = 0.2 * gaps.min()
+        if new_cut >= cut * 0.999:
+            break
+        cut = new_cut
+    # The step from single-step gaps only, then refined by least squares through all
+    # line centres, so a step is not set by one noisy gap.
+    s0 = float(np.median(gaps[gaps < 1.5 * gaps.min()]))
+    k = np.rint((centres - centres[0]) / s0)
+    slope, intercept = np.polyfit(k, centres, 1)
+    return float(intercept), float(slope)
+
+
+def _first_off(residual: np.ndarray) -> int:
+    bad = np.flatnonzero(np.abs(residual) > _OFF_GRID_FRACTION)
+    return -1 if bad.size == 0 else int(bad[0])
+
+
+def place_on_grid(
+    x_um, y_um, *, step_x_um=None, step_y_um=None, grid=None, path=None, line_of=None
+) -> GridPlacement:
+    """Place points on a square or hexagonal grid from their coordinates (conventions §1).
+
+    Parameters
+    ----------
+    x_um, y_um : array_like, shape (N,)
+        Point positions along X_S and Y_S (any origin), µm, finite.
+    step_x_um, step_y_um : float, optional
+        Declared steps along X_S and Y_S; checked against the coordinates
+        (1 %). Measured from the coordinates when omitted. On a hexagonal
+        grid give the in-row neighbour distance for both.
+    grid : {'square', 'hexagonal'}, optional
+        Declared grid; checked against the coordinates. Recognised when omitted:
+        hexagonal when every row's points lie on alternating half-step offsets
+        and rows are step·√3/2 apart.
+    path : optional
+        The file, for error messages.
+    line_of : callable, optional
+        Row index → file line number, for error messages.
+
+    Returns
+    -------
+    GridPlacement
+
+    Raises
+    ------
+    InputError
+        Zero or inconsistent steps, points off the grid by more than 1 % of the
+        step, duplicate points (each with the first offending line), a declared
+        grid the coordinates contradict.
+
+    Examples
+    --------
+    >>> p = place_on_grid([0.0, 0.5, 0.25, 0.75], [0.0, 0.0, 0.433013, 0.433013])
+    >>> p.grid, p.shape, p.row.tolist(), p.col.tolist()
+    ('hexagonal', (2, 2), [0, 0, 1, 1], [0, 1, 0, 1])
+    """
+    x = np.asarray(x_um, dtype=np.float64)
+    y = np.asarray(y_um, dtype=np.float64)
+    line_of = line_of or (lambda r: int(r) + 1)
+
+    def refuse(message, row=None):
+        pointer = None if row is None else f"line {line_of(row)}"
+        raise InputError(message, path=path, pointer=pointer)
+
+    x0, sx_all = _spacing(x)
+    y0, sy = _spacing(y)
+    # Half-step index of every point along x, row index along y.
+    hex_like = False
+    if sy > 0 and sx_all > 0:
+        i = np.rint((y - y0) / sy).astype(np.int64)
+        k = np.rint((x - x0) / sx_all).astype(np.int64)
+        parity = (k + i) % 2
+        ratio = sy / (2.0 * sx_all)
+        hex_like = bool(np.all(parity == parity[0])) and abs(ratio / _SQRT3_2 - 1.0) < 0.01
+    detected = "hexagonal" if hex_like else "square"
+    if grid is not None and grid != detected:
+        refuse(
+            f"Expected a {grid} grid as declared, got coordinates that form a {detected} "
+            "grid; declare 'grid' to match the file."
+        )
+
+    if detected == "hexagonal":
+        step = 2.0 * sx_all
+        for declared in {step_x_um, step_y_um} - {None}:
+            if abs(declared / step - 1.0) > _OFF_GRID_FRACTION:
+                refuse(
+                    f"Expected the points to be {declared:g} µm apart as declared, got a "
+                    f"hexagonal grid with neighbours {step:.6g} µm apart (inconsistent step)."
+                )
+            step = float(declared)
+        pitch = step * _SQRT3_2
+        # Even rows must hold the unshifted points (conventions §1); when the top row
+        # is a shifted one, the grid origin moves half a step left.
+        shift = 0.5 * step if parity[0] == 1 else 0.0
+        xg = x0 - shift
+        u = (y - y0) / pitch
+        row = np.rint(u).astype(np.int64)
+        v = (x - xg) / step - 0.5 * (row % 2)
+        col = np.rint(v).astype(np.int64)
+        sx = sy_out = step
+    else:
+        sx, pitch = sx_all, sy
+        for name, declared, measured in (("x", step_x_um, sx), ("y", step_y_um, sy)):
+            if declared is None:
+                continue
+            if measured > 0 and abs(declared / measured - 1.0) > _OFF_GRID_FRACTION:
+                refuse(
+                    f"Expected points {declared:g} µm apart along {name} as declared, got "
+                    f"{measured:.6g} µm (inconsistent step)."
+                )
+        sx = float(step_x_um) if step_x_um is not None else sx
+        pitch = float(step_y_um) if step_y_um is not None else pitch
+        if sx == 0 and pitch == 0:
+            refuse("Expected a map of more than one point position, got a single position.")
+        # A single row or column has no spacing of its own: take the other axis' step.
+        sx = sx if sx > 0 else pitch
+        pitch = pitch if pitch > 0 else sx
+        xg = x0
+        u = (y - y0) / pitch
+        row = np.rint(u).astype(np.int64)
+        v = (x - xg) / sx
+        col = np.rint(v).astype(np.int64)
+        sy_out = pitch
+
+    for name, frac, step_name in (("y", u - row, pitch), ("x", v - col, sx)):
+        first = _first_off(frac)
+        if first >= 0:
+            refuse(
+                f"Expected {name} on the grid (steps of {step_name:.6g} µm) within 1 % of a "
+                f"step, got {frac[first]:+.3f} steps off (irregular spacing).",
+                first,
+            )
+    shape = (int(row.max()) + 1, int(col.max()) + 1)
+    linear = row * shape[1] + col
+    order = np.argsort(linear, kind="stable")
+    dup = np.flatnonzero(linear[order][1:] == linear[order][:-1])
+    if dup.size:
+        second = order[1:][dup]
+        first_dup = int(second.min())
+        refuse(
+            f"Expected one point per grid position, got a duplicate of the point at "
+            f"x = {x[first_dup]:.6g}, y = {y[first_dup]:.6g} µm.",
+            first_dup,
+        )
+    return GridPlacement(
+        row=row,
+        col=col,
+        shape=shape,
+        origin_sample_um=(float(xg), float(y0)),
+        step_x_um=float(sx),
+        step_y_um=float(sy_out),
+        grid=detected,
+    )
+
+
+def _load_npz(path):
+    try:
+        with np.load(path, allow_pickle=False) as npz:
+            return {k: npz[k] for k in npz.files}
+    except FileNotFoundError:
+        raise InputError("Expected an existing file, got none at this path.", path=path) from None
+    except (OSError, ValueError, EOFError) as exc:
+        raise InputError(
+            f"Expected a NumPy .npz archive, got an unreadable file ({exc}).", path=path
+        ) from None
+
+
+def read_npz_arrays(path, *, angles: str):
+    """Arrays of an ``.npz`` map: ``euler_deg`` (or ``euler_rad``), ``phase``, quality.
+
+    Parameters
+    ----------
+    path : str or Path
+    angles : {'deg', 'rad'}
+        Which Euler array is expected: ``euler_deg`` or ``euler_rad``.
+
+    Returns
+    -------
+    euler : ndarray, shape (H, W, 3) float64, in the declared unit
+    phase : ndarray, shape (H, W) float64 (NaN allowed; checked by the caller)
+    quality : dict of name -> ndarray (H, W) float64
+        Every other array of shape (H, W).
+
+    Examples
+    --------
+    >>> import tempfile, os
+    >>> p = os.path.join(tempfile.mkdtemp(), "m.npz")
+    >>> np.savez(p, euler_deg=np.zeros((2, 3, 3)), phase=np.ones((2, 3)), ci=np.ones((2, 3)))
+    >>> e, ph, q = read_npz_arrays(p, angles="deg")
+    >>> e.shape, ph.shape, sorted(q)
+    ((2, 3, 3), (2, 3), ['ci'])
+    """
+    arrays = _load_npz(path)
+    key = f"euler_{angles}"
+    for needed in (key, "phase"):
+        if needed not in arrays:
+            raise InputError(
+                f"Expected an array named {needed!r} (angles declared {angles!r}), "
+                f"got arrays {sorted(arrays)}.",
+                path=path,
+                pointer=needed,
+            )
+    euler = arrays.pop(key)
+    phase = arrays.pop("phase")
+    if euler.ndim != 3 or euler.shape[-1] != 3:
+        raise InputError(
+            f"Expected {key!r} to have shape (H, W, 3), got {euler.shape}.", path=path, pointer=key
+        )
+    if phase.shape != euler.shape[:2]:
+        raise InputError(
+            f"Expected 'phase' to have shape {euler.shape[:2]}, got {phase.shape}.",
+            path=path,
+            pointer="phase",
+        )
+    quality = {}
+    for name, arr in arrays.items():
+        if name in ("euler_deg", "euler_rad"):
+            raise InputError(
+                f"Expected only {key!r} (angles declared {angles!r}), got {name!r} too.",
+                path=path,
+                pointer=name,
+            )
+        if arr.shape != phase.shape or arr.dtype.kind not in "biuf":
+            raise InputError(
+                f"Expected quality array {name!r} to be numbers of shape {phase.shape}, "
+                f"got {arr.dtype} {arr.shape}.",
+                path=path,
+                pointer=name,
+            )
+        quality[name] = arr.astype(np.float64)
+    for name, arr in (("euler", euler), ("phase", phase)):
+        if arr.dtype.kind not in "biuf":
+            raise InputError(f"Expected numbers, got dtype {arr.dtype}.", path=path, pointer=name)
+    return euler.astype(np.float64), phase.astype(np.float64), quality
+
+
+def read_sidecar(path) -> dict:
+    """Read and validate a TIFF sidecar (schemas/tiff-sidecar.schema.json)."""
+    from jsonschema import Draft202012Validator
+
+    try:
+        doc = json.loads(Path(path).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(
+            "Expected the TIFF's JSON sidecar naming its channels, got no file at this path.",
+            path=path,
+        ) from None
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(
+            f"Expected a JSON sidecar, got unreadable JSON ({exc}).", path=path
+        ) from None
+    validator = Draft202012Validator(load_schema("tiff-sidecar.schema.json"))
+    errors = sorted(validator.iter_errors(doc), key=lambda e: list(e.absolute_path))
+    if errors:
+        err = errors[0]
+        pointer = "/" + "/".join(str(p) for p in err.absolute_path)
+        raise InputError(f"Expected a valid sidecar: {err.message}.", path=path, pointer=pointer)
+    return doc
+
+
+def read_tiff_arrays(path, *, sidecar_path, angles: str):
+    """Channels of a TIFF stack named by its sidecar.
+
+    Parameters
+    ----------
+    path : str or Path
+        TIFF with C pages (or one (C, H, W) page series) of H × W float images.
+    sidecar_path : str or Path
+        JSON naming the channels in page order.
+    angles : {'deg', 'rad'}
+        The job's unit; must agree with the sidecar's ``angles`` when present.
+
+    Returns
+    -------
+    euler : ndarray, shape (H, W, 3) float64
+    phase : ndarray, shape (H, W) float64
+    quality : dict of name -> ndarray (H, W) float64
+
+    Examples
+    --------
+    >>> import tempfile, os, json, tifffile
+    >>> d = tempfile.mkdtemp(); p = os.path.join(d, "m.tif")
+    >>> tifffile.imwrite(p, np.zeros((5, 2, 3), np.float32), photometric="minisblack")
+    >>> _ = Path(p + ".json").write_text(json.dumps(
+    ...     {"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase", "ci"]}))
+    >>> e, ph, q = read_tiff_arrays(p, sidecar_path=p + ".json", angles="deg")
+    >>> e.shape, sorted(q)
+    ((2, 3, 3), ['ci'])
+    """
+    import tifffile
+
+    side = read_sidecar(sidecar_path)
+    if "angles" in side and side["angles"] != angles:
+        raise InputError(
+            f"Expected the sidecar's angles to agree with the job's {angles!r}, "
+            f"got {side['angles']!r}.",
+            path=sidecar_path,
+            pointer="/angles",
+        )
+    try:
+        stack = tifffile.imread(path)
+    except FileNotFoundError:
+        raise InputError("Expected an existing file, got none at this path.", path=path) from None
+    except Exception as exc:  # tifffile raises several types for a bad file
+        raise InputError(
+            f"Expected a TIFF file, got an unreadable one ({exc}).", path=path
+        ) from None
+    channels = side["channels"]
+    if stack.ndim == 2:
+        stack = stack[None]
+    if stack.ndim != 3 or stack.shape[0] != len(channels):
+        found = stack.shape[0] if stack.ndim == 3 else stack.ndim
+        raise InputError(
+            f"Expected {len(channels)} channels as the sidecar names ({', '.join(channels)}), "
+            f"got {found} (stack shape {stack.shape}).",
+            path=path,
+        )
+    if stack.dtype.kind not in "biuf":
+        raise InputError(f"Expected numeric channels, got dtype {stack.dtype}.", path=path)
+    planes = {name: stack[c].astype(np.float64) for c, name in enumerate(channels)}
+    euler = np.stack([planes.pop("phi1"), planes.pop("Phi"), planes.pop("phi2")], axis=-1)
+    phase = planes.pop("phase")
+    return euler, phase, planes
