@@ -24,8 +24,8 @@ from inclination.planes import (
     twin_test_summary,
 )
 from inclination.rotations import (
-    quat_from_axis_angle_deg,
     quat_angle_deg,
+    quat_from_axis_angle_deg,
     quat_from_euler_deg,
     quat_inverse,
     quat_multiply,
