@@ -297,6 +297,19 @@ def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None,
     return np.degrees(np.sqrt(sigma_grid2 + sigma_r2))
 
 
+def _distance_to_chord(rel, chord):
+    """Distance of points (given relative to a chord's start) to the chord, a line segment.
+
+    The segment, not its infinite line, as in GEOS's Douglas–Peucker simplifier: a
+    point beyond an end (a chain that doubles back) counts by its distance to that
+    end, and the chord of a loop, which starts and ends on one point, is that point.
+    """
+    length2 = chord[:, 0] ** 2 + chord[:, 1] ** 2
+    along = np.einsum("ij,ij->i", rel, chord) / np.where(length2 > 0, length2, 1.0)
+    off = rel - np.clip(along, 0.0, 1.0)[:, None] * chord
+    return np.hypot(off[:, 0], off[:, 1])
+
+
 def _ramer_douglas_peucker(points, starts, ends, tolerance):
     """Break indices of many polylines at once, by the recursive farthest-point split.
 
@@ -316,16 +329,8 @@ def _ramer_douglas_peucker(points, starts, ends, tolerance):
         group = np.repeat(np.arange(s.size), inner)
         first = np.cumsum(inner) - inner
         idx = np.arange(group.size) - first[group] + s[group] + 1
-        chord = points[e] - points[s]
-        chord_len = np.hypot(chord[:, 0], chord[:, 1])
         rel = points[idx] - points[s][group]
-        cross = np.abs(chord[group, 0] * rel[:, 1] - chord[group, 1] * rel[:, 0])
-        # A closed polyline starts and ends on the same point: its chord is a point.
-        dist = np.where(
-            chord_len[group] > 0,
-            cross / np.where(chord_len > 0, chord_len, 1.0)[group],
-            np.hypot(rel[:, 0], rel[:, 1]),
-        )
+        dist = _distance_to_chord(rel, (points[e] - points[s])[group])
         dmax = np.maximum.reduceat(dist, first)
         at_max = np.flatnonzero(dist == dmax[group])
         _, first_at_max = np.unique(group[at_max], return_index=True)
@@ -349,9 +354,10 @@ def split_polyline(points, tolerance_um, *, closed=False):
     tolerance_um : float
         Largest allowed distance (µm) of a vertex from the chord of its piece, > 0.
     closed : bool
-        Whether the last vertex joins the first (a loop). A loop is first split at
-        the vertex farthest from vertex 0; vertex 0 is then kept as a break only
-        if the piece through it is not straight within the tolerance.
+        Whether the last vertex joins the first (a loop). A loop is started at the
+        vertex farthest from vertex 0 (a vertex of the convex hull, so a corner,
+        wherever the list starts); that start is kept as a break only if the
+        piece through it is not straight within the tolerance.
 
     Returns
     -------
@@ -376,28 +382,27 @@ def split_polyline(points, tolerance_um, *, closed=False):
         return np.arange(n)
     if not closed:
         return _ramer_douglas_peucker(pts, np.array([0]), np.array([n - 1]), tolerance_um)
-    breaks = _closed_breaks(pts, tolerance_um)
-    return np.sort(breaks % n)
+    return _closed_breaks(pts, tolerance_um)
 
 
 def _closed_breaks(pts, tolerance):
-    """Breaks of one loop, in positions 0..2N of the loop written twice; first break < N."""
+    """Sorted break indices (0..N-1) of one loop of N >= 3 vertices."""
     n = pts.shape[0]
-    doubled = np.concatenate([pts, pts, pts[:1]])
-    breaks = _ramer_douglas_peucker(doubled, np.array([0]), np.array([n]), tolerance)
-    if breaks.size <= 3:
-        # One or two pieces: a loop always bends at both of its breaks.
-        return breaks[:-1]
-    # Drop vertex 0 when the piece through it is straight: then 0 was only where the
-    # list happened to start, not a bend.
-    before, after = breaks[-2], breaks[1] + n
-    lo, hi = int(before), int(after)
-    chord = doubled[hi] - doubled[lo]
-    rel = doubled[lo + 1 : hi] - doubled[lo]
-    dist = np.abs(chord[0] * rel[:, 1] - chord[1] * rel[:, 0]) / np.hypot(*chord)
-    if dist.size and dist.max() <= tolerance:
-        return breaks[1:-1]
-    return breaks[:-1]
+    # Start the loop at the vertex farthest from vertex 0: a vertex of the convex
+    # hull, so a true corner, wherever the list happened to start.
+    start = int(np.argmax(np.hypot(*(pts - pts[0]).T)))
+    loop = np.roll(pts, -start, axis=0)
+    doubled = np.concatenate([loop, loop[:1]])
+    breaks = _ramer_douglas_peucker(doubled, np.array([0]), np.array([n]), tolerance)[:-1]
+    if breaks.size >= 3:
+        # Drop the start when the piece through it is straight after all.
+        lo, hi = int(breaks[-1]), int(breaks[1]) + n
+        ring = np.concatenate([loop, loop])
+        rel = ring[lo + 1 : hi] - ring[lo]
+        dist = _distance_to_chord(rel, np.broadcast_to(ring[hi] - ring[lo], rel.shape))
+        if dist.max() <= tolerance:
+            breaks = breaks[1:]
+    return np.sort((breaks + start) % n)
 
 
 def _check_network(network):
@@ -433,10 +438,12 @@ def _check_network(network):
 def _chain_pieces(offsets, points, closed, tolerance):
     """Pieces of every chain as intervals of a gathered point index.
 
-    Returns ``(order, piece_start, piece_end, piece_chain)``: ``points[order]``
+    Returns ``(order, piece_start, piece_end, piece_chain, at_chain_end)``:
+    ``points[order]``
     lists the chains one after another, loops written twice plus their first
     point, so that every piece, even one that wraps round a loop, is the
-    contiguous run ``order[piece_start[k]:piece_end[k] + 1]``.
+    contiguous run ``order[piece_start[k]:piece_end[k] + 1]``; ``at_chain_end``
+    (K, 2) marks the piece ends that are chain ends (not breaks, not on a loop).
     """
     counts = np.diff(offsets)
     closed = np.asarray(closed, dtype=bool) & (counts >= 3)
@@ -478,18 +485,38 @@ def _chain_pieces(offsets, points, closed, tolerance):
     piece_end = np.concatenate(stops).astype(np.int64)
     piece_chain = np.concatenate(owners).astype(np.int64)
     sort = np.lexsort((piece_start, piece_chain))
-    return order, piece_start[sort], piece_end[sort], piece_chain[sort]
+    piece_start, piece_end, piece_chain = piece_start[sort], piece_end[sort], piece_chain[sort]
+    open_chain = ~closed[piece_chain]
+    at_chain_end = np.stack(
+        [
+            open_chain & (piece_start == gstart[piece_chain]),
+            open_chain & (piece_end == gstart[piece_chain] + counts[piece_chain] - 1),
+        ],
+        axis=1,
+    )
+    return order, piece_start, piece_end, piece_chain, at_chain_end
 
 
-def _fit_pieces(pts, piece_start, piece_end):
-    """TLS fit of many pieces at once: the columns of the segments table that are geometry."""
-    n = piece_end - piece_start + 1
+def _fit_pieces(pts, piece_start, piece_end, at_chain_end):
+    """TLS fit of many pieces at once: the columns of the segments table that are geometry.
+
+    ``at_chain_end`` (K, 2) says whether each end of a piece is an end of its chain
+    (a junction or the map edge) rather than a break inside the chain.
+    """
+    # A break vertex is the corner itself, or the first midpoint past it on the other
+    # arm: it is left out of the fit of both pieces (while each keeps >= 2 points), and
+    # only marks where the pieces end.
+    size = piece_end - piece_start + 1
+    drop = (~at_chain_end) & (size[:, None] >= 4)
+    drop[:, 1] &= size - drop[:, 0] >= 3
+    f_start, f_end = piece_start + drop[:, 0], piece_end - drop[:, 1]
+    n = f_end - f_start + 1
     group = np.repeat(np.arange(n.size), n)
     first = np.cumsum(n) - n
-    idx = np.arange(group.size) - first[group] + piece_start[group]
+    idx = np.arange(group.size) - first[group] + f_start[group]
     p = pts[idx]
     centre = np.stack([np.bincount(group, p[:, k], minlength=n.size) for k in (0, 1)], 1)
-    centre /= n[:, None]
+    centre = centre / np.maximum(n, 1)[:, None]
     d = p - centre[group]
     sxx = np.bincount(group, d[:, 0] ** 2, minlength=n.size)
     syy = np.bincount(group, d[:, 1] ** 2, minlength=n.size)
@@ -499,15 +526,15 @@ def _fit_pieces(pts, piece_start, piece_end):
     direction = np.stack([np.cos(np.radians(angle_deg)), np.sin(np.radians(angle_deg))], 1)
     t0 = np.einsum("ij,ij->i", pts[piece_start] - centre, direction)
     t1 = np.einsum("ij,ij->i", pts[piece_end] - centre, direction)
-    # The first and last midpoints sit half an edge inside the piece's true ends (a
-    # junction or the map edge); move each end out by half the mean midpoint spacing,
-    # so the length counts every edge once and never the staircase.
-    half_gap = np.where(n > 1, 0.5 * (t1 - t0) / np.maximum(n - 1, 1), 0.0)
-    t0, t1 = t0 - half_gap, t1 + half_gap
+    # At a junction or the map edge the last midpoint sits half an edge inside the
+    # boundary's end: move that end out by half the mean midpoint spacing, so the length
+    # counts every edge once, along the line, and never the staircase.
+    spacing = np.einsum("ij,ij->i", pts[f_end] - pts[f_start], direction) / np.maximum(n - 1, 1)
+    t0 = t0 - np.where(at_chain_end[:, 0], 0.5 * spacing, 0.0)
+    t1 = t1 + np.where(at_chain_end[:, 1], 0.5 * spacing, 0.0)
     end0 = centre + t0[:, None] * direction
     end1 = centre + t1[:, None] * direction
-    degenerate = ~(lam_max > 0)
-    angle_deg = np.where(degenerate, np.nan, angle_deg)
+    angle_deg = np.where(lam_max > 0, angle_deg, np.nan)
     return {
         "end0": end0,
         "end1": end1,
@@ -545,8 +572,10 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
         fitted line, where the first and last edges of the piece end;
         ``length_um`` is their distance; ``trace_angle_deg`` in [0, 180) from +X
         toward +Y (§2), NaN for a piece of one edge; ``trace_sigma_deg`` from
-        :func:`trace_sigma_model_deg`; ``n_edges`` counts the edge midpoints of the
-        piece (neighbouring pieces share their break point). An empty network gives
+        :func:`trace_sigma_model_deg`; ``n_edges`` counts the edge midpoints fitted.
+        Neighbouring pieces of a chain share their break vertex: it fixes where
+        both end but enters neither fit (it may be the first midpoint of the
+        other arm), as long as each fit keeps two points. An empty network gives
         a table of empty columns.
 
     Raises
@@ -580,10 +609,10 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     check_positive(min_length, "min_length_um", allow_zero=True)
     offsets, points = _check_network(network)
 
-    order, p_start, p_end, p_chain = _chain_pieces(
+    order, p_start, p_end, p_chain, at_chain_end = _chain_pieces(
         offsets, points, np.asarray(network.closed), tolerance
     )
-    geo = _fit_pieces(points[order], p_start, p_end)
+    geo = _fit_pieces(points[order], p_start, p_end, at_chain_end)
     sigma = trace_sigma_model_deg(
         geo["length_um"],
         step_um,
