@@ -12,6 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
+from inclination import lattice
 from inclination.planes import predict_planes
 from inclination.rotations import quat_from_euler_deg, quat_from_matrix
 
@@ -95,7 +96,6 @@ def test_titanium_10_12_twin_planes(hkil, azimuth):
 
 
 def test_titanium_normals_from_lattice_module():
-    lattice = pytest.importorskip("inclination.lattice")
     ti = lattice.Lattice.from_parameters(2.951, 2.951, 4.684, 90, 90, 120, setting="x_parallel_a")
     got = lattice.plane_normals_crystal(ti, [[1, 0, -1, 2], [-1, 0, 1, 2]])
     want = np.array([_hexagonal_normal(h, 2.951, 4.684) for h in ((1, 0, -1, 2), (-1, 0, 1, 2))])
