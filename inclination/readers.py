@@ -303,7 +303,8 @@ def _spacing(values: np.ndarray) -> tuple[float, float]:
     s0 = float(np.median(gaps[gaps < 1.5 * gaps.min()]))
     k = np.rint((centres - centres[0]) / s0)
     slope, intercept = np.polyfit(k, centres, 1)
-    return float(intercept), float(slope)
+    # Coordinates are printed decimals: the fit's last-bit noise is not information.
+    return float(np.round(intercept, 9)), float(f"{slope:.9g}")
 
 
 def _first_off(residual: np.ndarray) -> int:

@@ -1,0 +1,901 @@
+"""The orientation map record, the map reader behind the job file, and map writers.
+
+An :class:`OrientationMap` holds orientations already converted into the sample
+frame S (conventions §2–§3) on a square or hexagonal grid (§1). Conversion from
+the user's declared axes and data-frame rotation happens once, in
+:func:`read_map`; the writers convert back, so a written file carries Euler
+angles and coordinates in the declared frame, as it was read.
+
+Float32 storage. Quaternion components are stored as float32 (relative error
+≤ 6e-8), so an orientation read back differs from the float64 one by at most
+about 1e-5°; text files written here carry coordinates to 1e-6 µm and Euler
+angles to 1e-5°.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import os
+import tempfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+
+import numpy as np
+
+from ._validation import check_one_of
+from .errors import InputError
+from .frames import DeclaredAxes, data_frame_quat, orientations_to_declared, orientations_to_sample
+from .readers import (
+    TABLE_DELIMITERS,
+    place_on_grid,
+    read_npz_arrays,
+    read_table,
+    read_tiff_arrays,
+)
+from .rotations import quat_as_euler_deg, quat_from_euler_deg
+
+__all__ = [
+    "GRIDS",
+    "MAP_FORMATS",
+    "OrientationMap",
+    "read_map",
+    "read_map_file",
+    "write_npz",
+    "write_tiff",
+    "write_csv",
+]
+
+GRIDS = ("square", "hexagonal")
+MAP_FORMATS = ("csv", "tsv", "text", "npz", "tiff")
+_ANGLE_UNITS = ("deg", "rad")
+_ROLES = ("x_um", "y_um", "phi1", "Phi", "phi2", "phase")
+# Names a quality channel may not take: they are the written files' own columns/arrays.
+_RESERVED = frozenset(
+    {"x_um", "y_um", "phi1_deg", "Phi_deg", "phi2_deg", "phase", "euler_deg", "euler_rad"}
+    | {"phi1", "Phi", "phi2"}
+)
+_IDENTITY = (1.0, 0.0, 0.0, 0.0)
+_SQRT3_2 = np.sqrt(3.0) / 2.0
+# Above this many indexed points a table whose angles never exceed 2π cannot be in degrees.
+_UNIT_CHECK_MIN_POINTS = 100
+
+
+def _read_only(arr: np.ndarray) -> np.ndarray:
+    arr.flags.writeable = False
+    return arr
+
+
+@dataclass(frozen=True, eq=False)
+class OrientationMap:
+    """An orientation map in the sample frame S (conventions §1–§3).
+
+    Parameters
+    ----------
+    quat : array_like, shape (4, H, W)
+        Unit quaternions (scalar first) of the orientations ``g_S`` (S to
+        crystal), stored as C-contiguous float32 planes. Points that are not
+        valid hold the identity.
+    phase : array_like of int, shape (H, W)
+        Phase ids; 0 where not indexed. Stored as int32.
+    valid : array_like of bool, shape (H, W), optional
+        Indexed, finite and of a known phase. Default ``phase != 0``; must
+        imply ``phase != 0``.
+    quality : mapping of str to array_like (H, W), optional
+        Named float32 channels (e.g. a confidence index), NaN where absent.
+    grid : {'square', 'hexagonal'}
+    step_x_um, step_y_um : float
+        Steps along X_S and Y_S (µm). On a hexagonal grid both are the in-row
+        neighbour distance ``s`` and rows are ``s·√3/2`` apart.
+    axes : DeclaredAxes
+        The declared axes the map was read from (with their origin), used to
+        write angles and positions back in the user's frame.
+    data_frame_rotation : array_like, shape (4,)
+        Quaternion of the declared data-frame rotation (frames.data_frame_quat).
+    provenance : mapping
+        Source path, SHA-256 of the file, reader and its settings.
+
+    Every array is copied and set read-only; the record is immutable.
+
+    Examples
+    --------
+    >>> q = np.zeros((4, 2, 3)); q[0] = 1.0
+    >>> omap = OrientationMap(q, np.ones((2, 3), int), grid="square", step_x_um=0.5,
+    ...                       step_y_um=0.5)
+    >>> omap.shape, omap.n_points, omap.quat.dtype.name, omap.quat.flags.writeable
+    ((2, 3), 6, 'float32', False)
+    >>> omap.positions_sample_um()[1, 2].tolist()
+    [1.0, 0.5]
+    """
+
+    quat: np.ndarray
+    phase: np.ndarray
+    valid: np.ndarray | None = None
+    quality: Mapping = field(default_factory=dict)
+    grid: str = "square"
+    step_x_um: float = 1.0
+    step_y_um: float = 1.0
+    axes: DeclaredAxes = field(default_factory=DeclaredAxes)
+    data_frame_rotation: np.ndarray = _IDENTITY
+    provenance: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        quat = np.array(self.quat, dtype=np.float32, order="C", copy=True)
+        if quat.ndim != 3 or quat.shape[0] != 4:
+            raise ValueError(f"Expected `quat` to have shape (4, H, W), got {quat.shape}.")
+        shape = quat.shape[1:]
+        phase = np.asarray(self.phase)
+        if phase.ndim != 2 or phase.shape != shape:
+            raise ValueError(f"Expected `phase` to have shape {shape}, got {phase.shape}.")
+        if phase.dtype.kind not in "iu":
+            raise TypeError(f"Expected `phase` to be integers, got dtype {phase.dtype}.")
+        if phase.size and (phase.min() < 0 or phase.max() > np.iinfo(np.int32).max):
+            raise ValueError("Expected `phase` to hold ids >= 0, got a negative id.")
+        phase = np.array(phase, dtype=np.int32, order="C", copy=True)
+        if self.valid is None:
+            valid = phase != 0
+        else:
+            valid = np.array(self.valid, order="C", copy=True)
+            if valid.dtype != bool or valid.shape != shape:
+                raise ValueError(
+                    f"Expected `valid` to be bool of shape {shape}, "
+                    f"got {valid.dtype} {valid.shape}."
+                )
+            if np.any(valid & (phase == 0)):
+                raise ValueError("Expected `valid` to be False wherever `phase` is 0, got True.")
+        planes = quat[:, valid]
+        if not np.all(np.isfinite(planes)):
+            raise ValueError("Expected `quat` to be finite at valid points, got NaN or inf.")
+        norm = np.sqrt(np.einsum("kn,kn->n", planes, planes, dtype=np.float64))
+        if norm.size and np.max(np.abs(norm - 1.0)) > 1e-3:
+            raise ValueError(
+                f"Expected `quat` to be unit at valid points, got a norm of {norm.max():.6g}."
+            )
+        quat[:, ~valid] = np.asarray(_IDENTITY, dtype=np.float32)[:, None]
+        check_one_of(self.grid, "grid", GRIDS)
+        for name in ("step_x_um", "step_y_um"):
+            value = getattr(self, name)
+            if not (np.isfinite(value) and value > 0):
+                raise ValueError(f"Expected `{name}` to be a finite number > 0, got {value!r}.")
+            object.__setattr__(self, name, float(value))
+        if self.grid == "hexagonal" and self.step_x_um != self.step_y_um:
+            raise ValueError(
+                "Expected `step_x_um` == `step_y_um` on a hexagonal grid, "
+                f"got {self.step_x_um} and {self.step_y_um}."
+            )
+        if not isinstance(self.axes, DeclaredAxes):
+            raise TypeError(f"Expected `axes` to be DeclaredAxes, got {type(self.axes).__name__}.")
+        quality = {}
+        for name, arr in dict(self.quality).items():
+            if not isinstance(name, str) or not name or name in _RESERVED:
+                raise ValueError(
+                    f"Expected quality names to be non-empty and not one of "
+                    f"{tuple(sorted(_RESERVED))}, got {name!r}."
+                )
+            arr = np.array(arr, dtype=np.float32, order="C", copy=True)
+            if arr.shape != shape:
+                raise ValueError(
+                    f"Expected quality channel {name!r} to have shape {shape}, got {arr.shape}."
+                )
+            quality[name] = _read_only(arr)
+        dfr = np.array(self.data_frame_rotation, dtype=np.float64, copy=True)
+        if dfr.shape != (4,) or abs(np.linalg.norm(dfr) - 1.0) > 1e-6:
+            raise ValueError(
+                f"Expected `data_frame_rotation` to be a unit quaternion (4,), got {dfr!r}."
+            )
+        object.__setattr__(self, "quat", _read_only(quat))
+        object.__setattr__(self, "phase", _read_only(phase))
+        object.__setattr__(self, "valid", _read_only(valid))
+        object.__setattr__(self, "quality", MappingProxyType(quality))
+        object.__setattr__(self, "data_frame_rotation", _read_only(dfr))
+        object.__setattr__(self, "provenance", MappingProxyType(dict(self.provenance)))
+
+    @classmethod
+    def from_euler_deg(
+        cls,
+        euler_deg,
+        phase,
+        *,
+        grid: str,
+        step_x_um: float,
+        step_y_um: float | None = None,
+        axes: DeclaredAxes | None = None,
+        data_frame_rotation=None,
+        quality=None,
+        provenance=None,
+    ) -> OrientationMap:
+        """Build from Bunge Euler angles (degrees) referred to the data frame.
+
+        Parameters
+        ----------
+        euler_deg : array_like, shape (H, W, 3)
+            (φ1, Φ, φ2) of ``g_data`` (conventions §3), degrees; NaN where not indexed.
+            With the default axes (x right, y down) and no data-frame rotation
+            these are orientations in S.
+        phase : array_like of int, shape (H, W)
+            0 where not indexed. Points with non-finite angles become phase 0.
+        grid, step_x_um, step_y_um
+            As in the class; ``step_y_um`` defaults to ``step_x_um``. Steps are
+            along X_S and Y_S.
+        axes : DeclaredAxes, optional
+            Default: S itself.
+        data_frame_rotation : str, mapping or (4,) quaternion, optional
+            A job-file spec (frames.data_frame_quat) or a quaternion.
+        quality, provenance : mapping, optional
+
+        Examples
+        --------
+        >>> e = np.zeros((1, 2, 3)); e[0, 1] = np.nan
+        >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=1.0)
+        >>> omap.valid.tolist(), omap.phase.tolist()
+        ([[True, False]], [[1, 0]])
+        """
+        e = np.asarray(euler_deg, dtype=np.float64)
+        if e.ndim != 3 or e.shape[-1] != 3:
+            raise ValueError(f"Expected `euler_deg` to have shape (H, W, 3), got {e.shape}.")
+        ph = np.asarray(phase)
+        if ph.shape != e.shape[:2]:
+            raise ValueError(f"Expected `phase` to have shape {e.shape[:2]}, got {ph.shape}.")
+        axes = DeclaredAxes() if axes is None else axes
+        dfr = _as_dfr_quat(data_frame_rotation)
+        valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
+        quat = _quat_planes_sample(e, valid, axes, dfr)
+        return cls(
+            quat,
+            np.where(valid, ph, 0).astype(np.int32),
+            valid,
+            quality={} if quality is None else quality,
+            grid=grid,
+            step_x_um=step_x_um,
+            step_y_um=step_x_um if step_y_um is None else step_y_um,
+            axes=axes,
+            data_frame_rotation=dfr,
+            provenance={} if provenance is None else provenance,
+        )
+
+    @property
+    def shape(self) -> tuple:
+        """(H, W)."""
+        return self.phase.shape
+
+    @property
+    def n_points(self) -> int:
+        """H·W, every grid point, indexed or not."""
+        return int(self.phase.size)
+
+    @property
+    def row_pitch_um(self) -> float:
+        """Distance between rows (µm): ``step_y_um``, or ``step·√3/2`` on a hexagonal grid."""
+        return self.step_y_um * (_SQRT3_2 if self.grid == "hexagonal" else 1.0)
+
+    def positions_sample_um(self) -> np.ndarray:
+        """Positions of every grid point in S, shape (H, W, 2), µm (conventions §1).
+
+        Point (i, j) sits at (j·step_x, i·step_y) on a square grid; on a
+        hexagonal grid rows are step·√3/2 apart and odd rows shift by step/2.
+        """
+        h, w = self.shape
+        x = np.broadcast_to(np.arange(w) * self.step_x_um, (h, w)).astype(np.float64)
+        if self.grid == "hexagonal":
+            x = x + 0.5 * self.step_x_um * (np.arange(h) % 2)[:, None]
+        y = np.broadcast_to((np.arange(h) * self.row_pitch_um)[:, None], (h, w))
+        return np.stack([x, y], axis=-1)
+
+    def quat_nhw(self) -> np.ndarray:
+        """The quaternions as a read-only (H, W, 4) view (not contiguous)."""
+        return np.moveaxis(self.quat, 0, -1)
+
+    def euler_deg_declared(self) -> np.ndarray:
+        """Bunge angles (H, W, 3) of the orientations in the data frame, as read; NaN if invalid.
+
+        Examples
+        --------
+        >>> e = np.array([[[30.0, 40.0, 50.0]]])
+        >>> omap = OrientationMap.from_euler_deg(e, [[1]], grid="square", step_x_um=1.0,
+        ...                                      axes=DeclaredAxes("left", "up"))
+        >>> omap.euler_deg_declared().round(4).tolist()
+        [[[30.0, 40.0, 50.0]]]
+        """
+        out = np.full(self.shape + (3,), np.nan)
+        q = np.moveaxis(self.quat, 0, -1)[self.valid].astype(np.float64)
+        q_data = orientations_to_declared(q, self.axes, self.data_frame_rotation)
+        out[self.valid] = quat_as_euler_deg(q_data)
+        return out
+
+    def positions_declared_um(self) -> np.ndarray:
+        """Positions of every grid point in declared coordinates, shape (H, W, 2), µm."""
+        return self.axes.points_to_declared(self.positions_sample_um())
+
+
+def _as_dfr_quat(spec) -> np.ndarray:
+    if spec is None or isinstance(spec, (str, Mapping)):
+        return data_frame_quat(spec)
+    q = np.asarray(spec, dtype=np.float64)
+    if q.shape != (4,):
+        raise ValueError(f"Expected `data_frame_rotation` to have shape (4,), got {q.shape}.")
+    return q / np.linalg.norm(q)
+
+
+def _quat_planes_sample(euler_deg, valid, axes, dfr) -> np.ndarray:
+    """(4, H, W) float32 quaternions in S from data-frame Euler angles (identity if invalid)."""
+    h, w = valid.shape
+    quat = np.zeros((4, h, w), dtype=np.float32)
+    quat[0] = 1.0
+    q = orientations_to_sample(quat_from_euler_deg(euler_deg[valid]), axes, dfr)
+    quat[:, valid] = q.T.astype(np.float32)
+    return quat
+
+
+# ----------------------------------------------------------------------------- reading
+
+
+def _sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 22), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def _check_units(euler, valid, angles, path):
+    """Refuse angles whose size contradicts the declared unit (conventions §3)."""
+    n = int(np.count_nonzero(valid))
+    if n == 0:
+        return
+    largest = float(np.max(np.abs(euler[valid])))
+    limit = 2.0 * np.pi * 1.001
+    if angles == "rad" and largest > limit:
+        raise InputError(
+            f"Expected angles in radians as declared (|angle| <= 2π), got {largest:.6g}; "
+            'if the file holds degrees, declare "angles": "deg".',
+            path=path,
+        )
+    if angles == "deg" and n > _UNIT_CHECK_MIN_POINTS and largest < limit:
+        raise InputError(
+            f"Expected angles in degrees as declared, got {n} indexed points whose angles "
+            f"never exceed {largest:.4g} (below 2π): they look like radians; if so, "
+            'declare "angles": "rad".',
+            path=path,
+        )
+
+
+def _phase_values(raw, phase_ids, path, line_of):
+    """Integer phase ids from a float column; NaN is 0. InputError for bad ids."""
+    finite = np.isfinite(raw)
+    bad = np.flatnonzero(finite & ((raw < 0) | (raw != np.rint(raw))))
+    if bad.size:
+        k = int(bad[0])
+        raise InputError(
+            f"Expected phase ids to be whole numbers >= 0, got {raw[k]!r}.",
+            path=path,
+            pointer=line_of(k),
+        )
+    phase = np.where(finite, raw, 0.0).astype(np.int64)
+    if phase_ids is not None:
+        known = np.asarray(sorted(set(int(p) for p in phase_ids)), dtype=np.int64)
+        unknown = np.flatnonzero((phase != 0) & ~np.isin(phase, known))
+        if unknown.size:
+            k = int(unknown[0])
+            raise InputError(
+                f"Expected phase ids among the job's phases {tuple(known.tolist())} "
+                f"(or 0 for not indexed), got {int(phase[k])}.",
+                path=path,
+                pointer=line_of(k),
+            )
+    return phase
+
+
+def _steps_sample(spec, axes, grid, job_path, pointer):
+    """Declared steps → (step along X_S, step along Y_S), either may be None."""
+    has_one = "step_um" in spec
+    has_xy = "step_x_um" in spec or "step_y_um" in spec
+    if has_one and has_xy:
+        raise InputError(
+            "Expected either 'step_um' or 'step_x_um' with 'step_y_um', got both.",
+            path=job_path,
+            pointer=pointer,
+        )
+    if has_xy and not ("step_x_um" in spec and "step_y_um" in spec):
+        raise InputError(
+            "Expected 'step_x_um' and 'step_y_um' together, got one of them.",
+            path=job_path,
+            pointer=pointer,
+        )
+    for key in ("step_um", "step_x_um", "step_y_um"):
+        if key in spec:
+            value = spec[key]
+            ok = isinstance(value, (int, float)) and not isinstance(value, bool)
+            if not ok or not np.isfinite(value) or value <= 0:
+                raise InputError(
+                    f"Expected a step > 0 µm, got {value!r}.",
+                    path=job_path,
+                    pointer=f"{pointer}/{key}",
+                )
+    if has_one:
+        return float(spec["step_um"]), float(spec["step_um"])
+    if not has_xy:
+        return None, None
+    if grid == "hexagonal":
+        raise InputError(
+            "Expected a single 'step_um' on a hexagonal grid, got 'step_x_um'/'step_y_um'.",
+            path=job_path,
+            pointer=pointer,
+        )
+    sx, sy = float(spec["step_x_um"]), float(spec["step_y_um"])
+    # Declared x lies along X_S when it points right or left, else along Y_S.
+    return (sx, sy) if axes.x in ("right", "left") else (sy, sx)
+
+
+def _spec_choice(spec, key, allowed, job_path, pointer, default=None):
+    value = spec.get(key, default)
+    if value not in allowed:
+        raise InputError(
+            f"Expected one of {allowed}, got {value!r}.", path=job_path, pointer=f"{pointer}/{key}"
+        )
+    return value
+
+
+def read_map(
+    spec: Mapping, *, base_dir=None, phase_ids=None, path_for_errors=None, pointer: str = "/map"
+) -> OrientationMap:
+    """Read an orientation map as the job file describes it, converting into S.
+
+    Parameters
+    ----------
+    spec : mapping
+        The job's map entry (schemas/job.schema.json ``$defs/map``): ``path``,
+        ``format`` ('csv', 'tsv', 'text', 'npz', 'tiff'), ``angles`` ('deg',
+        'rad'), ``axes`` ({"x": ..., "y": ...}), optional ``step_um`` (or
+        ``step_x_um`` and ``step_y_um``, along the declared axes), ``grid``,
+        ``data_frame_rotation``, ``columns``, ``delimiter``, ``sidecar``.
+    base_dir : str or Path, optional
+        Folder that relative paths are relative to (the job file's folder).
+    phase_ids : iterable of int, optional
+        The job's phase ids; a point with another non-zero id is refused.
+    path_for_errors : str or Path, optional
+        The job file, named in errors about the spec's fields.
+    pointer : str
+        JSON pointer of ``spec`` in the job file.
+
+    Returns
+    -------
+    OrientationMap
+        Its ``axes.origin_um`` holds the declared coordinates of grid point (0, 0).
+
+    Raises
+    ------
+    InputError
+        For every bad field or file content (module docs of inclination.readers).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> d = Path(tempfile.mkdtemp())
+    >>> _ = (d / "m.csv").write_text(
+    ...     "x_um,y_um,phi1_deg,Phi_deg,phi2_deg,phase\\n"
+    ...     "0,0,10,20,30,1\\n1,0,10,20,30,1\\n0,1,,,,0\\n1,1,40,20,30,1\\n")
+    >>> omap = read_map({"path": "m.csv", "format": "csv", "angles": "deg",
+    ...                  "axes": {"x": "right", "y": "down"}}, base_dir=d)
+    >>> omap.shape, omap.valid.tolist(), omap.step_x_um
+    ((2, 2), [[True, True], [False, True]], 1.0)
+    """
+    if not isinstance(spec, Mapping):
+        raise InputError(
+            f"Expected an object, got {spec!r}.", path=path_for_errors, pointer=pointer
+        )
+    job_path = path_for_errors
+    if "path" not in spec or not isinstance(spec["path"], (str, os.PathLike)):
+        raise InputError("Expected a 'path' to the map file.", path=job_path, pointer=pointer)
+    fmt = _spec_choice(spec, "format", MAP_FORMATS, job_path, pointer)
+    angles = _spec_choice(spec, "angles", _ANGLE_UNITS, job_path, pointer)
+    grid = spec.get("grid")
+    if grid is not None:
+        _spec_choice(spec, "grid", GRIDS, job_path, pointer)
+    axes = DeclaredAxes.from_dict(spec.get("axes"), path=job_path, pointer=f"{pointer}/axes")
+    dfr = data_frame_quat(
+        spec.get("data_frame_rotation"), path=job_path, pointer=f"{pointer}/data_frame_rotation"
+    )
+    step_x, step_y = _steps_sample(spec, axes, grid, job_path, pointer)
+    path = Path(spec["path"])
+    if base_dir is not None and not path.is_absolute():
+        path = Path(base_dir) / path
+    if not path.is_file():
+        raise InputError(
+            f"Expected an existing map file, got no file at {str(path)!r}.",
+            path=job_path,
+            pointer=f"{pointer}/path",
+        )
+    settings = {
+        "format": fmt,
+        "angles": angles,
+        "axes": axes.as_dict(),
+        "data_frame_rotation": spec.get("data_frame_rotation", "identity"),
+    }
+    if fmt in TABLE_DELIMITERS:
+        omap_args = _read_table_map(
+            spec,
+            path,
+            fmt,
+            angles,
+            axes,
+            dfr,
+            step_x,
+            step_y,
+            grid,
+            phase_ids,
+            job_path,
+            pointer,
+            settings,
+        )
+    else:
+        if grid is None or step_x is None:
+            missing = "grid" if grid is None else "step_um"
+            raise InputError(
+                f"Expected {missing!r} for a {fmt} map (arrays carry no coordinates).",
+                path=job_path,
+                pointer=f"{pointer}/{missing}",
+            )
+        if fmt == "npz":
+            euler, phase_raw, quality = read_npz_arrays(path, angles=angles)
+            reader = "npz arrays"
+        else:
+            sidecar = Path(spec.get("sidecar", str(spec["path"]) + ".json"))
+            if base_dir is not None and not sidecar.is_absolute():
+                sidecar = Path(base_dir) / sidecar
+            euler, phase_raw, quality = read_tiff_arrays(path, sidecar_path=sidecar, angles=angles)
+            settings["sidecar"] = str(sidecar)
+            reader = "tiff stack"
+        omap_args = _arrays_to_map_args(
+            euler, phase_raw, quality, angles, axes, dfr, grid, step_x, step_y, phase_ids, path
+        )
+        omap_args["provenance_reader"] = reader
+    settings.update(omap_args.pop("settings", {}))
+    reader = omap_args.pop("provenance_reader")
+    provenance = {
+        "source_path": str(path.resolve()),
+        "sha256": _sha256(path),
+        "reader": reader,
+        "settings": settings,
+    }
+    return OrientationMap(data_frame_rotation=dfr, provenance=provenance, **omap_args)
+
+
+def _finish(euler, phase, quality, angles, axes, dfr, path):
+    """Validity, unit check and conversion into S shared by every reader."""
+    valid = (phase != 0) & np.all(np.isfinite(euler), axis=-1)
+    if not valid.any():
+        raise InputError(
+            "Expected at least one indexed point (phase id > 0 and finite angles), got none.",
+            path=path,
+        )
+    _check_units(euler, valid, angles, path)
+    euler_deg = np.rad2deg(euler) if angles == "rad" else euler
+    quat = _quat_planes_sample(euler_deg, valid, axes, dfr)
+    return dict(
+        quat=quat,
+        phase=np.where(valid, phase, 0).astype(np.int32),
+        valid=valid,
+        quality=quality,
+    )
+
+
+def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, sy, ids, path):
+    h, w = phase_raw.shape
+    flat = phase_raw.ravel()
+    width = w
+
+    def line_of(k):
+        return f"row {k // width}, column {k % width}"
+
+    phase = _phase_values(flat, ids, path, line_of).reshape(h, w)
+    args = _finish(euler, phase, quality, angles, axes, dfr, path)
+    # Declared coordinates start at 0 on both axes over the map's bounding box.
+    pitch = sy * (_SQRT3_2 if grid == "hexagonal" else 1.0)
+    x_max = (w - 1) * sx + (0.5 * sx if grid == "hexagonal" and h > 1 else 0.0)
+    corners = np.array([[0.0, 0.0], [x_max, 0.0], [0.0, (h - 1) * pitch], [x_max, (h - 1) * pitch]])
+    declared = DeclaredAxes(axes.x, axes.y).points_to_declared(corners)
+    args.update(
+        grid=grid,
+        step_x_um=sx,
+        step_y_um=sy,
+        axes=axes.with_origin(-declared.min(axis=0) + 0.0),
+    )
+    return args
+
+
+def _read_table_map(
+    spec,
+    path,
+    fmt,
+    angles,
+    axes,
+    dfr,
+    step_x,
+    step_y,
+    grid,
+    phase_ids,
+    job_path,
+    pointer,
+    settings,
+):
+    delimiter = spec.get("delimiter", TABLE_DELIMITERS[fmt])
+    table = read_table(path, delimiter=delimiter, whitespace=delimiter is None)
+    columns = spec.get("columns", {}) or {}
+    unit = "deg" if angles == "deg" else "rad"
+    names = {
+        "x_um": "x_um",
+        "y_um": "y_um",
+        "phi1": f"phi1_{unit}",
+        "Phi": f"Phi_{unit}",
+        "phi2": f"phi2_{unit}",
+        "phase": "phase",
+    }
+    for role, name in columns.items():
+        if role not in names:
+            raise InputError(
+                f"Expected column roles among {_ROLES}, got {role!r}.",
+                path=job_path,
+                pointer=f"{pointer}/columns/{role}",
+            )
+        names[role] = name
+    index = {}
+    for role, name in names.items():
+        if name is None and role == "phase":
+            continue
+        if name not in table.header:
+            raise InputError(
+                f"Expected a column {name!r} ({role}), got columns {list(table.header)}; "
+                'map the file\'s names under "columns" in the job.',
+                path=path,
+                pointer="header",
+            )
+        index[role] = table.header.index(name)
+    v = table.values
+
+    def line_of(k):
+        return f"line {table.line_of(k)}"
+
+    xy_declared = v[:, [index["x_um"], index["y_um"]]]
+    bad = np.flatnonzero(~np.all(np.isfinite(xy_declared), axis=1))
+    if bad.size:
+        k = int(bad[0])
+        raise InputError(
+            f"Expected finite coordinates on every row, got x = {xy_declared[k, 0]}, "
+            f"y = {xy_declared[k, 1]}.",
+            path=path,
+            pointer=line_of(k),
+        )
+    xy_s = DeclaredAxes(axes.x, axes.y).points_to_sample(xy_declared)
+    placement = place_on_grid(
+        xy_s[:, 0],
+        xy_s[:, 1],
+        step_x_um=step_x,
+        step_y_um=step_y,
+        grid=grid,
+        path=path,
+        line_of=table.line_of,
+    )
+    euler_rows = v[:, [index["phi1"], index["Phi"], index["phi2"]]]
+    if "phase" in index:
+        phase_rows = _phase_values(v[:, index["phase"]], phase_ids, path, line_of)
+    else:
+        ids = sorted(set(phase_ids)) if phase_ids is not None else [1]
+        if len(ids) != 1:
+            raise InputError(
+                f"Expected a phase column when the job has several phases {tuple(ids)}, "
+                'got "phase": null.',
+                path=job_path,
+                pointer=f"{pointer}/columns/phase",
+            )
+        phase_rows = np.full(len(v), ids[0], dtype=np.int64)
+    h, w = placement.shape
+    r, c = placement.row, placement.col
+    euler = np.full((h, w, 3), np.nan)
+    euler[r, c] = euler_rows
+    phase = np.zeros((h, w), dtype=np.int64)
+    phase[r, c] = phase_rows
+    used = set(index.values())
+    quality = {}
+    for k, name in enumerate(table.header):
+        if k in used:
+            continue
+        plane = np.full((h, w), np.nan, dtype=np.float32)
+        plane[r, c] = v[:, k]
+        quality[name] = plane
+    args = _finish(euler, phase, quality, angles, axes, dfr, path)
+    origin_declared = DeclaredAxes(axes.x, axes.y).points_to_declared(
+        np.asarray(placement.origin_sample_um)
+    )
+    args.update(
+        grid=placement.grid,
+        step_x_um=placement.step_x_um,
+        step_y_um=placement.step_y_um,
+        axes=axes.with_origin(origin_declared + 0.0),
+        provenance_reader="text table",
+        settings={
+            "delimiter": delimiter,
+            "columns": names,
+            "grid": placement.grid,
+            "rows_read": int(len(v)),
+        },
+    )
+    return args
+
+
+def read_map_file(path, *, format: str, angles: str, axes=None, **options) -> OrientationMap:
+    """Read a map file directly (no job file): ``read_map`` with the spec as keywords.
+
+    Parameters
+    ----------
+    path : str or Path
+    format : {'csv', 'tsv', 'text', 'npz', 'tiff'}
+    angles : {'deg', 'rad'}
+    axes : mapping or DeclaredAxes, optional
+        Default: x right, y down (S).
+    **options
+        ``step_um``, ``grid``, ``columns``, ``data_frame_rotation``, ... as in the job.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> p = Path(tempfile.mkdtemp()) / "m.txt"
+    >>> _ = p.write_text("x_um y_um phi1_deg Phi_deg phi2_deg phase\\n0 0 1 2 3 1\\n2 0 1 2 3 1\\n")
+    >>> read_map_file(p, format="text", angles="deg").step_x_um
+    2.0
+    """
+    if isinstance(axes, DeclaredAxes):
+        axes = axes.as_dict()
+    spec = {
+        "path": str(path),
+        "format": format,
+        "angles": angles,
+        "axes": axes or {"x": "right", "y": "down"},
+        **options,
+    }
+    return read_map(spec, pointer="")
+
+
+# ----------------------------------------------------------------------------- writing
+
+
+def _atomic(path, write) -> Path:
+    """Write through a temporary file in the same folder, then rename over ``path``."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+    return path
+
+
+def _check_map(omap):
+    if not isinstance(omap, OrientationMap):
+        raise TypeError(f"Expected `omap` to be an OrientationMap, got {type(omap).__name__}.")
+
+
+def write_npz(path, omap: OrientationMap, *, compress: bool = True) -> Path:
+    """Write a map as ``.npz``: ``euler_deg`` (H, W, 3) in the data frame, ``phase``, quality.
+
+    Angles are converted back from S into the map's declared axes and data
+    frame, so that :func:`read_map` with the same declarations reads the same
+    map. Non-indexed points have NaN angles and phase 0. Written atomically.
+
+    Returns
+    -------
+    Path
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
+    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
+    >>> p = write_npz(Path(tempfile.mkdtemp()) / "m.npz", omap)
+    >>> back = read_map({"path": str(p), "format": "npz", "angles": "deg", "step_um": 0.5,
+    ...                  "grid": "square", "axes": {"x": "right", "y": "down"}})
+    >>> bool(np.allclose(back.quat, omap.quat, rtol=0, atol=1e-6))
+    True
+    """
+    _check_map(omap)
+    arrays = {"euler_deg": omap.euler_deg_declared(), "phase": np.asarray(omap.phase)}
+    arrays.update({k: np.asarray(v) for k, v in omap.quality.items()})
+    saver = np.savez_compressed if compress else np.savez
+    return _atomic(path, lambda fh: saver(fh, **arrays))
+
+
+def write_tiff(path, omap: OrientationMap, *, sidecar_path=None) -> tuple[Path, Path]:
+    """Write a map as a float32 TIFF stack (φ1, Φ, φ2, phase, quality...) and its JSON sidecar.
+
+    One page per channel; the sidecar (schemas/tiff-sidecar.schema.json) names
+    the channels in order. Angles in degrees in the map's data frame. Both
+    files are written atomically; the sidecar defaults to ``path + '.json'``.
+
+    Returns
+    -------
+    (Path, Path)
+        The TIFF and the sidecar.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
+    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
+    >>> tif, side = write_tiff(Path(tempfile.mkdtemp()) / "m.tif", omap)
+    >>> back = read_map({"path": str(tif), "format": "tiff", "angles": "deg", "step_um": 0.5,
+    ...                  "grid": "square", "axes": {"x": "right", "y": "down"}})
+    >>> bool(np.allclose(back.quat, omap.quat, rtol=0, atol=1e-5))
+    True
+    """
+    import json
+
+    import tifffile
+
+    _check_map(omap)
+    path = Path(path)
+    side = Path(str(path) + ".json") if sidecar_path is None else Path(sidecar_path)
+    euler = omap.euler_deg_declared()
+    names = ["phi1", "Phi", "phi2", "phase", *omap.quality]
+    planes = [euler[..., 0], euler[..., 1], euler[..., 2], omap.phase, *omap.quality.values()]
+    stack = np.stack([np.asarray(p, dtype=np.float32) for p in planes])
+    buffer = io.BytesIO()
+    tifffile.imwrite(buffer, stack, photometric="minisblack")
+    _atomic(path, lambda fh: fh.write(buffer.getbuffer()))
+    doc = {"schema_version": 1, "channels": names, "angles": "deg"}
+    text = (json.dumps(doc, indent=2) + "\n").encode("utf-8")
+    _atomic(side, lambda fh: fh.write(text))
+    return path, side
+
+
+def write_csv(path, omap: OrientationMap, *, delimiter: str = ",") -> Path:
+    """Write a map as a text table in the declared frame (the reader's default columns).
+
+    Columns ``x_um, y_um, phi1_deg, Phi_deg, phi2_deg, phase`` and then the
+    quality channels. Coordinates are the declared coordinates of each grid
+    point (``omap.axes``, with its origin), to 1e-6 µm; angles are Bunge, in
+    degrees, in the map's data frame, to 1e-5° (the float32 storage's own
+    precision). Every grid point is written;
+    non-indexed points have ``nan`` angles and phase 0. Written atomically.
+
+    Returns
+    -------
+    Path
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
+    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
+    >>> p = write_csv(Path(tempfile.mkdtemp()) / "m.csv", omap)
+    >>> p.read_text().splitlines()[2]
+    '0.500000,0.000000,40.00000,50.00000,60.00000,1'
+    """
+    _check_map(omap)
+    if len(delimiter) != 1 or delimiter in "\n\r\"'.-+0123456789en":
+        raise ValueError(f"Expected `delimiter` to be one separator character, got {delimiter!r}.")
+    xy = omap.positions_declared_um().reshape(-1, 2)
+    euler = omap.euler_deg_declared().reshape(-1, 3)
+    columns = [xy[:, 0], xy[:, 1], euler[:, 0], euler[:, 1], euler[:, 2]]
+    columns += [np.asarray(q, dtype=np.float64).ravel() for q in omap.quality.values()]
+    header = ["x_um", "y_um", "phi1_deg", "Phi_deg", "phi2_deg", "phase", *omap.quality]
+    phase = np.asarray(omap.phase).ravel()
+    n_float = len(columns)
+    fmt_row = delimiter.join(["%.6f"] * 2 + ["%.5f"] * 3 + ["%d"] + ["%.7g"] * (n_float - 5))
+    fmt_row += "\n"
+    table = np.column_stack(columns)
+
+    def write(fh):
+        fh.write((delimiter.join(header) + "\n").encode("utf-8"))
+        block = 65536
+        for start in range(0, len(table), block):
+            rows = table[start : start + block].tolist()
+            ids = phase[start : start + block].tolist()
+            text = "".join(fmt_row % (*r[:5], p, *r[5:]) for r, p in zip(rows, ids, strict=True))
+            fh.write(text.encode("utf-8"))
+
+    return _atomic(path, write)
