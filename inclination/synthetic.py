@@ -1180,8 +1180,9 @@ def simulate_cross_section(
 
     The truth comes from :func:`cross_section_crossings` (same arguments; its table says
     which boundary each entry is); normal noise of SD ``angle_noise_deg`` is added to
-    each image angle, which is then kept in [0, 90]. Coordinates are in S: a job that
-    declares axes x right, y down can use them as they are.
+    each image angle, which is then folded into (0, 90] (a shallow boundary stays
+    shallow). Coordinates are in S: a job that declares axes x right, y down can use
+    them as they are.
 
     Returns
     -------
@@ -1210,7 +1211,8 @@ def simulate_cross_section(
     )
     gen = np.random.default_rng(rng)
     angle = table["image_angle_deg"] + gen.normal(0.0, angle_noise_deg, len(table["along_um"]))
-    angle = np.clip(angle, 0.0, 90.0)
+    # The job file takes angles in (0, 90]: a noisy angle below zero is read as a shallow one.
+    angle = np.clip(np.abs(angle), 1e-3, 90.0)
     return [
         {"along_um": float(s), "image_angle_deg": float(a), "descends": str(d)}
         for s, a, d in zip(table["along_um"], angle, table["descends"], strict=True)

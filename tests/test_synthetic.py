@@ -525,7 +525,7 @@ def test_inclined_face_and_noise(micro):
     clean = cross_section_crossings(micro, imaging_tilt_deg=52, **kwargs)
     got = np.array([e["image_angle_deg"] for e in noisy])
     assert len(got) == len(clean["along_um"]) >= 2
-    assert np.all((got >= 0) & (got <= 90))
+    assert np.all((got > 0) & (got <= 90))
     assert np.max(np.abs(got - clean["image_angle_deg"])) < 5.0  # 5 SD of 1° noise
 
 
@@ -679,3 +679,52 @@ def test_quaternion_product_order_used_for_twins():
     lhs = quat_as_matrix(quat_multiply(s, q))
     s_matrix = Rotation.from_rotvec(np.pi * np.ones(3) / np.sqrt(3)).as_matrix()
     assert_allclose(lhs, s_matrix @ quat_as_matrix(q), rtol=0, atol=1e-12)
+
+
+# --------------------------------------------------------------------------- demo
+
+
+def test_demo_scenario_files(tmp_path):
+    # The job files must satisfy the project's job schema (jsonschema, Draft 2020-12) and
+    # the maps the npz reader; the z180 case holds the same orientations turned (§6).
+    import jsonschema
+
+    from inclination._schemas import load_schema
+    from inclination.demo import write_demo_scenario
+    from inclination.readers import read_npz_arrays
+
+    paths = write_demo_scenario(tmp_path, seed=3)
+    schema = load_schema("job.schema.json")
+    jobs = {k: json.loads(paths[k].read_text()) for k in ("job", "job_z180")}
+    for job in jobs.values():
+        jsonschema.validate(job, schema)
+    assert jobs["job"]["sections"] == [
+        s if s["kind"] != "serial" else s | {"map": s["map"] | {"path": "serial_5um.npz"}}
+        for s in jobs["job_z180"]["sections"]
+    ]
+    euler, phase, quality = read_npz_arrays(paths["surface"], angles="deg")
+    assert euler.shape == (300, 400, 3) and quality == {}
+    assert_allclose((phase == 0).mean(), 0.01, rtol=0, atol=1e-4)
+    turned, _, _ = read_npz_arrays(paths["surface_z180"], angles="deg")
+    ok = phase != 0
+    g = quat_as_matrix(quat_from_euler_deg(euler[ok][:50]))
+    g_turned = quat_as_matrix(quat_from_euler_deg(turned[ok][:50]))
+    assert_allclose(g_turned, g @ np.diag([-1.0, -1.0, 1.0]), rtol=0, atol=1e-9)
+    truth = json.loads(paths["truth"].read_text())
+    grains = 60 <= sum(g["kind"] == "grain" for g in truth["grains"]) <= 150
+    assert grains and len(truth["lamellae"]) >= 5
+    crossings = [c for s in truth["scenario"]["cross_sections"] for c in s["crossings"]]
+    listed = [
+        b for s in jobs["job"]["sections"] if s["kind"] == "cross-section" for b in s["boundaries"]
+    ]
+    assert len(crossings) == len(listed) >= 6 and any(c["is_twin"] for c in crossings)
+    assert [b["descends"] for b in listed] == [c["descends"] for c in crossings]
+    again = write_demo_scenario(tmp_path / "again", seed=3)
+    assert again["job"].read_text() == paths["job"].read_text()
+
+
+def test_demo_refuses_a_seed_that_is_not_an_integer(tmp_path):
+    from inclination.demo import write_demo_scenario
+
+    with pytest.raises(TypeError, match="Expected `seed` to be an integer, got str"):
+        write_demo_scenario(tmp_path, seed="7")

@@ -1,0 +1,264 @@
+"""The demo scenario: an invented annealed austenitic-steel coupon, mapped and sectioned.
+
+Coupon LK-7 of the invented Larkspur Metallurgy Works: an austenitic (FCC) steel
+annealed so that many grains hold straight annealing-twin lamellae. The study asks
+which straight boundaries are coherent {111} twins, which way each dips, and whether
+the orientation data's frame is right. The sample is synthetic
+(:mod:`inclination.synthetic`), so every answer is known and written to
+``truth.json``.
+
+Files written (all in the map's declared axes x right, y down, identical to the
+sample frame S of conventions §2):
+
+- ``surface.npz``: the surface map, step 0.5 µm, square grid, 0.5° noise, 1 %
+  non-indexed points, a few mis-indexed clusters;
+- ``serial_5um.npz``: the same area after removing 5 µm (§8);
+- ``job.json``: phases, map, grain and trace settings, two cross-sections (§7,
+  image angles with 1° noise, imaging tilt 52°) and the serial section;
+- ``surface_z180.npz``, ``serial_5um_z180.npz``, ``job_z180.json``: the same
+  sample recorded by an instrument whose data frame is turned 180° about Z_S (§6),
+  the job unaware of it: traces agree, every predicted dip direction is reversed;
+- ``truth.json``: every grain and boundary plane, the boundaries each map shows,
+  each cross-section's true crossings, and what each job should find.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+
+from .report._io import write_bytes_atomic, write_json_atomic
+from .synthetic import (
+    cross_section_crossings,
+    ground_truth,
+    make_microstructure,
+    recorded_in_frame,
+    sample_map,
+    simulate_cross_section,
+)
+
+__all__ = ["DEMO_SEED", "write_demo_scenario"]
+
+#: Seed of the demo sample (the command line's default too).
+DEMO_SEED = 7
+
+# Lattice parameter of an austenitic steel, a ≈ 3.59 Å (from memory).
+_AUSTENITE = {
+    "id": 1,
+    "name": "austenite",
+    "laue": "m-3m",
+    "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90},
+    "families": ["{1 1 1}", "{1 0 0}", "{1 1 0}", "{1 1 2}"],
+}
+_BOX_UM = (200.0, 150.0, 30.0)
+_STEP_UM = 0.5
+_SERIAL_DEPTH_UM = 5.0
+_TILT_DEG = 52.0
+
+
+def _trench_lines(micro, surface) -> tuple[dict, dict]:
+    """Two section lines placed, as an experimenter would, across twinned grains.
+
+    One runs along x and is viewed from +y, the other along y viewed from -x, so both
+    image-right senses of §7 occur. Each goes through the map row (column) that crosses
+    the most twin lamellae.
+    """
+    is_twin = surface.grain_id > micro.n_grains
+    twin_ids = np.where(is_twin, surface.grain_id, 0)
+    margin = int(round(10.0 / surface.step_um))
+
+    def best(lines):
+        counts = [len(np.unique(line[line > 0])) for line in lines[margin:-margin]]
+        return margin + int(np.argmax(counts))
+
+    row, col = best(twin_ids), best(twin_ids.T)
+    y, x = float(surface.y_um[row, 0]), float(surface.x_um[0, col])
+    lx, ly = float(surface.x_um.max()), float(surface.y_um.max())
+    return (
+        {
+            "name": "trench A",
+            "line_um": ((10.0, y), (lx - 10.0, y)),
+            "viewer_at_um": (lx / 2, y + 6),
+        },
+        {
+            "name": "trench B",
+            "line_um": ((x, 10.0), (x, ly - 10.0)),
+            "viewer_at_um": (x - 7, ly / 2),
+        },
+    )
+
+
+def _map_entry(path: str) -> dict:
+    return {
+        "path": path,
+        "format": "npz",
+        "angles": "deg",
+        "step_um": _STEP_UM,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+    }
+
+
+def _write_npz(path: Path, sample) -> Path:
+    # The npz form of design.md "Map files": euler_deg (H, W, 3), phase (H, W), 0 = not
+    # indexed (those points also carry NaN angles).
+    buffer = io.BytesIO()
+    np.savez_compressed(buffer, euler_deg=sample.euler_deg, phase=sample.phase.astype(np.int32))
+    return write_bytes_atomic(path, buffer.getvalue())
+
+
+def _job(surface: str, serial: str, cross_sections: list[dict], description: str) -> dict:
+    return {
+        "schema_version": 1,
+        "description": description,
+        "phases": [_AUSTENITE],
+        "map": _map_entry(surface),
+        "grains": {"threshold_deg": 5, "min_pixels": 8},
+        "traces": {"min_length_um": 5, "tolerance_um": 0.75},
+        "sections": [
+            *cross_sections,
+            {
+                "kind": "serial",
+                "name": "layer removed: 5 µm",
+                "map": _map_entry(serial),
+                "depth_um": _SERIAL_DEPTH_UM,
+            },
+        ],
+    }
+
+
+def write_demo_scenario(out_dir, *, seed: int = DEMO_SEED) -> dict[str, Path]:
+    """Build the demo sample and write its maps, job files and truth into ``out_dir``.
+
+    Each file is written whole or not at all (temporary name, then rename); existing
+    files of the same names are replaced. The folder is created if needed.
+
+    Parameters
+    ----------
+    out_dir : str or os.PathLike
+    seed : int
+        Seed of the sample, its noise and its measurements.
+
+    Returns
+    -------
+    dict of str to Path
+        ``surface``, ``serial``, ``job``, ``surface_z180``, ``serial_z180``,
+        ``job_z180``, ``truth``.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> with tempfile.TemporaryDirectory() as folder:
+    ...     paths = write_demo_scenario(folder)
+    >>> sorted(paths)
+    ['job', 'job_z180', 'serial', 'serial_z180', 'surface', 'surface_z180', 'truth']
+    """
+    from .lattice import Phase
+
+    if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
+        raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    gen = np.random.default_rng(seed)
+    micro = make_microstructure(
+        box_um=_BOX_UM,
+        n_grains=110,
+        rng=gen,
+        phases=[Phase.from_dict(_AUSTENITE)],
+        twins=14,
+        twin_thickness_um=(2.0, 5.0),
+    )
+    options = {"step_um": _STEP_UM, "noise_deg": 0.5, "nonindexed_fraction": 0.01}
+    surface = sample_map(micro, rng=gen, misindexed_clusters=3, **options)
+    serial = sample_map(micro, rng=gen, depth_um=_SERIAL_DEPTH_UM, **options)
+
+    sections, section_truth = [], []
+    for spec in _trench_lines(micro, surface):
+        geometry = {
+            "line_um": spec["line_um"],
+            "viewer_at_um": spec["viewer_at_um"],
+            "imaging_tilt_deg": _TILT_DEG,
+            "max_depth_um": 3.0,
+        }
+        found = simulate_cross_section(micro, rng=gen, angle_noise_deg=1.0, **geometry)
+        # Read off an image as a person would: positions to 0.01 µm, angles to 0.1°.
+        found = [
+            {
+                "along_um": round(entry["along_um"], 2),
+                "image_angle_deg": max(round(entry["image_angle_deg"], 1), 0.1),
+                "descends": entry["descends"],
+            }
+            for entry in found
+        ]
+        sections.append(
+            {
+                "kind": "cross-section",
+                "name": spec["name"],
+                "line_um": [list(p) for p in spec["line_um"]],
+                "viewer_at_um": list(spec["viewer_at_um"]),
+                "imaging_tilt_deg": _TILT_DEG,
+                "boundaries": found,
+            }
+        )
+        table = cross_section_crossings(micro, **geometry)
+        section_truth.append(
+            {
+                "name": spec["name"],
+                "crossings": [
+                    {
+                        "along_um": float(table["along_um"][i]),
+                        "grains": [int(table["region_a"][i]), int(table["region_b"][i])],
+                        "is_twin": bool(table["is_twin"][i]),
+                        "dip_deg": float(table["dip_deg"][i]),
+                        "beta_deg": float(table["beta_deg"][i]),
+                        "image_angle_deg": float(table["image_angle_deg"][i]),
+                        "descends": str(table["descends"][i]),
+                    }
+                    for i in range(len(table["along_um"]))
+                ],
+            }
+        )
+
+    paths = {
+        "surface": _write_npz(out / "surface.npz", surface),
+        "serial": _write_npz(out / "serial_5um.npz", serial),
+        "surface_z180": _write_npz(
+            out / "surface_z180.npz", recorded_in_frame(surface, rotation="z180")
+        ),
+        "serial_z180": _write_npz(
+            out / "serial_5um_z180.npz", recorded_in_frame(serial, rotation="z180")
+        ),
+    }
+    story = (
+        "Coupon LK-7, annealed austenitic steel (invented; synthetic sample, seed "
+        f"{seed}): which straight boundaries are coherent {{111}} twins, which way do they dip"
+    )
+    paths["job"] = write_json_atomic(
+        out / "job.json",
+        _job("surface.npz", "serial_5um.npz", sections, story + ", and is the frame right?"),
+    )
+    paths["job_z180"] = write_json_atomic(
+        out / "job_z180.json",
+        _job(
+            "surface_z180.npz",
+            "serial_5um_z180.npz",
+            sections,
+            story + "; maps exported in a frame turned 180° about the surface normal.",
+        ),
+    )
+    truth = ground_truth(micro, maps={"surface": surface, "serial_5um": serial})
+    truth["scenario"] = {
+        "seed": seed,
+        "cross_sections": section_truth,
+        "cases": {
+            "job.json": {"data_frame": "sample frame", "expected_sense": "agrees"},
+            "job_z180.json": {
+                "data_frame": "turned 180° about Z_S (conventions §6)",
+                "expected_sense": "opposite",
+            },
+        },
+    }
+    paths["truth"] = write_json_atomic(out / "truth.json", truth)
+    return paths
