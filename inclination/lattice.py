@@ -793,7 +793,7 @@ def _rotation_matrices(laue: str, setting: str) -> np.ndarray:
     return quat_as_matrix(proper_rotations(laue, setting=setting))
 
 
-def expand_family(lattice: Lattice, hkl, laue: str, *, setting=None, kind="plane") -> np.ndarray:
+def expand_family(lattice: Lattice, hkl, laue: str, *, setting=None, kind=None) -> np.ndarray:
     """All distinct members of a family under the proper rotations of a Laue class.
 
     Parameters
@@ -805,9 +805,10 @@ def expand_family(lattice: Lattice, hkl, laue: str, *, setting=None, kind="plane
         One of the 11 Laue classes; its rotations must be symmetries of the lattice.
     setting : {"x_parallel_a", "x_parallel_a_star"}, optional
         The Cartesian setting of the rotations; defaults to ``lattice.setting``.
-    kind : {"plane", "direction"}, default "plane"
+    kind : {"plane", "direction"}, optional
         Planes count n and -n once (each member has its first non-zero index
-        positive); directions keep both senses.
+        positive); directions keep both senses. Default: the kind of ``hkl``
+        when it is an :class:`Indices`, else "plane".
 
     Returns
     -------
@@ -832,6 +833,8 @@ def expand_family(lattice: Lattice, hkl, laue: str, *, setting=None, kind="plane
     """
     _check_lattice(lattice)
     check_one_of(laue, "laue", _LAUE)
+    if kind is None:
+        kind = hkl.kind if isinstance(hkl, Indices) else "plane"
     check_one_of(kind, "kind", _KINDS)
     if setting is None:
         setting = lattice.setting

@@ -536,7 +536,7 @@ def test_direction_families_keep_both_senses():
     # <110> has 12 members and <111> 8 in cubic; <2-1-10> 6 in hexagonal (handbook multiplicities).
     assert len(expand_family(CU, [1, 1, 0], "m-3m", kind="direction")) == 12
     assert len(expand_family(CU, [1, 1, 1], "m-3m", kind="direction")) == 8
-    rows = expand_family(TI, [2, -1, -1, 0], "6/mmm", kind="direction")
+    rows = expand_family(TI, parse_indices("<2 -1 -1 0>"), "6/mmm")
     assert rows.shape == (6, 4)
     assert {tuple(r) for r in rows.tolist()} == {
         (2, -1, -1, 0),
@@ -592,11 +592,11 @@ def test_default_low_index_families_counted_by_hand(laue, count):
     assert len(default_families(laue)) == count
 
 
+@pytest.mark.parametrize("setting", SETTINGS)
 @pytest.mark.parametrize("laue", sorted(LAUE_CRYSTAL_SYSTEMS))
-def test_default_families_are_distinct_and_cover_every_low_index_plane(laue):
+def test_default_families_are_distinct_and_cover_every_low_index_plane(laue, setting):
     system = LAUE_CRYSTAL_SYSTEMS[laue]
     params, _ = CELLS[system]
-    setting = "x_parallel_a"
     lat = Lattice.from_parameters(*params, setting=setting, laue=laue)
     phase = Phase(1, "p", laue, lat, default_families(laue))
     planes = phase.candidate_planes()  # raises if two families shared a plane
