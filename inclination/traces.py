@@ -310,6 +310,29 @@ def _distance_to_chord(rel, chord):
     return np.hypot(off[:, 0], off[:, 1])
 
 
+def _farthest(points, s, e):
+    """Largest distance to the chord, and where, for intervals s..e with inner points."""
+    inner = e - s - 1
+    group = np.repeat(np.arange(s.size), inner)
+    first = np.cumsum(inner) - inner
+    idx = np.arange(group.size) - first[group] + s[group] + 1
+    start = points[s][group]
+    dist = _distance_to_chord(points[idx] - start, points[e][group] - start)
+    dmax = np.maximum.reduceat(dist, first) if idx.size else np.zeros(0)
+    at_max = np.flatnonzero(dist == dmax[group])
+    # The first point at the largest distance: ``group`` is sorted.
+    first_at_max = at_max[np.r_[True, group[at_max][1:] != group[at_max][:-1]]]
+    return dmax, idx[first_at_max]
+
+
+def _max_chord_distance(points, s, e):
+    """Largest distance of the inner points of intervals s..e to their chords (0 if none)."""
+    out = np.zeros(s.size)
+    has_inner = e - s > 1
+    out[has_inner] = _farthest(points, s[has_inner], e[has_inner])[0]
+    return out
+
+
 def _ramer_douglas_peucker(points, starts, ends, tolerance):
     """Break indices of many polylines at once, by the recursive farthest-point split.
 
@@ -321,20 +344,11 @@ def _ramer_douglas_peucker(points, starts, ends, tolerance):
     kept = [starts, ends]
     s, e = starts, ends
     while s.size:
-        inner = e - s - 1
-        has_inner = inner > 0
-        s, e, inner = s[has_inner], e[has_inner], inner[has_inner]
+        has_inner = e - s > 1
+        s, e = s[has_inner], e[has_inner]
         if not s.size:
             break
-        group = np.repeat(np.arange(s.size), inner)
-        first = np.cumsum(inner) - inner
-        idx = np.arange(group.size) - first[group] + s[group] + 1
-        rel = points[idx] - points[s][group]
-        dist = _distance_to_chord(rel, (points[e] - points[s])[group])
-        dmax = np.maximum.reduceat(dist, first)
-        at_max = np.flatnonzero(dist == dmax[group])
-        _, first_at_max = np.unique(group[at_max], return_index=True)
-        split = idx[at_max[first_at_max]]
+        dmax, split = _farthest(points, s, e)
         go = dmax > tolerance
         kept.append(split[go])
         s, e = np.concatenate([s[go], split[go]]), np.concatenate([split[go], e[go]])
@@ -380,29 +394,12 @@ def split_polyline(points, tolerance_um, *, closed=False):
     n = pts.shape[0]
     if n < 2:
         return np.arange(n)
-    if not closed:
-        return _ramer_douglas_peucker(pts, np.array([0]), np.array([n - 1]), tolerance_um)
-    return _closed_breaks(pts, tolerance_um)
-
-
-def _closed_breaks(pts, tolerance):
-    """Sorted break indices (0..N-1) of one loop of N >= 3 vertices."""
-    n = pts.shape[0]
-    # Start the loop at the vertex farthest from vertex 0: a vertex of the convex
-    # hull, so a true corner, wherever the list happened to start.
-    start = int(np.argmax(np.hypot(*(pts - pts[0]).T)))
-    loop = np.roll(pts, -start, axis=0)
-    doubled = np.concatenate([loop, loop[:1]])
-    breaks = _ramer_douglas_peucker(doubled, np.array([0]), np.array([n]), tolerance)[:-1]
-    if breaks.size >= 3:
-        # Drop the start when the piece through it is straight after all.
-        lo, hi = int(breaks[-1]), int(breaks[1]) + n
-        ring = np.concatenate([loop, loop])
-        rel = ring[lo + 1 : hi] - ring[lo]
-        dist = _distance_to_chord(rel, np.broadcast_to(ring[hi] - ring[lo], rel.shape))
-        if dist.max() <= tolerance:
-            breaks = breaks[1:]
-    return np.sort((breaks + start) % n)
+    order, start, end, _, _ = _chain_pieces(
+        np.array([0, n]), pts, np.array([bool(closed)]), tolerance_um
+    )
+    if closed and n >= 3:
+        return np.sort(order[start])
+    return np.append(order[start], order[end[-1]])
 
 
 def _check_network(network):
@@ -438,54 +435,77 @@ def _check_network(network):
 def _chain_pieces(offsets, points, closed, tolerance):
     """Pieces of every chain as intervals of a gathered point index.
 
-    Returns ``(order, piece_start, piece_end, piece_chain, at_chain_end)``:
-    ``points[order]``
-    lists the chains one after another, loops written twice plus their first
-    point, so that every piece, even one that wraps round a loop, is the
-    contiguous run ``order[piece_start[k]:piece_end[k] + 1]``; ``at_chain_end``
-    (K, 2) marks the piece ends that are chain ends (not breaks, not on a loop).
+    Returns ``(order, piece_start, piece_end, piece_chain, at_chain_end)``.
+    ``points[order]`` lists the chains one after another, each loop written twice
+    and started at its vertex farthest from its listed first vertex (a vertex of
+    the convex hull, so a corner wherever the list starts), so that every piece,
+    even one that wraps round a loop, is the contiguous run
+    ``order[piece_start[k]:piece_end[k] + 1]``; ``at_chain_end`` (K, 2) marks the
+    piece ends that are chain ends (not breaks, not on a loop).
     """
     counts = np.diff(offsets)
+    first_of = offsets[:-1]
     closed = np.asarray(closed, dtype=bool) & (counts >= 3)
     # A loop may list its first point again at the end; drop it, it is not an edge.
     repeat_last = np.zeros_like(closed)
-    ends = offsets[1:] - 1
-    repeat_last[closed] = np.all(points[ends[closed]] == points[offsets[:-1][closed]], axis=1)
+    last_of = offsets[1:] - 1
+    repeat_last[closed] = np.all(points[last_of[closed]] == points[first_of[closed]], axis=1)
     counts = counts - repeat_last
     closed &= counts >= 3
-    # Gathered length: open chains once, loops twice plus one point.
-    glen = np.where(closed, 2 * counts + 1, counts)
+
+    loops = np.flatnonzero(closed)
+    roll = np.zeros(counts.size, dtype=np.int64)
+    if loops.size:
+        owner = np.repeat(np.arange(loops.size), counts[loops])
+        local = np.arange(owner.size) - (np.cumsum(counts[loops]) - counts[loops])[owner]
+        far = np.hypot(*(points[first_of[loops][owner] + local] - points[first_of[loops][owner]]).T)
+        at_far = np.flatnonzero(
+            far == np.maximum.reduceat(far, np.cumsum(counts[loops]) - counts[loops])[owner]
+        )
+        _, first_far = np.unique(owner[at_far], return_index=True)
+        roll[loops] = local[at_far[first_far]]
+
+    # Gathered length: open chains once, loops twice.
+    glen = np.where(closed, 2 * counts, counts)
     gstart = np.cumsum(glen) - glen
     chain_of = np.repeat(np.arange(counts.size), glen)
     pos = np.arange(chain_of.size) - gstart[chain_of]
-    order = offsets[:-1][chain_of] + pos % np.maximum(counts[chain_of], 1)
+    order = first_of[chain_of] + (pos + roll[chain_of]) % np.maximum(counts[chain_of], 1)
+    gathered = points[order]
 
-    open_ok = ~closed & (counts >= 1)
-    o_start = gstart[open_ok]
-    o_end = o_start + counts[open_ok] - 1
-    open_breaks = _ramer_douglas_peucker(points[order], o_start, o_end, tolerance)
-    open_chain = chain_of[open_breaks]
-    same = open_chain[1:] == open_chain[:-1]
-    p_start, p_end = open_breaks[:-1][same], open_breaks[1:][same]
-    p_chain = open_chain[:-1][same]
-    # A chain of a single point is one piece of one point.
-    single = open_ok & (counts == 1)
-    starts = [p_start, gstart[single]]
-    stops = [p_end, gstart[single]]
-    owners = [p_chain, np.flatnonzero(single)]
-    # Loops are few (grains inside one other grain), so they are taken one at a time.
-    for c in np.flatnonzero(closed):
-        n = counts[c]
-        loop = points[offsets[c] : offsets[c] + n]
-        b = _closed_breaks(loop, tolerance)
-        starts.append(gstart[c] + b)
-        stops.append(gstart[c] + np.append(b[1:], b[0] + n))
-        owners.append(np.full(b.size, c))
-    piece_start = np.concatenate(starts).astype(np.int64)
-    piece_end = np.concatenate(stops).astype(np.int64)
-    piece_chain = np.concatenate(owners).astype(np.int64)
+    ok = counts >= 1
+    # A loop's first pass runs from its start round to the start again (a chord that
+    # is a point, so the split is at the point farthest from the start).
+    breaks = _ramer_douglas_peucker(
+        gathered, gstart[ok], gstart[ok] + np.where(closed, counts, counts - 1)[ok], tolerance
+    )
+    # A loop's last break is the first point of its second copy, still the loop's own.
+    owner = chain_of[breaks]
+    same = owner[1:] == owner[:-1]
+    piece_start, piece_end = breaks[:-1][same], breaks[1:][same]
+    piece_chain = owner[:-1][same]
+    single = ok & (counts == 1)
+    piece_start = np.concatenate([piece_start, gstart[single]])
+    piece_end = np.concatenate([piece_end, gstart[single]])
+    piece_chain = np.concatenate([piece_chain, np.flatnonzero(single)])
     sort = np.lexsort((piece_start, piece_chain))
     piece_start, piece_end, piece_chain = piece_start[sort], piece_end[sort], piece_chain[sort]
+
+    # A loop's start is kept as a break only when the piece through it is not straight.
+    if loops.size:
+        n_pieces = np.bincount(piece_chain, minlength=counts.size)
+        first_piece = np.searchsorted(piece_chain, loops)
+        last_piece = first_piece + n_pieces[loops] - 1
+        test = n_pieces[loops] >= 3
+        lo = piece_start[last_piece[test]]
+        hi = piece_end[first_piece[test]] + counts[loops[test]]
+        straight = _max_chord_distance(gathered, lo, hi) <= tolerance
+        merge_first, merge_last = first_piece[test][straight], last_piece[test][straight]
+        piece_end[merge_last] = piece_end[merge_first] + counts[piece_chain[merge_first]]
+        keep = np.ones(piece_start.size, dtype=bool)
+        keep[merge_first] = False
+        piece_start, piece_end, piece_chain = piece_start[keep], piece_end[keep], piece_chain[keep]
+
     open_chain = ~closed[piece_chain]
     at_chain_end = np.stack(
         [
