@@ -71,10 +71,12 @@ _SETTING_REQUIRED = ("hexagonal", "trigonal", "monoclinic", "triclinic")
 # Four-index (Miller–Bravais) notation belongs to cells on hexagonal axes only.
 _BRAVAIS_SYSTEMS = ("hexagonal", "trigonal")
 
-# Cell parameters typed into a job file carry 4-6 significant digits; equal
-# lengths or right angles are recognised to that precision, not to the last bit.
-_LENGTH_RTOL = 1e-4
-_ANGLE_TOL_DEG = 1e-3
+# Equal lengths and special angles are typed as the same numbers (3.615 three times,
+# 90, 120), so they are recognised to rounding error only: a near miss such as
+# γ = 119.99° is refused for a hexagonal phase instead of being silently accepted,
+# since the symmetry operators would then not map the cell onto itself.
+_LENGTH_RTOL = 1e-9
+_ANGLE_TOL_DEG = 1e-9
 # A cell whose volume is below this fraction of abc is flat for every practical purpose.
 _MIN_VOLUME_FRACTION = 1e-6
 # Rotated indices further than this from integers mean the rotations are not
@@ -405,6 +407,15 @@ class Indices:
     kind: str
     family: bool
     values: tuple[int, ...]
+
+    def __post_init__(self):
+        check_one_of(self.kind, "kind", _KINDS)
+        object.__setattr__(self, "family", bool(self.family))
+        values = _integer_tuple(self.values, "values")
+        if not any(values):
+            raise ValueError(f"Expected `values` to be not all zero, got {values}.")
+        _check_bravais(values, self.kind, values)
+        object.__setattr__(self, "values", values)
 
     @property
     def bravais(self) -> bool:

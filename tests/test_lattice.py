@@ -216,6 +216,17 @@ def test_cell_must_fit_its_laue_class(params, laue, match):
         Lattice.from_parameters(*params, setting="x_parallel_a", laue=laue)
 
 
+def test_near_misses_are_refused_not_rounded():
+    # A cell that only nearly fits its Laue class would make the symmetry operators map
+    # the lattice onto non-lattice planes; it is refused, never quietly idealised.
+    with pytest.raises(ValueError, match=r"hexagonal phase .*γ=119.99°"):
+        Lattice.from_parameters(
+            2.951, 2.951, 4.684, 90, 90, 119.99, setting="x_parallel_a", laue="6/mmm"
+        )
+    with pytest.raises(ValueError, match=r"cubic phase .*b=3.6151"):
+        Lattice.from_parameters(3.615, 3.6151, 3.615, 90, 90, 90, laue="m-3m")
+
+
 def test_lattice_is_frozen_and_matrices_are_fresh_copies():
     with pytest.raises(AttributeError):
         CU.a = 4.0
@@ -279,6 +290,18 @@ def test_parse_refuses_anything_else(text, match):
 def test_parse_refuses_non_strings():
     with pytest.raises(TypeError, match=r"Expected `text` to be a string, got tuple"):
         parse_indices((1, 1, 1))
+
+
+def test_indices_built_directly_are_checked_too():
+    assert Indices("plane", 1, [1, 0, 2]) == Indices("plane", True, (1, 0, 2))
+    with pytest.raises(ValueError, match=r"Expected `kind` to be one of \('plane', 'direction'\)"):
+        Indices("zone", False, (1, 1, 1))
+    with pytest.raises(ValueError, match=r"Expected `values` to hold integers"):
+        Indices("plane", False, (1, 0.5, 1))
+    with pytest.raises(ValueError, match=r"Expected `values` to be not all zero"):
+        Indices("plane", False, (0, 0, 0))
+    with pytest.raises(ValueError, match=r"four-index direction \[U V T W\] with T = -\(U \+ V\)"):
+        Indices("direction", True, (1, 0, 0, 0))
 
 
 def test_three_index_conversion_of_four_index_notation():
