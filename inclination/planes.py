@@ -460,7 +460,7 @@ def _pair_geometry(na, nb, sign):
     return _surface_geometry(_unit(na + sign[..., None] * nb))
 
 
-def _match_block(blk, planes_a, planes_b, phase, settings, criterion):
+def _match_block(blk, planes_a, planes_b, phase, settings, criterion, want_long):
     """Candidates and identification of one block of segments of one phase pair."""
     theta, sigma_m, qa, qb, sa, sb = (
         blk[key] for key in ("theta", "sigma_m", "qa", "qb", "sa", "sb")
@@ -542,6 +542,8 @@ def _match_block(blk, planes_a, planes_b, phase, settings, criterion):
         if len(twins):
             _twin_test(out, twins, blk, tol_normal, phase, settings)
 
+    if not want_long:
+        return out, []
     # One row per plane and grain for the long candidate table.
     shared_a = np.full(fit_a.shape, -1)
     shared_b = np.full(fit_b.shape, -1)
@@ -616,7 +618,7 @@ def _twin_test(out, rows, blk, tol_normal, phase, settings):
     out["identification"][rows[passed & on_111]] = "coherent_twin"
 
 
-def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion):
+def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion, want_long):
     """Shared work of :func:`identify` and :func:`candidates`."""
     _check_settings(k, floor_deg, max_tolerance_deg)
     _check_criterion(sigma_criterion)
@@ -697,11 +699,11 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
                 "sb": spread[ib[r]],
             }
             out, long = _match_block(
-                blk, planes_of[pa], planes_of[pb], same, settings, sigma_criterion
+                blk, planes_of[pa], planes_of[pb], same, settings, sigma_criterion, want_long
             )
             for key, values in out.items():
                 table[key][r] = values
-            for part, grain_ids, phase_id in zip(long, (grain_a, grain_b), (pa, pb), strict=True):
+            for part, grain_ids, phase_id in zip(long, (grain_a, grain_b), (pa, pb), strict=False):
                 part["row"] = r[part.pop("block_row")]
                 part["grain_id"] = grain_ids[part["row"]]
                 part["phase"] = np.full(len(part["row"]), phase_id)
@@ -722,7 +724,7 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
         key: (values.astype(str) if values.dtype == object else values)
         for key, values in table.items()
     }
-    return rows_table, _long_table(long_parts, seg["segment_id"])
+    return rows_table, (_long_table(long_parts, seg["segment_id"]) if want_long else None)
 
 
 def _long_table(parts, segment_id) -> dict:
@@ -876,7 +878,8 @@ def identify(
     >>> t["predicted_dip_deg"].round(3).tolist(), t["twin_test"].tolist()
     ([27.936], ['pass'])
     """
-    return _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion)[0]
+    args = (k, floor_deg, max_tolerance_deg, sigma_criterion)
+    return _match(segments, grains, phases, *args, want_long=False)[0]
 
 
 def candidates(
@@ -921,7 +924,8 @@ def candidates(
     >>> c["plane"][:4].tolist(), c["fits"][:4].tolist()
     (['(1 1 1)', '(1 1 -1)', '(1 -1 1)', '(1 -1 -1)'], [True, False, False, True])
     """
-    return _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion)[1]
+    args = (k, floor_deg, max_tolerance_deg, sigma_criterion)
+    return _match(segments, grains, phases, *args, want_long=True)[1]
 
 
 @dataclass(frozen=True)
