@@ -1,0 +1,472 @@
+"""The job file: schema validation, defaults, phases and paths (schemas/job.schema.json).
+
+A job file is JSON (design.md, "The job file"). :func:`load_job` validates it
+against the JSON Schema (draft 2020-12), fills in every default the schema
+documents, builds the phases, resolves paths relative to the job file and
+checks that the files exist. Any failure is one :class:`InputError` line naming
+the file, the JSON pointer of the field, what was expected and what came.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ._schemas import load_schema
+from .errors import InputError
+
+__all__ = ["Job", "load_job", "job_from_dict", "SCHEMA_VERSION"]
+
+#: The job format version this loader reads.
+SCHEMA_VERSION = 1
+
+# Defaults given in map steps when the job leaves them null (schema descriptions).
+_MIN_LENGTH_STEPS = 10.0
+_TOLERANCE_STEPS = 1.5
+_MATCH_TOLERANCE_STEPS = 2.0
+
+
+@dataclass(frozen=True, eq=False)
+class Job:
+    """A validated job, defaults filled in.
+
+    Attributes
+    ----------
+    phases : tuple of inclination.lattice.Phase
+    map : dict
+        The surface map entry, defaults filled, ``path`` (and ``sidecar``)
+        absolute. Pass it to :func:`inclination.maps.read_map`.
+    grains, traces, planes : dict
+        Settings with defaults filled (``traces`` lengths in µm: null in the
+        file becomes 10 and 1.5 map steps when the map's step is declared).
+    sections : tuple of dict
+        Each a validated cross-section or serial section; a serial section's
+        ``map`` has an absolute path.
+    source_path : str or None
+        The job file (None when built from a dict without one).
+    raw : dict
+        The job as read with defaults filled (paths as written), JSON-ready.
+
+    Treat the dicts as read-only: they are the job as loaded.
+    """
+
+    phases: tuple
+    map: dict
+    grains: dict
+    traces: dict
+    planes: dict
+    sections: tuple
+    source_path: str | None
+    raw: dict
+
+    @property
+    def base_dir(self) -> Path | None:
+        """Folder of the job file (paths in the file are relative to it)."""
+        return None if self.source_path is None else Path(self.source_path).parent
+
+    @property
+    def phase_ids(self) -> tuple:
+        """The phases' ids, in file order."""
+        return tuple(p.id for p in self.phases)
+
+    def read_surface_map(self):
+        """Read the surface map (``inclination.maps.read_map`` with this job's context)."""
+        from .maps import read_map
+
+        return read_map(
+            self.map, phase_ids=self.phase_ids, path_for_errors=self.source_path, pointer="/map"
+        )
+
+    def read_section_map(self, index: int):
+        """Read the map of serial section ``index`` (position in ``sections``)."""
+        from .maps import read_map
+
+        section = self.sections[index]
+        if section["kind"] != "serial":
+            raise ValueError(
+                f"Expected `index` to point at a serial section, got a {section['kind']!r}."
+            )
+        return read_map(
+            section["map"],
+            phase_ids=self.phase_ids,
+            path_for_errors=self.source_path,
+            pointer=f"/sections/{index}/map",
+        )
+
+
+def load_job(path) -> Job:
+    """Read, validate and complete a job file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The JSON job file.
+
+    Returns
+    -------
+    Job
+
+    Raises
+    ------
+    InputError
+        A missing or unreadable file, invalid JSON (with line and column), a
+        field that breaks the schema, duplicate phase ids, a bad phase, a map
+        or sidecar file that does not exist, a degenerate section geometry.
+
+    Examples
+    --------
+    >>> import tempfile, json
+    >>> d = Path(tempfile.mkdtemp()); _ = (d / "m.csv").write_text("x_um\\n")
+    >>> job = {"phases": [{"id": 1, "name": "matrix", "laue": "m-3m",
+    ...        "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...        "map": {"path": "m.csv", "format": "csv", "step_um": 0.5, "angles": "deg",
+    ...                "axes": {"x": "right", "y": "down"}}}
+    >>> _ = (d / "job.json").write_text(json.dumps(job))
+    >>> j = load_job(d / "job.json")
+    >>> j.grains["threshold_deg"], j.traces, j.map["data_frame_rotation"]
+    (5, {'min_length_um': 5.0, 'tolerance_um': 0.75}, 'identity')
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(
+            "Expected an existing job file, got none at this path.", path=path
+        ) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"Expected a readable UTF-8 job file, got {exc}.", path=path) from None
+    if not text.strip():
+        raise InputError("Expected a JSON object, got an empty file.", path=path)
+    try:
+        doc = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise InputError(
+            f"Expected valid JSON, got {exc.msg}.",
+            path=path,
+            pointer=f"line {exc.lineno}, column {exc.colno}",
+        ) from None
+    return job_from_dict(doc, base_dir=path.parent, path_for_errors=path)
+
+
+def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
+    """Validate and complete a job given as a dict (the demo builds one).
+
+    Parameters
+    ----------
+    d : mapping
+        The job, as the JSON file would hold it. Not modified.
+    base_dir : str or Path, optional
+        Folder relative paths are resolved against (default: the working folder).
+    path_for_errors : str or Path, optional
+        Named in error messages, and kept as ``Job.source_path``.
+
+    Returns
+    -------
+    Job
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> d = Path(tempfile.mkdtemp()); _ = (d / "m.npz").write_bytes(b"")
+    >>> job = job_from_dict({"phases": [{"id": 1, "name": "m", "laue": "m-3m",
+    ...     "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "up"}}}, base_dir=d)
+    >>> job.phase_ids, job.planes["sigma_criterion"], job.sections
+    ((1,), 'brandon', ())
+    """
+    from jsonschema import Draft202012Validator
+
+    if not isinstance(d, Mapping):
+        raise InputError(
+            f"Expected a JSON object at the top level, got {_json_type(d)}.",
+            path=path_for_errors,
+            pointer="/",
+        )
+    doc = copy.deepcopy(dict(d))
+    schema = load_schema("job.schema.json")
+    validator = Draft202012Validator(schema)
+    errors = list(validator.iter_errors(doc))
+    if errors:
+        raise _schema_error(_pick(errors), path_for_errors)
+    _fill_defaults(doc, schema, schema, validator)
+
+    steps = _declared_step(doc["map"])
+    if steps is not None:
+        for key, n in (("min_length_um", _MIN_LENGTH_STEPS), ("tolerance_um", _TOLERANCE_STEPS)):
+            if doc["traces"][key] is None:
+                doc["traces"][key] = n * steps
+        for section in doc["sections"]:
+            if section["kind"] == "cross-section" and section["match_tolerance_um"] is None:
+                section["match_tolerance_um"] = _MATCH_TOLERANCE_STEPS * steps
+
+    phases = _build_phases(doc["phases"], path_for_errors)
+    base = Path(".") if base_dir is None else Path(base_dir)
+    surface = _resolve_map(doc["map"], base, path_for_errors, "/map")
+    sections = []
+    for i, section in enumerate(doc["sections"]):
+        pointer = f"/sections/{i}"
+        _check_section(section, path_for_errors, pointer)
+        resolved = copy.deepcopy(section)
+        if section["kind"] == "serial":
+            resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
+        sections.append(resolved)
+    return Job(
+        phases=tuple(phases),
+        map=surface,
+        grains=copy.deepcopy(doc["grains"]),
+        traces=copy.deepcopy(doc["traces"]),
+        planes=copy.deepcopy(doc["planes"]),
+        sections=tuple(sections),
+        source_path=None if path_for_errors is None else str(path_for_errors),
+        raw=doc,
+    )
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def _declared_step(map_spec) -> float | None:
+    if "step_um" in map_spec:
+        return float(map_spec["step_um"])
+    if "step_x_um" in map_spec:
+        return float(min(map_spec["step_x_um"], map_spec["step_y_um"]))
+    return None
+
+
+def _build_phases(entries, path):
+    from .lattice import Phase
+
+    seen = {}
+    phases = []
+    for i, entry in enumerate(entries):
+        pointer = f"/phases/{i}"
+        if entry["id"] in seen:
+            raise InputError(
+                f"Expected distinct phase ids, got {entry['id']} again "
+                f"(first at /phases/{seen[entry['id']]}).",
+                path=path,
+                pointer=f"{pointer}/id",
+            )
+        seen[entry["id"]] = i
+        phases.append(Phase.from_dict(entry, path=path, pointer=pointer))
+    return phases
+
+
+def _resolve_map(spec, base: Path, path, pointer) -> dict:
+    out = copy.deepcopy(spec)
+    target = base / spec["path"]
+    if not target.is_file():
+        raise InputError(
+            f"Expected an existing map file, got no file at {str(target)!r}.",
+            path=path,
+            pointer=f"{pointer}/path",
+        )
+    out["path"] = str(target.resolve())
+    if spec["format"] == "tiff":
+        sidecar = base / spec.get("sidecar", spec["path"] + ".json")
+        if not sidecar.is_file():
+            raise InputError(
+                f"Expected the TIFF's JSON sidecar at {str(sidecar)!r}, got no file.",
+                path=path,
+                pointer=f"{pointer}/sidecar",
+            )
+        out["sidecar"] = str(sidecar.resolve())
+    return out
+
+
+def _check_section(section, path, pointer):
+    """Geometry the schema cannot express: a real line, a viewer off it, a positive depth."""
+    if section["kind"] == "cross-section":
+        (x0, y0), (x1, y1) = section["line_um"]
+        length = float(np.hypot(x1 - x0, y1 - y0))
+        if length == 0:
+            raise InputError(
+                f"Expected two distinct points on the section line, got {section['line_um']}.",
+                path=path,
+                pointer=f"{pointer}/line_um",
+            )
+        vx, vy = section["viewer_at_um"]
+        offset = ((x1 - x0) * (vy - y0) - (y1 - y0) * (vx - x0)) / length
+        if abs(offset) < 1e-9 * max(length, 1.0):
+            raise InputError(
+                "Expected the viewer point off the section line (it tells which side the "
+                f"face is seen from), got {section['viewer_at_um']} on the line.",
+                path=path,
+                pointer=f"{pointer}/viewer_at_um",
+            )
+        for k, b in enumerate(section["boundaries"]):
+            if b["along_um"] > length * (1 + 1e-9):
+                raise InputError(
+                    f"Expected along_um within the section line's length {length:.6g} µm, "
+                    f"got {b['along_um']}.",
+                    path=path,
+                    pointer=f"{pointer}/boundaries/{k}/along_um",
+                )
+    elif "indent" in section:
+        before = section["indent"]["diagonal_before_um"]
+        after = section["indent"]["diagonal_after_um"]
+        if not after < before:
+            raise InputError(
+                "Expected the indent diagonal to shrink after removing a layer "
+                f"(diagonal_after_um < diagonal_before_um), got {after} >= {before}.",
+                path=path,
+                pointer=f"{pointer}/indent",
+            )
+
+
+def _resolve_ref(schema, root):
+    while isinstance(schema, Mapping) and "$ref" in schema:
+        ref = schema["$ref"]
+        node = root
+        for part in ref.lstrip("#/").split("/"):
+            node = node[part]
+        schema = {**node, **{k: v for k, v in schema.items() if k != "$ref"}}
+    return schema
+
+
+def _fill_defaults(instance, schema, root, validator):
+    """Set every absent property that has a schema default, recursively (in place)."""
+    schema = _resolve_ref(schema, root)
+    if not isinstance(schema, Mapping):
+        return
+    for sub in schema.get("allOf", ()):
+        sub = _resolve_ref(sub, root)
+        if "if" in sub:
+            if validator.evolve(schema=sub["if"]).is_valid(instance):
+                _fill_defaults(instance, sub.get("then", {}), root, validator)
+        else:
+            _fill_defaults(instance, sub, root, validator)
+    if isinstance(instance, dict):
+        for key, prop in schema.get("properties", {}).items():
+            prop = _resolve_ref(prop, root)
+            if key not in instance and "default" in prop:
+                instance[key] = copy.deepcopy(prop["default"])
+            if key in instance:
+                _fill_defaults(instance[key], prop, root, validator)
+    elif isinstance(instance, list) and "items" in schema:
+        for item in instance:
+            _fill_defaults(item, schema["items"], root, validator)
+
+
+def _json_type(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "a boolean"
+    if isinstance(value, (int, float)):
+        return "a number"
+    if isinstance(value, str):
+        return "a string"
+    if isinstance(value, list):
+        return "an array"
+    if isinstance(value, Mapping):
+        return "an object"
+    return type(value).__name__  # pragma: no cover - json gives only the types above
+
+
+def _shown(value) -> str:
+    text = json.dumps(value, ensure_ascii=False) if _jsonable(value) else repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _jsonable(value) -> bool:
+    try:
+        json.dumps(value)
+    except (TypeError, ValueError):
+        return False
+    return True
+
+
+def _depth(err) -> int:
+    return len(err.absolute_path)
+
+
+def _pick(errors):
+    """The most specific error: descend into if/then and oneOf contexts, deepest path first."""
+    flat = []
+    for err in errors:
+        stack = [err]
+        while stack:
+            e = stack.pop()
+            if e.context and e.validator in ("anyOf",):
+                stack.extend(e.context)
+            else:
+                flat.append(e)
+    return min(flat, key=lambda e: (-_depth(e), list(map(str, e.absolute_path))))
+
+
+def _pointer(parts) -> str:
+    parts = [str(p).replace("~", "~0").replace("/", "~1") for p in parts]
+    return "/" + "/".join(parts) if parts else "/"
+
+
+_TYPE_WORDS = {
+    "number": "a number",
+    "integer": "a whole number",
+    "string": "a string",
+    "object": "an object",
+    "array": "an array",
+    "boolean": "true or false",
+    "null": "null",
+}
+
+
+def _schema_error(err, path) -> InputError:
+    where = list(err.absolute_path)
+    kind = err.validator
+    value = err.validator_value
+    inst = err.instance
+    if kind == "required":
+        missing = [k for k in value if not (isinstance(inst, Mapping) and k in inst)]
+        name = missing[0] if missing else value[0]
+        return InputError(
+            f"Expected the required field {name!r}, got none.",
+            path=path,
+            pointer=_pointer(where + [name]),
+        )
+    if kind == "additionalProperties":
+        allowed = tuple(err.schema.get("properties", {}))
+        extra = [k for k in inst if k not in allowed]
+        return InputError(
+            f"Expected only the fields {allowed}, got {extra[0]!r}.",
+            path=path,
+            pointer=_pointer(where + [extra[0]]),
+        )
+    if kind == "enum":
+        message = f"Expected one of {tuple(value)}, got {_shown(inst)}."
+    elif kind == "const":
+        message = f"Expected {_shown(value)}, got {_shown(inst)}."
+    elif kind == "type":
+        types = [value] if isinstance(value, str) else list(value)
+        wanted = " or ".join(_TYPE_WORDS.get(t, t) for t in types)
+        message = f"Expected {wanted}, got {_json_type(inst)} {_shown(inst)}."
+    elif kind in ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum"):
+        sign = {"minimum": ">=", "exclusiveMinimum": ">", "maximum": "<=", "exclusiveMaximum": "<"}[
+            kind
+        ]
+        message = f"Expected a number {sign} {value}, got {_shown(inst)}."
+    elif kind in ("minItems", "maxItems"):
+        word = "at least" if kind == "minItems" else "at most"
+        message = f"Expected {word} {value} items, got {len(inst)}."
+    elif kind == "minLength":
+        message = f"Expected a non-empty string, got {_shown(inst)}."
+    elif kind == "maxLength":
+        message = f"Expected a string of at most {value} characters, got {_shown(inst)}."
+    elif kind == "oneOf" and all(set(s) == {"required"} for s in value):
+        names = [s["required"][0] for s in value]
+        present = [n for n in names if isinstance(inst, Mapping) and n in inst]
+        got = "both" if len(present) > 1 else "neither"
+        message = f"Expected exactly one of {tuple(names)}, got {got}."
+    elif kind == "dependentRequired":
+        pairs = [(k, v) for k, v in value.items() if k in inst]
+        first, needs = pairs[0]
+        message = f"Expected {needs[0]!r} together with {first!r}, got {first!r} alone."
+    else:
+        message = f"Expected a valid value, got {_shown(inst)} ({err.message})."
+    return InputError(message, path=path, pointer=_pointer(where))
