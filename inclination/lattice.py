@@ -22,13 +22,14 @@ import itertools
 import math
 import re
 from dataclasses import dataclass, field
+from types import MappingProxyType
 
 import numpy as np
 
 from ._validation import as_float_array, check_finite, check_one_of
 from .errors import InputError
 from .rotations import quat_as_matrix
-from .symmetry import LAUE_CLASSES, proper_rotations
+from .symmetry import LAUE_CLASSES, SETTINGS, proper_rotations
 
 __all__ = [
     "SETTINGS",
@@ -48,22 +49,22 @@ __all__ = [
     "Phase",
 ]
 
-SETTINGS = ("x_parallel_a", "x_parallel_a_star")
-
-# The crystal system each Laue class belongs to (conventions §4).
-LAUE_CRYSTAL_SYSTEMS = {
-    "-1": "triclinic",
-    "2/m": "monoclinic",
-    "mmm": "orthorhombic",
-    "4/m": "tetragonal",
-    "4/mmm": "tetragonal",
-    "-3": "trigonal",
-    "-3m": "trigonal",
-    "6/m": "hexagonal",
-    "6/mmm": "hexagonal",
-    "m-3": "cubic",
-    "m-3m": "cubic",
-}
+# The crystal system each Laue class belongs to (conventions §4); read-only.
+LAUE_CRYSTAL_SYSTEMS = MappingProxyType(
+    {
+        "-1": "triclinic",
+        "2/m": "monoclinic",
+        "mmm": "orthorhombic",
+        "4/m": "tetragonal",
+        "4/mmm": "tetragonal",
+        "-3": "trigonal",
+        "-3m": "trigonal",
+        "6/m": "hexagonal",
+        "6/mmm": "hexagonal",
+        "m-3": "cubic",
+        "m-3m": "cubic",
+    }
+)
 _LAUE = LAUE_CLASSES
 
 # In these systems the two Cartesian settings differ, so the setting must be stated.

@@ -227,6 +227,26 @@ def test_near_misses_are_refused_not_rounded():
         Lattice.from_parameters(3.615, 3.6151, 3.615, 90, 90, 90, laue="m-3m")
 
 
+def test_laue_classes_map_to_their_crystal_systems():
+    # conventions §4: the 11 Laue classes in Hermann–Mauguin notation.
+    assert tuple(LAUE_CRYSTAL_SYSTEMS) == (
+        "-1",
+        "2/m",
+        "mmm",
+        "4/m",
+        "4/mmm",
+        "-3",
+        "-3m",
+        "6/m",
+        "6/mmm",
+        "m-3",
+        "m-3m",
+    )
+    assert SETTINGS == ("x_parallel_a", "x_parallel_a_star")
+    with pytest.raises(TypeError):
+        LAUE_CRYSTAL_SYSTEMS["-1"] = "cubic"
+
+
 def test_lattice_is_frozen_and_matrices_are_fresh_copies():
     with pytest.raises(AttributeError):
         CU.a = 4.0

@@ -27,7 +27,6 @@ from inclination.lattice import (
     interplanar_angle_deg,
     plane_normals_crystal,
 )
-from inclination.symmetry import SETTINGS as SYMMETRY_SETTINGS
 
 # One cell of each crystal system (lengths in Å, angles in degrees) and its holohedry.
 CELLS = {
@@ -84,10 +83,6 @@ def test_titanium_reference_values(setting):
     got = interplanar_angle_deg(ti, [0, 0, 0, 1], [1, 0, -1, 1])
     assert_allclose(got, TI_0001_10M11_DEG, rtol=0, atol=5e-5)
     assert_allclose(d_spacing(ti, [1, 0, -1, 1]), TI_D10M11, rtol=0, atol=5e-6)
-
-
-def test_settings_named_alike_in_lattice_and_symmetry():
-    assert SETTINGS == SYMMETRY_SETTINGS
 
 
 # ---------------------------------------------------------------- pymatgen-core
