@@ -935,7 +935,8 @@ def default_families(laue: str) -> tuple[str, ...]:
         seen.add(tuple(members[0]))
         if system == "trigonal":
             members = _canonical_sign(_to_bravais(members, "plane"))
-        # The trade names a family by its member with the fewest minus signs.
+        # A family is named by its member with the fewest minus signs, {1 1 -2 0} rather
+        # than {2 -1 -1 0} (common practice).
         label = max(members.tolist(), key=lambda m: (-sum(x < 0 for x in m), m))
         labels.append(label)
     labels.sort(key=lambda m: (max(map(abs, m)), sum(map(abs, m)), [-x for x in m]))
@@ -959,6 +960,17 @@ class CandidatePlanes:
         The member's indices, three or four as in its family label.
     normal_crystal : ndarray, shape (M, 3)
         Unit plane normals in C (read-only).
+
+    Examples
+    --------
+    >>> cell = {"a": 3.615, "b": 3.615, "c": 3.615, "alpha": 90, "beta": 90, "gamma": 90}
+    >>> cu = Phase.from_dict({"id": 1, "name": "Cu", "laue": "m-3m", "lattice": cell,
+    ...                       "families": ["{100}"]})
+    >>> planes = cu.candidate_planes()
+    >>> len(planes), planes.family[0], planes.indices
+    (3, '{1 0 0}', ((1, 0, 0), (0, 1, 0), (0, 0, 1)))
+    >>> planes.normal_crystal.round(6).tolist()
+    [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]]
     """
 
     family: tuple[str, ...]
@@ -1208,5 +1220,14 @@ class Phase:
 
     @property
     def normals_crystal(self) -> np.ndarray:
-        """(M, 3) unit normals in C of :meth:`candidate_planes`, in the same order."""
+        """(M, 3) unit normals in C of :meth:`candidate_planes`, in the same order.
+
+        Examples
+        --------
+        >>> cell = {"a": 2.951, "b": 2.951, "c": 4.684, "alpha": 90, "beta": 90, "gamma": 120}
+        >>> ti = Phase.from_dict({"id": 1, "name": "Ti", "laue": "6/mmm", "lattice": cell,
+        ...                       "setting": "x_parallel_a", "families": ["(0001)", "{10-10}"]})
+        >>> ti.normals_crystal.round(6).tolist()
+        [[0.0, 0.0, 1.0], [0.866025, 0.5, 0.0], [0.866025, -0.5, 0.0], [0.0, 1.0, 0.0]]
+        """
         return self.candidate_planes().normal_crystal
