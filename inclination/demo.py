@@ -24,13 +24,14 @@ sample frame S of conventions §2):
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 import numpy as np
 
-from .report._io import write_bytes_atomic, write_json_atomic
+from .maps import write_npz
+from .report._io import write_json_atomic
 from .synthetic import (
+    as_orientation_map,
     cross_section_crossings,
     ground_truth,
     make_microstructure,
@@ -102,11 +103,9 @@ def _map_entry(path: str) -> dict:
 
 
 def _write_npz(path: Path, sample) -> Path:
-    # The npz form of design.md "Map files": euler_deg (H, W, 3), phase (H, W), 0 = not
-    # indexed (those points also carry NaN angles).
-    buffer = io.BytesIO()
-    np.savez_compressed(buffer, euler_deg=sample.euler_deg, phase=sample.phase.astype(np.int32))
-    return write_bytes_atomic(path, buffer.getvalue())
+    # The npz form of design.md "Map files" (euler_deg (H, W, 3), phase (H, W), 0 = not
+    # indexed), written by the map module's writer; the declared axes are S itself.
+    return write_npz(path, as_orientation_map(sample))
 
 
 def _job(surface: str, serial: str, cross_sections: list[dict], description: str) -> dict:

@@ -41,6 +41,7 @@ from scipy.spatial import Voronoi, cKDTree
 
 from ._validation import as_float_array, check_finite, check_one_of, check_positive
 from .rotations import (
+    quat_apply,
     quat_as_euler_deg,
     quat_from_axis_angle_deg,
     quat_inverse,
@@ -61,6 +62,7 @@ __all__ = [
     "grid_positions_um",
     "sample_map",
     "recorded_in_frame",
+    "as_orientation_map",
     "boundary_normals_sample",
     "plane_geometry",
     "cross_section_crossings",
@@ -200,8 +202,8 @@ class SampledMap:
         The map point (0, 0) sits at (dx, dy) of the microstructure's frame: a feature at
         true position p appears in the map at p - offset.
     frame_rotation : tuple of 4 floats
-        Quaternion of the data frame the orientations are recorded in (identity = S);
-        see :func:`recorded_in_frame`.
+        Quaternion of the turn Q of the data frame the orientations are recorded in
+        (identity = S; ``v_S = Q v_data``); see :func:`recorded_in_frame`.
     """
 
     euler_deg: np.ndarray
@@ -254,8 +256,10 @@ def twin_planes_crystal(phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> normals, labels = twin_planes_crystal(SimpleNamespace(laue="m-3m"))
+    >>> from inclination.lattice import Phase
+    >>> steel = Phase.from_dict({"id": 1, "name": "steel", "laue": "m-3m",
+    ...     "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90}})
+    >>> normals, labels = twin_planes_crystal(steel)
     >>> labels[3], (normals[3] * 3**0.5).round(6).tolist()
     ('(1 1 -1)', [1.0, 1.0, -1.0])
     """
@@ -390,8 +394,6 @@ def _random_twin_specs(
 
 def _crystal_to_sample(quat: np.ndarray, vectors_crystal: np.ndarray) -> np.ndarray:
     # §5: n_S = gᵀ n_C, and gᵀ is the orientation of the inverse quaternion.
-    from .rotations import quat_apply
-
     return quat_apply(quat_inverse(quat), vectors_crystal)
 
 
@@ -442,9 +444,7 @@ def make_microstructure(
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=12, rng=1, phases=[fcc],
+    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=12, rng=1,
     ...                             twins=[TwinSpec(grain=3, plane=0, thickness_um=2.0)])
     >>> micro.n_grains, micro.n_regions, micro.lamellae[0].indices
     (12, 13, '(1 1 1)')
@@ -595,9 +595,7 @@ def region_at(micro: Microstructure, points_um) -> np.ndarray:
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=5, rng=1, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=5, rng=1)
     >>> region_at(micro, micro.seeds_um).tolist()
     [1, 2, 3, 4, 5]
     """
@@ -716,9 +714,7 @@ def sample_map(
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=12, rng=1, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=12, rng=1)
     >>> m = sample_map(micro, step_um=1.0, rng=2, nonindexed_fraction=0.01)
     >>> m.shape, int((m.phase == 0).sum()), m.euler_deg.shape
     ((40, 50), 20, (40, 50, 3))
@@ -809,19 +805,22 @@ def sample_map(
 def recorded_in_frame(sample: SampledMap, *, rotation="z180") -> SampledMap:
     """The same map as recorded by an instrument whose data frame is turned against S.
 
-    Derivation: let the data frame D have coordinates ``v_D = R v_S`` (R passive, the
-    rows of R are D's axes written in S; quaternion r). A crystal direction is the same
-    physical vector either way, so ``v_C = g v_S = g_D v_D = g_D R v_S`` for every v,
-    hence ``g_D = g Rᵀ`` and ``q_D = q ⊗ r⁻¹``. A plane normal read back naively as if D
-    were S becomes ``g_Dᵀ n_C = R gᵀ n_C = R n_S``: for ``'z180'`` (R = diag(-1, -1, 1))
-    that is (-n_x, -n_y, n_z), the 180° ambiguity of conventions §6. Positions are not
-    touched: only the orientation data refer to the turned frame.
+    Derivation: let the data frame D be S turned by the rotation Q (the columns of Q are
+    D's axes written in S, quaternion q_turn with ``quat_as_matrix(q_turn) = Q``), so
+    ``v_S = Q v_D``. A crystal direction is the same physical vector either way, so
+    ``v_C = g v_S = g Q v_D = g_D v_D`` for every v, hence ``g_D = g Q`` and
+    ``q_D = q ⊗ q_turn`` (§3: product = matrix product). A plane normal read back
+    naively as if D were S becomes ``g_Dᵀ n_C = Qᵀ gᵀ n_C = Qᵀ n_S``: for ``'z180'``
+    (Q = diag(-1, -1, 1)) that is (-n_x, -n_y, n_z), the 180° ambiguity of
+    conventions §6. Positions are not touched: only the orientation data refer to the
+    turned frame. Q is what a job declares as the map's ``data_frame_rotation``
+    (``frames.data_frame_quat``) to read the recorded map back into S.
 
     Parameters
     ----------
     sample : SampledMap
     rotation : {'x180', 'y180', 'z180'} or array_like, shape (4,)
-        The frame turn: 180° about an axis of S, or the quaternion r of R.
+        The frame turn Q: 180° about an axis of S, or its quaternion (scalar first).
 
     Returns
     -------
@@ -830,9 +829,7 @@ def recorded_in_frame(sample: SampledMap, *, rotation="z180") -> SampledMap:
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(20, 20, 10), n_grains=3, rng=1, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(20, 20, 10), n_grains=3, rng=1)
     >>> m = sample_map(micro, step_um=5.0, rng=0, noise_deg=0.0)
     >>> recorded_in_frame(m, rotation="z180").frame_rotation
     (0.0, 0.0, 0.0, 1.0)
@@ -848,17 +845,56 @@ def recorded_in_frame(sample: SampledMap, *, rotation="z180") -> SampledMap:
         r = quat_normalise(r)
     indexed = sample.phase != 0
     quat = np.full(sample.quat.shape, np.nan)
-    quat[indexed] = quat_reduce(quat_multiply(sample.quat[indexed], quat_inverse(r)))
+    quat[indexed] = quat_reduce(quat_multiply(sample.quat[indexed], r))
     euler = np.full(sample.euler_deg.shape, np.nan)
     euler[indexed] = quat_as_euler_deg(quat[indexed])
-    # Composing with an earlier turn keeps the record's frame true for repeated calls.
+    # A second turn Q2 of an already turned frame Q1 gives v_S = Q1 Q2 v_D2.
     previous = np.asarray(sample.frame_rotation, dtype=float)
-    total = quat_reduce(quat_multiply(r, previous))
+    total = quat_reduce(quat_multiply(previous, r))
     return dataclasses.replace(
         sample,
         quat=_frozen(quat),
         euler_deg=_frozen(euler),
         frame_rotation=tuple(float(v) + 0.0 for v in total),
+    )
+
+
+def as_orientation_map(sample: SampledMap):
+    """The sampled map as the record the analysis stages take (``maps.OrientationMap``).
+
+    The orientations are taken as recorded: declared axes are S itself and no
+    data-frame rotation is declared, so a map from :func:`recorded_in_frame` is handed
+    over with its frame error, as an unaware user would read it.
+
+    Parameters
+    ----------
+    sample : SampledMap
+
+    Returns
+    -------
+    inclination.maps.OrientationMap
+        ``quat`` (4, H, W) float32, ``phase``, ``valid = phase != 0``, the grid and step.
+
+    Examples
+    --------
+    >>> micro = make_microstructure(box_um=(20, 20, 10), n_grains=3, rng=1)
+    >>> omap = as_orientation_map(sample_map(micro, step_um=0.5, rng=0))
+    >>> omap.shape, omap.quat.shape, omap.step_x_um
+    ((40, 40), (4, 40, 40), 0.5)
+    """
+    from .maps import OrientationMap
+
+    if not isinstance(sample, SampledMap):
+        raise TypeError(f"Expected `sample` to be a SampledMap, got {type(sample).__name__}.")
+    indexed = sample.phase != 0
+    quat = np.where(indexed[..., None], sample.quat, np.array([1.0, 0.0, 0.0, 0.0]))
+    return OrientationMap(
+        np.moveaxis(quat, -1, 0),
+        sample.phase,
+        grid=sample.grid,
+        step_x_um=sample.step_um,
+        step_y_um=sample.step_um,
+        provenance={"reader": "inclination.synthetic", "depth_um": sample.depth_um},
     )
 
 
@@ -895,9 +931,7 @@ def boundary_normals_sample(micro: Microstructure, region_a, region_b) -> np.nda
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=4, rng=1, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=4, rng=1)
     >>> n = boundary_normals_sample(micro, [1], [2])[0]
     >>> d = micro.seeds_um[1] - micro.seeds_um[0]
     >>> (n - d / (d @ d) ** 0.5).round(6).tolist()
@@ -1067,9 +1101,7 @@ def cross_section_crossings(
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(60, 40, 20), n_grains=10, rng=3, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(60, 40, 20), n_grains=10, rng=3)
     >>> c = cross_section_crossings(micro, line_um=((5, 20), (55, 20)), viewer_at_um=(30, 25),
     ...                             imaging_tilt_deg=52, max_depth_um=2)
     >>> sorted(set(c["descends"].tolist())) <= ["left", "right"]
@@ -1192,9 +1224,7 @@ def simulate_cross_section(
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(60, 40, 20), n_grains=10, rng=3, phases=[fcc])
+    >>> micro = make_microstructure(box_um=(60, 40, 20), n_grains=10, rng=3)
     >>> found = simulate_cross_section(micro, line_um=((5, 20), (55, 20)),
     ...     viewer_at_um=(30, 25), imaging_tilt_deg=52, max_depth_um=2, rng=0)
     >>> sorted(found[0])
@@ -1261,9 +1291,7 @@ def ground_truth(micro: Microstructure, *, maps=None) -> dict:
 
     Examples
     --------
-    >>> from types import SimpleNamespace
-    >>> fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
-    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=8, rng=1, phases=[fcc],
+    >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=8, rng=1,
     ...                             twins=[TwinSpec(grain=2, plane=1, thickness_um=2.0)])
     >>> truth = ground_truth(micro)
     >>> [b for b in truth["boundaries"] if b["kind"] == "twin"][0]["twin_plane"]

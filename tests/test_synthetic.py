@@ -6,7 +6,6 @@ Frames and signs: conventions §1–§8. References are named beside each check.
 from __future__ import annotations
 
 import json
-from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -14,7 +13,8 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 
-from inclination.lattice import Lattice
+from inclination import symmetry
+from inclination.lattice import Phase
 from inclination.rotations import (
     quat_apply,
     quat_as_matrix,
@@ -38,15 +38,33 @@ from inclination.synthetic import (
     twin_planes_crystal,
 )
 
-# Phases are passed as light records with the fields synthetic.py reads (id, name, laue,
-# lattice), so these tests do not depend on the symmetry tables behind lattice.Phase.
-FCC = SimpleNamespace(id=1, name="fcc", laue="m-3m", lattice=None)
-# An invented hexagonal alloy: a = 3.10 Å, c/a = 1.613 (invented for the tests).
-HEX = SimpleNamespace(
-    id=2,
-    name="hexagonal alloy",
-    laue="6/mmm",
-    lattice=Lattice.from_parameters(3.10, 3.10, 5.0, 90, 90, 120, setting="x_parallel_a"),
+FCC = Phase.from_dict(
+    {
+        "id": 1,
+        "name": "fcc",
+        "laue": "m-3m",
+        "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90},
+    }
+)
+# An invented hexagonal alloy: a = 3.10 Å, c = 5.0 Å (c/a = 1.613, invented for the tests).
+HEX = Phase.from_dict(
+    {
+        "id": 2,
+        "name": "hexagonal alloy",
+        "laue": "6/mmm",
+        "lattice": {"a": 3.10, "b": 3.10, "c": 5.0, "alpha": 90, "beta": 90, "gamma": 120},
+        "setting": "x_parallel_a",
+        "families": ["{10-12}"],
+    }
+)
+
+TETRAGONAL = Phase.from_dict(
+    {
+        "id": 1,
+        "name": "tetragonal",
+        "laue": "4/mmm",
+        "lattice": {"a": 3.0, "b": 3.0, "c": 4.0, "alpha": 90, "beta": 90, "gamma": 90},
+    }
 )
 
 
@@ -131,7 +149,6 @@ def test_fcc_twin_is_sigma3_60_deg_about_111(micro):
 
 def test_fcc_twin_disorientation_with_the_symmetry_module(micro):
     # Σ3 definition: Grimmer, Bollmann & Warrington (1974): 60.000° about <111>.
-    symmetry = pytest.importorskip("inclination.symmetry")
     for lam in micro.lamellae:
         q_parent = micro.region_quat[lam.parent - 1]
         result = symmetry.disorientation(q_parent, np.array(lam.quat), "m-3m")
@@ -171,6 +188,12 @@ def test_hexagonal_10_12_twin_angle():
             micro.region_quat[lam.parent - 1], np.array(lam.quat), group
         )
         assert_allclose(angle, expected, rtol=0, atol=1e-6)
+        result = symmetry.disorientation(
+            micro.region_quat[lam.parent - 1], np.array(lam.quat), "6/mmm"
+        )
+        assert_allclose(result.angle_deg, expected, rtol=0, atol=1e-6)
+        # The axis is perpendicular to c: a <11-20>-type direction (a-axis family).
+        assert_allclose(np.asarray(result.axis_crystal)[..., 2], 0.0, rtol=0, atol=1e-9)
     assert_allclose(2 * np.rad2deg(np.arctan(1.624 / np.sqrt(3))), 86.3, rtol=0, atol=0.05)
     assert [lam.indices for lam in micro.lamellae][:2] == ["(1 0 -1 2)", "(0 1 -1 2)"]
 
@@ -580,7 +603,7 @@ def test_ground_truth_is_json_and_complete(micro, surface):
         ({"texture": [1, 0, 0]}, ValueError, r"Expected `texture` to have shape \(4,\)"),
         ({"texture_spread_deg": -1}, ValueError, "Expected `texture_spread_deg`"),
         (
-            {"phases": [SimpleNamespace(id=1, name="x", laue="4/mmm")], "twins": 1},
+            {"phases": [TETRAGONAL], "twins": 1},
             ValueError,
             "Expected `phase.laue` to be one of",
         ),
@@ -728,3 +751,47 @@ def test_demo_refuses_a_seed_that_is_not_an_integer(tmp_path):
 
     with pytest.raises(TypeError, match="Expected `seed` to be an integer, got str"):
         write_demo_scenario(tmp_path, seed="7")
+
+
+@pytest.mark.parametrize(
+    ("turn", "declared"),
+    [
+        ("z180", "z180"),
+        ("x180", "x180"),
+        (Rotation.from_rotvec(np.deg2rad(40) * np.array([1, 2, 3]) / np.sqrt(14)), None),
+    ],
+)
+def test_recorded_frame_reads_back_with_the_same_declared_rotation(micro, tmp_path, turn, declared):
+    # The map module's reader is an independent implementation of §3's data-frame
+    # rotation: a map recorded in the frame turned by Q and read back declaring Q gives
+    # the orientations in S again (float32 storage: 1e-6).
+    from inclination.maps import OrientationMap, read_map, write_npz
+
+    if declared is None:
+        q_turn = turn.as_quat(scalar_first=True)
+        declared = {"axis": [1, 2, 3], "angle_deg": 40.0}
+    else:
+        q_turn = turn
+    m = sample_map(micro, step_um=1.0, rng=0, nonindexed_fraction=0.05)
+    rec = recorded_in_frame(m, rotation=q_turn)
+    omap = OrientationMap.from_euler_deg(rec.euler_deg, rec.phase, grid="square", step_x_um=1.0)
+    path = write_npz(tmp_path / "m.npz", omap)
+    spec = {"path": str(path), "format": "npz", "angles": "deg", "step_um": 1.0}
+    spec |= {"grid": "square", "axes": {"x": "right", "y": "down"}}
+    back = read_map(spec | {"data_frame_rotation": declared})
+    ok = m.phase != 0
+    q_back = np.moveaxis(np.asarray(back.quat, dtype=float), 0, -1)[ok]
+    assert_allclose(np.abs(np.sum(q_back * m.quat[ok], -1)), 1.0, rtol=0, atol=1e-6)
+    assert_array_equal(back.phase, m.phase)
+
+
+def test_as_orientation_map(micro, surface):
+    from inclination.synthetic import as_orientation_map
+
+    omap = as_orientation_map(recorded_in_frame(surface, rotation="z180"))
+    assert omap.shape == surface.shape and omap.grid == "square"
+    q = np.moveaxis(np.asarray(omap.quat, dtype=float), 0, -1)
+    expected = quat_multiply(surface.quat, [0.0, 0.0, 0.0, 1.0])
+    assert_allclose(np.abs(np.sum(q * expected, -1)), 1.0, rtol=0, atol=1e-6)
+    with pytest.raises(TypeError, match="Expected `sample` to be a SampledMap, got dict"):
+        as_orientation_map({})
