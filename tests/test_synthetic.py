@@ -795,3 +795,14 @@ def test_as_orientation_map(micro, surface):
     assert_allclose(np.abs(np.sum(q * expected, -1)), 1.0, rtol=0, atol=1e-6)
     with pytest.raises(TypeError, match="Expected `sample` to be a SampledMap, got dict"):
         as_orientation_map({})
+
+
+def test_example_script_runs(tmp_path):
+    # examples/make_sample.py is a thin layer over the library; it must keep running.
+    import runpy
+    from pathlib import Path
+
+    script = Path(__file__).resolve().parent.parent / "examples" / "make_sample.py"
+    namespace = runpy.run_path(str(script), run_name="example")
+    truth = namespace["main"](tmp_path)
+    assert (tmp_path / "truth.json").is_file() and len(truth["lamellae"]) == 6
