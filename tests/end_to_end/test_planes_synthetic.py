@@ -17,7 +17,6 @@ import pytest
 from inclination import synthetic
 from inclination.grains import segment_grains
 from inclination.lattice import Lattice, Phase
-from inclination.maps import OrientationMap
 from inclination.planes import candidates, identify
 from inclination.rotations import (
     quat_angle_deg,
@@ -124,9 +123,7 @@ def _run(seed, grid):
         box_um=(100.0, 100.0, 30.0), n_grains=50, rng=seed, phases=[CU], twins=10
     )
     sm = synthetic.sample_map(micro, step_um=STEP_UM, rng=seed + 100, grid=grid, noise_deg=0.5)
-    quat = np.moveaxis(np.nan_to_num(sm.quat, nan=0.0), -1, 0).copy()
-    quat[0][sm.phase == 0] = 1.0
-    omap = OrientationMap(quat, sm.phase, grid=grid, step_x_um=STEP_UM, step_y_um=STEP_UM)
+    omap = synthetic.as_orientation_map(sm)
     grain_map = segment_grains(omap, [CU])
     net = network.boundary_network(omap, grain_map, [CU])
     segments = fit_segments(net, step_um=STEP_UM, grid=grid)
