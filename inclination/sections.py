@@ -30,6 +30,7 @@ import numpy as np
 
 from ._validation import as_float_array, check_finite, check_positive
 from .errors import InputError
+from .symmetry import disorientation_angle_deg
 
 __all__ = [
     "VICKERS_DEPTH_FACTOR",
@@ -580,9 +581,9 @@ def measure_cross_section(
                 f"{where}/along_um",
             )
         alpha[i] = float(entry.get("image_angle_deg", np.nan))
-        if not (0.0 < alpha[i] <= 90.0):
+        if not (0.0 <= alpha[i] <= 90.0):
             fail(
-                f"Expected `image_angle_deg` in (0, 90], got {entry.get('image_angle_deg')!r}.",
+                f"Expected `image_angle_deg` in [0, 90], got {entry.get('image_angle_deg')!r}.",
                 f"{where}/image_angle_deg",
             )
         side = entry.get("descends")
@@ -738,7 +739,8 @@ class Registration:
     n_points : int
         How many points (grains or fiducials) it rests on.
     method : str
-        ``"fiducials"``, ``"boundary correlation"`` or ``"given"``.
+        ``"fiducials"``, ``"grain structure"``, ``"none"`` or any label of the
+        caller's (e.g. ``"given"``).
     """
 
     shift_x_um: float
@@ -787,10 +789,12 @@ def _shift_labels(labels, shift_px, shape):
     return out
 
 
-def _disorientation_deg(qa, qb, laue):
-    from .symmetry import disorientation_angle_deg
-
-    return disorientation_angle_deg(qa, qb, laue)
+def _disorientation_deg(qa, qb, phase):
+    """Disorientation of one phase; ``phase`` is a Laue symbol or a Phase record."""
+    if isinstance(phase, str):
+        return disorientation_angle_deg(qa, qb, phase)
+    setting = getattr(phase.lattice, "setting", None) or "x_parallel_a"
+    return disorientation_angle_deg(qa, qb, phase.laue, setting=setting)
 
 
 def match_grains(
@@ -820,8 +824,9 @@ def match_grains(
         is ignored here, as it is small).
     step_um : float
         Map step, µm (square grid).
-    laue_by_phase : mapping of int to str
-        Laue class of each phase id.
+    laue_by_phase : mapping of int to str or Phase
+        Laue class of each phase id, or the job's ``Phase`` records (whose lattice
+        setting is then used too).
     threshold_deg : float, optional
         Largest disorientation of one grain seen on both sections, degrees.
     min_overlap : float, optional
@@ -901,6 +906,51 @@ def _fit_rigid(src, dst, weights, fit_rotation):
     return theta, t, resid
 
 
+def _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains):
+    """Centroid offsets (surface − deeper) of every pair of like-oriented grains, and weights."""
+    votes, weights = [], []
+    for phase_id in np.unique(np.asarray(s_tab["phase"])):
+        if int(phase_id) not in laue_by_phase:
+            continue
+        rows = []
+        for tab in (s_tab, d_tab):
+            sel = np.flatnonzero(np.asarray(tab["phase"]) == phase_id)
+            # The largest grains carry the registration; small ones only add false pairs.
+            sel = sel[np.argsort(-np.asarray(tab["area_px"])[sel], kind="stable")][:max_grains]
+            rows.append(sel)
+        si, di = rows
+        if len(si) == 0 or len(di) == 0:
+            continue
+        qs = np.asarray(s_tab["quat"], float)[si]
+        qd = np.asarray(d_tab["quat"], float)[di]
+        angle = _disorientation_deg(qs[:, None, :], qd[None, :, :], laue_by_phase[int(phase_id)])
+        a, b = np.nonzero(angle < threshold_deg)
+        cs = np.stack([s_tab["centroid_x_um"], s_tab["centroid_y_um"]], -1)[si[a]]
+        cd = np.stack([d_tab["centroid_x_um"], d_tab["centroid_y_um"]], -1)[di[b]]
+        votes.append(cs - cd)
+        area = np.minimum(np.asarray(s_tab["area_px"])[si[a]], np.asarray(d_tab["area_px"])[di[b]])
+        weights.append(np.sqrt(area.astype(float)))
+    if not votes:
+        return np.zeros((0, 2)), np.zeros(0)
+    return np.concatenate(votes), np.concatenate(weights)
+
+
+def _agreement(s_labels, placed_mapped, di, dj):
+    """Fraction of the common area where the shifted, relabelled deeper map agrees."""
+    shifted = _shift_labels(placed_mapped, (di, dj), s_labels.shape)
+    both = (shifted > 0) & (s_labels > 0)
+    n = both.sum()
+    return float(np.sum(shifted[both] == s_labels[both]) / n) if n else 0.0
+
+
+def _parabola_peak(f_minus, f_0, f_plus):
+    """Sub-pixel offset of the peak of a parabola through three samples (in [-0.5, 0.5])."""
+    den = f_minus - 2.0 * f_0 + f_plus
+    if den >= 0:
+        return 0.0
+    return float(np.clip(0.5 * (f_minus - f_plus) / den, -0.5, 0.5))
+
+
 def register_sections(
     surface_grains,
     deeper_grains,
@@ -910,21 +960,30 @@ def register_sections(
     fiducials_um=None,
     fit_rotation: bool = False,
     threshold_deg: float = 5.0,
-    smoothing_px: float = 1.0,
+    vote_radius_um: float | None = None,
+    max_grains: int = 400,
 ) -> Registration:
     """Place a deeper map on the surface map from the grain structure itself (§8).
 
-    Without fiducials: phase correlation of the two boundary images
-    (:func:`skimage.registration.phase_cross_correlation`, to a tenth of a pixel)
-    gives the translation. Grains are then matched by orientation and overlap and the
-    registration residual is the spread of the matched grains' centroid offsets. The
-    centroids are not used to move the correlation result: every grain's centroid
-    moves with depth as its inclined faces do, and the correlation peak, set by the
-    many steep boundaries that barely move, is the steadier estimate. With
-    ``fit_rotation`` a small rotation is fitted on the centroids.
+    Without fiducials the grains themselves are the landmarks:
 
-    With fiducials — the same points located on both maps — the rigid fit through
-    them is used and its residual reported.
+    1. every pair of like-oriented grains (disorientation below ``threshold_deg``,
+       one in each map) votes for the offset of their centroids; the densest cluster
+       of votes (within ``vote_radius_um``) is the coarse shift, since a grain found
+       on both sections votes for the true shift and chance look-alikes scatter;
+    2. grains are matched at that shift (:func:`match_grains`) and the deeper map,
+       relabelled with the matched surface grains, is moved pixel by pixel near it to
+       where the two maps agree on the largest fraction of their common area, with a
+       parabola through the peak for the sub-pixel part. Each boundary that moved
+       with depth costs agreement in proportion to its movement, so the peak sits at
+       a median of the movements — robust to the few boundaries that move far;
+    3. the registration residual is the RMS of the matched grains' centroid offsets
+       after registration (grain centroids move with depth as their inclined faces
+       do, so this is a spread, not an error of the shift).
+
+    With ``fit_rotation`` a small rotation about the map centre is fitted on the
+    centroids. With fiducials — the same points located on both maps — the rigid
+    fit through them is used and its RMS residual reported.
 
     Parameters
     ----------
@@ -933,21 +992,25 @@ def register_sections(
         ``quat``, ``area_px``, ``centroid_x_um``, ``centroid_y_um``, ``touches_edge``.
     step_um : float
         Map step, µm (square grid; both maps alike).
-    laue_by_phase : mapping of int to str
-        Laue class of each phase id.
+    laue_by_phase : mapping of int to str or Phase
+        Laue class of each phase id, or the job's ``Phase`` records.
     fiducials_um : array_like, shape (K, 2, 2), optional
         K fiducial points, each ``[[x, y] on the surface map, [x, y] on the deeper
         map]`` in S, µm.
     fit_rotation : bool, optional
         Also fit a rotation about Z_S.
     threshold_deg : float, optional
-        Disorientation limit for matching grains.
-    smoothing_px : float, optional
-        Gaussian σ applied to the boundary images before correlating, pixels.
+        Disorientation limit for one grain seen on both maps.
+    vote_radius_um : float, optional
+        Radius of a cluster of votes; default 6 steps.
+    max_grains : int, optional
+        Largest grains per phase and map that vote.
 
     Returns
     -------
     Registration
+        ``method`` is ``"fiducials"``, ``"grain structure"``, or ``"none"`` (no grain
+        found on both maps: zero shift, NaN residual).
     """
     check_positive(step_um, "step_um")
     if fiducials_um is not None:
@@ -961,34 +1024,54 @@ def register_sections(
             float(t[0]), float(t[1]), math.degrees(theta), rms, len(fid), "fiducials"
         )
 
-    from scipy.ndimage import gaussian_filter
-    from skimage.registration import phase_cross_correlation
+    radius = 6.0 * step_um if vote_radius_um is None else float(vote_radius_um)
+    check_positive(radius, "vote_radius_um")
+    s_tab, d_tab = _grain_table(surface_grains), _grain_table(deeper_grains)
+    votes, weights = _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains)
+    if len(votes) == 0:
+        return Registration(0.0, 0.0, 0.0, float("nan"), 0, "none")
+    dist2 = np.sum((votes[:, None, :] - votes[None, :, :]) ** 2, axis=-1)
+    support = (dist2 <= radius**2) @ weights
+    centre = votes[int(np.argmax(support))]
+    near = np.sum((votes - centre) ** 2, axis=1) <= radius**2
+    coarse = np.median(votes[near], axis=0)
 
-    s_img = gaussian_filter(_boundary_image(np.asarray(surface_grains.labels)), smoothing_px)
-    d_img = gaussian_filter(_boundary_image(np.asarray(deeper_grains.labels)), smoothing_px)
-    if s_img.shape != d_img.shape:
-        h = max(s_img.shape[0], d_img.shape[0])
-        w = max(s_img.shape[1], d_img.shape[1])
-        s_img = np.pad(s_img, ((0, h - s_img.shape[0]), (0, w - s_img.shape[1])))
-        d_img = np.pad(d_img, ((0, h - d_img.shape[0]), (0, w - d_img.shape[1])))
-    shift_px, _, _ = phase_cross_correlation(s_img, d_img, upsample_factor=10)
-    coarse = Registration(
-        float(shift_px[1] * step_um),
-        float(shift_px[0] * step_um),
-        0.0,
-        0.0,
-        0,
-        "boundary correlation",
-    )
+    s_labels = np.asarray(surface_grains.labels)
+    d_labels = np.asarray(deeper_grains.labels)
     pairs = match_grains(
         surface_grains,
         deeper_grains,
-        coarse,
+        Registration(float(coarse[0]), float(coarse[1]), 0.0, 0.0, 0, "coarse"),
         step_um=step_um,
         laue_by_phase=laue_by_phase,
         threshold_deg=threshold_deg,
     )
-    s_tab, d_tab = _grain_table(surface_grains), _grain_table(deeper_grains)
+    if len(pairs["deeper_grain"]) == 0:
+        return Registration(
+            float(coarse[0]), float(coarse[1]), 0.0, float("nan"), 0, "grain structure"
+        )
+    relabel = np.zeros(int(d_labels.max()) + 1, dtype=s_labels.dtype)
+    relabel[pairs["deeper_grain"]] = pairs["surface_grain"]
+    mapped = relabel[d_labels]
+    i0, j0 = int(round(coarse[1] / step_um)), int(round(coarse[0] / step_um))
+    reach = int(math.ceil(radius / step_um)) + 1
+    offsets = range(-reach, reach + 1)
+    score = np.array(
+        [[_agreement(s_labels, mapped, i0 + di, j0 + dj) for dj in offsets] for di in offsets]
+    )
+    bi, bj = np.unravel_index(int(np.argmax(score)), score.shape)
+    sub_i = (
+        _parabola_peak(score[bi - 1, bj], score[bi, bj], score[bi + 1, bj])
+        if (0 < bi < score.shape[0] - 1)
+        else 0.0
+    )
+    sub_j = (
+        _parabola_peak(score[bi, bj - 1], score[bi, bj], score[bi, bj + 1])
+        if (0 < bj < score.shape[1] - 1)
+        else 0.0
+    )
+    shift = np.array([(j0 + bj - reach + sub_j) * step_um, (i0 + bi - reach + sub_i) * step_um])
+
     s_row = np.searchsorted(np.asarray(s_tab["grain_id"]), pairs["surface_grain"])
     d_row = np.searchsorted(np.asarray(d_tab["grain_id"]), pairs["deeper_grain"])
     interior = ~(
@@ -997,33 +1080,26 @@ def register_sections(
     )
     if interior.sum() < 3:
         interior = np.ones(len(s_row), bool)
-    if not interior.any():
-        return coarse
     src = np.stack([d_tab["centroid_x_um"], d_tab["centroid_y_um"]], -1)[d_row[interior]]
     dst = np.stack([s_tab["centroid_x_um"], s_tab["centroid_y_um"]], -1)[s_row[interior]]
-    weights = np.asarray(d_tab["area_px"], float)[d_row[interior]]
-    shift = np.array([coarse.shift_x_um, coarse.shift_y_um])
+    w = np.asarray(d_tab["area_px"], float)[d_row[interior]]
     theta = 0.0
-    if fit_rotation:
-        theta, t, _ = _fit_rigid(src, dst, weights, True)
-        # Keep the correlation's translation at the map centre; the rotation
-        # about the centre comes from the centroids.
-        centre = _map_centre_um(deeper_grains, step_um)
+    if fit_rotation and len(src) >= 3:
+        theta, _, _ = _fit_rigid(src, dst, w, True)
+        # The translation found at the map centre stays; the turn is about that centre.
+        centre_um = _map_centre_um(deeper_grains, step_um)
         c, s = math.cos(theta), math.sin(theta)
-        rot = np.array([[c, -s], [s, c]])
-        shift = shift + centre - rot @ centre
+        shift = shift + centre_um - np.array([[c, -s], [s, c]]) @ centre_um
     c, s = math.cos(theta), math.sin(theta)
-    rot = np.array([[c, -s], [s, c]])
-    resid = dst - (src @ rot.T + shift)
-    w = weights / weights.sum()
-    rms = float(np.sqrt(np.sum(w * np.sum(resid**2, axis=1))))
+    resid = dst - (src @ np.array([[c, -s], [s, c]]).T + shift)
+    rms = float(np.sqrt(np.sum(w * np.sum(resid**2, axis=1)) / np.sum(w)))
     return Registration(
         float(shift[0]),
         float(shift[1]),
         math.degrees(theta),
         rms,
         int(interior.sum()),
-        "boundary correlation",
+        "grain structure",
     )
 
 
@@ -1227,7 +1303,7 @@ def measure_serial_section(
         Layer thickness h between the sections and its σ, µm.
     step_um : float
         Map step, µm.
-    laue_by_phase : mapping of int to str
+    laue_by_phase : mapping of int to str or Phase
         Laue class of every phase id of the job.
     registration : Registration, optional
         A known placement of the deeper map; skips the estimate.
@@ -1426,6 +1502,7 @@ def measure_stack(
     depths_um,
     step_um: float,
     laue_by_phase: Mapping,
+    registrations: Sequence | None = None,
     threshold_deg: float = 5.0,
     max_angle_deg: float = 15.0,
 ) -> dict:
@@ -1445,7 +1522,9 @@ def measure_stack(
     depths_um : array_like, shape (K,)
         Depth of each deeper section below the surface, µm (> 0).
     step_um : float
-    laue_by_phase : mapping of int to str
+    laue_by_phase : mapping of int to str or Phase
+    registrations : sequence of Registration or None, optional
+        Known placements of the deeper sections (None entries are estimated).
     threshold_deg, max_angle_deg : float, optional
         As in :func:`measure_serial_section`.
 
@@ -1468,15 +1547,23 @@ def measure_stack(
     keep, a_s, b_s, _, _ = _segment_arrays(surface_segments)
     n = len(a_s)
     traces = [[(a_s[i], b_s[i], 0.0)] for i in range(n)]
-    for (segs, grains), h in zip(deeper_sections, depths, strict=True):
-        _check_phase_sets(surface_grains, grains, laue_by_phase, None, "")
-        reg = register_sections(
-            surface_grains,
-            grains,
-            step_um=step_um,
-            laue_by_phase=laue_by_phase,
-            threshold_deg=threshold_deg,
+    if registrations is None:
+        registrations = [None] * len(deeper_sections)
+    elif len(registrations) != len(deeper_sections):
+        raise ValueError(
+            f"Expected `registrations` to have one entry per deeper section "
+            f"({len(deeper_sections)}), got {len(registrations)}."
         )
+    for (segs, grains), h, reg in zip(deeper_sections, depths, registrations, strict=True):
+        _check_phase_sets(surface_grains, grains, laue_by_phase, None, "")
+        if reg is None:
+            reg = register_sections(
+                surface_grains,
+                grains,
+                step_um=step_um,
+                laue_by_phase=laue_by_phase,
+                threshold_deg=threshold_deg,
+            )
         pairs = match_grains(
             surface_grains,
             grains,

@@ -1,0 +1,780 @@
+"""Cross-sections, serial sections and stacks (conventions §5, §7, §8)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+
+from inclination.errors import InputError
+from inclination.frames import DeclaredAxes
+from inclination.grains import GrainMap
+from inclination.sections import (
+    Registration,
+    apparent_dip_deg,
+    depth_from_indent_um,
+    face_angle_from_image_deg,
+    fit_plane_through_traces,
+    image_right_sample,
+    match_grains,
+    measure_cross_section,
+    measure_serial_section,
+    measure_stack,
+    register_sections,
+    section_depth,
+    true_dip_from_apparent_deg,
+)
+
+Z = np.array([0.0, 0.0, 1.0])
+SAMPLE_AXES = DeclaredAxes("right", "down")
+BOUNDS = (0.0, 0.0, 200.0, 100.0)
+
+
+def _plane_geometry(n):
+    """Dip and dip azimuth of a normal straight from §5 (hand derivation)."""
+    n = n / np.linalg.norm(n)
+    dip = math.degrees(math.acos(abs(n[2])))
+    d = -np.sign(n[2]) * n[:2]
+    return dip, math.degrees(math.atan2(d[1], d[0])) % 360.0
+
+
+def _face_view(n, line, viewer, tilt_deg, face_deg):
+    """What a viewer records for plane n on the face: image angle and side (hand geometry).
+
+    The face contains the line and goes down along w = cos φ V + sin φ Z; the boundary's
+    line on the face is L = n × m, m the face normal; the beam shortens depths on it
+    by cos(φ − T).
+    """
+    e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
+    rel = viewer - line[0]
+    v = rel - (rel @ e) * e
+    v = np.array([*v / np.linalg.norm(v), 0.0])
+    e3 = np.array([*e, 0.0])
+    phi = math.radians(face_deg)
+    w = math.cos(phi) * v + math.sin(phi) * Z
+    big_l = np.cross(n, np.cross(e3, w))
+    if big_l @ w < 0:
+        big_l = -big_l
+    alpha_face = math.atan2(abs(big_l @ w), abs(big_l @ e3))
+    alpha_image = math.atan(math.tan(alpha_face) * math.cos(phi - math.radians(tilt_deg)))
+    right = np.cross(v, Z)
+    return math.degrees(alpha_image), ("right" if big_l @ right > 0 else "left")
+
+
+def _segments_for(normals, line, along, half_length=20.0):
+    """Segments table of traces of ``normals`` crossing ``line`` at ``along`` (S)."""
+    e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
+    rows = []
+    for k, (n, s) in enumerate(zip(normals, along, strict=True)):
+        t = np.cross(Z, n)[:2]
+        t /= np.linalg.norm(t)
+        p = line[0] + s * e
+        a, b = p - half_length * t, p + half_length * t
+        rows.append((k, *a, *b, math.degrees(math.atan2(t[1], t[0])) % 180.0))
+    arr = np.array(rows)
+    return {
+        "segment_id": arr[:, 0].astype(int),
+        "grain_a": np.arange(len(arr)) + 1,
+        "grain_b": np.arange(len(arr)) + 100,
+        "x0_um": arr[:, 1],
+        "y0_um": arr[:, 2],
+        "x1_um": arr[:, 3],
+        "y1_um": arr[:, 4],
+        "length_um": np.full(len(arr), 2 * half_length),
+        "trace_angle_deg": arr[:, 5],
+        "trace_sigma_deg": np.full(len(arr), 0.5),
+    }
+
+
+def _random_normals(gen, n, min_dip=15.0, max_dip=80.0):
+    dip = np.deg2rad(gen.uniform(min_dip, max_dip, n))
+    az = gen.uniform(0, 2 * np.pi, n)
+    # Normal of a plane with dip δ dipping toward az: n = (−sin δ cos az, −sin δ sin az, cos δ).
+    return np.stack([-np.sin(dip) * np.cos(az), -np.sin(dip) * np.sin(az), np.cos(dip)], -1)
+
+
+# --------------------------------------------------------------------------- geometry
+
+
+@given(
+    st.floats(0.0, 89.0),
+    st.floats(1.0, 179.0),
+)
+def test_apparent_and_true_dip_are_inverse(dip_deg, beta_deg):
+    back = true_dip_from_apparent_deg(apparent_dip_deg(dip_deg, beta_deg), beta_deg)
+    assert_allclose(back, dip_deg, rtol=0, atol=1e-8)
+
+
+def test_apparent_dip_never_exceeds_true_dip():
+    beta = np.linspace(0, 180, 37)
+    assert np.all(apparent_dip_deg(40.0, beta) <= 40.0 + 1e-12)
+    assert_allclose(apparent_dip_deg(40.0, 90.0), 40.0, rtol=0, atol=1e-12)
+
+
+def test_face_angle_refuses_a_beam_that_cannot_see_the_face():
+    with pytest.raises(ValueError, match="Expected `tilt_deg` to let the beam see the face"):
+        face_angle_from_image_deg(30.0, 0.0)
+
+
+@pytest.mark.parametrize(
+    ("line", "viewer", "match"),
+    [
+        ([[0, 0], [0, 0]], [1, 1], "two distinct points"),
+        ([[0, 0], [10, 0]], [5, 0], "off the section line"),
+    ],
+)
+def test_image_right_refuses_degenerate_geometry(line, viewer, match):
+    with pytest.raises(ValueError, match=match):
+        image_right_sample(line, viewer)
+
+
+def test_image_right_shape_errors():
+    with pytest.raises(ValueError, match=r"`line_sample` to have shape \(2, 2\)"):
+        image_right_sample([0, 0, 1], [1, 1])
+    with pytest.raises(ValueError, match=r"`viewer_sample` to have shape \(2,\)"):
+        image_right_sample([[0, 0], [1, 0]], [1, 1, 1])
+
+
+def test_indent_that_grows_is_refused():
+    with pytest.raises(ValueError, match="the indent shrinks"):
+        depth_from_indent_um(20.0, 21.0)
+
+
+# --------------------------------------------------------------------------- cross-sections
+
+
+@pytest.mark.parametrize(
+    ("axes", "tilt_deg", "face_deg"),
+    [
+        (SAMPLE_AXES, 52.0, 90.0),
+        (DeclaredAxes("right", "up", origin_um=(0.0, 100.0)), 52.0, 90.0),
+        (DeclaredAxes("down", "right"), 90.0, 90.0),
+        (SAMPLE_AXES, 52.0, 70.0),
+    ],
+)
+def test_cross_section_recovers_known_planes(axes, tilt_deg, face_deg):
+    gen = np.random.default_rng(11)
+    normals = _random_normals(gen, 8)
+    line = np.array([[20.0, 50.0], [180.0, 45.0]])
+    viewer = np.array([100.0, 70.0])
+    along = np.linspace(10.0, 150.0, 8)
+    segments = _segments_for(normals, line, along)
+    keep = []
+    entries = []
+    for k, n in enumerate(normals):
+        alpha, side = _face_view(n, line, viewer, tilt_deg, face_deg)
+        e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
+        t = np.cross(Z, n)[:2]
+        # Traces within 15° of the line are ill-conditioned; tested on their own below.
+        if abs(e[0] * t[1] - e[1] * t[0]) / np.linalg.norm(t) > math.sin(math.radians(15)):
+            keep.append(k)
+            entries.append({"along_um": along[k], "image_angle_deg": alpha, "descends": side})
+    section = {
+        "line_um": axes.points_to_declared(line).tolist(),
+        "viewer_at_um": axes.points_to_declared(viewer).tolist(),
+        "imaging_tilt_deg": tilt_deg,
+        "face_inclination_deg": face_deg,
+        "boundaries": entries,
+    }
+    out = measure_cross_section(section, segments, axes=axes, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["measured"] * len(keep)
+    assert out["segment_id"].tolist() == keep
+    truth = np.array([_plane_geometry(normals[k]) for k in keep])
+    assert_allclose(out["measured_dip_deg"], truth[:, 0], rtol=0, atol=1e-6)
+    diff = (out["dip_direction_azimuth_deg"] - truth[:, 1] + 180) % 360 - 180
+    assert_allclose(diff, 0.0, rtol=0, atol=1e-6)
+    got = np.stack([out["normal_x"], out["normal_y"], out["normal_z"]], -1)
+    assert_allclose(np.abs(np.sum(got * normals[keep], axis=1)), 1.0, rtol=0, atol=1e-9)
+    assert np.all(out["normal_z"] >= 0)
+    assert set(out["dip_source"].tolist()) == {"cross-section"}
+
+
+def _one_boundary_case(beta_deg, *, dip_deg=60.0, angle_sigma_deg=1.0):
+    line = np.array([[0.0, 50.0], [200.0, 50.0]])
+    viewer = np.array([100.0, 80.0])
+    b = math.radians(beta_deg)
+    # A plane with trace at β to the line, dipping to the +V side (+Y).
+    t = np.array([math.cos(b), math.sin(b), 0.0])
+    d = np.cross(Z, t)
+    d = d if d[1] > 0 else -d
+    delta = math.radians(dip_deg)
+    n = np.cross(t, math.cos(delta) * d + math.sin(delta) * Z)
+    alpha, side = _face_view(n, line, viewer, 52.0, 90.0)
+    section = {
+        "line_um": line.tolist(),
+        "viewer_at_um": viewer.tolist(),
+        "imaging_tilt_deg": 52.0,
+        "boundaries": [
+            {
+                "along_um": 100.0,
+                "image_angle_deg": alpha,
+                "descends": side,
+                "angle_sigma_deg": angle_sigma_deg,
+            }
+        ],
+    }
+    return section, _segments_for([n], line, [100.0])
+
+
+def test_near_parallel_trace_is_flagged_with_its_sigma_not_hidden():
+    sec, seg = _one_boundary_case(1.5)
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["ill_conditioned"]
+    assert out["measured_dip_sigma_deg"][0] > 10.0
+    assert_allclose(out["measured_dip_deg"], [60.0], rtol=0, atol=1e-6)
+    sec, seg = _one_boundary_case(80.0)
+    good = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert good["status"].tolist() == ["measured"]
+    assert good["measured_dip_sigma_deg"][0] < 3.0
+
+
+@pytest.mark.parametrize("beta_deg", [20.0, 45.0, 80.0])
+def test_first_order_sigma_matches_monte_carlo(beta_deg):
+    # Brute force: repeat the measurement with noisy image angle, trace and tilt.
+    sec, seg = _one_boundary_case(beta_deg, angle_sigma_deg=1.0)
+    out = measure_cross_section(
+        sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS, tilt_sigma_deg=0.5
+    )
+    gen = np.random.default_rng(3)
+    dips = []
+    for _ in range(400):
+        noisy = dict(sec)
+        entry = dict(sec["boundaries"][0])
+        entry["image_angle_deg"] = entry["image_angle_deg"] + gen.normal(0, 1.0)
+        noisy["boundaries"] = [entry]
+        noisy["imaging_tilt_deg"] = 52.0 + gen.normal(0, 0.5)
+        s2 = dict(seg)
+        s2["trace_angle_deg"] = seg["trace_angle_deg"] + gen.normal(0, 0.5)
+        dips.append(
+            measure_cross_section(noisy, s2, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)[
+                "measured_dip_deg"
+            ][0]
+        )
+    assert_allclose(out["measured_dip_sigma_deg"][0], np.std(dips), rtol=0.2, atol=0)
+
+
+def test_unmatched_and_ambiguous_entries_are_reported_not_guessed():
+    gen = np.random.default_rng(5)
+    normals = _random_normals(gen, 3, 40, 70)
+    line = np.array([[0.0, 50.0], [200.0, 50.0]])
+    # Segments 1 and 2 cross the line 0.6 µm apart: an entry there matches both.
+    seg = _segments_for(normals, line, [40.0, 120.0, 120.6])
+    sec = {
+        "line_um": line.tolist(),
+        "viewer_at_um": [100.0, 80.0],
+        "imaging_tilt_deg": 52.0,
+        "boundaries": [
+            {"along_um": 40.2, "image_angle_deg": 40.0, "descends": "left"},
+            {"along_um": 80.0, "image_angle_deg": 40.0, "descends": "left"},
+            {"along_um": 120.3, "image_angle_deg": 40.0, "descends": "left"},
+        ],
+    }
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["measured", "unmatched", "ambiguous"]
+    assert out["segment_id"].tolist() == [0, -1, -1]
+    assert out["candidate_segment_ids"].tolist() == ["0", "", "1;2"]
+    assert np.isnan(out["measured_dip_deg"][1:]).all()
+    # Two entries that claim the same single segment are both ambiguous.
+    sec["boundaries"] = [
+        {"along_um": 39.5, "image_angle_deg": 40.0, "descends": "left"},
+        {"along_um": 40.5, "image_angle_deg": 40.0, "descends": "left"},
+    ]
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["ambiguous", "ambiguous"]
+    # A job tolerance narrower than the distance leaves the entry unmatched.
+    sec["boundaries"] = [{"along_um": 41.5, "image_angle_deg": 40.0, "descends": "left"}]
+    sec["match_tolerance_um"] = 1.0
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["unmatched"]
+
+
+def test_descending_side_sets_the_dip_direction():
+    sec, seg = _one_boundary_case(60.0)
+    right = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    flipped = dict(sec)
+    entry = dict(sec["boundaries"][0])
+    entry["descends"] = "left" if entry["descends"] == "right" else "right"
+    flipped["boundaries"] = [entry]
+    left = measure_cross_section(flipped, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    diff = (left["dip_direction_azimuth_deg"] - right["dip_direction_azimuth_deg"]) % 360
+    assert_allclose(diff, 180.0, rtol=0, atol=1e-6)
+    assert_allclose(left["measured_dip_deg"], right["measured_dip_deg"], rtol=0, atol=1e-9)
+
+
+def test_empty_boundary_list_gives_empty_table():
+    sec, seg = _one_boundary_case(60.0)
+    sec["boundaries"] = []
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert all(len(v) == 0 for v in out.values())
+
+
+@pytest.mark.parametrize(
+    ("change", "pointer", "match"),
+    [
+        ({"line_um": [[10, 50], [250, 50]]}, "/sections/0/line_um", "inside the map"),
+        ({"line_um": [[10, 50], [10, 50]]}, "/sections/0/line_um", "two distinct points"),
+        ({"line_um": [[10, 50]]}, "/sections/0/line_um", "two points"),
+        ({"viewer_at_um": [100, 50]}, "/sections/0/viewer_at_um", "on the line itself"),
+        ({"viewer_at_um": [1, 2, 3]}, "/sections/0/viewer_at_um", "one point"),
+        ({"imaging_tilt_deg": 120}, "/sections/0/imaging_tilt_deg", r"in \[0, 90\]"),
+        ({"imaging_tilt_deg": 0}, "/sections/0/imaging_tilt_deg", "sees the face"),
+        ({"face_inclination_deg": 0}, "/sections/0/face_inclination_deg", r"in \(0, 90\]"),
+        ({"match_tolerance_um": -1}, "/sections/0/match_tolerance_um", "> 0"),
+        ({"along_um": 250.0}, "/sections/0/boundaries/0/along_um", "within the section line"),
+        ({"image_angle_deg": 95.0}, "/sections/0/boundaries/0/image_angle_deg", r"\[0, 90\]"),
+        ({"descends": "down"}, "/sections/0/boundaries/0/descends", "one of"),
+        ({"angle_sigma_deg": -1.0}, "/sections/0/boundaries/0/angle_sigma_deg", ">= 0"),
+    ],
+)
+def test_bad_cross_section_entries_raise_input_error(change, pointer, match):
+    sec, seg = _one_boundary_case(60.0)
+    entry = dict(sec["boundaries"][0])
+    for key, value in change.items():
+        if key in entry:
+            entry[key] = value
+        else:
+            sec[key] = value
+    sec["boundaries"] = [entry]
+    with pytest.raises(InputError, match=match) as info:
+        measure_cross_section(
+            sec,
+            seg,
+            axes=SAMPLE_AXES,
+            step_um=0.5,
+            bounds_um=BOUNDS,
+            path="job.json",
+            pointer="/sections/0",
+        )
+    assert info.value.pointer == pointer
+    assert info.value.path == "job.json"
+
+
+def test_cross_section_argument_errors():
+    sec, seg = _one_boundary_case(60.0)
+    with pytest.raises(ValueError, match=r"`bounds_um` to have shape \(4,\)"):
+        measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=(0, 1))
+    with pytest.raises(ValueError, match="`step_um` to be a finite number > 0"):
+        measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.0, bounds_um=BOUNDS)
+
+
+# --------------------------------------------------------------------------- depths
+
+
+def test_section_depth_from_job_entries():
+    d = section_depth({"depth_um": 2.0, "depth_sigma_um": 0.1})
+    assert (d.depth_um, d.depth_sigma_um, d.source) == (2.0, 0.1, "given")
+    d = section_depth(
+        {
+            "indent_diagonal_before_um": 30.0,
+            "indent_diagonal_after_um": 23.0,
+            "indent_diagonal_sigma_um": 0.2,
+        }
+    )
+    assert d.source == "indent"
+    # σ_h = √2 σ_d / 7.0006 for two independent diagonals (first order).
+    assert_allclose(d.depth_sigma_um, math.sqrt(2) * 0.2 / 7.0006, rtol=1e-4, atol=0)
+
+
+@pytest.mark.parametrize(
+    ("entry", "pointer", "match"),
+    [
+        ({"depth_um": -1.0}, "/sections/1/depth_um", "> 0"),
+        ({"depth_um": 1.0, "depth_sigma_um": -0.1}, "/sections/1/depth_sigma_um", ">= 0"),
+        (
+            {"indent_diagonal_before_um": 20.0, "indent_diagonal_after_um": 21.0},
+            "/sections/1/indent_diagonal_after_um",
+            "smaller than",
+        ),
+        ({}, "/sections/1", "none of them"),
+    ],
+)
+def test_bad_depths_raise_input_error(entry, pointer, match):
+    with pytest.raises(InputError, match=match) as info:
+        section_depth(entry, path="job.json", pointer="/sections/1")
+    assert info.value.pointer == pointer
+
+
+# --------------------------------------------------------------------------- serial sections
+# A hand-built two-section sample: vertical strips of grains whose boundaries are
+# planes x = c + z·cot(δ)·s, sampled at z = 0 and z = h (truth by construction).
+
+STEP = 0.5
+CUTS = [(17.0, 60.0, 1), (43.0, 45.0, -1), (66.0, 75.0, 1), (84.0, 88.0, 1)]
+
+
+def _strip_labels(depth_um, shape=(120, 200), shift_px=(0, 0)):
+    h, w = shape
+    y, x = np.mgrid[0:h, 0:w] * STEP
+    x = x + shift_px[1] * STEP
+    y = y + shift_px[0] * STEP
+    labels = np.ones(shape, np.int32)
+    for c, dip, side in CUTS:
+        # Plane through x = c at the surface, dipping toward +x (side 1) or −x.
+        move = side * depth_um / math.tan(math.radians(dip)) if dip < 90 else 0.0
+        # Slight slope in y keeps the boundaries from being axis-parallel.
+        labels += (x >= c + move + 0.05 * (y - 30.0)).astype(np.int32)
+    labels[y >= 55.0] += 10  # a horizontal boundary, vertical plane
+    return labels
+
+
+def _grain_map(labels):
+    ids = np.unique(labels)
+    ys, xs = np.indices(labels.shape) * STEP
+    gen = np.random.default_rng(0)
+    quats = gen.normal(size=(ids.max() + 1, 4))
+    quats /= np.linalg.norm(quats, axis=1, keepdims=True)
+    quats[:, 0] = np.abs(quats[:, 0])
+    table = {
+        "grain_id": ids,
+        "phase": np.ones(len(ids), int),
+        "quat": quats[ids],
+        "area_px": np.array([np.sum(labels == i) for i in ids]),
+        "centroid_x_um": np.array([xs[labels == i].mean() for i in ids]),
+        "centroid_y_um": np.array([ys[labels == i].mean() for i in ids]),
+        "touches_edge": np.zeros(len(ids), bool),
+    }
+    return GrainMap(labels, table, {}, 5.0, 4)
+
+
+def _strip_segments(depth_um):
+    """Traces of the strip boundaries at depth h: upper half (ids 0-3), lower half (10-13)."""
+    rows = []
+    for k, (c, dip, side) in enumerate(CUTS):
+        move = side * depth_um / math.tan(math.radians(dip))
+        for first, (ya, yb), grains in (
+            (0, (2.0, 50.0), (k + 1, k + 2)),
+            (10, (58.0, 88.0), (k + 11, k + 12)),
+        ):
+            xa = c + move + 0.05 * (ya - 30.0)
+            xb = c + move + 0.05 * (yb - 30.0)
+            rows.append((first + k, *grains, xa, ya, xb, yb))
+    arr = np.array(rows, float)
+    angle = np.degrees(np.arctan2(arr[:, 6] - arr[:, 4], arr[:, 5] - arr[:, 3])) % 180
+    n = len(arr)
+    return {
+        "segment_id": arr[:, 0].astype(int),
+        "grain_a": arr[:, 1].astype(int),
+        "grain_b": arr[:, 2].astype(int),
+        "x0_um": arr[:, 3],
+        "y0_um": arr[:, 4],
+        "x1_um": arr[:, 5],
+        "y1_um": arr[:, 6],
+        "length_um": np.hypot(arr[:, 5] - arr[:, 3], arr[:, 6] - arr[:, 4]),
+        "trace_angle_deg": angle,
+        "trace_sigma_deg": np.full(n, 0.3),
+        "residual_um": np.full(n, 0.1),
+        "n_edges": np.full(n, 80),
+    }
+
+
+def _truth_dip_azimuth(dip, side):
+    # Trace direction (0.05, 1) normalised; the dip direction is ±x-ish, perpendicular.
+    t = np.array([0.05, 1.0]) / math.hypot(0.05, 1.0)
+    u = np.array([t[1], -t[0]]) * side
+    return dip, math.degrees(math.atan2(u[1], u[0])) % 360.0
+
+
+def test_serial_section_recovers_strip_dips():
+    h = 5.0
+    surface = _grain_map(_strip_labels(0.0))
+    deeper = _grain_map(_strip_labels(h))
+    out = measure_serial_section(
+        _strip_segments(0.0),
+        surface,
+        _strip_segments(h),
+        deeper,
+        depth_um=h,
+        depth_sigma_um=0.1,
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        registration=Registration(0.0, 0.0, 0.0, 0.2, 20, "given"),
+    )
+    b = out.boundaries
+    upper = b["segment_id"] < 10
+    assert b["status"][upper].tolist() == ["measured"] * 4
+    for row, (_c, dip, side) in zip(np.flatnonzero(upper), CUTS, strict=True):
+        want_dip, want_az = _truth_dip_azimuth(dip, side)
+        # The 0.05 slope in y tilts the plane slightly off the ideal strip dip.
+        assert_allclose(b["measured_dip_deg"][row], want_dip, rtol=0, atol=0.5)
+        diff = (b["dip_direction_azimuth_deg"][row] - want_az + 180) % 360 - 180
+        assert abs(diff) < 0.5
+        assert b["dip_source"][row] == "serial-section"
+    assert out.registration.method == "given"
+    assert out.depth_um == h
+    # σ_δ from the formula of §8 with σ_Δ from two line fits and the registration.
+    row = 0
+    line = max(0.1, STEP / math.sqrt(12)) / math.sqrt(80)  # residual floored at the pixel
+    sigma_d = math.sqrt(2 * line**2 + (0.2 / math.sqrt(20)) ** 2)
+    assert_allclose(b["offset_sigma_um"][row], sigma_d, rtol=1e-9, atol=0)
+    d = b["offset_um"][row]
+    want = math.degrees(math.hypot(d * 0.1, h * sigma_d) / (h**2 + d**2))
+    assert_allclose(b["measured_dip_sigma_deg"][row], want, rtol=1e-9, atol=0)
+
+
+def _truth_grain_map(micro, sampled):
+    """GrainMap built from a synthetic map's true regions (no segmentation involved)."""
+    labels = sampled.grain_id.astype(np.int32)
+    ids = np.unique(labels)
+    flat = labels.ravel()
+    area = np.bincount(flat)[ids]
+    ys, xs = np.indices(labels.shape) * sampled.step_um
+    edge = np.zeros(labels.max() + 1, bool)
+    edge[np.unique(np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]]))] = True
+    table = {
+        "grain_id": ids,
+        "phase": micro.region_phase[ids - 1],
+        "quat": micro.region_quat[ids - 1],
+        "area_px": area,
+        "centroid_x_um": np.bincount(flat, xs.ravel())[ids] / area,
+        "centroid_y_um": np.bincount(flat, ys.ravel())[ids] / area,
+        "touches_edge": edge[ids],
+    }
+    return GrainMap(labels, table, {}, 5.0, 4)
+
+
+@pytest.fixture(scope="module")
+def voronoi():
+    from types import SimpleNamespace
+
+    from inclination.synthetic import make_microstructure
+
+    fcc = SimpleNamespace(id=1, name="fcc", laue="m-3m")
+    return make_microstructure(box_um=(100, 80, 20), n_grains=60, rng=1, phases=[fcc], twins=4)
+
+
+@pytest.mark.parametrize("shift_um", [(1.5, -1.0), (-4.0, 4.5), (3.25, 0.75)])
+def test_registration_recovers_an_imposed_shift(voronoi, shift_um):
+    from inclination.synthetic import sample_map
+
+    kw = {"step_um": STEP, "rng": 0, "extent_um": (90, 70), "noise_deg": 0.0}
+    surface = _truth_grain_map(voronoi, sample_map(voronoi, offset_um=(5, 5), **kw))
+    moved = sample_map(voronoi, offset_um=(5 + shift_um[0], 5 + shift_um[1]), **kw)
+    reg = register_sections(
+        surface, _truth_grain_map(voronoi, moved), step_um=STEP, laue_by_phase={1: "m-3m"}
+    )
+    # A feature at deeper-map p sits at p + shift on the surface map; the same plane
+    # shifted is recovered to half a step.
+    assert abs(reg.shift_x_um - shift_um[0]) <= STEP / 2
+    assert abs(reg.shift_y_um - shift_um[1]) <= STEP / 2
+    assert reg.method == "grain structure"
+    assert reg.n_points > 5 and reg.residual_um < STEP
+
+
+@pytest.mark.parametrize("shift_um", [(0.0, 0.0), (-4.0, 4.5), (2.0, 1.25)])
+def test_registration_at_depth(voronoi, shift_um):
+    # At depth h every boundary has moved by h·cot δ; the shift found carries the net
+    # movement of the boundaries in view, of order h/√N (N boundaries), here about a
+    # step for h = 5 µm and some 60 boundaries. A broken registration is off by grains.
+    from inclination.synthetic import sample_map
+
+    kw = {"step_um": STEP, "rng": 0, "extent_um": (90, 70), "noise_deg": 0.0}
+    surface = _truth_grain_map(voronoi, sample_map(voronoi, offset_um=(5, 5), **kw))
+    deeper = sample_map(voronoi, offset_um=(5 + shift_um[0], 5 + shift_um[1]), depth_um=5.0, **kw)
+    reg = register_sections(
+        surface, _truth_grain_map(voronoi, deeper), step_um=STEP, laue_by_phase={1: "m-3m"}
+    )
+    assert math.hypot(reg.shift_x_um - shift_um[0], reg.shift_y_um - shift_um[1]) < 2 * STEP
+
+
+def test_registration_without_common_grains(voronoi):
+    from inclination.rotations import quat_from_axis_angle_deg, quat_multiply
+    from inclination.synthetic import sample_map
+
+    surface = _truth_grain_map(voronoi, sample_map(voronoi, step_um=1.0, rng=0, noise_deg=0.0))
+    turned = dict(surface.grains)
+    turned["quat"] = quat_multiply(surface.grains["quat"], quat_from_axis_angle_deg([0, 0, 1], 20))
+    other = GrainMap(surface.labels, turned, {}, 5.0, 4)
+    reg = register_sections(surface, other, step_um=1.0, laue_by_phase={1: "m-3m"})
+    assert reg.method == "none" and reg.n_points == 0 and np.isnan(reg.residual_um)
+
+
+def test_registration_from_fiducials():
+    fid = np.array(
+        [[[10.0, 10.0], [8.0, 11.0]], [[50.0, 20.0], [48.0, 21.0]], [[30.0, 40.0], [28.1, 41.0]]]
+    )
+    surface = _grain_map(_strip_labels(0.0))
+    reg = register_sections(
+        surface, surface, step_um=STEP, laue_by_phase={1: "m-3m"}, fiducials_um=fid
+    )
+    assert reg.method == "fiducials"
+    assert_allclose([reg.shift_x_um, reg.shift_y_um], [1.9667, -1.0], rtol=0, atol=1e-3)
+    assert 0 < reg.residual_um < 0.1
+    assert_allclose(reg.apply([[8.0, 11.0]]), [[9.9667, 10.0]], rtol=0, atol=1e-3)
+    with pytest.raises(ValueError, match=r"`fiducials_um` to have shape \(K, 2, 2\)"):
+        register_sections(
+            surface, surface, step_um=STEP, laue_by_phase={1: "m-3m"}, fiducials_um=[[1.0, 2.0]]
+        )
+
+
+def test_fitted_rotation_recovers_a_small_turn():
+    theta = math.radians(1.0)
+    rot = np.array([[math.cos(theta), -math.sin(theta)], [math.sin(theta), math.cos(theta)]])
+    deeper = np.array([[0.0, 0.0], [40.0, 0.0], [0.0, 30.0], [40.0, 30.0]])
+    surface = deeper @ rot.T + [2.0, -1.0]
+    reg = register_sections(
+        _grain_map(_strip_labels(0.0)),
+        _grain_map(_strip_labels(0.0)),
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        fiducials_um=np.stack([surface, deeper], 1),
+        fit_rotation=True,
+    )
+    assert_allclose(reg.rotation_deg, 1.0, rtol=0, atol=1e-9)
+    assert_allclose(reg.apply(deeper), surface, rtol=0, atol=1e-9)
+
+
+def test_grain_matching_uses_orientation_and_overlap():
+    surface = _grain_map(_strip_labels(0.0))
+    deeper = _grain_map(_strip_labels(0.0))
+    pairs = match_grains(
+        surface,
+        deeper,
+        Registration(0, 0, 0, 0, 0, "given"),
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+    )
+    assert_allclose(pairs["surface_grain"], pairs["deeper_grain"], rtol=0, atol=0)
+    assert_allclose(pairs["disorientation_deg"], 0.0, rtol=0, atol=1e-4)
+    # Turn every deeper grain by 20°: no grain is the same grain any more.
+    from inclination.rotations import quat_from_axis_angle_deg, quat_multiply
+
+    turned = dict(deeper.grains)
+    turned["quat"] = quat_multiply(deeper.grains["quat"], quat_from_axis_angle_deg([0, 0, 1], 20))
+    other = GrainMap(deeper.labels, turned, {}, 5.0, 4)
+    pairs = match_grains(
+        surface,
+        other,
+        Registration(0, 0, 0, 0, 0, "given"),
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+    )
+    assert len(pairs["surface_grain"]) == 0
+
+
+def test_thin_layer_warns_and_flags():
+    h = 0.05
+    surface = _grain_map(_strip_labels(0.0))
+    with pytest.warns(UserWarning, match="too thin for a useful dip"):
+        out = measure_serial_section(
+            _strip_segments(0.0),
+            surface,
+            _strip_segments(h),
+            _grain_map(_strip_labels(h)),
+            depth_um=h,
+            depth_sigma_um=0.02,
+            step_um=STEP,
+            laue_by_phase={1: "m-3m"},
+            registration=Registration(0, 0, 0, 0.2, 10, "given"),
+        )
+    assert "ill_conditioned" in out.boundaries["status"].tolist()
+
+
+def test_serial_section_bad_input():
+    surface = _grain_map(_strip_labels(0.0))
+    segs = _strip_segments(0.0)
+    with pytest.raises(InputError, match="`depth_um` to be a finite number > 0") as info:
+        measure_serial_section(
+            segs,
+            surface,
+            segs,
+            surface,
+            depth_um=-1.0,
+            depth_sigma_um=0.1,
+            step_um=STEP,
+            laue_by_phase={1: "m-3m"},
+            path="job.json",
+            pointer="/sections/1",
+        )
+    assert info.value.pointer == "/sections/1/depth_um"
+    with pytest.raises(InputError, match="`depth_sigma_um`"):
+        measure_serial_section(
+            segs,
+            surface,
+            segs,
+            surface,
+            depth_um=1.0,
+            depth_sigma_um=-0.1,
+            step_um=STEP,
+            laue_by_phase={1: "m-3m"},
+        )
+    other = dict(surface.grains)
+    other["phase"] = np.full(len(other["phase"]), 2)
+    alien = GrainMap(surface.labels, other, {}, 5.0, 4)
+    with pytest.raises(InputError, match="hold the phases of the surface map") as info:
+        measure_serial_section(
+            segs,
+            surface,
+            segs,
+            alien,
+            depth_um=1.0,
+            depth_sigma_um=0.1,
+            step_um=STEP,
+            laue_by_phase={1: "m-3m", 2: "6/mmm"},
+            pointer="/sections/1",
+        )
+    assert info.value.pointer == "/sections/1/map"
+
+
+# --------------------------------------------------------------------------- stacks
+
+
+def test_plane_through_traces_of_a_known_plane():
+    gen = np.random.default_rng(2)
+    n = _random_normals(gen, 1, 30, 70)[0]
+    t = np.cross(Z, n)
+    t /= np.linalg.norm(t)
+    d = -np.sign(n[2]) * n[:2] / np.linalg.norm(n[:2])
+    dip, az = _plane_geometry(n)
+    depths = np.array([0.0, 2.0, 4.0, 6.0])
+    shift = depths / math.tan(math.radians(dip))
+    p = np.array([30.0, 40.0]) + shift[:, None] * d
+    a, b = p - 10 * t[:2], p + 10 * t[:2]
+    fit = fit_plane_through_traces(a[:, 0], a[:, 1], b[:, 0], b[:, 1], depths)
+    assert_allclose(fit.dip_deg, dip, rtol=0, atol=1e-8)
+    assert_allclose((fit.dip_direction_azimuth_deg - az + 180) % 360 - 180, 0, rtol=0, atol=1e-8)
+    assert_allclose(fit.residual_um, 0.0, rtol=0, atol=1e-9)
+    with pytest.raises(ValueError, match="at least 2 traces"):
+        fit_plane_through_traces([0.0], [0.0], [1.0], [1.0], [0.0])
+
+
+def test_stack_of_three_sections():
+    surface = _grain_map(_strip_labels(0.0))
+    levels = [(_strip_segments(h), _grain_map(_strip_labels(h))) for h in (2.5, 5.0)]
+    given = [Registration(0.0, 0.0, 0.0, 0.2, 20, "given")] * 2
+    out = measure_stack(
+        _strip_segments(0.0),
+        surface,
+        levels,
+        depths_um=[2.5, 5.0],
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        registrations=given,
+    )
+    upper = out["segment_id"] < 10
+    assert out["n_sections"][upper].tolist() == [3] * 4
+    want = [dip for _, dip, _ in CUTS]
+    assert_allclose(out["measured_dip_deg"][upper], want, rtol=0, atol=0.5)
+    assert np.all(out["fit_residual_um"][upper] < 0.2)
+    with pytest.raises(ValueError, match="one depth per deeper section"):
+        measure_stack(
+            _strip_segments(0.0),
+            surface,
+            levels,
+            depths_um=[2.5],
+            step_um=STEP,
+            laue_by_phase={1: "m-3m"},
+        )
+    with pytest.raises(ValueError, match="one entry per deeper section"):
+        measure_stack(
+            _strip_segments(0.0),
+            surface,
+            levels,
+            depths_um=[2.5, 5.0],
+            step_um=STEP,
+            laue_by_phase={1: "m-3m"},
+            registrations=given[:1],
+        )
