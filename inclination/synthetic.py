@@ -373,11 +373,15 @@ def _random_twin_specs(
     area, centroid = _surface_sections(seeds, box)
     # Twin lamellae are put where a surface map will show them: in grains with a large
     # section, through the section's centre, on a plane steep enough to show as a band.
-    eligible = np.flatnonzero(area >= max(np.median(area[area > 0]), 1.0))
+    twinning = np.array(
+        [phases_by_id[int(p)].laue in _CUBIC_LAUE + _HEXAGONAL_LAUE for p in phase_ids]
+    )
+    large = area >= max(np.median(area[area > 0]), 1.0)
+    eligible = np.flatnonzero(large & twinning)
     if n_twins > len(eligible):
         raise ValueError(
-            f"Expected `twins` to be at most {len(eligible)} (grains with a large surface "
-            f"section), got {n_twins}."
+            f"Expected `twins` to be at most {len(eligible)} (grains of a twinning phase with "
+            f"a large surface section), got {n_twins}."
         )
     chosen = gen.choice(eligible, size=n_twins, replace=False)
     specs = []
@@ -428,7 +432,8 @@ def make_microstructure(
         An int n twins n grains chosen at random among those with a large surface
         section, each with one lamella through the centre of that section, on a randomly
         chosen twin plane with a dip of at least ``min_twin_dip_deg`` (the steepest if
-        none is), of a thickness drawn uniformly from ``twin_thickness_um``.
+        none is), of a thickness drawn uniformly from ``twin_thickness_um``; only grains
+        of a twinning phase (cubic {111}, hexagonal {10-12}) are chosen.
         Explicit specs place lamellae exactly; a grain may hold at most one lamella.
     twin_thickness_um : tuple of 2 floats
         Range of random lamella thicknesses.
@@ -1215,6 +1220,16 @@ def simulate_cross_section(
     each image angle, which is then folded into (0, 90] (a shallow boundary stays
     shallow). Coordinates are in S: a job that declares axes x right, y down can use
     them as they are.
+
+    Parameters
+    ----------
+    micro : Microstructure
+    line_um, viewer_at_um, imaging_tilt_deg, max_depth_um, face_inclination_deg
+        As in :func:`cross_section_crossings`.
+    rng : None, int or numpy.random.Generator
+        Seed of the angle noise.
+    angle_noise_deg : float
+        Standard deviation of the noise added to each image angle.
 
     Returns
     -------

@@ -605,6 +605,11 @@ def test_ground_truth_is_json_and_complete(micro, surface):
         (
             {"phases": [TETRAGONAL], "twins": 1},
             ValueError,
+            r"Expected `twins` to be at most 0 \(grains of a twinning phase",
+        ),
+        (
+            {"phases": [TETRAGONAL], "twins": [TwinSpec(1, 0, 1.0)]},
+            ValueError,
             "Expected `phase.laue` to be one of",
         ),
     ],
@@ -806,3 +811,26 @@ def test_example_script_runs(tmp_path):
     namespace = runpy.run_path(str(script), run_name="example")
     truth = namespace["main"](tmp_path)
     assert (tmp_path / "truth.json").is_file() and len(truth["lamellae"]) == 6
+
+
+def test_two_phase_sample_twins_each_phase_by_its_own_law():
+    # m-3m: Σ3 60° (Grimmer et al. 1974); 6/mmm: 2·arctan(c/(√3 a)) (see the hexagonal test).
+    micro = make_microstructure(
+        box_um=(80, 60, 30),
+        n_grains=30,
+        rng=5,
+        phases=[FCC, HEX],
+        phase_fractions=[0.6, 0.4],
+        twins=8,
+    )
+    assert set(micro.region_phase[: micro.n_grains].tolist()) == {1, 2}
+    m = sample_map(micro, step_um=1.0, rng=0, nonindexed_fraction=0.02)
+    assert set(np.unique(m.phase).tolist()) == {0, 1, 2}
+    assert {int(micro.region_phase[lam.parent - 1]) for lam in micro.lamellae} == {1, 2}
+    expected = {1: 60.0, 2: 2 * np.rad2deg(np.arctan(5.0 / 3.10 / np.sqrt(3)))}
+    for lam in micro.lamellae:
+        phase = int(micro.region_phase[lam.parent - 1])
+        laue = {1: "m-3m", 2: "6/mmm"}[phase]
+        d = symmetry.disorientation(micro.region_quat[lam.parent - 1], np.array(lam.quat), laue)
+        assert_allclose(d.angle_deg, expected[phase], rtol=0, atol=1e-6)
+        assert micro.region_phase[lam.region - 1] == phase
