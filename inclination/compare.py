@@ -509,9 +509,10 @@ def full_planes(
 
     b_ids = np.asarray(boundaries["segment_id"])
     order = np.argsort(b_ids)
-    pos = order[np.searchsorted(b_ids, seg, sorter=order)] if m else np.zeros(0, int)
-    if m and np.any(b_ids[pos] != seg):
-        missing = seg[b_ids[pos] != seg][0]
+    found = np.minimum(np.searchsorted(b_ids, seg, sorter=order), max(len(b_ids) - 1, 0))
+    pos = order[found] if m and len(b_ids) else np.zeros(m, int)
+    if m and (len(b_ids) == 0 or np.any(b_ids[pos] != seg)):
+        missing = seg[b_ids[pos] != seg][0] if len(b_ids) else seg[0]
         raise ValueError(f"Expected every measured segment in `boundaries`, got {missing!r}.")
     grain_ab = [np.asarray(boundaries[k])[pos] for k in ("grain_a", "grain_b")]
     sigma = np.asarray(boundaries["sigma"])[pos] if "sigma" in boundaries else np.full(m, -1)
@@ -525,7 +526,11 @@ def full_planes(
         out[f"normal_{axis}"] = normal_s[:, k]
     common_s = {}
     for side, ids in zip("ab", grain_ab, strict=True):
-        row = g_order[np.searchsorted(g_ids, ids, sorter=g_order)]
+        idx = np.minimum(np.searchsorted(g_ids, ids, sorter=g_order), len(g_ids) - 1)
+        row = g_order[idx]
+        if m and np.any(g_ids[row] != ids):
+            bad = ids[g_ids[row] != ids][0]
+            raise ValueError(f"Expected every grain of `boundaries` in `grains`, got {bad!r}.")
         q = quat[row]
         n_c = quat_apply(q, normal_s) if m else np.zeros((0, 3))
         for axis, k in zip("xyz", range(3), strict=True):

@@ -1,0 +1,298 @@
+"""The comparator, the frame verdict and full planes (conventions §5, §6)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+from scipy.stats import binomtest
+
+from inclination.compare import (
+    SENSES,
+    VERDICTS,
+    best_measurements,
+    boundary_sense,
+    frame_verdict,
+    full_planes,
+    low_index_planes,
+)
+from inclination.lattice import Lattice, Phase
+from inclination.rotations import quat_apply, quat_from_axis_angle_deg, quat_inverse, random_quat
+
+CU = Phase(
+    1, "copper", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90), ("{1 1 1}",)
+)
+
+
+# --------------------------------------------------------------------------- boundary_sense
+
+
+@given(st.floats(0, 360), st.floats(10, 80), st.floats(-20, 20), st.floats(0.5, 10))
+def test_turning_the_measurement_by_180_swaps_the_call(mu, dip, err, sigma):
+    a = boundary_sense([mu], [dip], [mu + err], [sigma])
+    b = boundary_sense([mu], [dip], [mu + err + 180.0], [sigma])
+    assert_allclose(a["log10_likelihood_ratio"], -b["log10_likelihood_ratio"], rtol=1e-9, atol=1e-9)
+    swap = {"agrees": "opposite", "opposite": "agrees", "undecided": "undecided"}
+    assert b["sense"][0] == swap[a["sense"][0]]
+    assert a["sense"][0] in SENSES
+
+
+def test_sense_calls_and_reasons():
+    out = boundary_sense(
+        predicted_azimuth_deg=[10, 10, 10, 10, 10, np.nan, 10, 10],
+        predicted_dip_deg=[50, 50, 50, 89, 50, 50, 50, 50],
+        measured_azimuth_deg=[12, 195, 100, 10, 10, 10, np.nan, 10],
+        measured_sigma_deg=[3, 3, 3, 3, 150, 3, 3, 3],
+        measured_dip_deg=[50, 50, 50, 50, 50, 50, 50, 88],
+        measured_dip_sigma_deg=[1, 1, 1, 1, 1, 1, 1, 2],
+    )
+    assert out["sense"].tolist() == ["agrees", "opposite"] + ["undecided"] * 6
+    assert out["reason"].tolist() == [
+        "",
+        "",
+        "fits neither direction",
+        "predicted plane near vertical",
+        "weak evidence",
+        "no predicted dip direction",
+        "no measurement",
+        "measured plane near vertical",
+    ]
+    assert np.isnan(out["log10_likelihood_ratio"][[5, 6]]).all()
+    assert_allclose(out["mismatch_deg"][:3], [2.0, 5.0, 90.0], rtol=0, atol=1e-9)
+
+
+def test_likelihood_ratio_grows_with_precision():
+    out = boundary_sense(
+        [0.0] * 3,
+        [45.0] * 3,
+        [5.0] * 3,
+        [20.0, 10.0, 5.0],
+        predicted_azimuth_sigma_deg=0.0,
+        min_log10_ratio=0.5,
+    )
+    assert np.all(np.diff(out["log10_likelihood_ratio"]) > 0)
+    # 2κ cos(φ − μ) / ln 10 with κ = 1/σ² (von Mises, hand-computed for σ = 10°).
+    kappa = 1 / math.radians(10.0) ** 2
+    assert_allclose(
+        out["log10_likelihood_ratio"][1],
+        2 * kappa * math.cos(math.radians(5.0)) / math.log(10),
+        rtol=1e-12,
+        atol=0,
+    )
+
+
+def test_sense_argument_errors():
+    with pytest.raises(ValueError, match="`predicted_dip_deg` to have length 2"):
+        boundary_sense([1.0, 2.0], [1.0], [1.0, 2.0], [1.0, 1.0])
+    with pytest.raises(ValueError, match="`n_sigma_vertical` to be a finite number > 0"):
+        boundary_sense([1.0], [1.0], [1.0], [1.0], n_sigma_vertical=0)
+    with pytest.raises(ValueError, match="σ of the prediction >= 0"):
+        boundary_sense([1.0], [1.0], [1.0], [-1.0])
+
+
+# --------------------------------------------------------------------------- frame_verdict
+
+
+def _senses(n_agree, n_oppose, n_undecided=0, strength=30.0):
+    return {
+        "sense": np.array(
+            ["agrees"] * n_agree + ["opposite"] * n_oppose + ["undecided"] * n_undecided
+        ),
+        "log10_likelihood_ratio": np.array(
+            [strength] * n_agree + [-strength] * n_oppose + [0.3] * n_undecided
+        ),
+    }
+
+
+@pytest.mark.parametrize(
+    ("counts", "verdict"),
+    [
+        ((12, 0, 3), "as_declared"),
+        ((0, 9, 1), "turned_180_about_normal"),
+        ((11, 1, 0), "as_declared"),  # one slip in twelve is within the error rate
+        ((6, 6, 0), "inconsistent"),
+        ((8, 4, 0), "inconsistent"),
+        ((1, 0, 4), "undecided"),  # one boundary alone never decides a map
+        ((0, 0, 5), "undecided"),
+        ((0, 0, 0), "undecided"),
+    ],
+)
+def test_frame_verdicts(counts, verdict):
+    v = frame_verdict(_senses(*counts))
+    assert v.verdict == verdict
+    assert v.verdict in VERDICTS
+    assert (v.n_agree, v.n_opposite, v.n_undecided) == counts
+    assert v.sentence.startswith(f"Of {sum(counts)} ")
+    assert v.as_dict()["verdict"] == verdict
+
+
+def test_verdict_p_values_match_scipy_binomial_tests():
+    v = frame_verdict(_senses(10, 2))
+    # Sign test of the majority (scipy.stats.binomtest, one-sided, p = 1/2).
+    assert_allclose(
+        v.p_value_sign, binomtest(10, 12, 0.5, alternative="greater").pvalue, rtol=1e-12, atol=0
+    )
+    # Split test of the minority against the per-call error rate ε = 0.05.
+    assert_allclose(
+        v.p_value_split, binomtest(2, 12, 0.05, alternative="greater").pvalue, rtol=1e-12, atol=0
+    )
+
+
+def test_each_boundary_is_bounded_by_the_error_rate():
+    # log10((1 − ε)/ε) per decisive boundary, ε = 0.05: 1.2788 (hand-computed).
+    v = frame_verdict(_senses(3, 0, strength=500.0))
+    assert_allclose(v.log10_likelihood_ratio, 3 * math.log10(19.0), rtol=1e-9, atol=0)
+    w = frame_verdict(_senses(3, 0, strength=500.0), error_rate=0.2)
+    assert_allclose(w.log10_likelihood_ratio, 3 * math.log10(4.0), rtol=1e-9, atol=0)
+    assert w.verdict == "undecided"
+
+
+def test_frame_verdict_errors():
+    with pytest.raises(ValueError, match=r"`error_rate` to be in \(0, 0.5\)"):
+        frame_verdict(_senses(1, 0), error_rate=0.5)
+    with pytest.raises(ValueError, match=r"`alpha` to be in \(0, 1\)"):
+        frame_verdict(_senses(1, 0), alpha=0.0)
+    with pytest.raises(ValueError, match="`sense` to be one of"):
+        frame_verdict({"sense": np.array(["yes"]), "log10_likelihood_ratio": np.array([1.0])})
+
+
+# --------------------------------------------------------------------------- measurements
+
+
+def test_best_measurement_per_segment():
+    a = {
+        "segment_id": np.array([3, 1, -1]),
+        "measured_dip_deg": np.array([50.0, 60.0, 1.0]),
+        "measured_dip_sigma_deg": np.array([3.0, 1.0, 0.1]),
+        "status": np.array(["measured", "ill_conditioned", "unmatched"]),
+    }
+    b = {
+        "segment_id": np.array([3, 1]),
+        "measured_dip_deg": np.array([52.0, 1.0]),
+        "measured_dip_sigma_deg": np.array([1.0, 0.5]),
+        "status": np.array(["measured", "ambiguous"]),
+    }
+    out = best_measurements(a, b)
+    assert out["segment_id"].tolist() == [1, 3]
+    assert out["measured_dip_deg"].tolist() == [60.0, 52.0]
+    assert best_measurements() == {}
+
+
+# --------------------------------------------------------------------------- full planes
+
+
+def test_low_index_planes_count():
+    # Primitive (hkl) with |h|,|k|,|l| <= 3, one of each ± pair: (7³ − 1)/2 = 171 minus
+    # the 13·... non-primitive ones; counted by brute force with math.gcd.
+    count = (
+        sum(
+            1
+            for h in range(-3, 4)
+            for k in range(-3, 4)
+            for m in range(-3, 4)
+            if (h, k, m) != (0, 0, 0) and math.gcd(math.gcd(abs(h), abs(k)), abs(m)) == 1
+        )
+        // 2
+    )
+    hkl, normals = low_index_planes(CU.lattice, max_index=3)
+    assert len(hkl) == count
+    assert_allclose(np.linalg.norm(normals, axis=1), 1.0, rtol=0, atol=1e-12)
+    with pytest.raises(ValueError, match="`max_index` to be an integer >= 1"):
+        low_index_planes(CU.lattice, max_index=0)
+
+
+def _twin_pair(gen):
+    qa = random_quat(1, rng=gen)[0]
+    # Σ3: 60° about a <111> (passive: q_b = r ⊗ q_a with r the crystal rotation).
+    r = quat_from_axis_angle_deg(np.array([1.0, 1.0, 1.0]) / math.sqrt(3), 60.0)
+    from inclination.rotations import quat_multiply
+
+    qb = quat_multiply(r, qa)
+    return qa, qb
+
+
+def test_full_planes_of_a_coherent_twin_and_a_tilted_one():
+    gen = np.random.default_rng(8)
+    qa, qb = _twin_pair(gen)
+    # The (1 1 1) plane of grain a in S: n_S = gᵀ n_C.
+    n111 = quat_apply(quat_inverse(qa), np.array([1.0, 1.0, 1.0]) / math.sqrt(3))
+    tilt = quat_apply(quat_from_axis_angle_deg(np.cross(n111, [0, 0, 1.0]), 10.0), n111)
+    measured = {
+        "segment_id": np.array([5, 6]),
+        "normal_x": np.array([n111[0], tilt[0]]),
+        "normal_y": np.array([n111[1], tilt[1]]),
+        "normal_z": np.array([n111[2], tilt[2]]),
+    }
+    boundaries = {
+        "segment_id": np.array([6, 5]),
+        "grain_a": np.array([1, 1]),
+        "grain_b": np.array([2, 2]),
+        "sigma": np.array([3, 3]),
+    }
+    grains = {"grain_id": np.array([2, 1]), "phase": np.array([1, 1]), "quat": np.stack([qb, qa])}
+    out = full_planes(measured, boundaries, grains, {1: CU})
+    assert out["plane_a_measured"][0] == "(1 1 1)"
+    assert_allclose(out["plane_a_deviation_deg"][0], 0.0, rtol=0, atol=1e-6)
+    # The twin plane is (1 1 1) in grain b as well (it is the rotation axis).
+    assert out["plane_b_measured"][0] == "(1 1 1)"
+    assert_allclose(out["twin_plane_deviation_deg"], [0.0, 10.0], rtol=0, atol=1e-6)
+    assert out["coherent_twin"].tolist() == ["yes", "no"]
+    na = np.stack([out["normal_a_x"], out["normal_a_y"], out["normal_a_z"]], -1)
+    assert_allclose(np.linalg.norm(na, axis=1), 1.0, rtol=0, atol=1e-12)
+
+
+def test_full_planes_of_a_general_boundary_has_no_twin_columns():
+    measured = {
+        "segment_id": np.array([0]),
+        "normal_x": np.array([0.0]),
+        "normal_y": np.array([0.0]),
+        "normal_z": np.array([1.0]),
+    }
+    boundaries = {
+        "segment_id": np.array([0]),
+        "grain_a": np.array([1]),
+        "grain_b": np.array([2]),
+        "sigma": np.array([-1]),
+    }
+    grains = {
+        "grain_id": np.array([1, 2]),
+        "phase": np.array([1, 1]),
+        "quat": np.array([[1.0, 0, 0, 0], [math.cos(0.2), 0, 0, math.sin(0.2)]]),
+    }
+    out = full_planes(measured, boundaries, grains, {1: CU})
+    assert out["plane_a_measured"].tolist() == ["(0 0 1)"]
+    assert out["coherent_twin"].tolist() == [""]
+    assert np.isnan(out["twin_plane_deviation_deg"]).all()
+    with pytest.raises(ValueError, match="every measured segment in `boundaries`"):
+        full_planes({**measured, "segment_id": np.array([9])}, boundaries, grains, {1: CU})
+    with pytest.raises(ValueError, match="every grain of `boundaries` in `grains`"):
+        full_planes(measured, {**boundaries, "grain_b": np.array([7])}, grains, {1: CU})
+
+
+def test_hexagonal_planes_are_written_with_four_indices():
+    ti = Phase(
+        2,
+        "titanium",
+        "6/mmm",
+        Lattice.from_parameters(2.951, 2.951, 4.684, 90, 90, 120, setting="x_parallel_a"),
+        ("{1 0 -1 0}",),
+    )
+    measured = {
+        "segment_id": np.array([0]),
+        "normal_x": np.array([0.0]),
+        "normal_y": np.array([0.0]),
+        "normal_z": np.array([1.0]),
+    }
+    boundaries = {"segment_id": np.array([0]), "grain_a": np.array([1]), "grain_b": np.array([2])}
+    grains = {
+        "grain_id": np.array([1, 2]),
+        "phase": np.array([2, 2]),
+        "quat": np.array([[1.0, 0, 0, 0], [0.0, 1.0, 0, 0]]),
+    }
+    out = full_planes(measured, boundaries, grains, {2: ti})
+    assert out["plane_a_measured"].tolist() == ["(0 0 0 1)"]
+    assert_allclose(out["plane_a_deviation_deg"], [0.0], rtol=0, atol=1e-9)
