@@ -462,7 +462,8 @@ def full_planes(
         Measured planes by ``segment_id`` (e.g. :func:`best_measurements`), normals in S.
     boundaries : mapping
         Segments or identification table with ``segment_id, grain_a, grain_b`` and
-        optionally ``sigma`` (Σ of the misorientation, 0 or -1 when none).
+        optionally ``sigma`` (CSL label such as ``"3"``, ``""`` when none; integers
+        are read alike).
     grains : mapping
         Grain table: ``grain_id, phase, quat`` (G, 4) (sample to crystal, §3).
     phases : mapping of int to Phase
@@ -515,7 +516,12 @@ def full_planes(
         missing = seg[b_ids[pos] != seg][0] if len(b_ids) else seg[0]
         raise ValueError(f"Expected every measured segment in `boundaries`, got {missing!r}.")
     grain_ab = [np.asarray(boundaries[k])[pos] for k in ("grain_a", "grain_b")]
-    sigma = np.asarray(boundaries["sigma"])[pos] if "sigma" in boundaries else np.full(m, -1)
+    # Σ comes as a CSL label ("3", "13b", "") or as an integer; both name Σ3 alike.
+    sigma = (
+        np.char.strip(np.asarray(boundaries["sigma"]).astype(str))[pos]
+        if "sigma" in boundaries
+        else np.full(m, "")
+    )
     g_ids = np.asarray(grains["grain_id"])
     g_order = np.argsort(g_ids)
     quat = np.asarray(grains["quat"], float)
@@ -556,7 +562,7 @@ def full_planes(
         out[f"plane_{side}_deviation_deg"] = dev
 
     twin_dev = np.full(m, np.nan)
-    is_twin = (sigma == 3) & (grain_ab[0] >= 0)
+    is_twin = (sigma == "3") & (grain_ab[0] >= 0)
     if "a" in common_s and "b" in common_s:
         sel = (
             is_twin

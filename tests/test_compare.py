@@ -241,6 +241,9 @@ def test_full_planes_of_a_coherent_twin_and_a_tilted_one():
     assert out["plane_b_measured"][0] == "(1 1 1)"
     assert_allclose(out["twin_plane_deviation_deg"], [0.0, 10.0], rtol=0, atol=1e-6)
     assert out["coherent_twin"].tolist() == ["yes", "no"]
+    # Σ given as an integer reads the same.
+    again = full_planes(measured, {**boundaries, "sigma": np.array([3, 3])}, grains, {1: CU})
+    assert again["coherent_twin"].tolist() == ["yes", "no"]
     na = np.stack([out["normal_a_x"], out["normal_a_y"], out["normal_a_z"]], -1)
     assert_allclose(np.linalg.norm(na, axis=1), 1.0, rtol=0, atol=1e-12)
 
