@@ -276,33 +276,41 @@ def _spacing(values: np.ndarray) -> tuple[float, float]:
     """(position of the first line, spacing) of coordinates clustered on regular lines.
 
     Points may sit up to 1 % of a step off their line while neighbouring lines
-    are at least a step apart, so sorted unique values jump either by under
-    2 % of a step (one line) or by a step or more (the next line). Clusters are
-    split where a jump exceeds a fifth of the smallest gap between clusters,
-    found by shrinking the cut from a fifth of the largest jump (wide bands of
-    missing lines would otherwise hide the step). Returns spacing 0 for a
+    are at least a step apart: sorted unique values jump either by under 2 % of
+    a step (within a line) or by about a whole number of steps (to another
+    line). Candidate cuts between the two sit where the sorted jumps grow more
+    than fivefold; the largest cut whose clusters stay within 2 % of the
+    smallest gap between them is taken (a band of missing lines makes a large
+    jump, but its clusters would then be too wide). Returns spacing 0 for a
     single line.
     """
     u = np.unique(values)
     if u.size == 1:
         return float(u[0]), 0.0
     d = np.diff(u)
-    cut = 0.2 * d.max()
-    for _ in range(64):
-        label = np.concatenate([[0], np.cumsum(d > cut)])
-        centres = np.bincount(label, weights=u) / np.bincount(label)
+    ds = np.unique(d)
+    cuts = ds[:-1][ds[1:] > 5.0 * ds[:-1]]
+    for cut in [*cuts[::-1].tolist(), 0.0]:
+        split = np.flatnonzero(d > cut)
+        if split.size == 0:
+            continue
+        first = np.concatenate([[0], split + 1])
+        last = np.concatenate([split, [u.size - 1]])
+        centres = 0.5 * (u[first] + u[last])
         gaps = np.diff(centres)
-        if gaps.size == 0:
-            return float(centres[0]), 0.0
-        new_cut = 0.2 * gaps.min()
-        if new_cut >= cut * 0.999:
+        if np.max(u[last] - u[first]) <= 0.02 * gaps.min():
             break
-        cut = new_cut
-    # The step from single-step gaps only, then refined by least squares through all
-    # line centres, so a step is not set by one noisy gap.
-    s0 = float(np.median(gaps[gaps < 1.5 * gaps.min()]))
-    k = np.rint((centres - centres[0]) / s0)
-    slope, intercept = np.polyfit(k, centres, 1)
+    # The step from single-step gaps, then a least-squares line through the line
+    # centres, refitted without centres more than half the tolerance off, so that one
+    # misplaced line neither sets the step nor hides which line is off.
+    slope = float(np.median(gaps[gaps < 1.5 * gaps.min()]))
+    k = np.rint((centres - centres[0]) / slope)
+    intercept = float(np.median(centres - k * slope))
+    for _ in range(3):
+        keep = np.abs(centres - (intercept + slope * k)) <= 0.005 * slope
+        if np.unique(k[keep]).size < 2:
+            break
+        slope, intercept = np.polyfit(k[keep], centres[keep], 1)
     # Coordinates are printed decimals: the fit's last-bit noise is not information.
     return float(np.round(intercept, 9)), float(f"{slope:.9g}")
 
@@ -408,7 +416,10 @@ def place_on_grid(
         sx = float(step_x_um) if step_x_um is not None else sx
         pitch = float(step_y_um) if step_y_um is not None else pitch
         if sx == 0 and pitch == 0:
-            refuse("Expected a map of more than one point position, got a single position.")
+            refuse(
+                "Expected a map of more than one point position, got a single position; "
+                "declare 'step_um'."
+            )
         # A single row or column has no spacing of its own: take the other axis' step.
         sx = sx if sx > 0 else pitch
         pitch = pitch if pitch > 0 else sx
