@@ -80,6 +80,7 @@ _QUANT_COEFF_ANY_ANGLE = {"square": 0.90, "hexagonal": 0.79}
 _ROW_COEFF = 0.34
 _ROW_REACH = 2.0
 _STAIR_RESIDUAL = {"square": 0.31, "hexagonal": 0.28}
+_BLOCK_POINTS = 1 << 20
 # Row directions of each grid (deg, S) and the spacing of the rows along them (in steps).
 _ROWS = {
     "square": (np.array([0.0, 45.0, 90.0, 135.0]), np.array([1.0, 0.5**0.5, 1.0, 0.5**0.5])),
@@ -312,13 +313,15 @@ def _distance_to_chord(rel, chord):
 
 def _farthest(points, s, e):
     """Largest distance to the chord, and where, for intervals s..e with inner points."""
+    if not s.size:
+        return np.zeros(0), np.zeros(0, dtype=np.int64)
     inner = e - s - 1
     group = np.repeat(np.arange(s.size), inner)
     first = np.cumsum(inner) - inner
     idx = np.arange(group.size) - first[group] + s[group] + 1
     start = points[s][group]
     dist = _distance_to_chord(points[idx] - start, points[e][group] - start)
-    dmax = np.maximum.reduceat(dist, first) if idx.size else np.zeros(0)
+    dmax = np.maximum.reduceat(dist, first)
     at_max = np.flatnonzero(dist == dmax[group])
     # The first point at the largest distance: ``group`` is sorted.
     first_at_max = at_max[np.r_[True, group[at_max][1:] != group[at_max][:-1]]]
@@ -552,6 +555,17 @@ def _fit_pieces(pts, piece_start, piece_end, at_chain_end):
     spacing = np.einsum("ij,ij->i", pts[f_end] - pts[f_start], direction) / np.maximum(n - 1, 1)
     t0 = t0 - np.where(at_chain_end[:, 0], 0.5 * spacing, 0.0)
     t1 = t1 + np.where(at_chain_end[:, 1], 0.5 * spacing, 0.0)
+    # A piece whose ends do not reach as far as its points (a small loop, a hairpin
+    # within the tolerance, a walk that comes back) spans its points instead.
+    if n.size:
+        t = np.einsum("ij,ij->i", d, direction[group])
+        t_min, t_max = np.minimum.reduceat(t, first), np.maximum.reduceat(t, first)
+        short = np.abs(t1 - t0) < t_max - t_min
+        forward = t1 >= t0
+        t0, t1 = (
+            np.where(short, np.where(forward, t_min, t_max), t0),
+            np.where(short, np.where(forward, t_max, t_min), t1),
+        )
     end0 = centre + t0[:, None] * direction
     end1 = centre + t1[:, None] * direction
     angle_deg = np.where(lam_max > 0, angle_deg, np.nan)
@@ -629,10 +643,28 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     check_positive(min_length, "min_length_um", allow_zero=True)
     offsets, points = _check_network(network)
 
-    order, p_start, p_end, p_chain, at_chain_end = _chain_pieces(
-        offsets, points, np.asarray(network.closed), tolerance
-    )
-    geo = _fit_pieces(points[order], p_start, p_end, at_chain_end)
+    closed = np.asarray(network.closed, dtype=bool)
+    # Blocks of whole chains of about _BLOCK_POINTS points bound the temporaries
+    # (~150 bytes per point) whatever the size of the network.
+    cuts = np.unique(np.searchsorted(offsets, np.arange(0, offsets[-1], _BLOCK_POINTS)))
+    cuts = np.unique(np.r_[0, cuts[cuts < offsets.size - 1], offsets.size - 1])
+    parts = []
+    for c0, c1 in zip(cuts[:-1], cuts[1:], strict=True):
+        local = offsets[c0 : c1 + 1] - offsets[c0]
+        block_points = points[offsets[c0] : offsets[c1]]
+        order, p_start, p_end, p_chain, at_chain_end = _chain_pieces(
+            local, block_points, closed[c0:c1], tolerance
+        )
+        parts.append((_fit_pieces(block_points[order], p_start, p_end, at_chain_end), p_chain + c0))
+    if not parts:
+        parts.append(
+            (
+                _fit_pieces(points, *(np.zeros(0, np.int64),) * 2, np.zeros((0, 2), bool)),
+                np.zeros(0, np.int64),
+            )
+        )
+    geo = {k: np.concatenate([g[k] for g, _ in parts]) for k in parts[0][0]}
+    p_chain = np.concatenate([c for _, c in parts])
     sigma = trace_sigma_model_deg(
         geo["length_um"],
         step_um,

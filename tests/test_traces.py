@@ -626,3 +626,43 @@ def test_inputs_are_not_modified():
         assert_array_equal(v, before[k])
     for k, v in seg.items():
         assert_array_equal(v, seg_before[k])
+
+
+def test_blocks_of_chains_give_the_same_table(monkeypatch):
+    import inclination.traces as traces
+
+    rng = np.random.default_rng(8)
+    chains = [np.cumsum(rng.normal(0, 1, (rng.integers(1, 30), 2)), axis=0) for _ in range(40)]
+    closed = rng.random(40) < 0.2
+    whole = fit_segments(network(chains, closed=closed), step_um=1.0)
+    monkeypatch.setattr(traces, "_BLOCK_POINTS", 16)
+    blocked = fit_segments(network(chains, closed=closed), step_um=1.0)
+    for name in SEGMENT_COLUMNS:
+        assert_array_equal(blocked[name], whole[name])
+
+
+@given(
+    st.lists(
+        st.tuples(st.integers(0, 25), st.booleans(), st.integers(0, 2**31 - 1)),
+        min_size=0,
+        max_size=12,
+    )
+)
+def test_any_network_gives_a_consistent_table(specs):
+    # Invariants on arbitrary chains (random walks on the grid, repeated points, loops,
+    # chains of 0 or 1 point): no failure, every chain with a point has a piece, angles
+    # in [0, 180) or NaN for a piece without direction, lengths >= 0, ids in order.
+    chains, closed = [], []
+    for size, is_loop, seed in specs:
+        steps = np.random.default_rng(seed).integers(-1, 2, (size, 2))
+        chains.append(np.cumsum(steps, axis=0).astype(float) * 0.5)
+        closed.append(is_loop)
+    seg = fit_segments(network(chains, closed=closed), step_um=0.5)
+    assert len({len(v) for v in seg.values()}) == 1
+    with_points = [c for c, pts in enumerate(chains) if len(pts)]
+    assert sorted(set(seg["chain_id"].tolist())) == with_points
+    assert np.all(np.diff(seg["chain_id"]) >= 0)
+    angle = seg["trace_angle_deg"]
+    assert np.all(np.isnan(angle) | ((angle >= 0) & (angle < 180)))
+    assert np.all(seg["length_um"] >= 0) and np.all(seg["n_edges"] >= 1)
+    assert np.array_equal(np.isnan(angle), np.isnan(seg["trace_sigma_deg"]))
