@@ -26,12 +26,15 @@ extra term ``σ_h = γ·h/L`` rad, and the model is
 
     σ_grid² = σ_q² + [near a row]·σ_h².
 
-The constants were measured here on random straight boundaries (random angle and
-offset, L/s log-uniform from 5 to 100; the procedure of ``tests/test_traces.py``):
-c = 0.60 (square), 0.50 (hexagonal); γ = 0.34 on both. Without the angle, the
-angle-averaged c = 0.90 (square) or 0.79 (hexagonal) alone gives the same RMS.
-The errors stay heavier-tailed than a normal law: 0.8 % of them fall beyond 3σ
-(0.27 % for a normal law), the largest near 6σ.
+The constants were measured here on 30 000 random straight boundaries per grid
+(random angle and offset, L/s log-uniform from 5 to 100; step = distance between
+neighbouring points; ``benchmarks/bench_traces.py --calibrate``, checked by
+``tests/test_traces.py``): c = 0.60 (square), 0.50 (hexagonal); γ = 0.35 on both.
+Without the angle, the angle-averaged c = 0.90 (square) or 0.80 (hexagonal)
+alone gives the same RMS. The hexagonal grid thus needs its own constants: its
+staircases are finer for the same step. The errors stay heavier-tailed than a
+normal law: 0.7–0.9 % of them fall beyond 3σ (0.27 % for a normal law), the
+largest near 6σ.
 
 Roughness beyond the staircase (misindexed pixels, a wavy boundary) shows up as
 a residual larger than a staircase has. Its statistical contribution is the TLS
@@ -41,7 +44,7 @@ is not counted twice:
     σ_r² = 12 · max(r² − r_q², 0) / ((n − 2) · L²),
 
 with ``r`` the RMS residual of the fit and ``r_q = k·s`` the largest RMS residual
-a clean staircase shows (k = 0.31 square, 0.28 hexagonal, measured the same way).
+a clean staircase shows (k = 0.32 square, 0.28 hexagonal, measured the same way).
 The reported standard uncertainty is ``σ = sqrt(σ_grid² + σ_r²)``, in degrees.
 """
 
@@ -76,10 +79,10 @@ GRIDS = ("square", "hexagonal")
 
 # Constants of the σ model, measured on random straight boundaries (module docstring).
 _QUANT_COEFF = {"square": 0.60, "hexagonal": 0.50}
-_QUANT_COEFF_ANY_ANGLE = {"square": 0.90, "hexagonal": 0.79}
-_ROW_COEFF = 0.34
+_QUANT_COEFF_ANY_ANGLE = {"square": 0.90, "hexagonal": 0.80}
+_ROW_COEFF = 0.35
 _ROW_REACH = 2.0
-_STAIR_RESIDUAL = {"square": 0.31, "hexagonal": 0.28}
+_STAIR_RESIDUAL = {"square": 0.32, "hexagonal": 0.28}
 _BLOCK_POINTS = 1 << 20
 # Row directions of each grid (deg, S) and the spacing of the rows along them (in steps).
 _ROWS = {
@@ -241,9 +244,9 @@ def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None,
     """Standard uncertainty of a fitted trace angle: grid quantisation plus roughness.
 
     ``σ² = σ_q² + [near a row]·σ_h² + σ_r²`` (module docstring): ``σ_q =
-    c·(s/L)^1.5``, ``σ_h = 0.34·h/L`` for a line within two row spacings h of a row
+    c·(s/L)^1.5``, ``σ_h = 0.35·h/L`` for a line within two row spacings h of a row
     direction of the grid over its length, ``σ_r² = 12·max(r² − (k·s)², 0)/((n −
-    2)·L²)``; c = 0.60, k = 0.31 (square), c = 0.50, k = 0.28 (hexagonal).
+    2)·L²)``; c = 0.60, k = 0.32 (square), c = 0.50, k = 0.28 (hexagonal).
 
     Parameters
     ----------
@@ -257,7 +260,7 @@ def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None,
         Number of edge midpoints in the fit.
     angle_deg : array_like, optional
         Fitted trace angle (deg, S, §2). Without it the row term is replaced by
-        its average over angles (c = 0.90 square, 0.79 hexagonal, no σ_h).
+        its average over angles (c = 0.90 square, 0.80 hexagonal, no σ_h).
     grid : {'square', 'hexagonal'}
         Grid of the map (conventions §1).
 
@@ -272,7 +275,7 @@ def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None,
     >>> trace_sigma_model_deg([10.0, 20.0, 50.0], 1.0, 0.0, [14, 28, 70]).round(6).tolist()
     [1.630666, 0.576528, 0.145851]
     >>> trace_sigma_model_deg(20.0, 1.0, 0.0, 28, angle_deg=[0.0, 30.0]).round(6).tolist()
-    [1.047119, 0.384352]
+    [1.073818, 0.384352]
     """
     check_one_of(grid, "grid", GRIDS)
     check_positive(step_um, "step_um")

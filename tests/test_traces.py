@@ -476,7 +476,8 @@ def test_sigma_model_matches_rms_error_on_random_boundaries(grid):
 def test_rms_error_against_published_simulation_square():
     # Published simulation quoted in issue 4 (publication not named there): RMS angle
     # error of straight boundaries on square grids 1.6° at L/s = 10, 0.60° at 20, 0.15°
-    # at 50. Computed here with the TLS fit: 1.48°, 0.58°, 0.157° (400 boundaries each).
+    # at 50. Computed here with the TLS fit on edge midpoints: 1.59°, 0.53°, 0.150° (this
+    # test, 400 boundaries each); 1.62°, 0.57°, 0.148° with 1000 each (benchmarks/).
     gen = np.random.default_rng(1)
     for ratio, published in ((10, 1.6), (20, 0.60), (50, 0.15)):
         angles = gen.uniform(0, 180, 400)
