@@ -534,7 +534,8 @@ def _match_block(blk, planes_a, planes_b, phase, settings, criterion, want_long)
     identification[(fit_a.any(axis=1) | fit_b.any(axis=1)) | (n_common >= 2)] = "ambiguous"
     identification[n_common == 1] = "identified"
 
-    if phase is not None:
+    # The long table carries no misorientation columns; they are skipped for it.
+    if phase is not None and not want_long:
         mis, axis, axis_dev, sigma, sigma_dev = _misorientation_columns(qa, qb, phase, criterion)
         out["misorientation_deg"], out["axis_a"], out["axis_a_deviation_deg"] = mis, axis, axis_dev
         out["sigma"], out["sigma_deviation_deg"] = sigma, sigma_dev
@@ -922,7 +923,7 @@ def candidates(
     ...             "trace_angle_deg": np.array([135.0]), "trace_sigma_deg": np.array([0.3])}
     >>> c = candidates(segments, grains, [cu])
     >>> c["plane"][:4].tolist(), c["fits"][:4].tolist()
-    (['(1 1 1)', '(1 1 -1)', '(1 -1 1)', '(1 -1 -1)'], [True, False, False, True])
+    (['(1 1 1)', '(1 1 -1)', '(1 -1 1)', '(1 -1 -1)'], [True, True, False, False])
     """
     args = (k, floor_deg, max_tolerance_deg, sigma_criterion)
     return _match(segments, grains, phases, *args, want_long=True)[1]

@@ -2,9 +2,6 @@
 
 from __future__ import annotations
 
-import sys
-import types
-
 import numpy as np
 import pytest
 from hypothesis import given
@@ -24,10 +21,8 @@ from inclination.planes import (
     twin_test_summary,
 )
 from inclination.rotations import (
-    quat_angle_deg,
     quat_from_axis_angle_deg,
     quat_from_euler_deg,
-    quat_inverse,
     quat_multiply,
     random_quat,
 )
@@ -275,31 +270,6 @@ def test_chance_fit_refuses_bad_input(tol, match):
 
 
 # ---------------------------------------------------------------- identification
-
-
-def _csl_stand_in():
-    # Private stand-in for inclination.csl until it lands: Σ3 only, Brandon 15°/√3,
-    # deviation = rotation angle between the disorientation and 60°<111> (both in the
-    # fundamental zone, so no symmetry is needed near Σ3).
-    def classify_misorientation(angle_deg, axis_crystal, *, criterion="brandon"):
-        q = quat_from_axis_angle_deg(axis_crystal, angle_deg)
-        s3 = quat_from_axis_angle_deg([1, 1, 1], 60.0)
-        dev = quat_angle_deg(quat_multiply(quat_inverse(s3), q))
-        label = np.where(dev <= 15 / np.sqrt(3), "3", "")
-        return types.SimpleNamespace(label=label, deviation_deg=np.where(label == "3", dev, np.nan))
-
-    mod = types.ModuleType("inclination.csl")
-    mod.CRITERIA = ("brandon", "palumbo-aust")
-    mod.classify_misorientation = classify_misorientation
-    return mod
-
-
-@pytest.fixture(autouse=True)
-def _csl_until_it_lands(monkeypatch):
-    try:
-        import inclination.csl  # noqa: F401
-    except ImportError:
-        monkeypatch.setitem(sys.modules, "inclination.csl", _csl_stand_in())
 
 
 CU = Phase(
