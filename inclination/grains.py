@@ -31,7 +31,7 @@ from scipy.sparse.csgraph import connected_components
 from . import symmetry
 from ._validation import check_one_of
 from .errors import InputError, SettingError
-from .rotations import quat_inverse, quat_multiply
+from .rotations import quat_multiply
 
 __all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
 
@@ -249,14 +249,28 @@ def pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndar
 # ----------------------------------------------------------------------------- kernels
 
 
-def disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
-    """max over the symmetry of |scalar| for pairs ``qa``, ``qb`` given as (4, n) arrays.
+def misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
+    """Crystal-frame misorientations ``qb ⊗ qa⁻¹`` of pairs given as (4, n) rows, as (n, 4).
 
-    The crystal-frame misorientation ``qb ⊗ qa⁻¹`` goes to the symmetry kernel; the
-    result is cos(ω/2) of the disorientation angle ω.
+    The dtype of the rows is kept (float32 maps stay float32).
     """
-    dq = quat_multiply(qb.T.astype(np.float64), quat_inverse(qa.T.astype(np.float64)))
-    return np.asarray(symmetry.max_scalar_part(dq, info.laue, setting=info.setting))
+    a0, a1, a2, a3 = qa
+    b0, b1, b2, b3 = qb
+    out = np.empty((qa.shape[1], 4), dtype=np.result_type(qa, qb))
+    out[:, 0] = b0 * a0 + b1 * a1 + b2 * a2 + b3 * a3
+    out[:, 1] = b1 * a0 - b0 * a1 - b2 * a3 + b3 * a2
+    out[:, 2] = b2 * a0 - b0 * a2 + b1 * a3 - b3 * a1
+    out[:, 3] = b3 * a0 - b0 * a3 - b1 * a2 + b2 * a1
+    return out
+
+
+def disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
+    """cos(ω/2) of the disorientation ω of pairs given as (4, n) rows.
+
+    The misorientation ``qb ⊗ qa⁻¹`` goes to :func:`inclination.symmetry.max_scalar_part`.
+    """
+    dq = misorientation_rows(qa, qb)
+    return symmetry.max_scalar_part(dq, info.laue, setting=info.setting)
 
 
 def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, progress):
@@ -480,44 +494,50 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     The mean is the normalised sum of each point's symmetric equivalent nearest the
     grain's first point, signed into one hemisphere: the quaternion (chordal) mean,
     which for a grain of spread σ differs from the eigenvector mean of Markley et al.
-    (2007) by O(σ³) (tests compare both with scipy's ``Rotation.mean``).
+    (2007) by O(σ³) (tests compare both with scipy's ``Rotation.mean``). The alignment
+    pass runs in float32 (sums in float64); the spread pass in float64, since
+    2·arccos of a float32 cosine resolves small angles only to ~0.002°.
     """
     n_points = q.shape[1]
     m = n_grains + 1
     first_run = np.full(m, -1, np.int64)
     first_run[own_grain[::-1]] = np.arange(own_grain.size)[::-1]
-    ref = np.zeros((m, 4))
+    ref = np.zeros((4, m), np.float32)
     has = first_run >= 0
     has[0] = False
-    ref[has] = q[:, own_pos[first_run[has]]].T
+    ref[:, has] = q[:, own_pos[first_run[has]]]
     cos_safe = np.cos(_IDENTITY_SAFE_RAD / 2)
     blocks = []
     for s, e in _row_blocks(n_points, w):
         lo, hi = np.searchsorted(own_pos, [s, e])
-        blocks.append((s, e, lo, hi))
-
-    def dots(s, e, counts, vals, table):
-        d = np.zeros(e - s)
-        for c in range(4):
-            d += q[c, s:e] * np.repeat(table[vals, c], counts)
-        return d
-
+        if hi > lo:
+            blocks.append((s, e, lo, hi))
+    size = max((e - s for s, e, _, _ in blocks), default=0)
+    d = np.empty(size, np.float32)
+    t = np.empty(size, np.float32)
+    r = np.empty(size, np.float32)
+    sign = np.empty(size, np.float32)
+    qs = np.empty((4, size), np.float32)
     sums = np.zeros((m, 4))
     for b, (s, e, lo, hi) in enumerate(blocks):
-        if hi == lo:
-            continue
+        n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
-        g = np.repeat(vals, counts)
-        d = dots(s, e, counts, vals, ref)
-        qs = q[:, s:e].astype(np.float64)
-        sign = np.where(d < 0, -1.0, 1.0)
-        sign[g == 0] = 0.0
-        far = np.flatnonzero((g > 0) & (np.abs(d) < cos_safe))
+        dn, tn, rn, sg, qn = d[:n], t[:n], r[:n], sign[:n], qs[:, :n]
+        for c in range(4):
+            rn[:] = np.repeat(ref[c, vals], counts)
+            np.multiply(q[c, s:e], rn, out=dn if c == 0 else tn)
+            if c:
+                dn += tn
+        # Sign of each point toward its grain's reference; 0 outside the grain's own runs.
+        sg[:] = np.repeat((vals > 0).astype(np.float32), counts)
+        np.copysign(sg, dn, out=sg)
+        np.multiply(q[:, s:e], sg, out=qn)
+        np.abs(dn, out=dn)
+        far = np.flatnonzero((dn < cos_safe) & (sg != 0))
         if far.size:
-            qs[:, far] = _nearest_equivalents(qs[:, far], ref[g[far]], g[far], grain_info).T
-            sign[far] = 1.0
-        qs *= sign
-        run_sums = np.add.reduceat(qs, starts, axis=1)
+            g = np.repeat(vals, counts)[far]
+            qn[:, far] = _nearest_equivalents(q[:, s + far], ref[:, g].T, g, grain_info).T
+        run_sums = np.add.reduceat(qn, starts, axis=1, dtype=np.float64)
         np.add.at(sums, own_grain[lo:hi], run_sums.T)
         if progress is not None:
             progress(0.5 * (b + 1) / len(blocks))
@@ -527,20 +547,36 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     ok = norm > 0
     mean[ok] = sums[ok] / norm[ok, None]
     mean[mean[:, 0] < 0] *= -1
+    mean32 = np.ascontiguousarray(mean.T, dtype=np.float32)
     spread_sum = np.zeros(m)
     spread_max = np.zeros(m)
     for b, (s, e, lo, hi) in enumerate(blocks):
-        if hi == lo:
-            continue
+        n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
-        g = np.repeat(vals, counts)
-        d = np.abs(dots(s, e, counts, vals, mean))
-        far = np.flatnonzero((g > 0) & (d < cos_safe))
+        dn, tn, rn = d[:n], t[:n], r[:n]
+        # |q - m|² = 4 sin²(θ/4) for unit q, m in one hemisphere: unlike 2·arccos(q·m) it
+        # keeps float32 precision at small θ; min(x, 4 - x) picks the hemisphere.
+        for c in range(4):
+            rn[:] = np.repeat(mean32[c, vals], counts)
+            np.subtract(q[c, s:e], rn, out=rn)
+            np.multiply(rn, rn, out=dn if c == 0 else tn)
+            if c:
+                dn += tn
+        np.minimum(dn, 4.0 - dn, out=dn)
+        inside = np.repeat(vals > 0, counts)
+        # Beyond 30° the identity may not be the nearest equivalent: full symmetry test.
+        far = np.flatnonzero(inside & (dn > np.float32(4 * np.sin(_IDENTITY_SAFE_RAD / 4) ** 2)))
+        np.sqrt(dn, out=dn)
+        dn *= np.float32(0.5)
+        np.minimum(dn, np.float32(1.0), out=dn)
+        angle = np.arcsin(dn, out=dn)
+        angle *= np.float32(4.0)
         if far.size:
-            d[far] = _max_scalar_to(q[:, s + far], mean[g[far]], g[far], grain_info)
-        angle = 2.0 * np.arccos(np.minimum(d, 1.0))
-        angle[g == 0] = 0.0
-        np.add.at(spread_sum, own_grain[lo:hi], np.add.reduceat(angle, starts))
+            g = np.repeat(vals, counts)[far]
+            cos_half = _max_scalar_to(q[:, s + far], mean[g], g, grain_info)
+            angle[far] = 2.0 * np.arccos(np.minimum(cos_half, 1.0))
+        angle *= inside
+        np.add.at(spread_sum, own_grain[lo:hi], np.add.reduceat(angle, starts, dtype=np.float64))
         np.maximum.at(spread_max, own_grain[lo:hi], np.maximum.reduceat(angle, starts))
         if progress is not None:
             progress(0.5 + 0.5 * (b + 1) / len(blocks))

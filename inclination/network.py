@@ -104,8 +104,8 @@ def _label_at(labels: np.ndarray, r, c) -> np.ndarray:
     """Label of cells (r, c), 0 outside the map."""
     h, w = labels.shape
     inside = (r >= 0) & (r < h) & (c >= 0) & (c < w)
-    out = np.zeros(np.shape(r), np.int64)
-    out[inside] = labels[r[inside], c[inside]]
+    out = labels.reshape(-1).take(np.where(inside, r * w + c, 0))
+    out *= inside
     return out
 
 
@@ -162,13 +162,21 @@ def _vertex_cells(grid, vid, w):
 def _is_junction(grid, labels, vid, w):
     """Vertices where three or more labels meet, or a square checkerboard."""
     cells = [_label_at(labels, r, c) for r, c in _vertex_cells(grid, vid, w)]
-    stack = np.sort(np.stack(cells, axis=1), axis=1)
-    distinct = 1 + (np.diff(stack, axis=1) != 0).sum(axis=1)
-    junction = distinct >= 3
-    if grid == "square":
-        p00, p01, p10, p11 = cells
-        junction |= (p00 == p11) & (p01 == p10) & (p00 != p01)
-    return junction
+    if grid == "hexagonal":
+        a, b, c = cells
+        return (a != b) & (b != c) & (a != c)
+    p00, p01, p10, p11 = cells
+    # Equal pairs among four labels: 6 (one label), 3 or 2 (two), 1 (three), 0 (four).
+    equal = (
+        (p00 == p01).view(np.int8)
+        + (p00 == p10).view(np.int8)
+        + (p00 == p11).view(np.int8)
+        + (p01 == p10).view(np.int8)
+        + (p01 == p11).view(np.int8)
+        + (p10 == p11).view(np.int8)
+    )
+    checkerboard = (p00 == p11) & (p01 == p10) & (p00 != p01)
+    return (equal <= 1) | checkerboard
 
 
 # ----------------------------------------------------------------------------- edges
