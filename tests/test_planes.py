@@ -556,6 +556,10 @@ def test_inputs_are_not_modified():
             r"'spread_mean_deg' to be finite and >= 0, got nan at row 1",
         ),
         (
+            lambda s, g: g.__setitem__("quat", np.array([[1.0, 0, 0, 0], [np.nan, 0, 0, 0]])),
+            r"`grains\['quat'\]` to be finite everywhere, got a non-finite value at index \(1,\)",
+        ),
+        (
             lambda s, g: g.__setitem__("quat", np.zeros((2, 3))),
             r"'quat' to have shape \(2, 4\), got \(2, 3\)",
         ),
