@@ -57,6 +57,7 @@ def boundary_sense(
     predicted_dip_sigma_deg=1.0,
     n_sigma_vertical: float = 2.0,
     max_mismatch_deg: float = 30.0,
+    max_dip_mismatch_deg: float = 10.0,
     min_log10_ratio: float = 2.0,
 ) -> dict:
     """Whether each measured dip direction agrees with the frame as declared (§6).
@@ -69,8 +70,10 @@ def boundary_sense(
     Jeffreys' scale, H. Jeffreys, *Theory of Probability*, 3rd ed., 1961, App. B).
     It is ``undecided``, whatever the ratio, when either plane lies within
     ``n_sigma_vertical`` σ of vertical (a vertical plane has no dip direction), when
-    the measurement is more than ``max_mismatch_deg`` from both directions (it fits
-    neither: the plane was probably identified wrongly), or when a value is missing.
+    the measurement is more than ``max_mismatch_deg`` from both directions, or its
+    dip differs from the predicted dip by more than ``max_dip_mismatch_deg`` and three
+    σ (a turn about Z keeps dips, so such a plane fits neither frame: it was probably
+    identified wrongly), or when a value is missing.
 
     Parameters
     ----------
@@ -83,8 +86,8 @@ def boundary_sense(
         Measured dip and its σ, for the verticality test of the measurement.
     predicted_azimuth_sigma_deg, predicted_dip_sigma_deg : float or array_like, optional
         σ of the prediction (orientation spread), degrees.
-    n_sigma_vertical, max_mismatch_deg, min_log10_ratio : float, optional
-        The thresholds above.
+    n_sigma_vertical, max_mismatch_deg, max_dip_mismatch_deg, min_log10_ratio : float
+        The thresholds above (optional).
 
     Returns
     -------
@@ -114,6 +117,7 @@ def boundary_sense(
     for value, name in (
         (n_sigma_vertical, "n_sigma_vertical"),
         (max_mismatch_deg, "max_mismatch_deg"),
+        (max_dip_mismatch_deg, "max_dip_mismatch_deg"),
         (min_log10_ratio, "min_log10_ratio"),
     ):
         check_positive(value, name)
@@ -135,9 +139,14 @@ def boundary_sense(
         (90.0 - mdip) < n_sigma_vertical * np.nan_to_num(mdip_sig, nan=0.0)
     )
     weak = np.abs(log10_ratio) < min_log10_ratio
+    dip_sigma = np.hypot(np.nan_to_num(mdip_sig, nan=0.0), np.nan_to_num(pdip_sig, nan=0.0))
+    dip_off = np.isfinite(mdip) & (
+        np.abs(mdip - pdip) > np.maximum(max_dip_mismatch_deg, 3.0 * dip_sigma)
+    )
     # Later assignments win: the most basic reason is the one reported.
     reason[weak] = "weak evidence"
     reason[folded > max_mismatch_deg] = "fits neither direction"
+    reason[dip_off] = "dip differs from the predicted plane"
     reason[vertical_m] = "measured plane near vertical"
     reason[vertical_p] = "predicted plane near vertical"
     reason[missing_p] = "no predicted dip direction"

@@ -1373,9 +1373,16 @@ def measure_serial_section(
     found = match >= 0
     sigma_line_s = _line_sigma_um(surface_segments, step_um)
     sigma_line_d = _line_sigma_um(deeper_segments, step_um)
+    sigma_reg = registration.shift_sigma_um
+    if registration.method == "grain structure" and found.sum() >= 2:
+        # A registration on the grain structure rests on the boundaries themselves, and
+        # each has moved with depth: its error is of the order of a median of N such
+        # movements, √(π/2)·RMS(Δ)/√N, which the centroid spread can understate.
+        spread = math.sqrt(math.pi / 2) * float(np.sqrt(np.mean(delta[found] ** 2)))
+        sigma_reg = max(sigma_reg, spread / math.sqrt(found.sum()))
     offset_sigma = np.full(n, np.nan)
     offset_sigma[found] = np.sqrt(
-        sigma_line_s[found] ** 2 + sigma_line_d[match[found]] ** 2 + registration.shift_sigma_um**2
+        sigma_line_s[found] ** 2 + sigma_line_d[match[found]] ** 2 + sigma_reg**2
     )
     t3 = np.concatenate([t_mean, np.zeros((n, 1))], axis=1)
     u3 = np.cross(_Z, t3)

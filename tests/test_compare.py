@@ -43,14 +43,14 @@ def test_turning_the_measurement_by_180_swaps_the_call(mu, dip, err, sigma):
 
 def test_sense_calls_and_reasons():
     out = boundary_sense(
-        predicted_azimuth_deg=[10, 10, 10, 10, 10, np.nan, 10, 10],
-        predicted_dip_deg=[50, 50, 50, 89, 50, 50, 50, 50],
-        measured_azimuth_deg=[12, 195, 100, 10, 10, 10, np.nan, 10],
-        measured_sigma_deg=[3, 3, 3, 3, 150, 3, 3, 3],
-        measured_dip_deg=[50, 50, 50, 50, 50, 50, 50, 88],
-        measured_dip_sigma_deg=[1, 1, 1, 1, 1, 1, 1, 2],
+        predicted_azimuth_deg=[10, 10, 10, 10, 10, np.nan, 10, 10, 10],
+        predicted_dip_deg=[50, 50, 50, 89, 50, 50, 50, 50, 50],
+        measured_azimuth_deg=[12, 195, 100, 10, 10, 10, np.nan, 10, 10],
+        measured_sigma_deg=[3, 3, 3, 3, 150, 3, 3, 3, 3],
+        measured_dip_deg=[50, 50, 50, 50, 50, 50, 50, 88, 75],
+        measured_dip_sigma_deg=[1, 1, 1, 1, 1, 1, 1, 2, 1],
     )
-    assert out["sense"].tolist() == ["agrees", "opposite"] + ["undecided"] * 6
+    assert out["sense"].tolist() == ["agrees", "opposite"] + ["undecided"] * 7
     assert out["reason"].tolist() == [
         "",
         "",
@@ -60,6 +60,7 @@ def test_sense_calls_and_reasons():
         "no predicted dip direction",
         "no measurement",
         "measured plane near vertical",
+        "dip differs from the predicted plane",
     ]
     assert np.isnan(out["log10_likelihood_ratio"][[5, 6]]).all()
     assert_allclose(out["mismatch_deg"][:3], [2.0, 5.0, 90.0], rtol=0, atol=1e-9)

@@ -1,0 +1,269 @@
+"""End to end on synthetic samples: map → grains → traces → planes → sections → compare.
+
+The oracle is inclination.synthetic: Voronoi grains with {111} annealing-twin lamellae whose
+planes are known exactly, sectioned by cross-sections (image angles with 1° noise, imaged at
+52° tilt) and by a serial section 5 µm deep (step 0.5 µm, 0.5° orientation noise). The same
+sample recorded in a data frame turned 180° about the surface normal must give the opposite
+sense on every decided boundary (conventions §6).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from inclination import synthetic
+from inclination.compare import boundary_sense, frame_verdict
+from inclination.frames import DeclaredAxes
+from inclination.grains import segment_grains
+from inclination.lattice import Lattice, Phase
+from inclination.network import boundary_network
+from inclination.planes import identify
+from inclination.sections import measure_cross_section, measure_serial_section, register_sections
+from inclination.traces import fit_segments
+
+STEP_UM = 0.5
+CU = Phase(
+    1,
+    "Cu",
+    "m-3m",
+    Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90),
+    ("{1 1 1}", "{1 0 0}", "{1 1 0}", "{1 1 2}"),
+)
+XS_SEEDS = (1, 2)
+LINES_Y_UM = (15.0, 35.0, 55.0, 75.0, 90.0)
+SHIFT_UM = (1.5, -1.0)
+
+
+def _chain(sampled):
+    omap = synthetic.as_orientation_map(sampled)
+    grains = segment_grains(omap, [CU])
+    segments = fit_segments(boundary_network(omap, grains, [CU]), step_um=STEP_UM)
+    return grains, segments, identify(segments, grains.grains, [CU])
+
+
+def _region_of(labels, truth, n_regions):
+    """The true region holding most of each detected grain, and its share of the grain."""
+    keep = labels > 0
+    key = labels[keep].astype(np.int64) * (n_regions + 1) + truth[keep]
+    pairs, counts = np.unique(key, return_counts=True)
+    label, region = np.divmod(pairs, n_regions + 1)
+    order = np.lexsort((counts, label))
+    out = np.zeros(int(labels.max()) + 1, dtype=np.int64)
+    out[label[order]] = region[order]
+    share = np.zeros(len(out))
+    share[label[order]] = counts[order]
+    return out, share / np.maximum(np.bincount(labels[keep], minlength=len(out)), 1)
+
+
+def _senses(measured, identification):
+    """boundary_sense on the trusted identifications, as the pipeline calls it."""
+    row_of = {int(s): i for i, s in enumerate(identification["segment_id"])}
+    rows = np.array([row_of[int(s)] for s in measured["segment_id"]], dtype=int)
+    trusted = np.isin(identification["identification"][rows], ("coherent_twin", "identified"))
+    tol = identification["tolerance_deg"][rows]
+    return boundary_sense(
+        np.where(trusted, identification["predicted_dip_azimuth_deg"][rows], np.nan),
+        identification["predicted_dip_deg"][rows],
+        measured["dip_direction_azimuth_deg"],
+        measured["dip_direction_sigma_deg"],
+        measured_dip_deg=measured["measured_dip_deg"],
+        measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
+        predicted_azimuth_sigma_deg=tol / 2.0,
+        predicted_dip_sigma_deg=tol / 2.0,
+    )
+
+
+def _cross_sections(micro, sampled, segments):
+    """Five cross-sections across the map; measured rows with the truth beside them."""
+    bounds = (0.0, 0.0, (sampled.shape[1] - 1) * STEP_UM, (sampled.shape[0] - 1) * STEP_UM)
+    parts = []
+    for k, y in enumerate(LINES_Y_UM):
+        line = ((3.0, y), (116.0, y + 3.0))
+        viewer = (60.0, y - 10.0)
+        geometry = {"line_um": line, "viewer_at_um": viewer, "imaging_tilt_deg": 52.0}
+        entries = synthetic.simulate_cross_section(
+            micro, **geometry, max_depth_um=3.0, rng=100 + k, angle_noise_deg=1.0
+        )
+        truth = synthetic.cross_section_crossings(micro, **geometry, max_depth_um=3.0)
+        section = {**geometry, "boundaries": entries}
+        out = measure_cross_section(
+            section,
+            segments,
+            axes=DeclaredAxes("right", "down"),
+            step_um=STEP_UM,
+            bounds_um=bounds,
+        )
+        ok = out["status"] == "measured"
+        parts.append(
+            {
+                **{key: np.asarray(v)[ok] for key, v in out.items()},
+                "true_dip_deg": truth["dip_deg"][ok],
+                "beta_deg_true": truth["beta_deg"][ok],
+                "is_twin": truth["is_twin"][ok],
+            }
+        )
+    return {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+
+
+@pytest.fixture(scope="module")
+def cross_runs():
+    runs = {}
+    for seed in XS_SEEDS:
+        micro = synthetic.make_microstructure(
+            box_um=(120.0, 100.0, 30.0), n_grains=50, rng=seed, phases=[CU], twins=12
+        )
+        sampled = synthetic.sample_map(micro, step_um=STEP_UM, rng=seed + 10, noise_deg=0.5)
+        for frame, recorded in (
+            ("declared", sampled),
+            ("turned", synthetic.recorded_in_frame(sampled, rotation="z180")),
+        ):
+            _, segments, identification = _chain(recorded)
+            measured = _cross_sections(micro, sampled, segments)
+            runs[(seed, frame)] = (measured, _senses(measured, identification))
+    return runs
+
+
+def test_every_decided_twin_boundary_agrees(cross_runs):
+    decided_twins = 0
+    for seed in XS_SEEDS:
+        measured, senses = cross_runs[(seed, "declared")]
+        decided = senses["sense"] != "undecided"
+        twins = measured["is_twin"] & decided
+        assert senses["sense"][twins].tolist() == ["agrees"] * int(twins.sum())
+        # Decided general boundaries (an identified shared plane) must agree as well.
+        assert set(senses["sense"][decided].tolist()) <= {"agrees"}
+        decided_twins += int(twins.sum())
+        assert frame_verdict(senses).verdict == "as_declared"
+    assert decided_twins >= 20, "too few decided twin boundaries to judge"
+
+
+def test_turned_frame_gives_opposite_on_every_decided_boundary(cross_runs):
+    for seed in XS_SEEDS:
+        _, senses = cross_runs[(seed, "turned")]
+        decided = senses["sense"] != "undecided"
+        assert decided.sum() >= 10
+        assert set(senses["sense"][decided].tolist()) == {"opposite"}
+        verdict = frame_verdict(senses)
+        assert verdict.verdict == "turned_180_about_normal"
+        assert "turned 180°" in verdict.sentence
+        # The turn changes nothing but the sign of each call.
+        _, declared = cross_runs[(seed, "declared")]
+        assert np.array_equal(declared["sense"] == "undecided", senses["sense"] == "undecided")
+
+
+def test_cross_section_dips_against_truth(cross_runs):
+    rows = [cross_runs[(seed, "declared")][0] for seed in XS_SEEDS]
+    err = np.concatenate([np.abs(r["measured_dip_deg"] - r["true_dip_deg"]) for r in rows])
+    sigma = np.concatenate([r["measured_dip_sigma_deg"] for r in rows])
+    beta = np.concatenate([r["beta_deg_true"] for r in rows])
+    steep_enough = beta > 30.0
+    assert steep_enough.sum() >= 50
+    # Measured 2026-12: median 0.4°, 95 % within 2°, the largest about 2.9° (3.3 σ): a 1°
+    # image-angle noise, enlarged 1/sin 52° by the tilt, puts a few of ~75 beyond 2°.
+    assert np.median(err[steep_enough]) < 1.0
+    assert np.mean(err[steep_enough] <= 2.0) >= 0.9
+    assert np.all(err[steep_enough] < 4.0 * sigma[steep_enough] + 0.5)
+    # The first-order σ is calibrated: errors over σ have an RMS near 1.
+    z = err / sigma
+    assert 0.7 < np.sqrt(np.mean(z**2)) < 1.4
+
+
+@pytest.fixture(scope="module")
+def serial_run():
+    # 160 µm square, ~120 grains in view: enough boundaries to register on the grains.
+    micro = synthetic.make_microstructure(
+        box_um=(160.0, 160.0, 30.0), n_grains=200, rng=1, phases=[CU], twins=12
+    )
+    kw = {"step_um": STEP_UM, "noise_deg": 0.5, "extent_um": (145.0, 145.0)}
+    surface = synthetic.sample_map(micro, rng=11, offset_um=(5.0, 5.0), **kw)
+    deeper = synthetic.sample_map(
+        micro, rng=21, offset_um=(5.0 + SHIFT_UM[0], 5.0 + SHIFT_UM[1]), depth_um=5.0, **kw
+    )
+    rescan = synthetic.sample_map(
+        micro, rng=31, offset_um=(5.0 + SHIFT_UM[0], 5.0 + SHIFT_UM[1]), **kw
+    )
+    return micro, surface, _chain(surface), _chain(deeper), _chain(rescan)
+
+
+def _serial_errors(micro, surface, surface_chain, result):
+    grains, segments, _ = surface_chain
+    region_of, purity = _region_of(grains.labels, surface.grain_id, micro.n_regions)
+    b = result.boundaries
+    ra, rb = region_of[segments["grain_a"]], region_of[segments["grain_b"]]
+    pure = (purity[segments["grain_a"]] > 0.95) & (purity[segments["grain_b"]] > 0.95)
+    truth = synthetic.boundary_normals_sample(micro, ra, rb)
+    ok = (b["status"] == "measured") & pure & np.all(np.isfinite(truth), axis=1)
+    normal = np.stack([b["normal_x"], b["normal_y"], b["normal_z"]], -1)
+    normal_err = np.degrees(np.arccos(np.clip(np.abs(np.sum(normal * truth, 1)), 0.0, 1.0)))
+    dip_err = np.abs(b["measured_dip_deg"] - np.degrees(np.arccos(np.abs(truth[:, 2]))))
+    parent = micro.region_parent
+    twin = (parent[np.maximum(ra, 1) - 1] == parent[np.maximum(rb, 1) - 1]) & (ra != rb)
+    return ok, dip_err, normal_err, twin
+
+
+def test_registration_recovers_an_imposed_shift(serial_run):
+    _, _, (grains, _, _), (deeper, _, _), (rescan, _, _) = serial_run
+    laue = {1: CU}
+    # A re-scan of the same plane, moved by a known stage shift: recovered to half a step.
+    reg = register_sections(grains, rescan, step_um=STEP_UM, laue_by_phase=laue)
+    assert abs(reg.shift_x_um - SHIFT_UM[0]) <= STEP_UM / 2
+    assert abs(reg.shift_y_um - SHIFT_UM[1]) <= STEP_UM / 2
+    # 5 µm deeper every boundary has moved by h·cot δ; the shift found carries their net
+    # movement (of order h/√N). Measured 2026-12: off by (−0.34, 0.20) µm.
+    reg = register_sections(grains, deeper, step_um=STEP_UM, laue_by_phase=laue)
+    assert np.hypot(reg.shift_x_um - SHIFT_UM[0], reg.shift_y_um - SHIFT_UM[1]) <= STEP_UM
+
+
+def test_serial_section_dips_with_fiducials(serial_run):
+    micro, surface, surface_chain, deeper_chain, _ = serial_run
+    grains, segments, identification = surface_chain
+    points = np.array([[10.0, 10.0], [140.0, 12.0], [80.0, 140.0]])
+    # A fiducial at p (sample box) is at p − offset on each map.
+    fiducials = np.stack([points - 5.0, points - (5.0 + np.array(SHIFT_UM))], axis=1)
+    result = measure_serial_section(
+        segments,
+        grains,
+        deeper_chain[1],
+        deeper_chain[0],
+        depth_um=5.0,
+        depth_sigma_um=0.1,
+        step_um=STEP_UM,
+        laue_by_phase={1: CU},
+        fiducials_um=fiducials,
+    )
+    ok, dip_err, normal_err, twin = _serial_errors(micro, surface, surface_chain, result)
+    assert ok.sum() >= 100
+    # Measured 2026-12: dips 0.13° (median), general normals 0.24° (median).
+    assert np.median(dip_err[ok]) < 3.0
+    assert np.median(normal_err[ok & ~twin]) < 5.0
+    measured = {k: np.asarray(v)[ok] for k, v in result.boundaries.items()}
+    senses = _senses(measured, identification)
+    decided = senses["sense"] != "undecided"
+    assert decided.sum() >= 5
+    assert set(senses["sense"][decided].tolist()) == {"agrees"}
+
+
+def test_serial_section_dips_registered_on_the_grains(serial_run):
+    micro, surface, surface_chain, deeper_chain, _ = serial_run
+    grains, segments, _ = surface_chain
+    result = measure_serial_section(
+        segments,
+        grains,
+        deeper_chain[1],
+        deeper_chain[0],
+        depth_um=5.0,
+        depth_sigma_um=0.1,
+        step_um=STEP_UM,
+        laue_by_phase={1: CU},
+    )
+    assert result.registration.method == "grain structure"
+    ok, dip_err, normal_err, twin = _serial_errors(micro, surface, surface_chain, result)
+    assert ok.sum() >= 100
+    # Measured 2026-12: dips 2.8° and general normals 2.8° (medians), limited by the
+    # registration (a 0.1 µm shift error moves a 60° dip by about 1° at h = 5 µm).
+    assert np.median(dip_err[ok]) < 3.5
+    assert np.median(normal_err[ok & ~twin]) < 5.0
+    # The registration's share of σ keeps the reported σ honest.
+    z = dip_err[ok] / result.boundaries["measured_dip_sigma_deg"][ok]
+    assert np.sqrt(np.mean(z**2)) < 1.6
