@@ -311,6 +311,13 @@ _GRAIN_KEYS = ("grain_id", "phase", "quat", "spread_mean_deg")
 _BLOCK = 2048
 # The misorientation axis is named by the nearest direction with indices up to this size.
 _MAX_AXIS_INDEX = 3
+_MISORIENTATION_KEYS = (
+    "misorientation_deg",
+    "axis_a",
+    "axis_a_deviation_deg",
+    "sigma",
+    "sigma_deviation_deg",
+)
 _CUBIC_111 = np.array([[1, 1, 1], [-1, 1, 1], [1, -1, 1], [1, 1, -1]], dtype=float)
 
 
@@ -460,7 +467,7 @@ def _pair_geometry(na, nb, sign):
     return _surface_geometry(_unit(na + sign[..., None] * nb))
 
 
-def _match_block(blk, planes_a, planes_b, phase, settings, criterion, want_long):
+def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
     """Candidates and identification of one block of segments of one phase pair."""
     theta, sigma_m, qa, qb, sa, sb = (
         blk[key] for key in ("theta", "sigma_m", "qa", "qb", "sa", "sb")
@@ -534,12 +541,9 @@ def _match_block(blk, planes_a, planes_b, phase, settings, criterion, want_long)
     identification[(fit_a.any(axis=1) | fit_b.any(axis=1)) | (n_common >= 2)] = "ambiguous"
     identification[n_common == 1] = "identified"
 
-    # The long table carries no misorientation columns; they are skipped for it.
+    # Σ is known only for identify (the long table carries no misorientation columns).
     if phase is not None and not want_long:
-        mis, axis, axis_dev, sigma, sigma_dev = _misorientation_columns(qa, qb, phase, criterion)
-        out["misorientation_deg"], out["axis_a"], out["axis_a_deviation_deg"] = mis, axis, axis_dev
-        out["sigma"], out["sigma_deviation_deg"] = sigma, sigma_dev
-        twins = np.flatnonzero(sigma == "3")
+        twins = np.flatnonzero(blk["sigma"] == "3")
         if len(twins):
             _twin_test(out, twins, blk, tol_normal, phase, settings)
 
@@ -669,7 +673,7 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
             f"Expected `grains` 'spread_mean_deg' to be finite and >= 0, "
             f"got {float(spread[bad[0]])!r} at row {int(bad[0])}."
         )
-    check_finite(quat[used], "grains['quat']")
+    check_finite(quat[np.unique(np.concatenate([ia, ib]))], "grains['quat']")
     for name, ids in (("phase_a", phase_a), ("phase_b", phase_b)):
         missing = active & ~np.isin(ids, list(by_phase))
         if missing.any():
@@ -680,6 +684,17 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
             )
 
     table = _empty_row_table(n)
+    if not want_long:
+        # Σ and the misorientation belong to the grain pair, so too_short rows get them too.
+        for pid in np.unique(phase_a[phase_a == phase_b]).tolist():
+            rows = np.flatnonzero((phase_a == pid) & (phase_b == pid))
+            if pid not in by_phase or not len(rows):
+                continue
+            columns = _misorientation_columns(
+                quat[ia[rows]], quat[ib[rows]], by_phase[pid], sigma_criterion
+            )
+            for key, values in zip(_MISORIENTATION_KEYS, columns, strict=True):
+                table[key][rows] = values
     long_parts = []
     planes_of = {}
     pairs = np.unique(np.stack([phase_a[active], phase_b[active]], axis=1), axis=0)
@@ -698,12 +713,12 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
                 "qb": quat[ib[r]],
                 "sa": spread[ia[r]],
                 "sb": spread[ib[r]],
+                "sigma": table["sigma"][r],
             }
-            out, long = _match_block(
-                blk, planes_of[pa], planes_of[pb], same, settings, sigma_criterion, want_long
-            )
+            out, long = _match_block(blk, planes_of[pa], planes_of[pb], same, settings, want_long)
             for key, values in out.items():
-                table[key][r] = values
+                if key not in _MISORIENTATION_KEYS:
+                    table[key][r] = values
             for part, grain_ids, phase_id in zip(long, (grain_a, grain_b), (pa, pb), strict=False):
                 part["row"] = r[part.pop("block_row")]
                 part["grain_id"] = grain_ids[part["row"]]
@@ -823,7 +838,8 @@ def identify(
         The segments table (:func:`inclination.traces.fit_segments`): at least
         ``segment_id, grain_a, grain_b, phase_a, phase_b, trace_angle_deg``
         (S, [0, 180)), ``trace_sigma_deg``; optional ``too_short`` (such rows
-        are not matched) and ``length_um`` (copied).
+        are not matched to planes, but get their misorientation and Σ) and
+        ``length_um`` (copied).
     grains : dict of 1-D arrays
         The grains table: ``grain_id``, ``phase``, ``quat`` (G, 4) mean
         orientations (sample to crystal), ``spread_mean_deg``.

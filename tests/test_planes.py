@@ -399,6 +399,8 @@ def test_too_short_segments_are_not_matched():
     t = identify(segments, grains, [CU])
     assert t["identification"].tolist() == ["none", "coherent_twin"]
     assert t["plane_a"][0] == "" and t["twin_test"][0] == ""
+    # Σ belongs to the grain pair: a short segment still gets it.
+    assert t["sigma"].tolist() == ["3", "3"]
     c = candidates(segments, grains, [CU])
     assert set(c["segment_id"].tolist()) == {2}
 
