@@ -332,17 +332,32 @@ def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, pro
 
 
 def _runs(ok: np.ndarray, h_link: np.ndarray):
-    """Row runs: run id per point (int32, 1..R; 0 where not usable), start and length."""
+    """Row runs: run id per point (int32, 1..R; 0 where not usable), start and length.
+
+    Built block by block so that no full-size temporary is made besides the run ids.
+    """
     n = ok.size
-    start = ok.copy()
-    start[1:] &= ~h_link[:-1]
-    run_id = np.cumsum(start, dtype=np.int32)
-    run_id *= ok
+    run_id = np.empty(n, np.int32)
+    starts, ends = [np.zeros(1, np.int64)], [np.full(1, -1, np.int64)]
+    carry = np.int32(0)
+    step = 16 * BLOCK
+    for s in range(0, n, step):
+        e = min(s + step, n)
+        okb = ok[s:e]
+        start = okb.copy()
+        if s:
+            start[0] &= not h_link[s - 1]
+        start[1:] &= ~h_link[s : e - 1]
+        ids = run_id[s:e]
+        np.cumsum(start, dtype=np.int32, out=ids)
+        ids += carry
+        carry = ids[-1]
+        ids *= okb
+        starts.append(np.flatnonzero(start) + s)
+        ends.append(np.flatnonzero(okb & ~h_link[s:e]) + s)
     # Index 0 is a dummy run of no points, so that run ids index these arrays directly.
-    run_pos = np.r_[0, np.flatnonzero(start)]
-    end = ok & ~h_link
-    run_end = np.r_[-1, np.flatnonzero(end)]
-    del start, end
+    run_pos = np.concatenate(starts)
+    run_end = np.concatenate(ends)
     return run_id, run_pos, (run_end - run_pos + 1).astype(np.int64), n
 
 
@@ -350,12 +365,21 @@ def _run_edges(run_id, h_link, v_link, shift):
     """Pairs of runs joined by the links ``v_link`` (k to k + shift), duplicates mostly gone."""
     n = run_id.size
     m = n - shift
-    keep = v_link[:m].copy()
-    # A link whose left neighbours are linked the same way, with both rows' runs
-    # continuing, joins the same two runs again.
-    same_as_left = v_link[: m - 1] & h_link[: m - 1] & h_link[shift : shift + m - 1]
-    keep[1:] &= ~same_as_left
-    k = np.flatnonzero(keep)
+    ks = []
+    step = 16 * BLOCK
+    for s in range(0, m, step):
+        e = min(s + step, m)
+        keep = v_link[s:e].copy()
+        # A link whose left neighbours are linked the same way, with both rows' runs
+        # continuing, joins the same two runs again.
+        lo = max(s - 1, 0)
+        same_as_left = v_link[lo : e - 1] & h_link[lo : e - 1] & h_link[lo + shift : e - 1 + shift]
+        if s:
+            keep &= ~same_as_left
+        else:
+            keep[1:] &= ~same_as_left
+        ks.append(np.flatnonzero(keep) + s)
+    k = np.concatenate(ks) if ks else np.zeros(0, np.int64)
     return run_id[k], run_id[k + shift]
 
 
@@ -786,12 +810,13 @@ def segment_grains(
     n_grains = int(uniq2.size)
     grain_code = grain_code_new
 
-    labels = np.empty(n, np.int32)
+    # The run-id image becomes the label image in place: one full-size int32 array only.
     lut = run_grain.astype(np.int32)
-    for s in range(0, n, 1 << 20):
-        np.take(lut, run_id[s : s + (1 << 20)], out=labels[s : s + (1 << 20)])
+    for s in range(0, n, 16 * BLOCK):
+        block = run_id[s : s + 16 * BLOCK]
+        block[:] = lut[block]
+    labels = run_id.reshape(h, w)
     del run_id
-    labels = labels.reshape(h, w)
 
     filled_k = np.zeros(0, np.int64)
     filled_g = np.zeros(0, np.int64)
