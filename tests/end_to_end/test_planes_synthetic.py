@@ -3,7 +3,7 @@
 The oracle is inclination.synthetic: Voronoi grains with {111} annealing-twin lamellae whose
 planes are known exactly (the twin is the parent turned 180° about that <111>, a Σ3 relation;
 Grimmer, Bollmann & Warrington 1974). Step 0.5 µm, 0.5° orientation noise, square and
-hexagonal grids, three seeds each.
+hexagonal grids, three seeds each; and a titanium phase with {10-12} twins.
 """
 
 from __future__ import annotations
@@ -230,3 +230,42 @@ def test_no_general_boundary_is_classified_sigma3(runs, grid):
         said = run["table"]["sigma"] == "3"
         # A random pair can fall inside Brandon's Σ3 limit by chance; only those may say 3.
         assert not np.any(said & run["general"] & (run["true_sigma"] != "3")), (seed, grid)
+
+
+TI = Phase(
+    1,
+    "Ti",
+    "6/mmm",
+    Lattice.from_parameters(2.951, 2.951, 4.684, 90, 90, 120, setting="x_parallel_a"),
+    ("(0 0 0 1)", "{1 0 -1 0}", "{1 1 -2 0}", "{1 0 -1 1}", "{1 0 -1 2}", "{1 1 -2 2}"),
+)
+
+
+@pytest.mark.parametrize("seed", (1, 2))
+def test_hexagonal_10_12_twin_planes_are_the_one_common_plane(seed):
+    # A {10-12} twin is the parent turned 180° about the plane normal, so that plane is
+    # shared by both crystals; on a hexagonal phase it must come out as the only common
+    # plane and be ranked first (titanium cell, a = 2.951 Å, c = 4.684 Å).
+    micro = synthetic.make_microstructure(
+        box_um=(100.0, 100.0, 30.0), n_grains=50, rng=seed, phases=[TI], twins=10
+    )
+    sm = synthetic.sample_map(micro, step_um=STEP_UM, rng=seed + 100, noise_deg=0.5)
+    omap = synthetic.as_orientation_map(sm)
+    grain_map = segment_grains(omap, [TI])
+    segments = fit_segments(boundary_network(omap, grain_map, [TI]), step_um=STEP_UM)
+    table = identify(segments, grain_map.grains, [TI])
+    region_of, purity = _region_of_labels(grain_map.labels, sm.grain_id, micro.n_regions)
+    ra, rb = region_of[segments["grain_a"]], region_of[segments["grain_b"]]
+    pure = (purity[segments["grain_a"]] >= 0.95) & (purity[segments["grain_b"]] >= 0.95)
+    long = pure & ~segments["too_short"] & (segments["length_um"] > LONG_UM)
+    checked = 0
+    for lam in micro.lamellae:
+        pair = ((ra == lam.parent) & (rb == lam.region)) | ((ra == lam.region) & (rb == lam.parent))
+        n_true = np.asarray(lam.normal_sample)
+        for row in np.flatnonzero(pair & long):
+            best = np.array([table[f"predicted_normal_{a}"][row] for a in "xyz"])
+            assert abs(best @ n_true) > np.cos(np.deg2rad(1.5))
+            assert table["family_a"][row] == "{1 0 -1 2}"
+            assert table["identification"][row] == "identified"
+            checked += 1
+    assert checked >= 10
