@@ -84,6 +84,8 @@ _ROW_COEFF = 0.35
 _ROW_REACH = 2.0
 _STAIR_RESIDUAL = {"square": 0.32, "hexagonal": 0.28}
 _BLOCK_POINTS = 1 << 20
+# Two pieces closer than 5° to parallel have no well-placed corner between them.
+_MIN_CORNER_SIN = float(np.sin(np.radians(5.0)))
 # Row directions of each grid (deg, S) and the spacing of the rows along them (in steps).
 _ROWS = {
     "square": (np.array([0.0, 45.0, 90.0, 135.0]), np.array([1.0, 0.5**0.5, 1.0, 0.5**0.5])),
@@ -400,7 +402,7 @@ def split_polyline(points, tolerance_um, *, closed=False):
     n = pts.shape[0]
     if n < 2:
         return np.arange(n)
-    order, start, end, _, _ = _chain_pieces(
+    order, start, end, _, _, _ = _chain_pieces(
         np.array([0, n]), pts, np.array([bool(closed)]), tolerance_um
     )
     if closed and n >= 3:
@@ -441,13 +443,15 @@ def _check_network(network):
 def _chain_pieces(offsets, points, closed, tolerance):
     """Pieces of every chain as intervals of a gathered point index.
 
-    Returns ``(order, piece_start, piece_end, piece_chain, at_chain_end)``.
+    Returns ``(order, piece_start, piece_end, piece_chain, at_chain_end,
+    next_piece)``.
     ``points[order]`` lists the chains one after another, each loop written twice
     and started at its vertex farthest from its listed first vertex (a vertex of
     the convex hull, so a corner wherever the list starts), so that every piece,
     even one that wraps round a loop, is the contiguous run
     ``order[piece_start[k]:piece_end[k] + 1]``; ``at_chain_end`` (K, 2) marks the
-    piece ends that are chain ends (not breaks, not on a loop).
+    piece ends that are chain ends (not breaks, not on a loop); ``next_piece``
+    (K,) is the piece that follows across the break at each piece's end, or -1.
     """
     counts = np.diff(offsets)
     first_of = offsets[:-1]
@@ -520,14 +524,26 @@ def _chain_pieces(offsets, points, closed, tolerance):
         ],
         axis=1,
     )
-    return order, piece_start, piece_end, piece_chain, at_chain_end
+    # The piece that follows each piece across a break: the next one of its chain, and
+    # round a loop from the last to the first.
+    next_piece = np.full(piece_chain.size, -1, dtype=np.int64)
+    if piece_chain.size:
+        follows = piece_chain[1:] == piece_chain[:-1]
+        next_piece[:-1][follows] = np.flatnonzero(follows) + 1
+        chain_first = np.r_[True, ~follows]
+        chain_last = np.r_[~follows, True]
+        round_loop = chain_last & closed[piece_chain] & ~chain_first
+        next_piece[round_loop] = np.flatnonzero(chain_first & closed[piece_chain] & ~chain_last)
+    return order, piece_start, piece_end, piece_chain, at_chain_end, next_piece
 
 
-def _fit_pieces(pts, piece_start, piece_end, at_chain_end):
+def _fit_pieces(pts, piece_start, piece_end, at_chain_end, next_piece, reach):
     """TLS fit of many pieces at once: the columns of the segments table that are geometry.
 
     ``at_chain_end`` (K, 2) says whether each end of a piece is an end of its chain
-    (a junction or the map edge) rather than a break inside the chain.
+    (a junction or the map edge) rather than a break inside the chain;
+    ``next_piece`` (K,) the piece across the break at its end (-1: none); ``reach``
+    how far from the break vertex the two fitted lines may cross to mark the corner.
     """
     # A break vertex is the corner itself, or the first midpoint past it on the other
     # arm: it is left out of the fit of both pieces (while each keeps >= 2 points), and
@@ -558,6 +574,20 @@ def _fit_pieces(pts, piece_start, piece_end, at_chain_end):
     spacing = np.einsum("ij,ij->i", pts[f_end] - pts[f_start], direction) / np.maximum(n - 1, 1)
     t0 = t0 - np.where(at_chain_end[:, 0], 0.5 * spacing, 0.0)
     t1 = t1 + np.where(at_chain_end[:, 1], 0.5 * spacing, 0.0)
+    # At a bend the corner is where the two fitted lines cross (the break vertex is a
+    # midpoint half an edge off it), unless they are near parallel or cross far away.
+    k = np.flatnonzero(next_piece >= 0)
+    j = next_piece[k]
+    cross = direction[k, 0] * direction[j, 1] - direction[k, 1] * direction[j, 0]
+    apart = (np.abs(cross) > _MIN_CORNER_SIN) & (lam_max[k] > 0) & (lam_max[j] > 0)
+    k, j, cross = k[apart], j[apart], cross[apart]
+    w = centre[j] - centre[k]
+    a = (w[:, 0] * direction[j, 1] - w[:, 1] * direction[j, 0]) / cross
+    b = (w[:, 0] * direction[k, 1] - w[:, 1] * direction[k, 0]) / cross
+    corner = centre[k] + a[:, None] * direction[k]
+    use = np.hypot(*(corner - pts[piece_end[k]]).T) <= reach
+    t1[k[use]] = a[use]
+    t0[j[use]] = b[use]
     # A piece whose ends do not reach as far as its points (a small loop, a hairpin
     # within the tolerance, a walk that comes back) spans its points instead.
     if n.size:
@@ -655,17 +685,15 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     for c0, c1 in zip(cuts[:-1], cuts[1:], strict=True):
         local = offsets[c0 : c1 + 1] - offsets[c0]
         block_points = points[offsets[c0] : offsets[c1]]
-        order, p_start, p_end, p_chain, at_chain_end = _chain_pieces(
+        order, p_start, p_end, p_chain, at_chain_end, next_piece = _chain_pieces(
             local, block_points, closed[c0:c1], tolerance
         )
-        parts.append((_fit_pieces(block_points[order], p_start, p_end, at_chain_end), p_chain + c0))
+        geo = _fit_pieces(block_points[order], p_start, p_end, at_chain_end, next_piece, tolerance)
+        parts.append((geo, p_chain + c0))
     if not parts:
-        parts.append(
-            (
-                _fit_pieces(points, *(np.zeros(0, np.int64),) * 2, np.zeros((0, 2), bool)),
-                np.zeros(0, np.int64),
-            )
-        )
+        none = np.zeros(0, dtype=np.int64)
+        empty = _fit_pieces(points, none, none, np.zeros((0, 2), bool), none, tolerance)
+        parts.append((empty, none))
     geo = {k: np.concatenate([g[k] for g, _ in parts]) for k in parts[0][0]}
     p_chain = np.concatenate([c for _, c in parts])
     sigma = trace_sigma_model_deg(

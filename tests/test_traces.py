@@ -349,7 +349,9 @@ def test_l_shaped_boundary_splits_at_the_corner(grid):
     assert abs(angle_error_deg(seg["trace_angle_deg"][1], 110.0)) < 3 * seg["trace_sigma_deg"][1]
     meet = np.array([seg["x1_um"][0], seg["y1_um"][0]])
     start = np.array([seg["x0_um"][1], seg["y0_um"][1]])
-    assert np.hypot(*(meet - corner)) < 1.5 and np.hypot(*(start - corner)) < 1.5
+    # Both pieces end where their fitted lines cross, next to the true corner.
+    assert_allclose(meet, start, rtol=0, atol=1e-9)
+    assert np.hypot(*(meet - corner)) < 0.75
 
 
 @pytest.mark.parametrize("grid", ["square", "hexagonal"])
@@ -399,7 +401,8 @@ def test_closed_loop_gives_its_sides():
     seg = fit_segments(network([mids[order]], closed=[True]), step_um=1.0)
     assert len(seg["segment_id"]) == 4
     assert sorted(np.round(seg["trace_angle_deg"], 6).tolist()) == [0.0, 0.0, 90.0, 90.0]
-    assert_allclose(seg["length_um"], 20.0, rtol=0, atol=1.0)
+    # The corners are where the fitted sides cross: each side is its true 20 steps.
+    assert_allclose(seg["length_um"], 20.0, rtol=0, atol=1e-9)
 
 
 def test_closed_chain_listing_its_first_point_twice():

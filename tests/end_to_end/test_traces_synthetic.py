@@ -14,6 +14,8 @@ asked of 95 % of the boundaries and 6σ of all of them.
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
 import numpy as np
 import pytest
 
@@ -202,3 +204,36 @@ def test_fitted_length_matches_true_extent():
     covered = np.array([r["covered"] for r in single])
     assert_close = np.abs(covered - 1)
     assert np.median(assert_close) < 0.03 and np.all(assert_close < 0.1)
+
+
+@pytest.mark.parametrize("grid", ["square", "hexagonal"])
+def test_grain_inside_a_grain_gives_its_four_sides(grid):
+    # Hand-built: a block of 20 rows x 30 columns turned 45° about Z inside a grain of
+    # the identity orientation. The network hands over one closed chain; its sides are
+    # 30 steps wide and 20 row pitches high (s, or s·√3/2 on hexagons, conventions §1),
+    # their corners where the fitted sides cross.
+    quat = np.zeros((4, 60, 60), np.float32)
+    quat[0] = 1.0
+    block = np.zeros((60, 60), bool)
+    block[20:40, 15:45] = True
+    quat[:, block] = np.array([np.cos(np.pi / 8), 0, 0, np.sin(np.pi / 8)], np.float32)[:, None]
+    pitch = STEP_UM if grid == "square" else STEP_UM * np.sqrt(3) / 2
+    omap = SimpleNamespace(
+        quat=quat,
+        phase=np.ones((60, 60), int),
+        valid=np.ones((60, 60), bool),
+        grid=grid,
+        step_x_um=STEP_UM,
+        step_y_um=pitch,
+    )
+    grain_map = grains.segment_grains(omap, [CU])
+    net = network.boundary_network(omap, grain_map, [CU])
+    assert net.closed.tolist() == [True]
+    seg = fit_segments(net, step_um=STEP_UM, grid=grid)
+    order = np.argsort(seg["trace_angle_deg"])
+    # Folded to [-1, 179) so that a side at 179.99° compares with 0°.
+    angles = np.mod(seg["trace_angle_deg"][order] + 1, 180) - 1
+    np.testing.assert_allclose(angles, [0, 0, 90, 90], rtol=0, atol=0.01)
+    np.testing.assert_allclose(
+        seg["length_um"][order], [30 * STEP_UM] * 2 + [20 * pitch] * 2, rtol=0, atol=0.01
+    )
