@@ -230,9 +230,10 @@ def test_grain_inside_a_grain_gives_its_four_sides(grid):
     net = network.boundary_network(omap, grain_map, [CU])
     assert net.closed.tolist() == [True]
     seg = fit_segments(net, step_um=STEP_UM, grid=grid)
-    order = np.argsort(seg["trace_angle_deg"])
     # Folded to [-1, 179) so that a side at 179.99° compares with 0°.
-    angles = np.mod(seg["trace_angle_deg"][order] + 1, 180) - 1
+    folded = np.mod(seg["trace_angle_deg"] + 1, 180) - 1
+    order = np.argsort(folded)
+    angles = folded[order]
     np.testing.assert_allclose(angles, [0, 0, 90, 90], rtol=0, atol=0.01)
     np.testing.assert_allclose(
         seg["length_um"][order], [30 * STEP_UM] * 2 + [20 * pitch] * 2, rtol=0, atol=0.01
