@@ -15,7 +15,8 @@ is +z. Orientations are passive (``v_crystal = g @ v_sample``, §3).
 Grains and twin lamellae are *regions*, numbered from 1: regions
 1..G are the Voronoi grains (seed k - 1 of ``seeds_um``), regions G+1..G+T are
 the lamellae in the order of ``micro.lamellae``. A sampled map's ``grain_id``
-holds these region ids.
+holds these region ids. A lamella can cut its parent's section in two; both pieces
+keep the parent's id (a segmenter will see two grains there).
 
 Sections of the sample:
 
@@ -1353,6 +1354,7 @@ def ground_truth(micro: Microstructure, *, maps=None) -> dict:
             {
                 "grains": [key[0], key[1]],
                 "kind": kinds[key],
+                "is_twin": kinds[key] == "twin",
                 "parent_grains": [int(micro.region_parent[k - 1]) for k in key],
                 "normal_sample": [float(v) for v in normals[i]],
                 "trace_angle_deg": _json_number(geometry["trace_angle_deg"][i]),
