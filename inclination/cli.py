@@ -1,14 +1,34 @@
-"""The command line: a thin layer over the library, one call per subcommand."""
+"""The command line: a thin layer over the library, one call per subcommand.
+
+Exit status 0 on success, 2 on bad input (one line on stderr naming the file,
+the field and what was expected; no traceback), 1 on an internal fault.
+"""
 
 from __future__ import annotations
 
 import argparse
 import sys
+import traceback
 
 from . import __version__
 from .errors import InclinationError
 
 __all__ = ["main"]
+
+_STAGES = {
+    "grains": "read the map and segment it into grains",
+    "traces": "grains, the boundary network and straight segments",
+    "planes": "traces plus candidate planes: the per-boundary table without sections",
+    "sections": "planes plus the sections' measured dips and the frame verdict",
+}
+
+
+def _add_common(p: argparse.ArgumentParser, *, default_out: str) -> None:
+    p.add_argument("--out", default=default_out, help="output folder (default: %(default)s)")
+    p.add_argument(
+        "--overwrite", action="store_true", help="replace an existing output folder when done"
+    )
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
 def _build_parser() -> argparse.ArgumentParser:
@@ -18,37 +38,85 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"inclination {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    demo = sub.add_parser("demo", help="build the demo scenario and run the whole job on it")
-    demo.add_argument(
-        "--out", default="inclination-demo", help="output folder (default: %(default)s)"
+    demo = sub.add_parser(
+        "demo", help="write the demo scenario (synthetic sample) and run the whole job on it"
     )
-    demo.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    demo.add_argument("--quiet", action="store_true", help="no progress bars")
+    _add_common(demo, default_out="inclination-demo")
+    demo.add_argument("--seed", type=int, default=7, help="seed of the synthetic sample")
+    analyse = sub.add_parser("analyse", help="the whole job, driven by a job file")
+    analyse.add_argument("job", help="job file (JSON)")
+    _add_common(analyse, default_out="inclination-out")
+    for name, text in _STAGES.items():
+        p = sub.add_parser(name, help=text)
+        p.add_argument("job", help="job file (JSON)")
+        _add_common(p, default_out=f"inclination-{name}")
+    report = sub.add_parser("report", help="rebuild the report of a finished run from its folder")
+    report.add_argument("run", help="output folder of an earlier analyse run")
     return parser
 
 
-def _run_demo(args) -> int:
-    print(
-        "inclination demo: the crystallography core is in place; map reading, grains, "
-        "traces, planes and sections land in later releases."
-    )
+def _progress(quiet: bool):
+    """A progress factory for the library, or None when silent.
+
+    Bars appear only on a terminal: a log file or a pipe stays clean.
+    """
+    if quiet or not sys.stderr.isatty():
+        return None
+    from tqdm import tqdm
+
+    def factory(total, desc):
+        return tqdm(total=total, desc=desc, unit="pt", unit_scale=True, leave=False)
+
+    return factory
+
+
+def _dispatch(args) -> int:
+    from . import pipeline
+
+    progress = _progress(getattr(args, "quiet", True))
+    if args.command == "demo":
+        result = pipeline.demo(
+            args.out, seed=args.seed, overwrite=args.overwrite, progress=progress
+        )
+    elif args.command == "report":
+        result = pipeline.rebuild_report(args.run)
+    else:
+        stage = "sections" if args.command == "analyse" else args.command
+        result = pipeline.analyse(
+            args.job, args.out, stage=stage, overwrite=args.overwrite, progress=progress
+        )
+    if not getattr(args, "quiet", False):
+        for line in result.messages:
+            print(line)
     return 0
 
 
 def main(argv=None) -> int:
     """Run the command line; return the exit status (0 ok, 2 bad input, 1 internal fault)."""
     parser = _build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse has printed its one-line usage error
+        return int(exc.code or 0) and 2
     if args.command is None:
         parser.print_help()
         return 2
     try:
-        if args.command == "demo":
-            return _run_demo(args)
+        return _dispatch(args)
     except InclinationError as exc:
         print(f"inclination: error: {exc}", file=sys.stderr)
         return 2
-    return 1
+    except KeyboardInterrupt:
+        print("inclination: interrupted; no output folder was replaced.", file=sys.stderr)
+        return 1
+    except Exception:  # an internal fault: say so plainly, with the trace for a bug report
+        traceback.print_exc()
+        print(
+            "inclination: internal error (a bug, not bad input); please report it with the "
+            "trace above.",
+            file=sys.stderr,
+        )
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -77,7 +77,7 @@ BOUNDARY_COLUMNS = (
         _c("measured_dip_deg", "float", 3, "dip measured on a section"),
         _c("measured_dip_sigma_deg", "float", 3, "standard uncertainty of the measured dip"),
         _c("measured_dip_azimuth_deg", "float", 3, "measured dip direction, declared axes"),
-        _c("dip_source", "str", 0, "cross-section, serial or stack; empty if not measured"),
+        _c("dip_source", "str", 0, "cross-section, serial-section or stack; empty if not measured"),
         _c("sense", "str", 0, "agrees, opposite or undecided (empty if not measured)"),
         _c("sense_log10_lr", "float", 3, "log10 likelihood ratio, declared frame vs turned"),
         _c("normal_x", "float", 5, "measured plane normal, declared axes, x"),

@@ -119,7 +119,8 @@ def render_html(summary: dict, table: dict, columns, *, figure_png: bytes | None
     if figure_png:
         data = base64.b64encode(figure_png).decode("ascii")
         parts.append(
-            f'<p><img alt="map with fitted boundary segments" style="max-width:100%" src="data:image/png;base64,{data}"></p>'
+            '<p><img alt="map with fitted boundary segments" style="max-width:100%" '
+            f'src="data:image/png;base64,{data}"></p>'
         )
     parts.append(
         "<table><thead><tr>"

@@ -17,7 +17,7 @@ SCHEMA_VERSION = "1.0"
 _INDICES = r"^[\(\[\{<]-?\d+( -?\d+){2,3}[\)\]\}>]$"
 _ENUMS = {
     "sense": ["agrees", "opposite", "undecided"],
-    "dip_source": ["cross-section", "serial", "stack"],
+    "dip_source": ["cross-section", "serial-section", "stack"],
     "identification": ["coherent_twin", "identified", "ambiguous", "none"],
     "twin_test": ["pass", "fail"],
 }

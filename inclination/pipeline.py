@@ -1,0 +1,472 @@
+"""The whole job: job file in, tables, figures and report out.
+
+:func:`run` chains the stages as pure computations on what the job names
+(read → grains → network → traces → planes → sections → compare) and returns
+one frozen :class:`Analysis`; :func:`write_outputs` turns it into files, in the
+user's declared axes (conventions §2). :func:`analyse` is the two together,
+writing into a staged folder that replaces the output folder only when every
+file is complete. The command line calls these and nothing else.
+"""
+
+from __future__ import annotations
+
+import platform
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .errors import InputError
+
+__all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "demo"]
+
+#: Stages in data-flow order; each includes everything before it.
+STAGES = ("grains", "traces", "planes", "sections")
+#: Version of the summary.json layout.
+SUMMARY_VERSION = "1.0"
+
+_MEASURED_COLUMNS = (
+    "normal_x",
+    "normal_y",
+    "normal_z",
+    "measured_dip_deg",
+    "measured_dip_sigma_deg",
+    "dip_direction_azimuth_deg",
+    "dip_direction_sigma_deg",
+)
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Everything one run computed, in the sample frame S.
+
+    ``segments``, ``identification``, ``measured``, ``senses`` and ``planes_full``
+    are tables (dicts of equal-length arrays); absent stages hold None.
+    """
+
+    job: object
+    omap: object
+    grain_map: object
+    stage: str
+    network: object = None
+    segments: dict | None = None
+    identification: dict | None = None
+    candidates: dict | None = None
+    twin_summary: object = None
+    section_tables: tuple = ()
+    section_notes: tuple = ()
+    measured: dict | None = None
+    senses: dict | None = None
+    verdict: object = None
+    planes_full: dict | None = None
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """What a command wrote, and the lines it tells the user."""
+
+    out_dir: Path
+    files: tuple
+    messages: tuple = field(default=())
+    summary: dict | None = None
+
+
+def _stage_index(stage: str) -> int:
+    if stage not in STAGES:
+        raise ValueError(f"Expected `stage` to be one of {STAGES}, got {stage!r}.")
+    return STAGES.index(stage)
+
+
+def _progress_callback(progress, desc):
+    """A fraction callback for a library stage, from the CLI's progress factory."""
+    if progress is None:
+        return None, (lambda: None)
+    bar = progress(100, desc)
+    state = {"done": 0}
+
+    def update(fraction):
+        target = int(round(100 * min(max(float(fraction), 0.0), 1.0)))
+        if target > state["done"]:
+            bar.update(target - state["done"])
+            state["done"] = target
+
+    return update, bar.close
+
+
+def _phases_by_id(job):
+    return {p.id: p for p in job.phases}
+
+
+def _grains_and_segments(omap, job, stage_i, progress, label):
+    from .grains import segment_grains
+    from .network import boundary_network
+    from .traces import fit_segments
+
+    g = job.grains
+    update, close = _progress_callback(progress, f"{label}: grains")
+    try:
+        grain_map = segment_grains(
+            omap,
+            job.phases,
+            threshold_deg=g["threshold_deg"],
+            min_pixels=g["min_pixels"],
+            small_grains=g["small_grains"],
+            fill_isolated=g["fill_isolated"],
+            progress=update,
+        )
+    finally:
+        close()
+    if stage_i < 1:
+        return grain_map, None, None
+    network = boundary_network(omap, grain_map, job.phases)
+    step = float(min(omap.step_x_um, omap.step_y_um))
+    t = job.traces
+    segments = fit_segments(
+        network,
+        step_um=step,
+        tolerance_um=t.get("tolerance_um"),
+        min_length_um=t.get("min_length_um"),
+        grid=omap.grid,
+    )
+    return grain_map, network, segments
+
+
+def _map_bounds_um(omap):
+    xy = omap.positions_sample_um()
+    return (
+        float(xy[..., 0].min()),
+        float(xy[..., 1].min()),
+        float(xy[..., 0].max()),
+        float(xy[..., 1].max()),
+    )
+
+
+def _depth_entry(section):
+    # TEMPORARY until sections.section_depth reads the schema's form directly.
+    entry = {k: v for k, v in section.items() if v is not None}
+    indent = entry.pop("indent", None)
+    if indent:
+        entry["indent_diagonal_before_um"] = indent["diagonal_before_um"]
+        entry["indent_diagonal_after_um"] = indent["diagonal_after_um"]
+    return entry
+
+
+def _sections(job, omap, grain_map, segments, progress):
+    """Measure every section of the job; returns (tables, notes)."""
+    from .sections import measure_cross_section, measure_serial_section, section_depth
+
+    tables, notes = [], []
+    step = float(min(omap.step_x_um, omap.step_y_um))
+    laue_by_phase = {p.id: p.laue for p in job.phases}
+    for index, section in enumerate(job.sections):
+        pointer = f"/sections/{index}"
+        name = section.get("name") or f"section {index + 1}"
+        if section["kind"] == "cross-section":
+            table = measure_cross_section(
+                section,
+                segments,
+                axes=omap.axes,
+                step_um=step,
+                bounds_um=_map_bounds_um(omap),
+                path=job.source_path,
+                pointer=pointer,
+            )
+            status, count = np.unique(np.asarray(table["status"]), return_counts=True)
+            notes.append(
+                {
+                    "name": name,
+                    "kind": "cross-section",
+                    "entries": int(len(table["status"])),
+                    "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                }
+            )
+        else:
+            depth = section_depth(_depth_entry(section), path=job.source_path, pointer=pointer)
+            deeper = job.read_section_map(index)
+            if deeper.grid != omap.grid or not np.isclose(deeper.step_x_um, omap.step_x_um):
+                raise InputError(
+                    f"Expected the serial section's map on the surface map's grid "
+                    f"({omap.grid}, step {omap.step_x_um} µm), got {deeper.grid}, "
+                    f"step {deeper.step_x_um} µm.",
+                    path=job.source_path,
+                    pointer=f"{pointer}/map",
+                )
+            deeper_grains, _, deeper_segments = _grains_and_segments(deeper, job, 1, progress, name)
+            fiducials = None
+            if section.get("fiducials"):
+                fiducials = np.array(
+                    [
+                        [
+                            omap.axes.points_to_sample(f["surface_um"]),
+                            deeper.axes.points_to_sample(f["section_um"]),
+                        ]
+                        for f in section["fiducials"]
+                    ]
+                )
+            result = measure_serial_section(
+                segments,
+                grain_map,
+                deeper_segments,
+                deeper_grains,
+                depth_um=depth.depth_um,
+                depth_sigma_um=depth.depth_sigma_um,
+                step_um=step,
+                laue_by_phase=laue_by_phase,
+                fiducials_um=fiducials,
+                threshold_deg=job.grains["threshold_deg"],
+                path=job.source_path,
+                pointer=pointer,
+            )
+            table = result.boundaries
+            reg = result.registration
+            status, count = np.unique(np.asarray(table["status"]), return_counts=True)
+            notes.append(
+                {
+                    "name": name,
+                    "kind": "serial",
+                    "depth_um": depth.depth_um,
+                    "depth_sigma_um": depth.depth_sigma_um,
+                    "depth_source": depth.source,
+                    "registration": {
+                        "shift_x_um": reg.shift_x_um,
+                        "shift_y_um": reg.shift_y_um,
+                        "rotation_deg": reg.rotation_deg,
+                        "residual_um": reg.residual_um,
+                        "n_points": reg.n_points,
+                        "method": reg.method,
+                    },
+                    "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                }
+            )
+        tables.append(table)
+    return tuple(tables), tuple(notes)
+
+
+def _compare(job, grain_map, identification, measured):
+    from .compare import boundary_sense, frame_verdict, full_planes
+
+    ident_row = {int(s): i for i, s in enumerate(identification["segment_id"])}
+    rows = np.array([ident_row.get(int(s), -1) for s in measured["segment_id"]], dtype=int)
+    keep = rows >= 0
+    measured = {k: np.asarray(v)[keep] for k, v in measured.items()}
+    rows = rows[keep]
+
+    def ident(col):
+        return np.asarray(identification[col])[rows]
+
+    # Only planes that traces pin down (a shared twin plane, or one shared plane) carry a
+    # predicted dip direction worth testing; an ambiguous trace fits several directions.
+    trusted = np.isin(ident("identification"), ("coherent_twin", "identified"))
+    predicted_azimuth = np.where(trusted, ident("predicted_dip_azimuth_deg"), np.nan)
+    senses = boundary_sense(
+        predicted_azimuth,
+        ident("predicted_dip_deg"),
+        measured["dip_direction_azimuth_deg"],
+        measured["dip_direction_sigma_deg"],
+        measured_dip_deg=measured["measured_dip_deg"],
+        measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
+        predicted_azimuth_sigma_deg=ident("tolerance_deg") / 2.0,
+        predicted_dip_sigma_deg=ident("tolerance_deg") / 2.0,
+    )
+    senses = {"segment_id": np.asarray(measured["segment_id"]), **senses}
+    verdict = frame_verdict(senses)
+    planes_full = full_planes(
+        measured,
+        {
+            "segment_id": np.asarray(measured["segment_id"]),
+            "grain_a": ident("grain_a"),
+            "grain_b": ident("grain_b"),
+            "sigma": ident("sigma"),
+        },
+        grain_map.grains,
+        _phases_by_id(job),
+        coherent_tolerance_deg=job.planes["max_tolerance_deg"],
+    )
+    return measured, senses, verdict, planes_full
+
+
+def run(job, *, stage: str = "sections", progress=None) -> Analysis:
+    """Run the job's stages up to ``stage`` and return what they computed.
+
+    Parameters
+    ----------
+    job : inclination.job.Job
+    stage : {'grains', 'traces', 'planes', 'sections'}
+        The last stage to run; each includes the ones before it.
+    progress : callable, optional
+        ``progress(total, desc)`` returning a bar with ``update(n)`` and
+        ``close()`` (the CLI passes tqdm); silent when omitted.
+
+    Returns
+    -------
+    Analysis
+    """
+    from .compare import best_measurements
+    from .planes import candidates, identify, twin_test_summary
+
+    stage_i = _stage_index(stage)
+    omap = job.read_surface_map()
+    grain_map, network, segments = _grains_and_segments(omap, job, stage_i, progress, "surface")
+    if stage_i < 2:
+        return Analysis(job, omap, grain_map, stage, network=network, segments=segments)
+    p = job.planes
+    options = {
+        "k": p["k"],
+        "floor_deg": p["floor_deg"],
+        "max_tolerance_deg": p["max_tolerance_deg"],
+        "sigma_criterion": p["sigma_criterion"],
+    }
+    identification = identify(segments, grain_map.grains, job.phases, **options)
+    cands = candidates(segments, grain_map.grains, job.phases, **options)
+    twin = twin_test_summary(identification, segments)
+    analysis = Analysis(
+        job,
+        omap,
+        grain_map,
+        stage,
+        network=network,
+        segments=segments,
+        identification=identification,
+        candidates=cands,
+        twin_summary=twin,
+    )
+    if stage_i < 3 or not job.sections:
+        return analysis
+    tables, notes = _sections(job, omap, grain_map, segments, progress)
+    measured = best_measurements(*tables)
+    measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)
+    return Analysis(
+        job,
+        omap,
+        grain_map,
+        stage,
+        network=network,
+        segments=segments,
+        identification=identification,
+        candidates=cands,
+        twin_summary=twin,
+        section_tables=tables,
+        section_notes=notes,
+        measured=measured,
+        senses=senses,
+        verdict=verdict,
+        planes_full=planes_full,
+    )
+
+
+def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = False, progress=None):
+    """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
+
+    Returns
+    -------
+    RunResult
+    """
+    from .job import load_job
+    from .report._io import staged_output_dir
+
+    job = load_job(job_path)
+    out = Path(out_dir)
+    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+        analysis = run(job, stage=stage, progress=progress)
+        files, summary = write_outputs(analysis, stage_dir)
+    files = tuple(out / Path(f).name for f in files)
+    return RunResult(out, files, tuple(_messages(summary, out)), summary)
+
+
+def _messages(summary, out):
+    c = summary["counts"]
+    lines = [f"{out}: {c['grains']} grains"]
+    if "segments" in c:
+        lines[0] += f", {c['segments']} straight segments ({c['segments_for_planes']} long enough)"
+    if "identified" in summary:
+        ids = summary["identified"]
+        lines.append("planes: " + ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in ids.items()))
+    verdict = summary.get("frame_verdict")
+    if verdict:
+        lines.append(f"frame: {verdict['sentence']}")
+    return lines
+
+
+def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> RunResult:
+    """Write the demo scenario and run the whole job on it, and on its turned-frame twin.
+
+    The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
+    (the job as declared) and ``results-turned-frame/`` (the same sample recorded
+    in a frame turned 180° about the surface normal: its verdict must say so).
+    """
+    from .demo import write_demo_scenario
+    from .job import load_job
+    from .report._io import staged_output_dir
+
+    out = Path(out_dir)
+    messages = []
+    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+        paths = write_demo_scenario(stage_dir / "scenario", seed=seed)
+        summaries = {}
+        for key, folder in (("job", "results"), ("job_z180", "results-turned-frame")):
+            job = load_job(paths[key])
+            analysis = run(job, stage="sections", progress=progress)
+            (stage_dir / folder).mkdir()
+            _, summary = write_outputs(analysis, stage_dir / folder)
+            summaries[folder] = summary
+            messages += _messages(summary, out / folder)
+    messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
+    messages.append(f"open {out / 'results' / 'report.html'} for the report")
+    return RunResult(out, (), tuple(messages), summaries)
+
+
+def rebuild_report(run_dir) -> RunResult:
+    """Not offered: a finished run's report is written with it (kept for the CLI's help)."""
+    raise InputError(
+        "Expected a job file: the report is written by `analyse` itself; run "
+        "`inclination analyse JOB.json --out DIR` again to rebuild it.",
+        path=run_dir,
+    )
+
+
+# ----------------------------------------------------------------------------- outputs
+
+
+def write_outputs(analysis: Analysis, out_dir):
+    """Write every table, figure and the report of ``analysis`` into ``out_dir``.
+
+    Returns
+    -------
+    files : list of Path
+    summary : dict
+        What ``summary.json`` holds.
+    """
+    from .report import outputs
+
+    return outputs.write_all(analysis, Path(out_dir), summary_base=_summary_base(analysis))
+
+
+def _summary_base(analysis: Analysis) -> dict:
+    job = analysis.job
+    omap = analysis.omap
+    return {
+        "schema_version": SUMMARY_VERSION,
+        "title": "Boundary planes",
+        "tool": {
+            "name": "inclination",
+            "version": __version__,
+            "python": platform.python_version(),
+            "numpy": np.__version__,
+        },
+        "conventions": {
+            "sample_frame": "X right, Y down, Z into the material (conventions §2)",
+            "declared_axes": omap.axes.as_dict(),
+            "reported_in": "declared axes; angles from +x toward +y",
+            "euler": "Bunge (phi1, Phi, phi2), passive, degrees",
+            "trace_angle_range_deg": [0, 180],
+            "azimuth_range_deg": [0, 360],
+            "dip": "0 = parallel to the surface, 90 = vertical",
+        },
+        "job": job.raw,
+        "provenance": {
+            "job_file": job.source_path,
+            "map": dict(omap.provenance),
+        },
+        "stage": analysis.stage,
+    }

@@ -1,0 +1,150 @@
+"""The command line end to end: the demo, the stage commands, exit statuses and bad input."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import jsonschema
+import numpy as np
+import pytest
+
+from inclination.cli import main
+from inclination.demo import write_demo_scenario
+from inclination.report.schemas import render
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "run"
+    assert main(["demo", "--out", str(out), "--quiet"]) == 0
+    return out
+
+
+@pytest.fixture(scope="module")
+def scenario(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("scenario")
+    return write_demo_scenario(folder)
+
+
+def test_demo_writes_every_file(demo_run):
+    for folder in ("results", "results-turned-frame"):
+        names = {p.name for p in (demo_run / folder).iterdir()}
+        for expected in (
+            "grains.csv",
+            "segments.csv",
+            "segments.json",
+            "boundaries.csv",
+            "boundaries.json",
+            "boundaries.tex",
+            "boundaries.md",
+            "boundaries.png",
+            "boundaries.svg",
+            "summary.json",
+            "report.html",
+            "report.md",
+        ):
+            assert expected in names, f"{folder}/{expected} missing"
+    assert (demo_run / "scenario" / "truth.json").exists()
+
+
+def test_demo_tables_validate_against_their_schemas(demo_run):
+    for name in ("boundaries", "segments"):
+        doc = json.loads((demo_run / "results" / f"{name}.json").read_text())
+        jsonschema.validate(doc, json.loads(render(name)))
+        assert doc["rows"], f"{name} has no rows"
+
+
+def test_demo_frame_verdicts(demo_run):
+    # The demo's second case is the same sample recorded in a frame turned 180° about
+    # the surface normal (conventions §6): its verdict must say so, the first must not.
+    declared = json.loads((demo_run / "results" / "summary.json").read_text())
+    turned = json.loads((demo_run / "results-turned-frame" / "summary.json").read_text())
+    assert declared["frame_verdict"]["verdict"] == "as_declared"
+    assert turned["frame_verdict"]["verdict"] == "turned_180_about_normal"
+    assert (
+        declared["frame_verdict"]["sentence"] in (demo_run / "results" / "report.html").read_text()
+    )
+
+
+def test_existing_output_refused_without_overwrite(demo_run, capsys):
+    before = sorted(p.name for p in demo_run.iterdir())
+    assert main(["demo", "--out", str(demo_run), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "--overwrite" in err and "Traceback" not in err
+    assert sorted(p.name for p in demo_run.iterdir()) == before
+
+
+def test_stage_commands_and_inputs_untouched(scenario, tmp_path):
+    job = scenario["job"]
+    digests = {p: p.read_bytes() for p in Path(job).parent.iterdir() if p.is_file()}
+    assert main(["traces", str(job), "--out", str(tmp_path / "t"), "--quiet"]) == 0
+    names = {p.name for p in (tmp_path / "t").iterdir()}
+    assert {"segments.csv", "segments.json", "grains.csv"} <= names
+    assert "boundaries.csv" not in names
+    assert main(["planes", str(job), "--out", str(tmp_path / "p"), "--quiet"]) == 0
+    summary = json.loads((tmp_path / "p" / "summary.json").read_text())
+    assert summary["stage"] == "planes" and "frame_verdict" not in summary
+    assert main(["analyse", str(job), "--out", str(tmp_path / "a"), "--quiet"]) == 0
+    for p, data in digests.items():
+        assert p.read_bytes() == data, f"input {p.name} was modified"
+
+
+def _bad_job(scenario, tmp_path, edit):
+    job_path = Path(scenario["job"])
+    folder = tmp_path / "job"
+    shutil.copytree(job_path.parent, folder)
+    doc = json.loads((folder / job_path.name).read_text())
+    edit(doc)
+    (folder / "job.json").write_text(json.dumps(doc))
+    return folder / "job.json"
+
+
+@pytest.mark.parametrize(
+    ("edit", "expected"),
+    [
+        (lambda d: d["grains"].__setitem__("threshold_deg", -1), "threshold_deg"),
+        (lambda d: d["grains"].__setitem__("threshold_deg", 70), "threshold_deg"),
+        (lambda d: d["phases"][0].__setitem__("laue", "cubic"), "laue"),
+        (lambda d: d["phases"][0].__setitem__("families", ["{1 1 1 1}"]), "families"),
+        (lambda d: d["phases"][0]["lattice"].__setitem__("alpha", 200), "alpha"),
+        (
+            lambda d: d.setdefault("planes", {}).__setitem__("max_tolerance_deg", -2),
+            "max_tolerance_deg",
+        ),
+        (lambda d: d["map"].__setitem__("path", "no-such-map.npz"), "no-such-map"),
+        (
+            lambda d: d["sections"][0].__setitem__("viewer_at_um", d["sections"][0]["line_um"][0]),
+            "viewer",
+        ),
+        (lambda d: d["sections"][0].__setitem__("line_um", [[-500, -500], [-400, -500]]), "line"),
+    ],
+)
+def test_bad_input_one_line_exit_2(scenario, tmp_path, capsys, edit, expected):
+    job = _bad_job(scenario, tmp_path, edit)
+    code = main(["analyse", str(job), "--out", str(tmp_path / "out"), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "Traceback" not in err
+    assert expected in err
+    assert err.count("\n") == 1
+    assert not (tmp_path / "out").exists()
+
+
+def test_missing_job_file_exit_2(tmp_path, capsys):
+    assert main(["analyse", str(tmp_path / "nope.json"), "--out", str(tmp_path / "o")]) == 2
+    assert "nope.json" in capsys.readouterr().err
+
+
+def test_no_command_prints_help(capsys):
+    assert main([]) == 2
+    assert "analyse" in capsys.readouterr().out
+
+
+def test_boundary_table_in_declared_axes(demo_run):
+    # The main demo case declares x right, y down (= S), so every trace angle in the
+    # table must lie in [0, 180) and azimuths in [0, 360) (conventions §2).
+    doc = json.loads((demo_run / "results" / "boundaries.json").read_text())
+    angles = np.array([r["trace_angle_deg"] for r in doc["rows"]], float)
+    assert np.all((angles >= 0) & (angles < 180))
