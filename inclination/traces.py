@@ -635,15 +635,22 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     -------
     dict of str to numpy.ndarray
         The segments table, columns :data:`SEGMENT_COLUMNS`, one row per segment,
-        ordered by chain then along the chain. End points (S, µm) lie on the
-        fitted line, where the first and last edges of the piece end;
-        ``length_um`` is their distance; ``trace_angle_deg`` in [0, 180) from +X
-        toward +Y (§2), NaN for a piece of one edge; ``trace_sigma_deg`` from
-        :func:`trace_sigma_model_deg`; ``n_edges`` counts the edge midpoints fitted.
-        Neighbouring pieces of a chain share their break vertex: it fixes where
-        both end but enters neither fit (it may be the first midpoint of the
-        other arm), as long as each fit keeps two points. An empty network gives
-        a table of empty columns.
+        ordered by chain then along the chain (``segment_id`` 0..K−1, ``chain_id``
+        the chain's index). End points (S, µm) lie on the fitted line: at a chain
+        end (a junction or the map edge) half a mean midpoint spacing beyond the
+        last midpoint, where the last edge ends; at a bend inside a chain, where
+        the fitted lines of the two pieces cross (if they cross within the split
+        tolerance of the break vertex and are more than 5° apart; otherwise the
+        break vertex projected on the line). ``length_um`` is the distance between
+        the end points, never the staircase length; ``trace_angle_deg`` in [0, 180)
+        from +X toward +Y (§2), NaN for a piece without direction (one edge);
+        ``trace_sigma_deg`` from :func:`trace_sigma_model_deg` (NaN with the
+        angle); ``residual_um`` the RMS distance of the fitted midpoints to the
+        line; ``n_edges`` the number of midpoints fitted: a break vertex (the
+        corner, or the first midpoint of the other arm) enters neither of its two
+        pieces' fits, as long as each keeps two points. ``grain_*``, ``phase_*``,
+        ``misorientation_deg`` and ``is_phase_boundary`` come from the chain. An
+        empty network gives a table of empty columns.
 
     Raises
     ------

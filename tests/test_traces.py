@@ -670,3 +670,12 @@ def test_any_network_gives_a_consistent_table(specs):
     assert np.all(np.isnan(angle) | ((angle >= 0) & (angle < 180)))
     assert np.all(seg["length_um"] >= 0) and np.all(seg["n_edges"] >= 1)
     assert np.array_equal(np.isnan(angle), np.isnan(seg["trace_sigma_deg"]))
+
+
+def test_sigma_model_bad_input_raises():
+    with pytest.raises(ValueError, match="Expected `step_um` to be a finite number > 0"):
+        trace_sigma_model_deg(10.0, -1.0, 0.0, 10)
+    with pytest.raises(TypeError, match="Expected `length_um` to be an array of numbers"):
+        trace_sigma_model_deg("long", 1.0, 0.0, 10)
+    with pytest.raises(TypeError, match="Expected `angle_deg` to be an array of numbers"):
+        trace_sigma_model_deg(10.0, 1.0, 0.0, 10, angle_deg={"a": 1})
