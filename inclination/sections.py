@@ -335,11 +335,11 @@ class LayerDepth:
 def section_depth(section: Mapping, *, path=None, pointer: str = "") -> LayerDepth:
     """Layer thickness of a serial-section job entry (§8).
 
-    The entry gives ``depth_um`` (with optional ``depth_sigma_um``), or the Vickers
-    indent diagonals ``indent_diagonal_before_um`` and ``indent_diagonal_after_um``
-    (with optional ``indent_diagonal_sigma_um``, the σ of each diagonal). Without a
-    stated σ the depth is taken to be known to 10 % (common practice for polished
-    layers; state it in the job to do better).
+    The entry gives ``depth_um``, or ``indent``: the Vickers indent diagonals
+    ``{"diagonal_before_um": ..., "diagonal_after_um": ...}``, with
+    ``h = (d_before − d_after) / (2·√2·tan 68°)``. ``depth_sigma_um`` states the σ of
+    h; when it is absent or null the depth is taken to be known to 10 % (common
+    practice for polished layers; state it in the job to do better).
 
     Parameters
     ----------
@@ -356,54 +356,76 @@ def section_depth(section: Mapping, *, path=None, pointer: str = "") -> LayerDep
     --------
     >>> section_depth({"depth_um": 1.5, "depth_sigma_um": 0.1})
     LayerDepth(depth_um=1.5, depth_sigma_um=0.1, source='given')
-    >>> d = section_depth({"indent_diagonal_before_um": 30.0, "indent_diagonal_after_um": 23.0})
-    >>> round(d.depth_um, 5)
-    0.99991
+    >>> d = section_depth({"indent": {"diagonal_before_um": 30.0, "diagonal_after_um": 23.0}})
+    >>> round(d.depth_um, 5), round(d.depth_sigma_um, 5), d.source
+    (0.99991, 0.09999, 'indent')
     """
-    if "depth_um" in section:
-        depth = float(section["depth_um"])
-        if not np.isfinite(depth) or depth <= 0:
+
+    def number(value, field):
+        try:
+            out = float(value)
+        except (TypeError, ValueError):
+            out = float("nan")
+        if not np.isfinite(out):
+            raise InputError(
+                f"Expected `{field.rsplit('/', 1)[-1]}` to be a finite number, got {value!r}.",
+                path=path,
+                pointer=f"{pointer}/{field}",
+            )
+        return out
+
+    if section.get("depth_um") is not None:
+        depth = number(section["depth_um"], "depth_um")
+        if depth <= 0:
             raise InputError(
                 f"Expected `depth_um` to be a finite number > 0, got {section['depth_um']!r}.",
                 path=path,
                 pointer=f"{pointer}/depth_um",
             )
-        sigma = float(section.get("depth_sigma_um", 0.1 * depth))
         source = "given"
-    elif "indent_diagonal_before_um" in section and "indent_diagonal_after_um" in section:
-        before = float(section["indent_diagonal_before_um"])
-        after = float(section["indent_diagonal_after_um"])
-        if not (np.isfinite(before) and np.isfinite(after)) or after >= before or after <= 0:
+    elif isinstance(section.get("indent"), Mapping):
+        indent = section["indent"]
+        before = number(indent.get("diagonal_before_um"), "indent/diagonal_before_um")
+        after = number(indent.get("diagonal_after_um"), "indent/diagonal_after_um")
+        if after >= before or after <= 0:
             raise InputError(
-                "Expected `indent_diagonal_after_um` to be > 0 and smaller than "
-                f"`indent_diagonal_before_um`, got {after!r} and {before!r}.",
+                "Expected `diagonal_after_um` to be > 0 and smaller than "
+                f"`diagonal_before_um` (the indent shrinks), got {after!r} and {before!r}.",
                 path=path,
-                pointer=f"{pointer}/indent_diagonal_after_um",
+                pointer=f"{pointer}/indent/diagonal_after_um",
             )
         depth = (before - after) / VICKERS_DEPTH_FACTOR
-        if "indent_diagonal_sigma_um" in section:
-            sigma = math.sqrt(2.0) * float(section["indent_diagonal_sigma_um"])
-            sigma /= VICKERS_DEPTH_FACTOR
-        else:
-            sigma = 0.1 * depth
         source = "indent"
     else:
         raise InputError(
-            "Expected `depth_um` or both `indent_diagonal_before_um` and "
-            "`indent_diagonal_after_um`, got none of them.",
+            "Expected `depth_um` or `indent` with the diagonals before and after, got neither.",
             path=path,
             pointer=pointer,
         )
-    if not np.isfinite(sigma) or sigma < 0:
-        raise InputError(
-            f"Expected `depth_sigma_um` to be a finite number >= 0, got {sigma!r}.",
-            path=path,
-            pointer=f"{pointer}/depth_sigma_um",
-        )
+    if section.get("depth_sigma_um") is None:
+        sigma = 0.1 * depth
+    else:
+        sigma = number(section["depth_sigma_um"], "depth_sigma_um")
+        if sigma < 0:
+            raise InputError(
+                f"Expected `depth_sigma_um` to be a finite number >= 0, got {sigma!r}.",
+                path=path,
+                pointer=f"{pointer}/depth_sigma_um",
+            )
     return LayerDepth(depth_um=depth, depth_sigma_um=sigma, source=source)
 
 
 # --------------------------------------------------------------------------- cross-sections
+
+
+def _optional_float(value, default):
+    """A job number; null or absent gives ``default``, anything else not a number NaN."""
+    if value is None:
+        return float(default)
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return float("nan")
 
 
 def _cross_section_normals(alpha_img, trace, tilt, face, along, toward, descend_sign):
@@ -544,16 +566,17 @@ def measure_cross_section(
             f"{viewer_decl.tolist()} on the line itself.",
             "viewer_at_um",
         )
-    tilt_deg = float(section.get("imaging_tilt_deg", np.nan))
-    face_deg = float(section.get("face_inclination_deg", 90.0))
+    tilt_deg = _optional_float(section.get("imaging_tilt_deg"), np.nan)
+    face_deg = _optional_float(section.get("face_inclination_deg"), 90.0)
     if not (0.0 <= tilt_deg <= 90.0):
         fail(
             f"Expected `imaging_tilt_deg` in [0, 90], got {section.get('imaging_tilt_deg')!r}.",
             "imaging_tilt_deg",
         )
-    if not (0.0 < face_deg <= 90.0):
+    if not (0.0 < face_deg < 180.0):
         fail(
-            f"Expected `face_inclination_deg` in (0, 90], got {face_deg!r}.", "face_inclination_deg"
+            f"Expected `face_inclination_deg` in (0, 180), got {face_deg!r}.",
+            "face_inclination_deg",
         )
     if math.cos(math.radians(face_deg - tilt_deg)) <= 1e-6:
         fail(
@@ -561,7 +584,7 @@ def measure_cross_section(
             f"at {face_deg!r} deg.",
             "imaging_tilt_deg",
         )
-    tolerance = float(section.get("match_tolerance_um", 2.0 * step_um))
+    tolerance = _optional_float(section.get("match_tolerance_um"), 2.0 * step_um)
     if not (np.isfinite(tolerance) and tolerance > 0):
         fail(f"Expected `match_tolerance_um` > 0, got {tolerance!r}.", "match_tolerance_um")
 
@@ -573,14 +596,14 @@ def measure_cross_section(
     descend = np.empty(k)
     for i, entry in enumerate(entries):
         where = f"boundaries/{i}"
-        along[i] = float(entry.get("along_um", np.nan))
+        along[i] = _optional_float(entry.get("along_um"), np.nan)
         if not (0.0 <= along[i] <= length):
             fail(
                 f"Expected `along_um` within the section line (0 to {length:.6g} µm), got "
                 f"{entry.get('along_um')!r}.",
                 f"{where}/along_um",
             )
-        alpha[i] = float(entry.get("image_angle_deg", np.nan))
+        alpha[i] = _optional_float(entry.get("image_angle_deg"), np.nan)
         if not (0.0 <= alpha[i] <= 90.0):
             fail(
                 f"Expected `image_angle_deg` in [0, 90], got {entry.get('image_angle_deg')!r}.",
@@ -593,7 +616,7 @@ def measure_cross_section(
                 f"{where}/descends",
             )
         descend[i] = 1.0 if side == "right" else -1.0
-        alpha_sigma[i] = float(entry.get("angle_sigma_deg", 1.0))
+        alpha_sigma[i] = _optional_float(entry.get("angle_sigma_deg"), 1.0)
         if not (np.isfinite(alpha_sigma[i]) and alpha_sigma[i] >= 0):
             fail(
                 f"Expected `angle_sigma_deg` >= 0, got {entry.get('angle_sigma_deg')!r}.",

@@ -322,7 +322,7 @@ def test_empty_boundary_list_gives_empty_table():
         ({"viewer_at_um": [1, 2, 3]}, "/sections/0/viewer_at_um", "one point"),
         ({"imaging_tilt_deg": 120}, "/sections/0/imaging_tilt_deg", r"in \[0, 90\]"),
         ({"imaging_tilt_deg": 0}, "/sections/0/imaging_tilt_deg", "sees the face"),
-        ({"face_inclination_deg": 0}, "/sections/0/face_inclination_deg", r"in \(0, 90\]"),
+        ({"face_inclination_deg": 0}, "/sections/0/face_inclination_deg", r"in \(0, 180\)"),
         ({"match_tolerance_um": -1}, "/sections/0/match_tolerance_um", "> 0"),
         ({"along_um": 250.0}, "/sections/0/boundaries/0/along_um", "within the section line"),
         ({"image_angle_deg": 95.0}, "/sections/0/boundaries/0/image_angle_deg", r"\[0, 90\]"),
@@ -367,16 +367,15 @@ def test_cross_section_argument_errors():
 def test_section_depth_from_job_entries():
     d = section_depth({"depth_um": 2.0, "depth_sigma_um": 0.1})
     assert (d.depth_um, d.depth_sigma_um, d.source) == (2.0, 0.1, "given")
+    # A null σ (the job's default) is 10 % of the depth.
+    d = section_depth({"depth_um": 2.0, "depth_sigma_um": None})
+    assert_allclose(d.depth_sigma_um, 0.2, rtol=1e-12, atol=0)
     d = section_depth(
-        {
-            "indent_diagonal_before_um": 30.0,
-            "indent_diagonal_after_um": 23.0,
-            "indent_diagonal_sigma_um": 0.2,
-        }
+        {"indent": {"diagonal_before_um": 30.0, "diagonal_after_um": 23.0}, "depth_sigma_um": 0.05}
     )
-    assert d.source == "indent"
-    # σ_h = √2 σ_d / 7.0006 for two independent diagonals (first order).
-    assert_allclose(d.depth_sigma_um, math.sqrt(2) * 0.2 / 7.0006, rtol=1e-4, atol=0)
+    assert d.source == "indent" and d.depth_sigma_um == 0.05
+    # (30 − 23) / (2√2 tan 68°), Vickers geometry (ISO 6507-1), hand-computed.
+    assert_allclose(d.depth_um, 0.99991, rtol=0, atol=5e-6)
 
 
 @pytest.mark.parametrize(
@@ -385,11 +384,17 @@ def test_section_depth_from_job_entries():
         ({"depth_um": -1.0}, "/sections/1/depth_um", "> 0"),
         ({"depth_um": 1.0, "depth_sigma_um": -0.1}, "/sections/1/depth_sigma_um", ">= 0"),
         (
-            {"indent_diagonal_before_um": 20.0, "indent_diagonal_after_um": 21.0},
-            "/sections/1/indent_diagonal_after_um",
-            "smaller than",
+            {"indent": {"diagonal_before_um": 20.0, "diagonal_after_um": 21.0}},
+            "/sections/1/indent/diagonal_after_um",
+            "the indent shrinks",
         ),
-        ({}, "/sections/1", "none of them"),
+        (
+            {"indent": {"diagonal_before_um": 20.0}},
+            "/sections/1/indent/diagonal_after_um",
+            "finite number",
+        ),
+        ({"depth_um": "deep"}, "/sections/1/depth_um", "finite number"),
+        ({}, "/sections/1", "got neither"),
     ],
 )
 def test_bad_depths_raise_input_error(entry, pointer, match):
@@ -778,3 +783,43 @@ def test_stack_of_three_sections():
             laue_by_phase={1: "m-3m"},
             registrations=given[:1],
         )
+
+
+def test_null_job_defaults_are_the_documented_defaults():
+    sec, seg = _one_boundary_case(60.0)
+    plain = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    sec["match_tolerance_um"] = None
+    sec["face_inclination_deg"] = None
+    sec["boundaries"] = [{**sec["boundaries"][0], "angle_sigma_deg": None}]
+    nulls = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    for key in ("measured_dip_deg", "measured_dip_sigma_deg", "dip_direction_azimuth_deg"):
+        assert_allclose(nulls[key], plain[key], rtol=0, atol=0)
+
+
+def test_overhanging_face_recovers_the_plane():
+    # A face past vertical (φ = 110°) leans away from the viewer with depth.
+    gen = np.random.default_rng(21)
+    normals = _random_normals(gen, 4, 30, 70)
+    line = np.array([[20.0, 50.0], [180.0, 50.0]])
+    viewer = np.array([100.0, 70.0])
+    along = [20.0, 60.0, 100.0, 140.0]
+    entries = []
+    for n, s in zip(normals, along, strict=True):
+        alpha, side = _face_view(n, line, viewer, 90.0, 110.0)
+        entries.append({"along_um": s, "image_angle_deg": alpha, "descends": side})
+    section = {
+        "line_um": line.tolist(),
+        "viewer_at_um": viewer.tolist(),
+        "imaging_tilt_deg": 90.0,
+        "face_inclination_deg": 110.0,
+        "boundaries": entries,
+    }
+    out = measure_cross_section(
+        section,
+        _segments_for(normals, line, along),
+        axes=SAMPLE_AXES,
+        step_um=0.5,
+        bounds_um=BOUNDS,
+    )
+    got = np.stack([out["normal_x"], out["normal_y"], out["normal_z"]], -1)
+    assert_allclose(np.abs(np.sum(got * normals, axis=1)), 1.0, rtol=0, atol=1e-9)
