@@ -161,3 +161,14 @@ def test_json_nan_becomes_null(tmp_path):
         tmp_path / "x.json", {"a": float("nan"), "b": np.float32(1.5), "c": np.arange(2)}
     )
     assert json.loads(path.read_text()) == {"a": None, "b": 1.5, "c": [0, 1]}
+
+
+def test_atomic_files_get_ordinary_permissions(tmp_path):
+    import os
+    import stat
+
+    path = write_json_atomic(tmp_path / "x.json", {"a": 1})
+    mode = stat.S_IMODE(os.stat(path).st_mode)
+    current = os.umask(0)
+    os.umask(current)
+    assert mode == 0o666 & ~current

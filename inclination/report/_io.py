@@ -20,6 +20,12 @@ from ..errors import InputError
 __all__ = ["write_text_atomic", "write_bytes_atomic", "write_json_atomic", "staged_output_dir"]
 
 
+def _umask() -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return current
+
+
 def write_bytes_atomic(path, data: bytes) -> Path:
     """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
@@ -27,6 +33,8 @@ def write_bytes_atomic(path, data: bytes) -> Path:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        # mkstemp makes the file private (0600); results are ordinary data files.
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):

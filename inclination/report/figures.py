@@ -16,8 +16,8 @@ __all__ = ["IDENTIFICATION_COLOURS", "plot_boundaries", "save_figure"]
 # classes; the grains underneath are grey so the segment colours carry the message.
 IDENTIFICATION_COLOURS = {
     "coherent_twin": "#D55E00",
-    "identified": "#0072B2",
-    "ambiguous": "#E69F00",
+    "identified": "#009E73",
+    "ambiguous": "#56B4E9",
     "none": "#000000",
 }
 _LABELS = {
