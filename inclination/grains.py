@@ -620,7 +620,7 @@ def _nearest_equivalents(qs, refs, g, grain_info):
     """Equivalents ``s ⊗ q`` nearest each point's reference, as (n, 4), signed toward it."""
     out = np.empty((qs.shape[1], 4))
     for info, sel in _by_phase(g, grain_info):
-        ops = symmetry.proper_rotations(info.laue, setting=info.setting)
+        ops = grain_info["ops"][info.code]
         q = qs[:, sel].T
         cand = quat_multiply(ops[None, :, :], q[:, None, :])  # (n, K, 4)
         dots = np.einsum("nkc,nc->nk", cand, refs[sel])
@@ -896,7 +896,9 @@ def _grain_table(
         sum_y += np.bincount(filled_g, weights=fy, minlength=m)
     edge = (i == 0) | (i == h - 1) | (j0 == 0) | (j0 + run_len - 1 == w - 1)
     touches = np.bincount(run_grain, weights=edge, minlength=m) > 0
-    grain_info = {"code": grain_code, "infos": infos}
+    # The proper rotations of each phase, built once per call (not cached across calls).
+    ops = {p.code: symmetry.proper_rotations(p.laue, setting=p.setting) for p in infos}
+    grain_info = {"code": grain_code, "infos": infos, "ops": ops}
     mean, spread_sum, spread_max = _grain_orientations(
         q,
         w,

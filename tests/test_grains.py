@@ -357,3 +357,24 @@ def test_block_boundaries_change_nothing(monkeypatch):
     assert_array_equal(pieces.labels, sk_label(region + 1, connectivity=1, background=0))
     for name in GRAIN_COLUMNS:
         assert_allclose(pieces.grains[name], whole.grains[name], rtol=1e-6, atol=1e-6)
+
+
+def test_small_grain_with_no_neighbour_of_its_phase_is_unindexed_when_merging():
+    # Merging never joins phases: a 2-point grain of phase 2 inside phase 1 has nowhere to go.
+    regions = np.zeros((5, 5), int)
+    phase = np.ones((5, 5), int)
+    phase[2, 2:4] = 2
+    gm = segment_grains(
+        region_map(regions, [IDENTITY], phase=phase), [CUBIC, HEXAGONAL], min_pixels=3
+    )
+    assert gm.n_grains == 1
+    assert gm.labels[2, 2] == 0 and gm.labels[2, 3] == 0
+    assert gm.cleanup["grains_dissolved"] == 1 and gm.cleanup["points_unindexed"] == 2
+
+
+def test_touches_edge_is_false_for_an_inner_grain():
+    regions = np.zeros((6, 6), int)
+    regions[2:4, 2:4] = 1
+    gm = segment_grains(region_map(regions, [IDENTITY, Z45]), [CUBIC], min_pixels=1)
+    assert gm.grains["touches_edge"].tolist() == [True, False]
+    assert_allclose(gm.grains["centroid_x_um"][1], 2.5, rtol=0, atol=1e-12)

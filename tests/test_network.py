@@ -271,3 +271,15 @@ def test_bad_inputs_raise():
     other = segment_grains(region_map(np.zeros((2, 2), int), [IDENTITY]), [CUBIC])
     with pytest.raises(ValueError, match="Expected `grain_map.labels` to have the map's shape"):
         boundary_network(omap, other, [CUBIC])
+
+
+def test_low_angle_network_on_a_hexagonal_grid():
+    regions = np.zeros((6, 8), int)
+    regions[:, 4:] = 1
+    tilt = quat_from_axis_angle_deg([0, 0, 1], 3.0)
+    _, gm, net = network_of(regions, [IDENTITY, tilt], low_angle_deg=2.0, grid="hexagonal")
+    assert gm.n_grains == 1 and net.n_chains == 0
+    low = net.low_angle
+    # Same edges as the hexagonal bicrystal: 6 east pairs and 5 diagonals (hand count).
+    assert low.n_chains == 1 and low.n_edges.tolist() == [11]
+    assert_allclose(low.misorientation_deg, [3.0], rtol=0, atol=2e-2)
