@@ -27,6 +27,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.sparse.csgraph import connected_components
 
 from ._validation import as_float_array, check_finite, check_positive
 from .errors import InputError
@@ -418,6 +419,36 @@ def section_depth(section: Mapping, *, path=None, pointer: str = "") -> LayerDep
 # --------------------------------------------------------------------------- cross-sections
 
 
+def _assign_in_order(hit, along, s_cross):
+    """Entry → segment assignment from the hit matrix (K, N), or none where it is not unique.
+
+    Entries and segments that hit each other form clusters. A cluster of one entry and
+    one segment is a match. A cluster of k entries and k segments is matched in order
+    along the line when that pairing uses only hits: boundaries cross the surface line
+    in one order, and the face shows them in that order at its top edge. Any other
+    cluster (an entry near two traces, two entries on one trace) stays unassigned.
+    """
+    k, n = hit.shape
+    first = np.zeros(k, dtype=np.int64)
+    matched = np.zeros(k, dtype=bool)
+    if k == 0 or n == 0:
+        return first, matched
+    graph = np.zeros((k + n, k + n), dtype=bool)
+    graph[:k, k:] = hit
+    _, comp = connected_components(graph | graph.T, directed=False)
+    for c in np.unique(comp[:k]):
+        entries = np.flatnonzero(comp[:k] == c)
+        segs = np.flatnonzero(comp[k:] == c)
+        if len(segs) == 0 or len(entries) != len(segs):
+            continue
+        e_sorted = entries[np.argsort(along[entries], kind="stable")]
+        s_sorted = segs[np.argsort(s_cross[segs], kind="stable")]
+        if np.all(hit[e_sorted, s_sorted]):
+            first[e_sorted] = s_sorted
+            matched[e_sorted] = True
+    return first, matched
+
+
 def _optional_float(value, default):
     """A job number; null or absent gives ``default``, anything else not a number NaN."""
     if value is None:
@@ -457,9 +488,12 @@ def measure_cross_section(
 
     Each listed boundary is matched to the fitted surface segment that crosses the
     section line within the match tolerance of its ``along_um``; an entry with no such
-    segment is ``unmatched``, one with several (or sharing its segment with another
-    entry) is ``ambiguous`` — neither is guessed. For a matched entry the image angle
-    is corrected for the imaging tilt, the line on the face is
+    segment is ``unmatched``. Where entries and traces crowd together (near a triple
+    junction), k entries hitting the same k traces are paired in their order along
+    the line (the order the face shows at its top edge); any other crowd — an entry
+    near two traces, two entries on one trace — is ``ambiguous``, never guessed.
+    For a matched entry the image angle is corrected for the imaging tilt, the line
+    on the face is
     ``l = cos α · s_h + sin α · w`` (``s_h`` along the section line pointed the way the
     boundary descends, ``w`` down the face) and the normal is ``n ∝ t × l`` with t the
     fitted trace. Uncertainties are first order (one-sided finite differences) in
@@ -651,12 +685,7 @@ def measure_cross_section(
     )
     hit = crosses[None, :] & (np.abs(s_cross[None, :] - along[:, None]) <= tolerance)
     n_hits = hit.sum(axis=1)
-    first = np.argmax(hit, axis=1)
-    single = n_hits == 1
-    # A segment claimed by two entries cannot be both boundaries.
-    claimed = np.bincount(first[single], minlength=len(seg_id)) if len(seg_id) else np.zeros(0)
-    shared = single & (claimed[first] > 1) if len(seg_id) else single
-    matched = single & ~shared
+    first, matched = _assign_in_order(hit, along, s_cross)
 
     status = np.where(n_hits == 0, "unmatched", "ambiguous").astype(object)
     candidates = np.array([";".join(str(int(s)) for s in seg_id[row]) for row in hit], object)

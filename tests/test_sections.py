@@ -241,7 +241,7 @@ def test_first_order_sigma_matches_monte_carlo(beta_deg):
     )
     gen = np.random.default_rng(3)
     dips = []
-    for _ in range(400):
+    for _ in range(200):
         noisy = dict(sec)
         entry = dict(sec["boundaries"][0])
         entry["image_angle_deg"] = entry["image_angle_deg"] + gen.normal(0, 1.0)
@@ -290,6 +290,28 @@ def test_unmatched_and_ambiguous_entries_are_reported_not_guessed():
     sec["match_tolerance_um"] = 1.0
     out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
     assert out["status"].tolist() == ["unmatched"]
+
+
+def test_crowded_entries_are_paired_in_their_order_along_the_line():
+    gen = np.random.default_rng(6)
+    normals = _random_normals(gen, 2, 40, 70)
+    line = np.array([[0.0, 50.0], [200.0, 50.0]])
+    seg = _segments_for(normals, line, [80.0, 80.7])
+    entries = []
+    for n, s in zip(normals, (80.1, 80.8), strict=True):
+        alpha, side = _face_view(n, line, np.array([100.0, 80.0]), 52.0, 90.0)
+        entries.append({"along_um": s, "image_angle_deg": alpha, "descends": side})
+    sec = {
+        "line_um": line.tolist(),
+        "viewer_at_um": [100.0, 80.0],
+        "imaging_tilt_deg": 52.0,
+        "boundaries": entries,
+    }
+    out = measure_cross_section(sec, seg, axes=SAMPLE_AXES, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["measured", "measured"]
+    assert out["segment_id"].tolist() == [0, 1]
+    truth = [_plane_geometry(n)[0] for n in normals]
+    assert_allclose(out["measured_dip_deg"], truth, rtol=0, atol=1e-6)
 
 
 def test_descending_side_sets_the_dip_direction():
