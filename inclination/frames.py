@@ -211,8 +211,9 @@ class DeclaredAxes:
         """
         xy = as_float_array(xy_sample_um, "xy_sample_um")
         check_last_axis(xy, "xy_sample_um", 2)
-        a = self.matrix_to_sample[:2, :2]
-        return xy @ a + np.asarray(self.origin_um)
+        out = _signed_permutation(self.matrix_to_sample[:2, :2].T, xy)
+        out += np.asarray(self.origin_um)
+        return out
 
     def points_to_sample(self, xy_declared_um) -> np.ndarray:
         """Declared coordinates (µm, shape (..., 2)) to positions in S; inverse of the above.
@@ -225,8 +226,7 @@ class DeclaredAxes:
         """
         xy = as_float_array(xy_declared_um, "xy_declared_um")
         check_last_axis(xy, "xy_declared_um", 2)
-        a = self.matrix_to_sample[:2, :2]
-        return (xy - np.asarray(self.origin_um)) @ a.T
+        return _signed_permutation(self.matrix_to_sample[:2, :2], xy - np.asarray(self.origin_um))
 
     def vectors_to_declared(self, v_sample) -> np.ndarray:
         """Vectors (e.g. plane normals) in S, shape (..., 3), to declared components.
@@ -251,6 +251,15 @@ class DeclaredAxes:
         v = as_float_array(v_declared, "v_declared")
         check_last_axis(v, "v_declared", 3)
         return v @ self.matrix_to_sample.T
+
+
+def _signed_permutation(a: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """``v @ a.T`` for a 2×2 signed permutation ``a``: exact, and no matmul on (N, 2) rows."""
+    out = np.empty(v.shape, dtype=np.float64)
+    for r in range(2):
+        c = int(np.flatnonzero(a[r])[0])
+        np.multiply(v[..., c], a[r, c], out=out[..., r])
+    return out + 0.0
 
 
 def _wrap(angle_deg: np.ndarray, period: float) -> np.ndarray:

@@ -19,6 +19,7 @@ import io
 import os
 import tempfile
 from collections.abc import Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
@@ -61,6 +62,8 @@ _IDENTITY = (1.0, 0.0, 0.0, 0.0)
 _SQRT3_2 = np.sqrt(3.0) / 2.0
 # Above this many indexed points a table whose angles never exceed 2π cannot be in degrees.
 _UNIT_CHECK_MIN_POINTS = 100
+# Points converted per block (float64 temporaries of a block stay near 10 MB).
+_BLOCK = 1 << 18
 
 
 def _read_only(arr: np.ndarray) -> np.ndarray:
@@ -241,7 +244,7 @@ class OrientationMap:
         axes = DeclaredAxes() if axes is None else axes
         dfr = _as_dfr_quat(data_frame_rotation)
         valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
-        quat = _quat_planes_sample(e, valid, axes, dfr)
+        quat, _ = _quat_planes_sample(e, valid, axes, dfr)
         return cls(
             quat,
             np.where(valid, ph, 0).astype(np.int32),
@@ -318,14 +321,33 @@ def _as_dfr_quat(spec) -> np.ndarray:
     return q / np.linalg.norm(q)
 
 
-def _quat_planes_sample(euler_deg, valid, axes, dfr) -> np.ndarray:
-    """(4, H, W) float32 quaternions in S from data-frame Euler angles (identity if invalid)."""
+def _quat_planes_sample(euler, valid, axes, dfr, *, radians=False):
+    """(4, H, W) float32 quaternions in S from data-frame Euler angles (identity if invalid).
+
+    Also returns the largest |angle| over the valid points, in the file's unit,
+    for the unit check. Works in blocks of points on two threads: numpy's
+    trigonometry releases the GIL, and blocks keep the float64 temporaries small.
+    """
     h, w = valid.shape
-    quat = np.zeros((4, h, w), dtype=np.float32)
+    quat = np.zeros((4, h * w), dtype=np.float32)
     quat[0] = 1.0
-    q = orientations_to_sample(quat_from_euler_deg(euler_deg[valid]), axes, dfr)
-    quat[:, valid] = q.T.astype(np.float32)
-    return quat
+    flat_e = euler.reshape(-1, 3)
+    index = np.flatnonzero(valid.ravel())
+    blocks = [index[k : k + _BLOCK] for k in range(0, index.size, _BLOCK)]
+
+    def convert(block):
+        e = flat_e[block]
+        largest = float(np.max(np.abs(e))) if e.size else 0.0
+        q = quat_from_euler_deg(np.rad2deg(e) if radians else e)
+        quat[:, block] = orientations_to_sample(q, axes, dfr).T
+        return largest
+
+    if len(blocks) > 1:
+        with ThreadPoolExecutor(max_workers=2) as pool:
+            largest = max(pool.map(convert, blocks))
+    else:
+        largest = max([convert(b) for b in blocks], default=0.0)
+    return quat.reshape(4, h, w), largest
 
 
 # ----------------------------------------------------------------------------- reading
@@ -339,12 +361,8 @@ def _sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
-def _check_units(euler, valid, angles, path):
+def _check_units(largest, n_valid, angles, path):
     """Refuse angles whose size contradicts the declared unit (conventions §3)."""
-    n = int(np.count_nonzero(valid))
-    if n == 0:
-        return
-    largest = float(np.max(np.abs(euler[valid])))
     limit = 2.0 * np.pi * 1.001
     if angles == "rad" and largest > limit:
         raise InputError(
@@ -352,9 +370,9 @@ def _check_units(euler, valid, angles, path):
             'if the file holds degrees, declare "angles": "deg".',
             path=path,
         )
-    if angles == "deg" and n > _UNIT_CHECK_MIN_POINTS and largest < limit:
+    if angles == "deg" and n_valid > _UNIT_CHECK_MIN_POINTS and largest < limit:
         raise InputError(
-            f"Expected angles in degrees as declared, got {n} indexed points whose angles "
+            f"Expected angles in degrees as declared, got {n_valid} indexed points whose angles "
             f"never exceed {largest:.4g} (below 2π): they look like radians; if so, "
             'declare "angles": "rad".',
             path=path,
@@ -555,7 +573,7 @@ def read_map(
     reader = omap_args.pop("provenance_reader")
     provenance = {
         "source_path": str(path.resolve()),
-        "sha256": _sha256(path),
+        "sha256": omap_args.pop("sha256", None) or _sha256(path),
         "reader": reader,
         "settings": settings,
     }
@@ -570,9 +588,8 @@ def _finish(euler, phase, quality, angles, axes, dfr, path):
             "Expected at least one indexed point (phase id > 0 and finite angles), got none.",
             path=path,
         )
-    _check_units(euler, valid, angles, path)
-    euler_deg = np.rad2deg(euler) if angles == "rad" else euler
-    quat = _quat_planes_sample(euler_deg, valid, axes, dfr)
+    quat, largest = _quat_planes_sample(euler, valid, axes, dfr, radians=angles == "rad")
+    _check_units(largest, int(np.count_nonzero(valid)), angles, path)
     return dict(
         quat=quat,
         phase=np.where(valid, phase, 0).astype(np.int32),
@@ -657,25 +674,19 @@ def _read_table_map(
     def line_of(k):
         return f"line {table.line_of(k)}"
 
-    xy_declared = v[:, [index["x_um"], index["y_um"]]]
-    bad = np.flatnonzero(~np.all(np.isfinite(xy_declared), axis=1))
-    if bad.size:
-        k = int(bad[0])
+    x_declared, y_declared = v[:, index["x_um"]], v[:, index["y_um"]]
+    finite = np.isfinite(x_declared) & np.isfinite(y_declared)
+    if not finite.all():
+        k = int(np.flatnonzero(~finite)[0])
         raise InputError(
-            f"Expected finite coordinates on every row, got x = {xy_declared[k, 0]}, "
-            f"y = {xy_declared[k, 1]}.",
+            f"Expected finite coordinates on every row, got x = {x_declared[k]}, "
+            f"y = {y_declared[k]}.",
             path=path,
             pointer=line_of(k),
         )
-    xy_s = DeclaredAxes(axes.x, axes.y).points_to_sample(xy_declared)
+    x_s, y_s = _columns_to_sample(x_declared, y_declared, axes)
     placement = place_on_grid(
-        xy_s[:, 0],
-        xy_s[:, 1],
-        step_x_um=step_x,
-        step_y_um=step_y,
-        grid=grid,
-        path=path,
-        line_of=table.line_of,
+        x_s, y_s, step_x_um=step_x, step_y_um=step_y, grid=grid, path=path, line_of=table.line_of
     )
     euler_rows = v[:, [index["phi1"], index["Phi"], index["phi2"]]]
     if "phase" in index:
@@ -714,6 +725,7 @@ def _read_table_map(
         step_y_um=placement.step_y_um,
         axes=axes.with_origin(origin_declared + 0.0),
         provenance_reader="text table",
+        sha256=table.sha256,
         settings={
             "delimiter": delimiter,
             "columns": names,
@@ -722,6 +734,21 @@ def _read_table_map(
         },
     )
     return args
+
+
+def _columns_to_sample(x_declared, y_declared, axes):
+    """Declared coordinate columns (origin 0) to X_S and Y_S columns (conventions §2).
+
+    The in-plane part of the declared axes is a signed permutation, so each S
+    column is one declared column, negated or not: views where no sign flips.
+    """
+    a = axes.matrix_to_sample[:2, :2]
+    cols = (x_declared, y_declared)
+    out = []
+    for r in range(2):
+        c = int(np.flatnonzero(a[r])[0])
+        out.append(cols[c] if a[r, c] > 0 else -cols[c])
+    return out[0], out[1]
 
 
 def read_map_file(path, *, format: str, angles: str, axes=None, **options) -> OrientationMap:

@@ -798,3 +798,17 @@ def test_quat_storage_precision_bound():
     d = quat_multiply(quat_inverse(q), q32)
     angle = np.degrees(2 * np.arcsin(np.clip(np.linalg.norm(d[:, 1:], axis=1), 0, 1)))
     assert angle.max() < 1e-5
+
+
+def test_blank_lines_keep_line_numbers(tmp_path):
+    text = HEADER + "\n0,0,1,2,3,1\n\n1,0,1,2,3,1\n\n5.5,0,1,2,3,1\n\n"
+    path = write_text(tmp_path / "b.csv", text)
+    table = read_table(path, delimiter=",")
+    assert [table.line_of(k) for k in range(3)] == [2, 4, 6]
+    with pytest.raises(InputError, match=r"line 6: Expected x on the grid"):
+        read_map(spec_for(path))
+
+
+def test_empty_cells_at_line_start_and_quoted_numbers(tmp_path):
+    path = write_text(tmp_path / "q.csv", "a,b,c\n,\"2\",3\n4,5,\n")
+    assert_array_equal(np.isnan(read_table(path, delimiter=",").values), [[1, 0, 0], [0, 0, 1]])
