@@ -19,7 +19,13 @@ from inclination.grains import segment_grains
 from inclination.lattice import Lattice, Phase
 from inclination.network import boundary_network
 from inclination.planes import identify
-from inclination.sections import measure_cross_section, measure_serial_section, register_sections
+from inclination.sections import (
+    Registration,
+    measure_cross_section,
+    measure_serial_section,
+    measure_stack,
+    register_sections,
+)
 from inclination.traces import fit_segments
 
 STEP_UM = 0.5
@@ -267,3 +273,38 @@ def test_serial_section_dips_registered_on_the_grains(serial_run):
     # The registration's share of σ keeps the reported σ honest.
     z = dip_err[ok] / result.boundaries["measured_dip_sigma_deg"][ok]
     assert np.sqrt(np.mean(z**2)) < 1.6
+
+
+def test_stack_of_three_sections_fits_each_plane():
+    micro = synthetic.make_microstructure(
+        box_um=(120.0, 100.0, 30.0), n_grains=50, rng=4, phases=[CU], twins=12
+    )
+    depths = (0.0, 2.5, 5.0)
+    chains = [
+        _chain(synthetic.sample_map(micro, step_um=STEP_UM, rng=40 + i, noise_deg=0.5, depth_um=h))
+        for i, h in enumerate(depths)
+    ]
+    surface = synthetic.sample_map(micro, step_um=STEP_UM, rng=40, noise_deg=0.5)
+    grains, segments, _ = chains[0]
+    # The sections are known to lie one above the other (as with fiducials).
+    placed = Registration(0.0, 0.0, 0.0, 0.0, 1, "given")
+    out = measure_stack(
+        segments,
+        grains,
+        [(c[1], c[0]) for c in chains[1:]],
+        depths_um=depths[1:],
+        step_um=STEP_UM,
+        laue_by_phase={1: CU},
+        registrations=[placed, placed],
+    )
+    region_of, purity = _region_of(grains.labels, surface.grain_id, micro.n_regions)
+    ra, rb = region_of[segments["grain_a"]], region_of[segments["grain_b"]]
+    truth = synthetic.boundary_normals_sample(micro, ra, rb)
+    pure = (purity[segments["grain_a"]] > 0.95) & (purity[segments["grain_b"]] > 0.95)
+    ok = (out["n_sections"] == 3) & pure & np.all(np.isfinite(truth), axis=1)
+    assert ok.sum() >= 40
+    normal = np.stack([out["normal_x"], out["normal_y"], out["normal_z"]], -1)
+    err = np.degrees(np.arccos(np.clip(np.abs(np.sum(normal * truth, 1)), 0.0, 1.0)))
+    # Measured 2026-12: 0.15° median, 0.5° at the 90th percentile; residual 0.013 µm.
+    assert np.median(err[ok]) < 2.0
+    assert np.median(out["fit_residual_um"][ok]) < STEP_UM / 2
