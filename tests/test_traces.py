@@ -679,3 +679,20 @@ def test_sigma_model_bad_input_raises():
         trace_sigma_model_deg("long", 1.0, 0.0, 10)
     with pytest.raises(TypeError, match="Expected `angle_deg` to be an array of numbers"):
         trace_sigma_model_deg(10.0, 1.0, 0.0, 10, angle_deg={"a": 1})
+
+
+def test_group_collinear_does_not_depend_on_row_order():
+    # Invariant: the grouping is a partition of the segments, whatever their order.
+    rng = np.random.default_rng(4)
+    chains, pairs = [], []
+    for k in range(30):
+        angle = rng.choice([20.0, 75.0, 140.0])
+        chains.append(digital_line(angle, (rng.integers(0, 3) * 7.0, 0.0), 25.0))
+        pairs.append((1, 2 + k % 2))
+    seg = fit_segments(network(chains, pairs=pairs), step_um=1.0)
+    labels = group_collinear(seg, max_offset_um=1.5)
+    perm = rng.permutation(len(labels))
+    shuffled = group_collinear({k: v[perm] for k, v in seg.items()}, max_offset_um=1.5)
+    same = labels[:, None] == labels[None, :]
+    assert_array_equal(shuffled[:, None] == shuffled[None, :], same[np.ix_(perm, perm)])
+    assert 1 < labels.max() + 1 < len(labels)
