@@ -302,14 +302,14 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     -------
     Analysis
     """
-    from .compare import best_measurements
-    from .planes import candidates, identify, twin_test_summary
-
     stage_i = _stage_index(stage)
     omap = job.read_surface_map()
     grain_map, network, segments = _grains_and_segments(omap, job, stage_i, progress, "surface")
     if stage_i < 2:
         return Analysis(job, omap, grain_map, stage, network=network, segments=segments)
+    # Imported here: a grains- or traces-only run should not pay for scipy.stats at start-up.
+    from .planes import candidates, identify, twin_test_summary
+
     p = job.planes
     options = {
         "k": p["k"],
@@ -333,6 +333,8 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     )
     if stage_i < 3 or not job.sections:
         return analysis
+    from .compare import best_measurements
+
     tables, notes = _sections(job, omap, grain_map, segments, progress)
     measured = best_measurements(*tables)
     measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)

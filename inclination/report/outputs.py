@@ -390,8 +390,10 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
             )
         )
     figure_png = None
-    if analysis.segments is not None:
-        paths, figure_png = _figure(analysis, out_dir, boundaries or {})
+    # The figure belongs to the planes stage: it colours segments by identification class,
+    # and drawing a 16-million-point map would dominate a traces-only run.
+    if boundaries is not None:
+        paths, figure_png = _figure(analysis, out_dir, boundaries)
         files += paths
     summary = _summary(analysis, summary_base, boundaries)
     files.append(write_json_atomic(out_dir / "summary.json", summary))
