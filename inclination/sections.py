@@ -27,6 +27,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.ndimage import uniform_filter
 from scipy.sparse.csgraph import connected_components
 
 from ._validation import as_float_array, check_finite, check_positive
@@ -819,14 +820,6 @@ def _grain_table(grains):
     return grains.grains
 
 
-def _boundary_image(labels):
-    """Float image, 1 on pixels whose right or lower neighbour lies in another grain."""
-    img = np.zeros(labels.shape)
-    img[:, :-1] += labels[:, :-1] != labels[:, 1:]
-    img[:-1, :] += labels[:-1, :] != labels[1:, :]
-    return np.minimum(img, 1.0)
-
-
 def _shift_labels(labels, shift_px, shape):
     """Deeper labels placed on the surface grid (nearest pixel); 0 where not covered."""
     di, dj = int(round(shift_px[0])), int(round(shift_px[1]))
@@ -987,6 +980,21 @@ def _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains):
     return np.concatenate(votes), np.concatenate(weights)
 
 
+def _densest_vote(votes, weights, radius):
+    """Centre of the heaviest disc of votes, from a weighted histogram (memory O(area))."""
+    cell = radius / 2.0
+    lo = votes.min(axis=0)
+    idx = np.floor((votes - lo) / cell).astype(np.int64)
+    hist = np.zeros(tuple(idx.max(axis=0) + 1))
+    np.add.at(hist, (idx[:, 0], idx[:, 1]), weights)
+    # A 5 × 5 block of half-radius cells covers about one disc of the vote radius.
+    support = uniform_filter(hist, size=5, mode="constant")
+    best = np.array(np.unravel_index(int(np.argmax(support)), support.shape))
+    centre = lo + (best + 0.5) * cell
+    near = np.sum((votes - centre) ** 2, axis=1) <= radius**2
+    return np.average(votes[near], axis=0, weights=weights[near]) if near.any() else centre
+
+
 def _agreement(s_labels, placed_mapped, di, dj):
     """Fraction of the common area where the shifted, relabelled deeper map agrees."""
     shifted = _shift_labels(placed_mapped, (di, dj), s_labels.shape)
@@ -1082,9 +1090,7 @@ def register_sections(
     votes, weights = _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains)
     if len(votes) == 0:
         return Registration(0.0, 0.0, 0.0, float("nan"), 0, "none")
-    dist2 = np.sum((votes[:, None, :] - votes[None, :, :]) ** 2, axis=-1)
-    support = (dist2 <= radius**2) @ weights
-    centre = votes[int(np.argmax(support))]
+    centre = _densest_vote(votes, weights, radius)
     near = np.sum((votes - centre) ** 2, axis=1) <= radius**2
     coarse = np.median(votes[near], axis=0)
 
