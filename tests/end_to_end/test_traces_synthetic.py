@@ -19,6 +19,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
+from inclination import grains, network
 from inclination.lattice import Lattice, Phase
 from inclination.synthetic import (
     as_orientation_map,
@@ -28,9 +29,6 @@ from inclination.synthetic import (
     sample_map,
 )
 from inclination.traces import fit_segments, group_collinear
-
-grains = pytest.importorskip("inclination.grains")
-network = pytest.importorskip("inclination.network")
 
 STEP_UM = 0.5
 LONG_STEPS = 20
