@@ -291,9 +291,10 @@ def max_scalar_part(dq, laue: str, *, setting: str = "x_parallel_a", out=None) -
 
     This is cos(θ/2) of the disorientation angle θ of the misorientation ``dq``
     (one-sided symmetry suffices for the angle: s_i ⊗ dq ⊗ s_j has the angle of
-    s_j ⊗ s_i ⊗ dq). m-3m, m-3 and 6/mmm use closed forms; the other classes sum
-    over the non-zero components of their K rotations. Work proceeds in blocks of 65 536 rows,
-    so memory stays a few MB whatever N is.
+    s_j ⊗ s_i ⊗ dq). m-3m, m-3 and 6/mmm use closed forms; the other classes
+    sum over the non-zero components of their K rotations. Work proceeds in
+    blocks of 65 536 rows, so memory stays a few MB whatever N is, and no
+    (N × K × 4) array is ever formed.
 
     Parameters
     ----------
@@ -389,7 +390,9 @@ def misorientation_quat(qa, qb) -> np.ndarray:
     [0.965926, 0.0, 0.0, 0.258819]
     """
     qa = as_float_array(qa, "qa")
+    qb = as_float_array(qb, "qb")
     check_last_axis(qa, "qa", 4)
+    check_last_axis(qb, "qb", 4)
     return quat_multiply(qb, qa * np.array([1.0, -1.0, -1.0, -1.0]))
 
 

@@ -481,3 +481,8 @@ def test_reduced_axis_survives_exchange_and_symmetry_on_random_pairs(laue, setti
     assert_allclose(exchanged.axis_crystal, d.axis_crystal, rtol=0, atol=1e-12)
     assert_allclose(moved.axis_crystal, d.axis_crystal, rtol=0, atol=1e-12)
     assert_allclose(moved.quat, d.quat, rtol=0, atol=1e-12)
+
+
+def test_misorientation_errors_name_the_argument():
+    with pytest.raises(ValueError, match=r"Expected `qb` to have shape \(\.\.\., 4\), got \(3,\)"):
+        misorientation_quat([1.0, 0.0, 0.0, 0.0], [1.0, 0.0, 0.0])
