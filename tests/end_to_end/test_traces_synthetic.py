@@ -221,8 +221,9 @@ def test_grain_inside_a_grain_gives_its_four_sides(grid):
         phase=np.ones((60, 60), int),
         valid=np.ones((60, 60), bool),
         grid=grid,
+        # As OrientationMap holds them: on a hexagonal grid both steps are the spacing.
         step_x_um=STEP_UM,
-        step_y_um=pitch,
+        step_y_um=STEP_UM,
     )
     grain_map = grains.segment_grains(omap, [CU])
     net = network.boundary_network(omap, grain_map, [CU])
