@@ -809,7 +809,13 @@ class Registration:
         return self.residual_um / math.sqrt(max(self.n_points, 1))
 
     def apply(self, xy_um) -> np.ndarray:
-        """Deeper-map positions (..., 2) to surface-map positions, µm."""
+        """Deeper-map positions (..., 2) to surface-map positions, µm.
+
+        Examples
+        --------
+        >>> Registration(2.0, -1.0, 90.0, 0.0, 0, "given").apply([1.0, 0.0]).round(6).tolist()
+        [2.0, 0.0]
+        """
         xy = np.asarray(xy_um, dtype=float)
         c, s = math.cos(math.radians(self.rotation_deg)), math.sin(math.radians(self.rotation_deg))
         rot = np.array([[c, -s], [s, c]])
@@ -881,6 +887,22 @@ def match_grains(
     -------
     dict of 1-D arrays
         ``surface_grain, deeper_grain, disorientation_deg, overlap_fraction``.
+
+    Examples
+    --------
+    >>> from inclination.grains import GrainMap
+    >>> def grains(edge):  # grain 1 left of column `edge`, grain 2 right of it, 1 µm step
+    ...     labels = np.repeat(np.where(np.arange(20) < edge, 1, 2)[None, :], 20, 0)
+    ...     table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...              "quat": np.array([[1.0, 0, 0, 0], [0.939693, 0, 0, 0.34202]]),
+    ...              "area_px": np.array([20 * edge, 20 * (20 - edge)]),
+    ...              "centroid_x_um": np.array([(edge - 1) / 2, (edge + 19) / 2]),
+    ...              "centroid_y_um": np.array([9.5, 9.5]), "touches_edge": np.array([1, 1])}
+    ...     return GrainMap(labels.astype(np.int32), table, {}, 5.0, 4)
+    >>> pairs = match_grains(grains(10), grains(12), Registration(0, 0, 0, 0, 0, "given"),
+    ...                      step_um=1.0, laue_by_phase={1: "m-3m"})
+    >>> pairs["surface_grain"].tolist(), pairs["overlap_fraction"].round(3).tolist()
+    ([1, 2], [0.833, 1.0])
     """
     check_positive(step_um, "step_um")
     check_positive(threshold_deg, "threshold_deg")
@@ -1071,6 +1093,24 @@ def register_sections(
     Registration
         ``method`` is ``"fiducials"``, ``"grain structure"``, or ``"none"`` (no grain
         found on both maps: zero shift, NaN residual).
+
+    Examples
+    --------
+    >>> from inclination.grains import GrainMap
+    >>> def grains(edge):  # grain 1 left of column `edge`, grain 2 right of it, 1 µm step
+    ...     labels = np.repeat(np.where(np.arange(20) < edge, 1, 2)[None, :], 20, 0)
+    ...     table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...              "quat": np.array([[1.0, 0, 0, 0], [0.939693, 0, 0, 0.34202]]),
+    ...              "area_px": np.array([20 * edge, 20 * (20 - edge)]),
+    ...              "centroid_x_um": np.array([(edge - 1) / 2, (edge + 19) / 2]),
+    ...              "centroid_y_um": np.array([9.5, 9.5]), "touches_edge": np.array([1, 1])}
+    ...     return GrainMap(labels.astype(np.int32), table, {}, 5.0, 4)
+    >>> surface = grains(10)
+    >>> marks = [[[12.0, 5.0], [10.0, 5.0]], [[32.0, 9.0], [30.0, 9.0]]]  # surface, deeper
+    >>> reg = register_sections(surface, surface, step_um=1.0, laue_by_phase={1: "m-3m"},
+    ...                         fiducials_um=marks)
+    >>> reg.method, round(reg.shift_x_um, 6), round(reg.shift_y_um, 6), reg.residual_um
+    ('fiducials', 2.0, 0.0, 0.0)
     """
     check_positive(step_um, "step_um")
     if fiducials_um is not None:
@@ -1391,6 +1431,33 @@ def measure_serial_section(
     -----
     UserWarning
         When a matched boundary's dip σ exceeds ``max_sigma_deg`` (layer too thin).
+
+    Examples
+    --------
+    A boundary that moves 2 µm toward +X when 2 µm are removed dips 45° toward +X:
+
+    >>> from inclination.grains import GrainMap
+    >>> def grains(edge):  # grain 1 left of column `edge`, grain 2 right of it, 1 µm step
+    ...     labels = np.repeat(np.where(np.arange(20) < edge, 1, 2)[None, :], 20, 0)
+    ...     table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...              "quat": np.array([[1.0, 0, 0, 0], [0.939693, 0, 0, 0.34202]]),
+    ...              "area_px": np.array([20 * edge, 20 * (20 - edge)]),
+    ...              "centroid_x_um": np.array([(edge - 1) / 2, (edge + 19) / 2]),
+    ...              "centroid_y_um": np.array([9.5, 9.5]), "touches_edge": np.array([1, 1])}
+    ...     return GrainMap(labels.astype(np.int32), table, {}, 5.0, 4)
+    >>> def trace(x):  # the boundary's trace at x, along +Y
+    ...     one = lambda v: np.array([v])
+    ...     return {"segment_id": one(0), "grain_a": one(1), "grain_b": one(2),
+    ...             "x0_um": one(x), "y0_um": one(0.0), "x1_um": one(x), "y1_um": one(19.0),
+    ...             "length_um": one(19.0), "trace_angle_deg": one(90.0),
+    ...             "trace_sigma_deg": one(0.5)}
+    >>> out = measure_serial_section(trace(9.5), grains(10), trace(11.5), grains(12),
+    ...     depth_um=2.0, depth_sigma_um=0.1, step_um=1.0, laue_by_phase={1: "m-3m"},
+    ...     registration=Registration(0.0, 0.0, 0.0, 0.0, 1, "given")).boundaries
+    >>> out["status"].tolist(), out["measured_dip_deg"].round(6).tolist()
+    (['measured'], [45.0])
+    >>> out["dip_direction_azimuth_deg"].round(6).tolist(), out["offset_um"].round(6).tolist()
+    ([0.0], [2.0])
     """
     _check_depth(depth_um, depth_sigma_um, path, pointer)
     check_positive(step_um, "step_um")
@@ -1600,6 +1667,30 @@ def measure_stack(
         normal_y, normal_z`` (S), ``measured_dip_deg, dip_direction_azimuth_deg,
         fit_residual_um, dip_source`` (``serial-stack``), ``status``
         (``measured``/``unmatched``).
+
+    Examples
+    --------
+    >>> from inclination.grains import GrainMap
+    >>> def grains(edge):  # grain 1 left of column `edge`, grain 2 right of it, 1 µm step
+    ...     labels = np.repeat(np.where(np.arange(20) < edge, 1, 2)[None, :], 20, 0)
+    ...     table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...              "quat": np.array([[1.0, 0, 0, 0], [0.939693, 0, 0, 0.34202]]),
+    ...              "area_px": np.array([20 * edge, 20 * (20 - edge)]),
+    ...              "centroid_x_um": np.array([(edge - 1) / 2, (edge + 19) / 2]),
+    ...              "centroid_y_um": np.array([9.5, 9.5]), "touches_edge": np.array([1, 1])}
+    ...     return GrainMap(labels.astype(np.int32), table, {}, 5.0, 4)
+    >>> def trace(x):  # the boundary's trace at x, along +Y
+    ...     one = lambda v: np.array([v])
+    ...     return {"segment_id": one(0), "grain_a": one(1), "grain_b": one(2),
+    ...             "x0_um": one(x), "y0_um": one(0.0), "x1_um": one(x), "y1_um": one(19.0),
+    ...             "length_um": one(19.0), "trace_angle_deg": one(90.0),
+    ...             "trace_sigma_deg": one(0.5)}
+    >>> placed = Registration(0.0, 0.0, 0.0, 0.0, 1, "given")
+    >>> out = measure_stack(trace(9.5), grains(10),
+    ...     [(trace(11.5), grains(12)), (trace(13.5), grains(14))], depths_um=[2.0, 4.0],
+    ...     step_um=1.0, laue_by_phase={1: "m-3m"}, registrations=[placed, placed])
+    >>> out["n_sections"].tolist(), out["measured_dip_deg"].round(6).tolist()
+    ([3], [45.0])
     """
     depths = as_float_array(depths_um, "depths_um").ravel()
     if len(depths) != len(deeper_sections):
