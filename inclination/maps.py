@@ -17,7 +17,7 @@ from __future__ import annotations
 import hashlib
 import io
 import os
-import tempfile
+import secrets
 from collections.abc import Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -788,9 +788,14 @@ def read_map_file(path, *, format: str, angles: str, axes=None, **options) -> Or
 
 
 def _atomic(path, write) -> Path:
-    """Write through a temporary file in the same folder, then rename over ``path``."""
+    """Write through a temporary file in the same folder, then rename over ``path``.
+
+    The temporary is created with mode 0o666 less the umask, as an ordinary file
+    would be (mkstemp's 0o600 would survive the rename).
+    """
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp")
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
     try:
         with os.fdopen(fd, "wb") as fh:
             write(fh)

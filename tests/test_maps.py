@@ -810,5 +810,16 @@ def test_blank_lines_keep_line_numbers(tmp_path):
 
 
 def test_empty_cells_at_line_start_and_quoted_numbers(tmp_path):
-    path = write_text(tmp_path / "q.csv", "a,b,c\n,\"2\",3\n4,5,\n")
+    path = write_text(tmp_path / "q.csv", 'a,b,c\n,"2",3\n4,5,\n')
     assert_array_equal(np.isnan(read_table(path, delimiter=",").values), [[1, 0, 0], [0, 0, 1]])
+
+
+def test_written_files_get_ordinary_permissions(tmp_path):
+    import os
+
+    old = os.umask(0o022)
+    try:
+        path = write_csv(tmp_path / "p.csv", sample_map())
+    finally:
+        os.umask(old)
+    assert (path.stat().st_mode & 0o777) == 0o644
