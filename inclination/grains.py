@@ -250,18 +250,19 @@ def pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndar
 
 
 def misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
-    """Crystal-frame misorientations ``qb ⊗ qa⁻¹`` of pairs given as (4, n) rows, as (n, 4).
+    """Crystal-frame misorientations ``qb ⊗ qa⁻¹`` of pairs given as (4, n) rows.
 
-    The dtype of the rows is kept (float32 maps stay float32).
+    Returned as an (n, 4) view of contiguous (4, n) rows, the layout the symmetry
+    kernel copies its blocks from; the dtype of the rows is kept.
     """
     a0, a1, a2, a3 = qa
     b0, b1, b2, b3 = qb
-    out = np.empty((qa.shape[1], 4), dtype=np.result_type(qa, qb))
-    out[:, 0] = b0 * a0 + b1 * a1 + b2 * a2 + b3 * a3
-    out[:, 1] = b1 * a0 - b0 * a1 - b2 * a3 + b3 * a2
-    out[:, 2] = b2 * a0 - b0 * a2 + b1 * a3 - b3 * a1
-    out[:, 3] = b3 * a0 - b0 * a3 - b1 * a2 + b2 * a1
-    return out
+    out = np.empty((4, qa.shape[1]), dtype=np.result_type(qa, qb))
+    out[0] = b0 * a0 + b1 * a1 + b2 * a2 + b3 * a3
+    out[1] = b1 * a0 - b0 * a1 - b2 * a3 + b3 * a2
+    out[2] = b2 * a0 - b0 * a2 + b1 * a3 - b3 * a1
+    out[3] = b3 * a0 - b0 * a3 - b1 * a2 + b2 * a1
+    return out.T
 
 
 def disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
@@ -542,7 +543,9 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     r = np.empty(size, np.float32)
     sign = np.empty(size, np.float32)
     qs = np.empty((4, size), np.float32)
-    sums = np.zeros((m, 4))
+    # Per-run partial results, summed per grain once at the end (one bincount per
+    # column instead of an unbuffered ufunc.at per block).
+    run_sums = np.zeros((4, own_grain.size))
     for b, (s, e, lo, hi) in enumerate(blocks):
         n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
@@ -561,10 +564,12 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         if far.size:
             g = np.repeat(vals, counts)[far]
             qn[:, far] = _nearest_equivalents(q[:, s + far], ref[:, g].T, g, grain_info).T
-        run_sums = np.add.reduceat(qn, starts, axis=1, dtype=np.float64)
-        np.add.at(sums, own_grain[lo:hi], run_sums.T)
+        run_sums[:, lo:hi] = np.add.reduceat(qn, starts, axis=1, dtype=np.float64)
         if progress is not None:
             progress(0.5 * (b + 1) / len(blocks))
+    sums = np.stack(
+        [np.bincount(own_grain, weights=r, minlength=m).astype(float) for r in run_sums], axis=1
+    )
     norm = np.linalg.norm(sums, axis=1)
     mean = np.zeros_like(sums)
     mean[:, 0] = 1.0
@@ -572,8 +577,8 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     mean[ok] = sums[ok] / norm[ok, None]
     mean[mean[:, 0] < 0] *= -1
     mean32 = np.ascontiguousarray(mean.T, dtype=np.float32)
-    spread_sum = np.zeros(m)
-    spread_max = np.zeros(m)
+    run_angle_sum = np.zeros(own_grain.size)
+    run_angle_max = np.zeros(own_grain.size, np.float32)
     for b, (s, e, lo, hi) in enumerate(blocks):
         n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
@@ -600,10 +605,13 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
             cos_half = _max_scalar_to(q[:, s + far], mean[g], g, grain_info)
             angle[far] = 2.0 * np.arccos(np.minimum(cos_half, 1.0))
         angle *= inside
-        np.add.at(spread_sum, own_grain[lo:hi], np.add.reduceat(angle, starts, dtype=np.float64))
-        np.maximum.at(spread_max, own_grain[lo:hi], np.maximum.reduceat(angle, starts))
+        run_angle_sum[lo:hi] = np.add.reduceat(angle, starts, dtype=np.float64)
+        run_angle_max[lo:hi] = np.maximum.reduceat(angle, starts)
         if progress is not None:
             progress(0.5 + 0.5 * (b + 1) / len(blocks))
+    spread_sum = np.bincount(own_grain, weights=run_angle_sum, minlength=m).astype(float)
+    spread_max = np.zeros(m)
+    np.maximum.at(spread_max, own_grain, run_angle_max)
     return mean, spread_sum, spread_max
 
 

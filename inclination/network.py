@@ -20,8 +20,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
 from .errors import SettingError
 from .grains import (
@@ -243,45 +241,57 @@ def _pair_cos_half(q, a, b, codes, infos):
 # ----------------------------------------------------------------------------- chains
 
 
-def _rank_to_end(nxt: np.ndarray) -> np.ndarray:
-    """Steps from each node to the end of its list, by pointer jumping (acyclic input)."""
-    ptr = nxt.copy()
+def _jump(nxt: np.ndarray):
+    """Pointer jumping on a successor list (each node has at most one predecessor).
+
+    Returns ``(terminal, dist, looping)``: the last node of each node's list, the steps to
+    it, and the nodes still unresolved after ⌈log₂ n⌉ + 1 rounds — those on loops.
+    """
+    n = nxt.size
+    ptr = np.where(nxt >= 0, nxt, np.arange(n))
     dist = (nxt >= 0).astype(np.int64)
-    active = np.flatnonzero(ptr >= 0)
-    while active.size:
+    active = np.flatnonzero(nxt >= 0)
+    for _ in range(int(np.ceil(np.log2(max(n, 2)))) + 1):
+        if active.size == 0:
+            break
         p = ptr[active]
         dist[active] += dist[p]
         ptr[active] = ptr[p]
-        active = active[ptr[active] >= 0]
-    return dist
+        active = active[ptr[ptr[active]] != ptr[active]]
+    return ptr, dist, active
 
 
 def _order_chains(nxt: np.ndarray):
-    """Chain id, position along the chain and closed flag per node of a successor list.
+    """Chain id, position along the chain, chain lengths and closed flags of a successor list.
 
-    ``nxt[e]`` is the successor of node e or -1. Every node has at most one
-    predecessor; loops are cut before their lowest node.
+    ``nxt[e]`` is the successor of node e or -1; every node has at most one
+    predecessor. A loop is cut before its lowest node, which becomes its first.
     """
     n = nxt.size
-    has = nxt >= 0
-    src = np.flatnonzero(has)
-    graph = coo_matrix((np.ones(src.size, np.int8), (src, nxt[has])), shape=(n, n))
-    n_comp, comp = connected_components(graph, directed=True, connection="weak")
-    has_prev = np.zeros(n, bool)
-    has_prev[nxt[has]] = True
-    starts_per = np.bincount(comp, weights=~has_prev, minlength=n_comp)
-    _, first = np.unique(comp, return_index=True)
-    closed_comp = starts_per == 0
-    nxt = nxt.copy()
-    if closed_comp.any():
-        pred = np.full(n, -1, np.int64)
-        pred[nxt[has]] = src
-        cut_at = first[closed_comp]
-        nxt[pred[cut_at]] = -1
-    dist = _rank_to_end(nxt)
-    length = np.bincount(comp, minlength=n_comp)
-    position = length[comp] - 1 - dist
-    return comp, position, length, closed_comp
+    terminal, dist, looping = _jump(nxt)
+    if looping.size:
+        # The lowest node of each loop, by doubling the minimum along it.
+        local = np.full(n, -1, np.int64)
+        local[looping] = np.arange(looping.size)
+        step = local[nxt[looping]]
+        low = looping.copy()
+        for _ in range(int(np.ceil(np.log2(max(looping.size, 2)))) + 1):
+            low = np.minimum(low, low[step])
+            step = step[step]
+        cut = nxt[looping] == low
+        sub = local[nxt[looping]]
+        sub[cut] = -1
+        t_loop, d_loop, _ = _jump(sub)
+        terminal[looping] = looping[t_loop]
+        dist[looping] = d_loop
+    is_end = terminal == np.arange(n)
+    chain_of_end = np.cumsum(is_end) - 1
+    chain = chain_of_end[terminal]
+    length = np.bincount(chain, minlength=int(is_end.sum()))
+    position = length[chain] - 1 - dist
+    closed = np.zeros(length.size, bool)
+    closed[chain[looping]] = True
+    return chain, position, length, closed
 
 
 def _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, omap, angle):

@@ -378,3 +378,12 @@ def test_touches_edge_is_false_for_an_inner_grain():
     gm = segment_grains(region_map(regions, [IDENTITY, Z45]), [CUBIC], min_pixels=1)
     assert gm.grains["touches_edge"].tolist() == [True, False]
     assert_allclose(gm.grains["centroid_x_um"][1], 2.5, rtol=0, atol=1e-12)
+
+
+def test_every_grain_dissolved_gives_empty_table_not_error():
+    gm = segment_grains(make_map(np.tile(IDENTITY, (2, 2, 1))), [CUBIC], min_pixels=8)
+    assert gm.n_grains == 0 and not gm.labels.any()
+    assert gm.cleanup["points_unindexed"] == 4
+    for name in GRAIN_COLUMNS:
+        assert len(gm.grains[name]) == 0
+    assert gm.grains["quat"].shape == (0, 4)
