@@ -323,3 +323,11 @@ def test_hexagonal_errors():
     mixed = (twins[0], hexagonal_twins(1.587, setting="x_parallel_a_star")[1])
     with pytest.raises(ValueError, match=r"Expected `twins` to share one setting"):
         classify_hexagonal_misorientation([1.0, 0, 0, 0], mixed)
+
+
+def test_deviation_setting_and_c_over_a_type_errors():
+    q = np.array([1.0, 0.0, 0.0, 0.0])
+    with pytest.raises(ValueError, match=r"Expected `setting` to be one of"):
+        relation_deviation_deg(q, q, "6/mmm", setting="x_parallel_c")
+    with pytest.raises(TypeError, match=r"Expected `c_over_a` to be an array of numbers, got str"):
+        hexagonal_twins("tall")

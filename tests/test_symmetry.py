@@ -486,3 +486,15 @@ def test_reduced_axis_survives_exchange_and_symmetry_on_random_pairs(laue, setti
 def test_misorientation_errors_name_the_argument():
     with pytest.raises(ValueError, match=r"Expected `qb` to have shape \(\.\.\., 4\), got \(3,\)"):
         misorientation_quat([1.0, 0.0, 0.0, 0.0], [1.0, 0.0, 0.0])
+
+
+def test_option_errors_of_the_other_public_functions():
+    q = random_quat(2, rng=0)
+    with pytest.raises(ValueError, match=r"Expected `laue` to be one of .*got 'hcp'"):
+        max_disorientation_deg("hcp")
+    with pytest.raises(ValueError, match=r"Expected `setting` to be one of .*got None"):
+        disorientation(q, q, "-3m", setting=None)
+    bad = q.copy()
+    bad[1, 2] = np.nan
+    with pytest.raises(ValueError, match=r"Expected `qa` to be finite everywhere, .* \(1,\)"):
+        disorientation_angle_deg(bad, q, "-3m")
