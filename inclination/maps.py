@@ -244,7 +244,7 @@ class OrientationMap:
         axes = DeclaredAxes() if axes is None else axes
         dfr = _as_dfr_quat(data_frame_rotation)
         valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
-        quat, _ = _quat_planes_sample(e, valid, axes, dfr)
+        quat = _quat_planes_sample(e, valid, axes, dfr)
         return cls(
             quat,
             np.where(valid, ph, 0).astype(np.int32),
@@ -321,33 +321,42 @@ def _as_dfr_quat(spec) -> np.ndarray:
     return q / np.linalg.norm(q)
 
 
-def _quat_planes_sample(euler, valid, axes, dfr, *, radians=False):
-    """(4, H, W) float32 quaternions in S from data-frame Euler angles (identity if invalid).
+def _start_conversion(pool, columns, valid_rows, axes, dfr, *, radians=False):
+    """Queue the conversion of data-frame Euler angles to S quaternions on ``pool``.
 
-    Also returns the largest |angle| over the valid points, in the file's unit,
-    for the unit check. Works in blocks of points on two threads: numpy's
-    trigonometry releases the GIL, and blocks keep the float64 temporaries small.
+    ``columns`` are the three angle columns (N,), in the file's unit; rows where
+    ``valid_rows`` is False keep the identity. Returns ``(out, futures)``: ``out``
+    (4, N) float32 is filled as the futures complete, each returning the largest
+    |angle| of its block (for the unit check). Blocks keep the float64 temporaries
+    small, and numpy's trigonometry releases the GIL, so the blocks run on two
+    cores while the caller places points on the grid.
     """
-    h, w = valid.shape
-    quat = np.zeros((4, h * w), dtype=np.float32)
-    quat[0] = 1.0
-    flat_e = euler.reshape(-1, 3)
-    index = np.flatnonzero(valid.ravel())
-    blocks = [index[k : k + _BLOCK] for k in range(0, index.size, _BLOCK)]
+    out = np.zeros((4, valid_rows.size), dtype=np.float32)
+    out[0] = 1.0
+    index = np.flatnonzero(valid_rows)
 
     def convert(block):
-        e = flat_e[block]
+        e = np.stack([c[block] for c in columns], axis=-1)
         largest = float(np.max(np.abs(e))) if e.size else 0.0
         q = quat_from_euler_deg(np.rad2deg(e) if radians else e)
-        quat[:, block] = orientations_to_sample(q, axes, dfr).T
+        out[:, block] = orientations_to_sample(q, axes, dfr).T
         return largest
 
-    if len(blocks) > 1:
-        with ThreadPoolExecutor(max_workers=2) as pool:
-            largest = max(pool.map(convert, blocks))
-    else:
-        largest = max([convert(b) for b in blocks], default=0.0)
-    return quat.reshape(4, h, w), largest
+    futures = [pool.submit(convert, index[k : k + _BLOCK]) for k in range(0, index.size, _BLOCK)]
+    return out, futures
+
+
+def _wait(futures) -> float:
+    return max((f.result() for f in futures), default=0.0)
+
+
+def _quat_planes_sample(euler, valid, axes, dfr):
+    """(4, H, W) float32 quaternions in S from data-frame Euler angles in degrees."""
+    columns = [euler[..., k].ravel() for k in range(3)]
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        out, futures = _start_conversion(pool, columns, valid.ravel(), axes, dfr)
+        _wait(futures)
+    return out.reshape((4, *valid.shape))
 
 
 # ----------------------------------------------------------------------------- reading
@@ -580,22 +589,63 @@ def read_map(
     return OrientationMap(data_frame_rotation=dfr, provenance=provenance, **omap_args)
 
 
-def _finish(euler, phase, quality, angles, axes, dfr, path):
-    """Validity, unit check and conversion into S shared by every reader."""
-    valid = (phase != 0) & np.all(np.isfinite(euler), axis=-1)
-    if not valid.any():
-        raise InputError(
-            "Expected at least one indexed point (phase id > 0 and finite angles), got none.",
-            path=path,
+def _no_indexed_point(path):
+    return InputError(
+        "Expected at least one indexed point (phase id > 0 and finite angles), got none.",
+        path=path,
+    )
+
+
+def _assemble(
+    columns, phase_rows, quality_rows, linear, shape, angles, axes, dfr, path, *, while_converting
+):
+    """Validity, conversion into S, unit check and placement shared by every reader.
+
+    ``columns`` (three angle columns), ``phase_rows`` and ``quality_rows`` are per
+    point in file order; ``linear`` is each point's flat grid index. The
+    conversion runs on two worker threads while ``while_converting()`` (the grid
+    placement, for tables) runs here; its result is returned with the arrays.
+    """
+    valid_rows = phase_rows != 0
+    for c in columns:
+        valid_rows &= np.isfinite(c)
+    if not valid_rows.any():
+        raise _no_indexed_point(path)
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        q_rows, futures = _start_conversion(
+            pool, columns, valid_rows, axes, dfr, radians=angles == "rad"
         )
-    quat, largest = _quat_planes_sample(euler, valid, axes, dfr, radians=angles == "rad")
-    _check_units(largest, int(np.count_nonzero(valid)), angles, path)
-    return dict(
-        quat=quat,
-        phase=np.where(valid, phase, 0).astype(np.int32),
-        valid=valid,
+        try:
+            extra = while_converting()
+        except BaseException:
+            for f in futures:
+                f.cancel()
+            raise
+        largest = _wait(futures)
+    _check_units(largest, int(np.count_nonzero(valid_rows)), angles, path)
+    if callable(linear):
+        linear, shape = linear(extra)
+    n = shape[0] * shape[1]
+    quat = np.zeros((4, n), dtype=np.float32)
+    quat[0] = 1.0
+    quat[:, linear] = q_rows
+    del q_rows
+    valid = np.zeros(n, dtype=bool)
+    valid[linear] = valid_rows
+    phase = np.zeros(n, dtype=np.int32)
+    phase[linear] = np.where(valid_rows, phase_rows, 0)
+    quality = {}
+    for name, rows in quality_rows.items():
+        plane = np.full(n, np.nan, dtype=np.float32)
+        plane[linear] = rows
+        quality[name] = plane.reshape(shape)
+    args = dict(
+        quat=quat.reshape((4, *shape)),
+        phase=phase.reshape(shape),
+        valid=valid.reshape(shape),
         quality=quality,
     )
+    return args, extra
 
 
 def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, sy, ids, path):
@@ -606,8 +656,21 @@ def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, 
     def line_of(k):
         return f"row {k // width}, column {k % width}"
 
-    phase = _phase_values(flat, ids, path, line_of).reshape(h, w)
-    args = _finish(euler, phase, quality, angles, axes, dfr, path)
+    phase = _phase_values(flat, ids, path, line_of)
+    columns = [euler[..., k].ravel() for k in range(3)]
+    quality_rows = {name: q.ravel() for name, q in quality.items()}
+    args, _ = _assemble(
+        columns,
+        phase,
+        quality_rows,
+        np.arange(h * w),
+        (h, w),
+        angles,
+        axes,
+        dfr,
+        path,
+        while_converting=lambda: None,
+    )
     # Declared coordinates start at 0 on both axes over the map's bounding box.
     pitch = sy * (_SQRT3_2 if grid == "hexagonal" else 1.0)
     x_max = (w - 1) * sx + (0.5 * sx if grid == "hexagonal" and h > 1 else 0.0)
@@ -685,10 +748,6 @@ def _read_table_map(
             pointer=line_of(k),
         )
     x_s, y_s = _columns_to_sample(x_declared, y_declared, axes)
-    placement = place_on_grid(
-        x_s, y_s, step_x_um=step_x, step_y_um=step_y, grid=grid, path=path, line_of=table.line_of
-    )
-    euler_rows = v[:, [index["phi1"], index["Phi"], index["phi2"]]]
     if "phase" in index:
         phase_rows = _phase_values(v[:, index["phase"]], phase_ids, path, line_of)
     else:
@@ -701,21 +760,36 @@ def _read_table_map(
                 pointer=f"{pointer}/columns/phase",
             )
         phase_rows = np.full(len(v), ids[0], dtype=np.int64)
-    h, w = placement.shape
-    r, c = placement.row, placement.col
-    euler = np.full((h, w, 3), np.nan)
-    euler[r, c] = euler_rows
-    phase = np.zeros((h, w), dtype=np.int64)
-    phase[r, c] = phase_rows
+    columns = [v[:, index[role]] for role in ("phi1", "Phi", "phi2")]
     used = set(index.values())
-    quality = {}
-    for k, name in enumerate(table.header):
-        if k in used:
-            continue
-        plane = np.full((h, w), np.nan, dtype=np.float32)
-        plane[r, c] = v[:, k]
-        quality[name] = plane
-    args = _finish(euler, phase, quality, angles, axes, dfr, path)
+    quality_rows = {name: v[:, k] for k, name in enumerate(table.header) if k not in used}
+
+    def place():
+        return place_on_grid(
+            x_s,
+            y_s,
+            step_x_um=step_x,
+            step_y_um=step_y,
+            grid=grid,
+            path=path,
+            line_of=table.line_of,
+        )
+
+    def linear(placement):
+        return placement.row * placement.shape[1] + placement.col, placement.shape
+
+    args, placement = _assemble(
+        columns,
+        phase_rows,
+        quality_rows,
+        linear,
+        None,
+        angles,
+        axes,
+        dfr,
+        path,
+        while_converting=place,
+    )
     origin_declared = DeclaredAxes(axes.x, axes.y).points_to_declared(
         np.asarray(placement.origin_sample_um)
     )

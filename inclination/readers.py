@@ -25,6 +25,7 @@ import hashlib
 import io
 import json
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -193,7 +194,11 @@ def read_table(path, *, delimiter=None, whitespace=False) -> Table:
         raise InputError("Expected an existing file, got none at this path.", path=path) from None
     except OSError as exc:
         raise InputError(f"Expected a readable file, got {exc.strerror}.", path=path) from None
-    sha = hashlib.sha256(raw).hexdigest()
+    # hashlib releases the GIL on large buffers: the digest is computed while
+    # numpy parses the same bytes.
+    hasher = ThreadPoolExecutor(max_workers=1)
+    sha_future = hasher.submit(lambda data: hashlib.sha256(data).hexdigest(), raw)
+    hasher.shutdown(wait=False)
     delim = None if whitespace or delimiter in (None, " ") else delimiter
     if delim is not None and (len(delim) != 1 or delim in "\n\r\"'."):
         raise ValueError(f"Expected `delimiter` to be one character, got {delimiter!r}.")
@@ -256,6 +261,7 @@ def read_table(path, *, delimiter=None, whitespace=False) -> Table:
     if raw.count(b"\n", body_start, end) + 1 != len(values):
         blank = _blank_line_numbers(raw[body_start:])
         lines = first_line + np.flatnonzero(~blank)
+    sha = sha_future.result()
     return Table(header=header, values=values, first_line=first_line, sha256=sha, lines=lines)
 
 
