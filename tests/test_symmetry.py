@@ -498,3 +498,13 @@ def test_option_errors_of_the_other_public_functions():
     bad[1, 2] = np.nan
     with pytest.raises(ValueError, match=r"Expected `qa` to be finite everywhere, .* \(1,\)"):
         disorientation_angle_deg(bad, q, "-3m")
+
+
+@given(case=st.sampled_from(CASES), i=st.integers(0, 23), j=st.integers(0, 23))
+def test_closure_property(case, i, j):
+    # Group closure as a property: s_i ⊗ s_j and s_i⁻¹ are in the set.
+    laue, setting = case
+    sym = proper_rotations(laue, setting=setting)
+    a, b = sym[i % len(sym)], sym[j % len(sym)]
+    assert np.abs(sym @ quat_multiply(a, b)).max() > 1 - 1e-12
+    assert np.abs(sym @ quat_inverse(a)).max() > 1 - 1e-12
