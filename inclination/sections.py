@@ -30,7 +30,7 @@ import numpy as np
 from scipy.ndimage import uniform_filter
 from scipy.sparse.csgraph import connected_components
 
-from ._validation import as_float_array, check_finite, check_positive
+from ._validation import as_float_array, check_finite, check_one_of, check_positive
 from .errors import InputError
 from .symmetry import disorientation_angle_deg
 
@@ -822,6 +822,15 @@ class Registration:
         return xy @ rot.T + np.array([self.shift_x_um, self.shift_y_um])
 
 
+GRIDS = ("square", "hexagonal")
+
+
+def _row_pitch_um(step_um, grid):
+    """Distance between map rows (§1): the step, or step·√3/2 on a hexagonal grid."""
+    check_one_of(grid, "grid", GRIDS)
+    return step_um * (math.sqrt(3.0) / 2.0 if grid == "hexagonal" else 1.0)
+
+
 def _grain_table(grains):
     return grains.grains
 
@@ -857,6 +866,7 @@ def match_grains(
     laue_by_phase: Mapping,
     threshold_deg: float = 5.0,
     min_overlap: float = 0.2,
+    grid: str = "square",
 ) -> dict:
     """Pair each grain of a deeper map with a grain of the surface map (§8).
 
@@ -882,6 +892,9 @@ def match_grains(
         Largest disorientation of one grain seen on both sections, degrees.
     min_overlap : float, optional
         Least fraction of the deeper grain's pixels on the surface grain.
+    grid : {"square", "hexagonal"}, optional
+        The maps' grid (§1); a hexagonal map is moved by whole rows and columns, so a
+        shift of an odd number of rows is placed to half a step.
 
     Returns
     -------
@@ -908,7 +921,8 @@ def match_grains(
     check_positive(threshold_deg, "threshold_deg")
     s_labels = np.asarray(surface_grains.labels)
     d_labels = np.asarray(deeper_grains.labels)
-    shift_px = (registration.shift_y_um / step_um, registration.shift_x_um / step_um)
+    row_um = _row_pitch_um(step_um, grid)
+    shift_px = (registration.shift_y_um / row_um, registration.shift_x_um / step_um)
     placed = _shift_labels(d_labels, shift_px, s_labels.shape)
     both = (placed > 0) & (s_labels > 0)
     s_tab, d_tab = _grain_table(surface_grains), _grain_table(deeper_grains)
@@ -1003,18 +1017,19 @@ def _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains):
 
 
 def _densest_vote(votes, weights, radius):
-    """Centre of the heaviest disc of votes, from a weighted histogram (memory O(area))."""
+    """Votes in the heaviest cluster, from a weighted histogram (memory O(area)).
+
+    Cells are half the vote radius; the heaviest 5 × 5 block of cells (about a disc of
+    the radius) holds the cluster. Returns a mask of its votes (never empty).
+    """
     cell = radius / 2.0
     lo = votes.min(axis=0)
     idx = np.floor((votes - lo) / cell).astype(np.int64)
     hist = np.zeros(tuple(idx.max(axis=0) + 1))
     np.add.at(hist, (idx[:, 0], idx[:, 1]), weights)
-    # A 5 × 5 block of half-radius cells covers about one disc of the vote radius.
     support = uniform_filter(hist, size=5, mode="constant")
     best = np.array(np.unravel_index(int(np.argmax(support)), support.shape))
-    centre = lo + (best + 0.5) * cell
-    near = np.sum((votes - centre) ** 2, axis=1) <= radius**2
-    return np.average(votes[near], axis=0, weights=weights[near]) if near.any() else centre
+    return np.all(np.abs(idx - best) <= 2, axis=1)
 
 
 def _agreement(s_labels, placed_mapped, di, dj):
@@ -1044,6 +1059,7 @@ def register_sections(
     threshold_deg: float = 5.0,
     vote_radius_um: float | None = None,
     max_grains: int = 400,
+    grid: str = "square",
 ) -> Registration:
     """Place a deeper map on the surface map from the grain structure itself (§8).
 
@@ -1087,6 +1103,8 @@ def register_sections(
         Radius of a cluster of votes; default 6 steps.
     max_grains : int, optional
         Largest grains per phase and map that vote.
+    grid : {"square", "hexagonal"}, optional
+        The maps' grid (§1).
 
     Returns
     -------
@@ -1130,9 +1148,7 @@ def register_sections(
     votes, weights = _orientation_votes(s_tab, d_tab, laue_by_phase, threshold_deg, max_grains)
     if len(votes) == 0:
         return Registration(0.0, 0.0, 0.0, float("nan"), 0, "none")
-    centre = _densest_vote(votes, weights, radius)
-    near = np.sum((votes - centre) ** 2, axis=1) <= radius**2
-    coarse = np.median(votes[near], axis=0)
+    coarse = np.median(votes[_densest_vote(votes, weights, radius)], axis=0)
 
     s_labels = np.asarray(surface_grains.labels)
     d_labels = np.asarray(deeper_grains.labels)
@@ -1143,6 +1159,7 @@ def register_sections(
         step_um=step_um,
         laue_by_phase=laue_by_phase,
         threshold_deg=threshold_deg,
+        grid=grid,
     )
     if len(pairs["deeper_grain"]) == 0:
         return Registration(
@@ -1151,8 +1168,9 @@ def register_sections(
     relabel = np.zeros(int(d_labels.max()) + 1, dtype=s_labels.dtype)
     relabel[pairs["deeper_grain"]] = pairs["surface_grain"]
     mapped = relabel[d_labels]
-    i0, j0 = int(round(coarse[1] / step_um)), int(round(coarse[0] / step_um))
-    reach = int(math.ceil(radius / step_um)) + 1
+    row_um = _row_pitch_um(step_um, grid)
+    i0, j0 = int(round(coarse[1] / row_um)), int(round(coarse[0] / step_um))
+    reach = int(math.ceil(radius / row_um)) + 1
     offsets = range(-reach, reach + 1)
     score = np.array(
         [[_agreement(s_labels, mapped, i0 + di, j0 + dj) for dj in offsets] for di in offsets]
@@ -1168,7 +1186,7 @@ def register_sections(
         if (0 < bj < score.shape[1] - 1)
         else 0.0
     )
-    shift = np.array([(j0 + bj - reach + sub_j) * step_um, (i0 + bi - reach + sub_i) * step_um])
+    shift = np.array([(j0 + bj - reach + sub_j) * step_um, (i0 + bi - reach + sub_i) * row_um])
 
     s_row = np.searchsorted(np.asarray(s_tab["grain_id"]), pairs["surface_grain"])
     d_row = np.searchsorted(np.asarray(d_tab["grain_id"]), pairs["deeper_grain"])
@@ -1185,7 +1203,7 @@ def register_sections(
     if fit_rotation and len(src) >= 3:
         theta, _, _ = _fit_rigid(src, dst, w, True)
         # The translation found at the map centre stays; the turn is about that centre.
-        centre_um = _map_centre_um(deeper_grains, step_um)
+        centre_um = _map_centre_um(deeper_grains, step_um, row_um)
         c, s = math.cos(theta), math.sin(theta)
         shift = shift + centre_um - np.array([[c, -s], [s, c]]) @ centre_um
     c, s = math.cos(theta), math.sin(theta)
@@ -1201,9 +1219,9 @@ def register_sections(
     )
 
 
-def _map_centre_um(grains, step_um):
+def _map_centre_um(grains, step_um, row_um):
     h, w = np.asarray(grains.labels).shape
-    return np.array([(w - 1) * step_um / 2.0, (h - 1) * step_um / 2.0])
+    return np.array([(w - 1) * step_um / 2.0, (h - 1) * row_um / 2.0])
 
 
 @dataclass(frozen=True)
@@ -1375,6 +1393,7 @@ def measure_serial_section(
     max_angle_deg: float = 15.0,
     max_offset_um: float | None = None,
     max_sigma_deg: float = 10.0,
+    grid: str = "square",
     path=None,
     pointer: str = "",
 ) -> SerialSection:
@@ -1415,6 +1434,8 @@ def measure_serial_section(
         Largest offset; default ``h / tan 5° + 2 steps`` (dips down to 5°).
     max_sigma_deg : float, optional
         Dip σ above which a boundary is ``ill_conditioned``; a warning says how many.
+    grid : {"square", "hexagonal"}, optional
+        The maps' grid (§1).
     path, pointer : optional
         Job file and JSON pointer of the section entry, for error messages.
 
@@ -1471,6 +1492,7 @@ def measure_serial_section(
             fiducials_um=fiducials_um,
             fit_rotation=fit_rotation,
             threshold_deg=threshold_deg,
+            grid=grid,
         )
     if max_offset_um is None:
         max_offset_um = depth_um / math.tan(math.radians(5.0)) + 2.0 * step_um
@@ -1481,6 +1503,7 @@ def measure_serial_section(
         step_um=step_um,
         laue_by_phase=laue_by_phase,
         threshold_deg=threshold_deg,
+        grid=grid,
     )
     match, delta, t_mean, ambiguous, keep, _ = _match_serial(
         surface_segments,
@@ -1637,6 +1660,7 @@ def measure_stack(
     registrations: Sequence | None = None,
     threshold_deg: float = 5.0,
     max_angle_deg: float = 15.0,
+    grid: str = "square",
 ) -> dict:
     """Per boundary, a least-squares plane through its traces on every section of a stack.
 
@@ -1657,7 +1681,7 @@ def measure_stack(
     laue_by_phase : mapping of int to str or Phase
     registrations : sequence of Registration or None, optional
         Known placements of the deeper sections (None entries are estimated).
-    threshold_deg, max_angle_deg : float, optional
+    threshold_deg, max_angle_deg, grid : optional
         As in :func:`measure_serial_section`.
 
     Returns
@@ -1719,6 +1743,7 @@ def measure_stack(
                 step_um=step_um,
                 laue_by_phase=laue_by_phase,
                 threshold_deg=threshold_deg,
+                grid=grid,
             )
         pairs = match_grains(
             surface_grains,
@@ -1727,6 +1752,7 @@ def measure_stack(
             step_um=step_um,
             laue_by_phase=laue_by_phase,
             threshold_deg=threshold_deg,
+            grid=grid,
         )
         max_offset = float(h) / math.tan(math.radians(5.0)) + 2.0 * step_um
         match, _, _, ambiguous, _, (a_d, b_d) = _match_serial(

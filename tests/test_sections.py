@@ -548,7 +548,7 @@ def _truth_grain_map(micro, sampled):
     ids = np.unique(labels)
     flat = labels.ravel()
     area = np.bincount(flat)[ids]
-    ys, xs = np.indices(labels.shape) * sampled.step_um
+    xs, ys = sampled.x_um, sampled.y_um
     edge = np.zeros(labels.max() + 1, bool)
     edge[np.unique(np.concatenate([labels[0], labels[-1], labels[:, 0], labels[:, -1]]))] = True
     table = {
@@ -605,6 +605,28 @@ def test_registration_at_depth(voronoi, shift_um):
         surface, _truth_grain_map(voronoi, deeper), step_um=STEP, laue_by_phase={1: "m-3m"}
     )
     assert math.hypot(reg.shift_x_um - shift_um[0], reg.shift_y_um - shift_um[1]) < 2 * STEP
+
+
+@pytest.mark.parametrize("shift_um", [(1.5, -1.3), (-2.0, 0.866)])
+def test_registration_on_a_hexagonal_grid(voronoi, shift_um):
+    from inclination.synthetic import sample_map
+
+    kw = {"step_um": STEP, "rng": 0, "extent_um": (90, 70), "noise_deg": 0.0, "grid": "hexagonal"}
+    surface = _truth_grain_map(voronoi, sample_map(voronoi, offset_um=(5, 5), **kw))
+    moved = sample_map(voronoi, offset_um=(5 + shift_um[0], 5 + shift_um[1]), **kw)
+    reg = register_sections(
+        surface,
+        _truth_grain_map(voronoi, moved),
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        grid="hexagonal",
+    )
+    assert abs(reg.shift_x_um - shift_um[0]) <= STEP / 2
+    assert abs(reg.shift_y_um - shift_um[1]) <= STEP / 2
+    with pytest.raises(ValueError, match="`grid` to be one of"):
+        register_sections(
+            surface, surface, step_um=STEP, laue_by_phase={1: "m-3m"}, grid="triangular"
+        )
 
 
 def test_registration_without_common_grains(voronoi):
