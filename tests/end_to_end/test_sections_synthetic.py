@@ -165,11 +165,10 @@ def test_cross_section_dips_against_truth(cross_runs):
     beta = np.concatenate([r["beta_deg_true"] for r in rows])
     steep_enough = beta > 30.0
     assert steep_enough.sum() >= 50
-    # Measured 2026-12: median 0.4°, 95 % within 2°, the largest about 2.9° (3.3 σ): a 1°
-    # image-angle noise, enlarged 1/sin 52° by the tilt, puts a few of ~75 beyond 2°.
+    # Measured 2026-12 (76 boundaries): median 0.64°, 95th percentile 1.7°, largest 1.85°.
+    assert np.all(err[steep_enough] <= 2.0)
     assert np.median(err[steep_enough]) < 1.0
-    assert np.mean(err[steep_enough] <= 2.0) >= 0.9
-    assert np.all(err[steep_enough] < 4.0 * sigma[steep_enough] + 0.5)
+    assert np.all(err < 4.0 * sigma + 0.5)
     # The first-order σ is calibrated: errors over σ have an RMS near 1.
     z = err / sigma
     assert 0.7 < np.sqrt(np.mean(z**2)) < 1.4
