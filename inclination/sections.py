@@ -64,6 +64,7 @@ VICKERS_DEPTH_FACTOR = 2.0 * math.sqrt(2.0) * math.tan(math.radians(68.0))
 CROSS_SECTION_STATUSES = ("measured", "ill_conditioned", "unmatched", "ambiguous")
 
 _Z = np.array([0.0, 0.0, 1.0])
+_Z.setflags(write=False)
 
 
 # --------------------------------------------------------------------------- geometry
@@ -822,12 +823,12 @@ class Registration:
         return xy @ rot.T + np.array([self.shift_x_um, self.shift_y_um])
 
 
-GRIDS = ("square", "hexagonal")
+_GRIDS = ("square", "hexagonal")
 
 
 def _row_pitch_um(step_um, grid):
     """Distance between map rows (§1): the step, or step·√3/2 on a hexagonal grid."""
-    check_one_of(grid, "grid", GRIDS)
+    check_one_of(grid, "grid", _GRIDS)
     return step_um * (math.sqrt(3.0) / 2.0 if grid == "hexagonal" else 1.0)
 
 
