@@ -505,7 +505,9 @@ def _block_layout(s, e, pos, length, grain):
     starts = pos - s
     ends = starts + length
     counts = np.empty(2 * m + 1, np.int64)
-    counts[0:-1:2] = starts - np.r_[0, ends[:-1]]
+    gaps = counts[0:-1:2]
+    gaps[:] = starts
+    gaps[1:] -= ends[:-1]
     counts[1::2] = length
     counts[-1] = (e - s) - (ends[-1] if m else 0)
     vals = np.zeros(2 * m + 1, np.int64)
@@ -538,10 +540,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         if hi > lo:
             blocks.append((s, e, lo, hi))
     size = max((e - s for s, e, _, _ in blocks), default=0)
-    d = np.empty(size, np.float32)
-    t = np.empty(size, np.float32)
-    r = np.empty(size, np.float32)
-    sign = np.empty(size, np.float32)
+    rep = np.empty((4, size), np.float32)
     qs = np.empty((4, size), np.float32)
     # Per-run partial results, summed per grain once at the end (one bincount per
     # column instead of an unbuffered ufunc.at per block).
@@ -549,18 +548,14 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     for b, (s, e, lo, hi) in enumerate(blocks):
         n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
-        dn, tn, rn, sg, qn = d[:n], t[:n], r[:n], sign[:n], qs[:, :n]
-        for c in range(4):
-            rn[:] = np.repeat(ref[c, vals], counts)
-            np.multiply(q[c, s:e], rn, out=dn if c == 0 else tn)
-            if c:
-                dn += tn
+        rn, qn = rep[:, :n], qs[:, :n]
+        rn[:] = np.repeat(ref[:, vals], counts, axis=1)
+        d = np.einsum("cn,cn->n", q[:, s:e], rn)
         # Sign of each point toward its grain's reference; 0 outside the grain's own runs.
-        sg[:] = np.repeat((vals > 0).astype(np.float32), counts)
-        np.copysign(sg, dn, out=sg)
+        sg = np.repeat((vals > 0).astype(np.float32), counts)
+        np.copysign(sg, d, out=sg)
         np.multiply(q[:, s:e], sg, out=qn)
-        np.abs(dn, out=dn)
-        far = np.flatnonzero((dn < cos_safe) & (sg != 0))
+        far = np.flatnonzero((np.abs(d) < cos_safe) & (sg != 0))
         if far.size:
             g = np.repeat(vals, counts)[far]
             qn[:, far] = _nearest_equivalents(q[:, s + far], ref[:, g].T, g, grain_info).T
@@ -582,15 +577,12 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     for b, (s, e, lo, hi) in enumerate(blocks):
         n = e - s
         counts, vals, starts = _block_layout(s, e, own_pos[lo:hi], own_len[lo:hi], own_grain[lo:hi])
-        dn, tn, rn = d[:n], t[:n], r[:n]
+        rn = rep[:, :n]
         # |q - m|² = 4 sin²(θ/4) for unit q, m in one hemisphere: unlike 2·arccos(q·m) it
         # keeps float32 precision at small θ; min(x, 4 - x) picks the hemisphere.
-        for c in range(4):
-            rn[:] = np.repeat(mean32[c, vals], counts)
-            np.subtract(q[c, s:e], rn, out=rn)
-            np.multiply(rn, rn, out=dn if c == 0 else tn)
-            if c:
-                dn += tn
+        rn[:] = np.repeat(mean32[:, vals], counts, axis=1)
+        np.subtract(q[:, s:e], rn, out=rn)
+        dn = np.einsum("cn,cn->n", rn, rn)
         np.minimum(dn, 4.0 - dn, out=dn)
         inside = np.repeat(vals > 0, counts)
         # Beyond 30° the identity may not be the nearest equivalent: full symmetry test.
