@@ -230,7 +230,9 @@ def _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low_deg, h
 
 def _pair_cos_half(q, a, b, codes, infos):
     """cos(ω/2) of the disorientation of point pairs (a, b) of one phase each (code)."""
-    out = np.full(a.size, np.nan)
+    if len(infos) == 1:
+        return disorientation_cos_half(q[:, a], q[:, b], infos[0])
+    out = np.full(a.size, np.nan, np.float32)
     for info in infos:
         sel = np.flatnonzero(codes == info.code)
         if sel.size:
@@ -509,6 +511,9 @@ def _edge_angles(q, a, b, labels_flat, grain_code, grain_phase, infos, valid):
     """Disorientation (degrees) of each edge's point pair; NaN across phases or no data."""
     ga, gb = labels_flat[a], labels_flat[b]
     same = (grain_phase[ga] == grain_phase[gb]) & valid[a] & valid[b]
+    if same.all():
+        m = _pair_cos_half(q, a, b, grain_code[ga], infos).astype(np.float64)
+        return np.rad2deg(2 * np.arccos(np.minimum(m, 1.0)))
     angle = np.full(a.size, np.nan)
     sel = np.flatnonzero(same)
     if sel.size:
