@@ -1593,15 +1593,22 @@ class PlaneFit:
         Dip and dip-direction azimuth (S, [0, 360)), §5.
     residual_um : float
         RMS distance of the trace end points from the plane, µm.
+    normal_sigma_deg : float
+        First-order σ of the normal's direction: the point scatter (from the residual,
+        or ``position_sigma_um`` if larger) over the plane's extent along its
+        narrower in-plane direction, degrees.
     """
 
     normal_sample: tuple[float, float, float]
     dip_deg: float
     dip_direction_azimuth_deg: float
     residual_um: float
+    normal_sigma_deg: float
 
 
-def fit_plane_through_traces(x0_um, y0_um, x1_um, y1_um, depth_um) -> PlaneFit:
+def fit_plane_through_traces(
+    x0_um, y0_um, x1_um, y1_um, depth_um, *, position_sigma_um: float = 0.0
+) -> PlaneFit:
     """Total-least-squares plane through the traces of one boundary at several depths.
 
     Parameters
@@ -1611,6 +1618,8 @@ def fit_plane_through_traces(x0_um, y0_um, x1_um, y1_um, depth_um) -> PlaneFit:
         surface map's coordinates (S), µm.
     depth_um : array_like, shape (K,)
         Depth of each section below the surface, µm.
+    position_sigma_um : float, optional
+        Least σ of a trace's position (line fit and registration), µm.
 
     Returns
     -------
@@ -1643,11 +1652,22 @@ def fit_plane_through_traces(x0_um, y0_um, x1_um, y1_um, depth_um) -> PlaneFit:
     x0, y0, x1, y1, z = cols
     points = np.concatenate([np.stack([x0, y0, z], -1), np.stack([x1, y1, z], -1)], axis=0)
     check_finite(points, "traces")
+    check_positive(position_sigma_um, "position_sigma_um", allow_zero=True)
     centred = points - points.mean(axis=0)
-    _, _, vt = np.linalg.svd(centred, full_matrices=False)
+    _, sv, vt = np.linalg.svd(centred, full_matrices=False)
     normal, dip, azimuth = _planes_from_normals(vt[-1][None, :])
     residual = float(np.sqrt(np.mean((centred @ normal[0]) ** 2)))
-    return PlaneFit(tuple(float(v) for v in normal[0]), float(dip[0]), float(azimuth[0]), residual)
+    # A fitted plane's normal tilts by (point scatter) / (extent) about each in-plane
+    # axis; the narrower extent (singular value sv[1]) sets the larger σ.
+    scatter = max(float(sv[2]) / math.sqrt(max(len(points) - 3, 1)), float(position_sigma_um))
+    sigma = math.degrees(scatter / sv[1]) if sv[1] > 0 else 90.0
+    return PlaneFit(
+        tuple(float(v) for v in normal[0]),
+        float(dip[0]),
+        float(azimuth[0]),
+        residual,
+        min(sigma, 90.0),
+    )
 
 
 def measure_stack(
@@ -1689,9 +1709,10 @@ def measure_stack(
     -------
     dict of 1-D arrays, one row per surface segment
         ``segment_id, n_sections`` (traces used, surface included), ``normal_x,
-        normal_y, normal_z`` (S), ``measured_dip_deg, dip_direction_azimuth_deg,
-        fit_residual_um, dip_source`` (``serial-stack``), ``status``
-        (``measured``/``unmatched``).
+        normal_y, normal_z`` (S), ``measured_dip_deg, measured_dip_sigma_deg`` (the
+        normal's first-order σ, :class:`PlaneFit`), ``dip_direction_azimuth_deg,
+        dip_direction_sigma_deg, fit_residual_um, dip_source`` (``serial-stack``),
+        ``status`` (``measured``/``unmatched``).
 
     Examples
     --------
@@ -1727,7 +1748,7 @@ def measure_stack(
         _check_depth(float(h), 0.0, None, "")
     keep, a_s, b_s, _, _ = _segment_arrays(surface_segments)
     n = len(a_s)
-    traces = [[(a_s[i], b_s[i], 0.0)] for i in range(n)]
+    traces = [[(a_s[i], b_s[i], 0.0, 0.0)] for i in range(n)]
     if registrations is None:
         registrations = [None] * len(deeper_sections)
     elif len(registrations) != len(deeper_sections):
@@ -1767,24 +1788,29 @@ def measure_stack(
             max_offset_um=max_offset,
         )
         for i in np.flatnonzero((match >= 0) & ~ambiguous):
-            traces[i].append((a_d[match[i]], b_d[match[i]], float(h)))
+            traces[i].append((a_d[match[i]], b_d[match[i]], float(h), reg.shift_sigma_um))
     normal = np.full((n, 3), np.nan)
     dip = np.full(n, np.nan)
     azimuth = np.full(n, np.nan)
     residual = np.full(n, np.nan)
+    sigma = np.full(n, np.nan)
+    line_sigma = _line_sigma_um(surface_segments, step_um)
     count = np.array([len(t) for t in traces])
     for i in np.flatnonzero(keep & (count >= 2)):
         p0 = np.array([t[0] for t in traces[i]])
         p1 = np.array([t[1] for t in traces[i]])
         z = np.array([t[2] for t in traces[i]])
-        fit = fit_plane_through_traces(p0[:, 0], p0[:, 1], p1[:, 0], p1[:, 1], z)
-        normal[i] = fit.normal_sample
-        dip[i], azimuth[i], residual[i] = (
-            fit.dip_deg,
-            fit.dip_direction_azimuth_deg,
-            (fit.residual_um),
+        floor = math.hypot(line_sigma[i], max(t[3] for t in traces[i]))
+        fit = fit_plane_through_traces(
+            p0[:, 0], p0[:, 1], p1[:, 0], p1[:, 1], z, position_sigma_um=floor
         )
+        normal[i] = fit.normal_sample
+        dip[i], azimuth[i] = fit.dip_deg, fit.dip_direction_azimuth_deg
+        residual[i], sigma[i] = fit.residual_um, fit.normal_sigma_deg
     found = keep & (count >= 2)
+    # The horizontal part of the normal has length sin δ: its azimuth σ is σ_n / sin δ.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        az_sigma = np.minimum(sigma / np.sin(np.deg2rad(dip)), 180.0)
     return {
         "segment_id": np.asarray(surface_segments["segment_id"]),
         "n_sections": np.where(keep, count, 0),
@@ -1792,7 +1818,9 @@ def measure_stack(
         "normal_y": normal[:, 1],
         "normal_z": normal[:, 2],
         "measured_dip_deg": dip,
+        "measured_dip_sigma_deg": sigma,
         "dip_direction_azimuth_deg": azimuth,
+        "dip_direction_sigma_deg": az_sigma,
         "fit_residual_um": residual,
         "dip_source": np.where(found, "serial-stack", "").astype(object),
         "status": np.where(found, "measured", "unmatched").astype(str),

@@ -867,3 +867,46 @@ def test_overhanging_face_recovers_the_plane():
     )
     got = np.stack([out["normal_x"], out["normal_y"], out["normal_z"]], -1)
     assert_allclose(np.abs(np.sum(got * normals, axis=1)), 1.0, rtol=0, atol=1e-9)
+
+
+def test_plane_fit_sigma_matches_the_scatter_of_repeated_fits():
+    # Brute force: the normal's spread over many noisy stacks against the first-order σ.
+    gen = np.random.default_rng(12)
+    n = np.array([-math.sin(math.radians(50)), 0.0, math.cos(math.radians(50))])
+    t = np.array([0.0, 1.0])
+    depths = np.array([0.0, 1.0, 2.0, 3.0, 4.0])
+    shift = depths / math.tan(math.radians(50))
+    angles, sigmas = [], []
+    for _ in range(300):
+        p = np.stack([shift, np.zeros(5)], -1) + gen.normal(0, 0.1, (5, 2))
+        a, b = p - 10 * t + gen.normal(0, 0.1, (5, 2)), p + 10 * t
+        fit = fit_plane_through_traces(a[:, 0], a[:, 1], b[:, 0], b[:, 1], depths)
+        angles.append(math.degrees(math.acos(min(1.0, abs(np.dot(fit.normal_sample, n))))))
+        sigmas.append(fit.normal_sigma_deg)
+    # The angle from the truth is the length of a 2-D error: its RMS is about √2 σ at
+    # most (σ is that of the less constrained direction).
+    rms = math.sqrt(np.mean(np.square(angles)))
+    assert 0.5 < rms / np.median(sigmas) < 2.0
+    with pytest.raises(ValueError, match="`position_sigma_um` to be a finite number >= 0"):
+        fit_plane_through_traces([0, 1], [0, 0], [0, 1], [1, 1], [0, 1], position_sigma_um=-1)
+
+
+def test_stack_table_carries_sigmas_for_the_comparator():
+    surface = _grain_map(_strip_labels(0.0))
+    levels = [(_strip_segments(h), _grain_map(_strip_labels(h))) for h in (2.5, 5.0)]
+    given = [Registration(0.0, 0.0, 0.0, 0.2, 20, "given")] * 2
+    out = measure_stack(
+        _strip_segments(0.0),
+        surface,
+        levels,
+        depths_um=[2.5, 5.0],
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        registrations=given,
+    )
+    upper = out["segment_id"] < 10
+    assert np.all(np.isfinite(out["measured_dip_sigma_deg"][upper]))
+    assert np.all(
+        (out["measured_dip_sigma_deg"][upper] > 0) & (out["measured_dip_sigma_deg"][upper] < 5)
+    )
+    assert np.all(out["dip_direction_sigma_deg"][upper] >= out["measured_dip_sigma_deg"][upper])
