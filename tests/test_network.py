@@ -6,7 +6,17 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from skimage.measure import label as sk_label
-from test_grains import CUBIC, HEXAGONAL, IDENTITY, X30, Y20, Z45, region_map, voronoi_map
+from test_grains import (
+    CUBIC,
+    HEXAGONAL,
+    IDENTITY,
+    X30,
+    Y20,
+    Z45,
+    make_map,
+    region_map,
+    voronoi_map,
+)
 
 from inclination.errors import SettingError
 from inclination.grains import segment_grains
@@ -283,3 +293,32 @@ def test_low_angle_network_on_a_hexagonal_grid():
     # Same edges as the hexagonal bicrystal: 6 east pairs and 5 diagonals (hand count).
     assert low.n_chains == 1 and low.n_edges.tolist() == [11]
     assert_allclose(low.misorientation_deg, [3.0], rtol=0, atol=2e-2)
+
+
+def test_hexagonal_network_on_voronoi_grains():
+    # Independent reference: the label changes between hexagonal neighbours, enumerated
+    # here from conventions §1 (odd rows shifted right: below an even row the neighbours
+    # are columns j-1 and j, below an odd row j and j+1).
+    square_map, region = voronoi_map((24, 30), 8, 13)
+    quats = np.moveaxis(np.asarray(square_map.quat, dtype=np.float64), 0, -1)
+    omap = make_map(quats, grid="hexagonal")
+    gm = segment_grains(omap, [CUBIC], min_pixels=1)
+    net = boundary_network(omap, gm, [CUBIC])
+    h, w = region.shape
+    lab = gm.labels
+    expected = set()
+    for i in range(h):
+        for j in range(w):
+            nbrs = [(i, j + 1)]
+            if i + 1 < h:
+                nbrs += [(i + 1, j - 1), (i + 1, j)] if i % 2 == 0 else [(i + 1, j), (i + 1, j + 1)]
+            for r, c in nbrs:
+                if 0 <= c < w and r < h and lab[i, j] != lab[r, c]:
+                    expected.add(tuple(sorted((i * w + j, r * w + c))))
+    got = {tuple(sorted(p)) for p in net.pixel_pairs.tolist()}
+    assert got == expected
+    # Neighbouring sides of hexagonal cells (in-row step s) have midpoints s/2 apart.
+    for c in range(net.n_chains):
+        p = chain_points(net, c)
+        if len(p) > 1:
+            assert_allclose(np.hypot(*np.diff(p, axis=0).T), 0.5, rtol=0, atol=1e-9)
