@@ -50,7 +50,9 @@ def _build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=text)
         p.add_argument("job", help="job file (JSON)")
         _add_common(p, default_out=f"inclination-{name}")
-    report = sub.add_parser("report", help="rebuild the report of a finished run from its folder")
+    report = sub.add_parser(
+        "report", help="write report.html and report.md again from a finished run's folder"
+    )
     report.add_argument("run", help="output folder of an earlier analyse run")
     return parser
 

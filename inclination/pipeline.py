@@ -26,16 +26,6 @@ STAGES = ("grains", "traces", "planes", "sections")
 #: Version of the summary.json layout.
 SUMMARY_VERSION = "1.0"
 
-_MEASURED_COLUMNS = (
-    "normal_x",
-    "normal_y",
-    "normal_z",
-    "measured_dip_deg",
-    "measured_dip_sigma_deg",
-    "dip_direction_azimuth_deg",
-    "dip_direction_sigma_deg",
-)
-
 
 @dataclass(frozen=True)
 class Analysis:
@@ -419,12 +409,48 @@ def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> R
 
 
 def rebuild_report(run_dir) -> RunResult:
-    """Not offered: a finished run's report is written with it (kept for the CLI's help)."""
-    raise InputError(
-        "Expected a job file: the report is written by `analyse` itself; run "
-        "`inclination analyse JOB.json --out DIR` again to rebuild it.",
-        path=run_dir,
-    )
+    """Write ``report.html`` and ``report.md`` again from a finished run's own files.
+
+    Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
+    folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
+    """
+    import json
+
+    from .report.columns import BOUNDARY_COLUMNS
+    from .report.document import write_report
+
+    folder = Path(run_dir)
+    docs = {}
+    for name in ("summary.json", "boundaries.json"):
+        path = folder / name
+        try:
+            docs[name] = json.loads(path.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise InputError(
+                "Expected the output folder of an analyse or planes run, got a folder "
+                f"without {name}.",
+                path=path,
+            ) from None
+        except (OSError, ValueError) as exc:
+            raise InputError(f"Expected a readable JSON file, got {exc}.", path=path) from None
+    rows = docs["boundaries.json"].get("rows")
+    if not isinstance(rows, list):
+        raise InputError(
+            "Expected a list of rows, got none.", path=folder / "boundaries.json", pointer="/rows"
+        )
+    table = {}
+    for c in BOUNDARY_COLUMNS:
+        values = [r.get(c.name) for r in rows]
+        if c.kind == "float":
+            table[c.name] = np.array([np.nan if v is None else v for v in values], float)
+        elif c.kind == "int":
+            table[c.name] = np.array([-1 if v is None else v for v in values], int)
+        else:
+            table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
+    png = folder / "boundaries.png"
+    figure = png.read_bytes() if png.exists() else None
+    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure)
+    return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
 
 
 # ----------------------------------------------------------------------------- outputs

@@ -148,3 +148,14 @@ def test_boundary_table_in_declared_axes(demo_run):
     doc = json.loads((demo_run / "results" / "boundaries.json").read_text())
     angles = np.array([r["trace_angle_deg"] for r in doc["rows"]], float)
     assert np.all((angles >= 0) & (angles < 180))
+
+
+def test_report_command_rebuilds_from_run_folder(demo_run, tmp_path, capsys):
+    run = tmp_path / "copy"
+    shutil.copytree(demo_run / "results", run)
+    (run / "report.html").unlink()
+    assert main(["report", str(run)]) == 0
+    html = (run / "report.html").read_text()
+    assert "data:image/png;base64," in html and "boundary_id" in html
+    assert main(["report", str(tmp_path)]) == 2
+    assert "summary.json" in capsys.readouterr().err
