@@ -226,17 +226,16 @@ def read_table(path, *, delimiter=None, whitespace=False) -> Table:
     if values is None and delim is not None and "string ''" in message:
         # Empty cells (non-indexed points) stop the parser at the first one, usually
         # early; only then is the body rewritten with nan in every empty cell.
+        # The header and comment lines hold no empty cell (names are checked), so the
+        # whole buffer is rewritten: a slice first would cost one more copy.
         d = delim.encode()
-        body = raw[body_start:]
         pair = d + d
-        body = body.replace(pair, d + b"nan" + d).replace(pair, d + b"nan" + d)
-        body = body.replace(b"\n" + d, b"\nnan" + d).replace(d + b"\n", d + b"nan\n")
-        if body.startswith(d):
-            body = b"nan" + body
-        if body.endswith(d):
-            body = body + b"nan"
-        values, message = _loadtxt(body, delim, 0)
-        del body
+        text = raw.replace(pair, d + b"nan" + d).replace(pair, d + b"nan" + d)
+        text = text.replace(b"\n" + d, b"\nnan" + d).replace(d + b"\n", d + b"nan\n")
+        if text.endswith(d):
+            text = text + b"nan"
+        values, message = _loadtxt(text, delim, first_line - 1)
+        del text
     if values is not None and values.size == 0:
         raise InputError("Expected data rows after the header, got none.", path=path)
     if values is None or values.shape[1] != n_cols:
