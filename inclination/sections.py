@@ -1249,6 +1249,14 @@ class SerialSection:
     depth_sigma_um: float
 
 
+def _take_or(values, index, fill):
+    """``values[index]`` where index >= 0, else ``fill`` (works for empty ``values``)."""
+    out = np.full(len(index), fill, dtype=np.asarray(values).dtype if len(values) else int)
+    ok = index >= 0
+    out[ok] = np.asarray(values)[index[ok]]
+    return out
+
+
 def _segment_arrays(segments):
     keep = np.ones(len(np.asarray(segments["segment_id"])), bool)
     if "too_short" in segments:
@@ -1560,7 +1568,7 @@ def measure_serial_section(
         )
     boundaries = {
         "segment_id": seg_id,
-        "deeper_segment_id": np.where(found, deeper_id[np.maximum(match, 0)], -1).astype(np.int64),
+        "deeper_segment_id": _take_or(deeper_id, match, -1).astype(np.int64),
         "offset_um": np.abs(delta),
         "offset_sigma_um": offset_sigma,
         "normal_x": normal_out[:, 0],

@@ -910,3 +910,31 @@ def test_stack_table_carries_sigmas_for_the_comparator():
         (out["measured_dip_sigma_deg"][upper] > 0) & (out["measured_dip_sigma_deg"][upper] < 5)
     )
     assert np.all(out["dip_direction_sigma_deg"][upper] >= out["measured_dip_sigma_deg"][upper])
+
+
+def test_empty_tables_give_empty_or_unmatched_rows():
+    segs = _strip_segments(0.0)
+    empty = {k: v[:0] for k, v in segs.items()}
+    grains = _grain_map(_strip_labels(0.0))
+    given = Registration(0.0, 0.0, 0.0, 0.0, 1, "given")
+    kw = {
+        "depth_um": 1.0,
+        "depth_sigma_um": 0.1,
+        "step_um": STEP,
+        "laue_by_phase": {1: "m-3m"},
+        "registration": given,
+    }
+    assert len(measure_serial_section(empty, grains, segs, grains, **kw).boundaries["status"]) == 0
+    out = measure_serial_section(segs, grains, empty, grains, **kw).boundaries
+    assert set(out["status"].tolist()) == {"unmatched"}
+    assert np.all(out["deeper_segment_id"] == -1)
+    stack = measure_stack(
+        empty,
+        grains,
+        [(segs, grains)],
+        depths_um=[1.0],
+        step_um=STEP,
+        laue_by_phase={1: "m-3m"},
+        registrations=[given],
+    )
+    assert len(stack["status"]) == 0
