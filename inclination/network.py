@@ -27,6 +27,7 @@ from .grains import (
     _check_map,
     _phase_infos,
     disorientation_cos_half,
+    gather_rows,
     neighbour_shifts,
     pair_mask,
     point_xy_um,
@@ -231,12 +232,19 @@ def _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low_deg, h
 def _pair_cos_half(q, a, b, codes, infos):
     """cos(ω/2) of the disorientation of point pairs (a, b) of one phase each (code)."""
     if len(infos) == 1:
-        return disorientation_cos_half(q[:, a], q[:, b], infos[0])
+        # In blocks, so that the gathered pairs and their products stay in cache.
+        out = np.empty(a.size, q.dtype)
+        for s in range(0, a.size, BLOCK):
+            e = min(s + BLOCK, a.size)
+            out[s:e] = disorientation_cos_half(
+                gather_rows(q, a[s:e]), gather_rows(q, b[s:e]), infos[0]
+            )
+        return out
     out = np.full(a.size, np.nan, np.float32)
     for info in infos:
         sel = np.flatnonzero(codes == info.code)
         if sel.size:
-            out[sel] = disorientation_cos_half(q[:, a[sel]], q[:, b[sel]], info)
+            out[sel] = disorientation_cos_half(gather_rows(q, a[sel]), gather_rows(q, b[sel]), info)
     return out
 
 
