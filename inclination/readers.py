@@ -318,7 +318,7 @@ class GridPlacement:
     grid: str
 
 
-def _spacing(values: np.ndarray) -> tuple[float, float]:
+def _spacing(values: np.ndarray, cut: float | None = None) -> tuple[float, float]:
     """(position of the first line, spacing) of coordinates clustered on regular lines.
 
     Points may sit up to 1 % of a step off their line while neighbouring lines
@@ -328,15 +328,21 @@ def _spacing(values: np.ndarray) -> tuple[float, float]:
     than fivefold; the largest cut whose clusters stay within 2 % of the
     smallest gap between them is taken (a band of missing lines makes a large
     jump, but its clusters would then be too wide). Returns spacing 0 for a
-    single line.
+    single line. A known ``cut`` (from a declared step, or from the other axis)
+    is used as it is.
     """
     u = np.unique(values)
     if u.size == 1:
         return float(u[0]), 0.0
     d = np.diff(u)
-    ds = np.unique(d)
-    cuts = ds[:-1][ds[1:] > 5.0 * ds[:-1]]
-    for cut in [*cuts[::-1].tolist(), 0.0]:
+    if cut is not None:
+        candidates = [float(cut)]
+        if not np.any(d > cut):
+            return float(np.mean(u)), 0.0
+    else:
+        ds = np.unique(d)
+        candidates = [*ds[:-1][ds[1:] > 5.0 * ds[:-1]][::-1].tolist(), 0.0]
+    for cut in candidates:
         split = np.flatnonzero(d > cut)
         if split.size == 0:
             continue
@@ -413,8 +419,16 @@ def place_on_grid(
         pointer = None if row is None else f"line {line_of(row)}"
         raise InputError(message, path=path, pointer=pointer)
 
-    x0, sx_all = _spacing(x)
-    y0, sy = _spacing(y)
+    # A declared step separates lines at once: x lines are a step (square) or half a
+    # step (hexagonal) apart, rows a step or step·√3/2, so these cuts suit both grids.
+    x0, sx_all = _spacing(x, None if step_x_um is None else 0.25 * step_x_um)
+    y0, sy = _spacing(y, None if step_y_um is None else 0.4 * step_y_um)
+    # Without one, a single row (or column) whose points scatter a little would look
+    # like many lines a hair apart: the other axis' spacing sets the scale instead.
+    if step_y_um is None and 0 < sy < 0.05 * sx_all:
+        y0, sy = _spacing(y, 0.5 * sx_all)
+    if step_x_um is None and 0 < sx_all < 0.05 * sy:
+        x0, sx_all = _spacing(x, 0.25 * sy)
     # Half-step index of every point along x, row index along y.
     hex_like = False
     if sy > 0 and sx_all > 0:
@@ -475,6 +489,18 @@ def place_on_grid(
         v = (x - xg) / sx
         col = np.rint(v).astype(np.int64)
         sy_out = pitch
+
+    # The origin from line centres can sit a fraction of the tolerance off; the median
+    # offset of the points themselves (a fixed subsample: it only moves the origin)
+    # centres the grid on them, so points within 1 % of their grid point pass.
+    sub = slice(None, None, max(1, u.size // 65536))
+    du, dv = float(np.median((u - row)[sub])), float(np.median((v - col)[sub]))
+    row_c, col_c = np.rint(u - du).astype(np.int64), np.rint(v - dv).astype(np.int64)
+    # On a tiny map of badly placed points the median could push a point past row or
+    # column 0; the unrefined origin is kept then, and the check below names the point.
+    if row_c.min() >= 0 and col_c.min() >= 0:
+        y0, xg = y0 + du * pitch, xg + dv * sx
+        u, v, row, col = u - du, v - dv, row_c, col_c
 
     for name, frac, step_name in (("y", u - row, pitch), ("x", v - col, sx)):
         first = _first_off(frac)

@@ -12,6 +12,8 @@ import json
 import numpy as np
 import pytest
 import tifffile
+from hypothesis import given
+from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
@@ -500,7 +502,8 @@ def test_hexagonal_grid_whose_top_row_is_shifted(tmp_path):
     omap = read_map(spec_for(small_csv(tmp_path, rows)))
     # Even rows hold the unshifted points (conventions §1): the origin moves half a step left.
     assert omap.valid.tolist() == [[False, True, True], [True, True, False]]
-    assert_allclose(omap.axes.origin_um, (-0.5, 0.0), rtol=0, atol=1e-9)
+    # coordinates were written to 1e-6 µm
+    assert_allclose(omap.axes.origin_um, (-0.5, 0.0), rtol=0, atol=1e-6)
 
 
 def test_wide_gap_of_missing_columns_keeps_the_step(tmp_path):
@@ -680,10 +683,11 @@ def test_empty_file_and_header_only(tmp_path):
         read_table(write_text(tmp_path / "d.csv", "a,a\n1,2\n"), delimiter=",")
     with pytest.raises(InputError, match="Expected a header row of non-empty column names"):
         read_table(write_text(tmp_path / "e.csv", "a,,b\n1,2,3\n"), delimiter=",")
+    (tmp_path / "u.csv").write_bytes(b"\xff\xfe,a\n1,2\n")
     with pytest.raises(InputError, match="Expected a UTF-8 text header row"):
-        read_table(tmp_path / "e.csv", delimiter=",") if (tmp_path / "e.csv").write_bytes(
-            b"\xff\xfe,a\n1,2\n"
-        ) else None
+        read_table(tmp_path / "u.csv", delimiter=",")
+    with pytest.raises(InputError, match="Expected a readable file, got"):
+        read_table(tmp_path, delimiter=",")
 
 
 def test_path_that_does_not_exist(tmp_path):
@@ -823,3 +827,96 @@ def test_written_files_get_ordinary_permissions(tmp_path):
     finally:
         os.umask(old)
     assert (path.stat().st_mode & 0o777) == 0o644
+
+
+def test_hexagonal_step_checked_against_declaration(tmp_path):
+    r = np.sqrt(3) / 2
+    rows = [f"{x:.6f},{y:.6f},1,2,3,1" for x, y in [(0, 0), (1, 0), (0.5, r), (1.5, r)]]
+    path = small_csv(tmp_path, rows)
+    assert read_map(spec_for(path, step_um=1.0, grid="hexagonal")).step_x_um == 1.0
+    with pytest.raises(InputError, match=r"Expected the points to be 0.5 µm apart as declared"):
+        read_map(spec_for(path, step_um=0.5))
+
+
+def test_array_maps_need_a_step(tmp_path):
+    np.savez(tmp_path / "m.npz", euler_deg=np.zeros((2, 2, 3)), phase=np.ones((2, 2)))
+    spec = {
+        "path": str(tmp_path / "m.npz"),
+        "format": "npz",
+        "angles": "deg",
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+    }
+    with pytest.raises(InputError, match=r"/map/step_um: Expected 'step_um' for a npz map"):
+        read_map(spec)
+
+
+def test_tiff_reader_direct_errors(tmp_path):
+    from inclination.readers import read_tiff_arrays
+
+    side = tmp_path / "c.tif.json"
+    side.write_text(json.dumps({"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase"]}))
+    with pytest.raises(InputError, match="Expected an existing file, got none at this path"):
+        read_tiff_arrays(tmp_path / "none.tif", sidecar_path=side, angles="deg")
+    tifffile.imwrite(
+        tmp_path / "c.tif", np.zeros((4, 2, 2), np.complex64), photometric="minisblack"
+    )
+    with pytest.raises(InputError, match="Expected numeric channels, got dtype complex64"):
+        read_tiff_arrays(tmp_path / "c.tif", sidecar_path=side, angles="deg")
+
+
+def test_npz_and_tiff_files_unchanged_by_reading(tmp_path):
+    omap = sample_map()
+    npz = write_npz(tmp_path / "m.npz", omap)
+    tif, side = write_tiff(tmp_path / "m.tif", omap)
+    before = [p.read_bytes() for p in (npz, tif, side)]
+    common = {
+        "angles": "deg",
+        "step_um": 0.5,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+    }
+    read_map({"path": str(npz), "format": "npz", **common})
+    read_map({"path": str(tif), "format": "tiff", **common})
+    assert [p.read_bytes() for p in (npz, tif, side)] == before
+
+
+def test_points_and_vectors_refuse_bad_shapes():
+    axes = DeclaredAxes()
+    with pytest.raises(ValueError, match=r"Expected `xy_sample_um` to have shape \(\.\.\., 2\)"):
+        axes.points_to_declared([1.0, 2.0, 3.0])
+    with pytest.raises(ValueError, match=r"Expected `v_sample` to have shape \(\.\.\., 3\)"):
+        axes.vectors_to_declared([1.0, 2.0])
+
+
+@given(
+    h=st.integers(1, 6),
+    w=st.integers(2, 6),
+    step=st.sampled_from([0.1, 0.25, 0.5, 1.0, 3.0]),
+    hexagonal=st.booleans(),
+    seed=st.integers(0, 2**16),
+)
+def test_place_on_grid_recovers_indices_of_any_subset_in_any_order(h, w, step, hexagonal, seed):
+    # Invariant: points placed from their own coordinates land on their grid indices,
+    # whatever subset is present and in whatever order (conventions §1 positions).
+    rng = np.random.default_rng(seed)
+    i, j = np.divmod(np.arange(h * w), w)
+    keep = rng.random(h * w) < 0.7
+    # Two neighbours in the first row and the first point of the second fix the
+    # origin and show the declared step (a wider spacing is refused as inconsistent).
+    keep[[0, 1]] = True
+    if h > 1:
+        keep[w] = True
+    i, j = i[keep], j[keep]
+    if hexagonal:
+        x, y = (j + 0.5 * (i % 2)) * step, i * step * np.sqrt(3) / 2
+    else:
+        x, y = j * step, i * step
+    order = rng.permutation(i.size)
+    noise = rng.uniform(-0.004, 0.004, (2, i.size)) * step
+    grid = "hexagonal" if hexagonal and h > 1 else "square"
+    p = place_on_grid(
+        x[order] + noise[0], y[order] + noise[1], step_x_um=step, step_y_um=step, grid=grid
+    )
+    assert_array_equal(p.row, i[order] - i.min())
+    assert_array_equal(p.col, j[order])
