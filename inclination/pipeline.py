@@ -11,6 +11,7 @@ file is complete. The command line calls these and nothing else.
 from __future__ import annotations
 
 import platform
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -132,23 +133,20 @@ def _map_bounds_um(omap):
     )
 
 
-def _depth_entry(section):
-    # TEMPORARY until sections.section_depth reads the schema's form directly.
-    entry = {k: v for k, v in section.items() if v is not None}
-    indent = entry.pop("indent", None)
-    if indent:
-        entry["indent_diagonal_before_um"] = indent["diagonal_before_um"]
-        entry["indent_diagonal_after_um"] = indent["diagonal_after_um"]
-    return entry
-
-
 def _sections(job, omap, grain_map, segments, progress):
     """Measure every section of the job; returns (tables, notes)."""
-    from .sections import measure_cross_section, measure_serial_section, section_depth
+    from .sections import (
+        measure_cross_section,
+        measure_serial_section,
+        measure_stack,
+        section_depth,
+    )
 
     tables, notes = [], []
     step = float(min(omap.step_x_um, omap.step_y_um))
-    laue_by_phase = {p.id: p.laue for p in job.phases}
+    # Phase records, not bare Laue symbols: the setting matters for hexagonal phases.
+    laue_by_phase = _phases_by_id(job)
+    stack = []
     for index, section in enumerate(job.sections):
         pointer = f"/sections/{index}"
         name = section.get("name") or f"section {index + 1}"
@@ -172,7 +170,7 @@ def _sections(job, omap, grain_map, segments, progress):
                 }
             )
         else:
-            depth = section_depth(_depth_entry(section), path=job.source_path, pointer=pointer)
+            depth = section_depth(section, path=job.source_path, pointer=pointer)
             deeper = job.read_section_map(index)
             if deeper.grid != omap.grid or not np.isclose(deeper.step_x_um, omap.step_x_um):
                 raise InputError(
@@ -194,20 +192,24 @@ def _sections(job, omap, grain_map, segments, progress):
                         for f in section["fiducials"]
                     ]
                 )
-            result = measure_serial_section(
-                segments,
-                grain_map,
-                deeper_segments,
-                deeper_grains,
-                depth_um=depth.depth_um,
-                depth_sigma_um=depth.depth_sigma_um,
-                step_um=step,
-                laue_by_phase=laue_by_phase,
-                fiducials_um=fiducials,
-                threshold_deg=job.grains["threshold_deg"],
-                path=job.source_path,
-                pointer=pointer,
-            )
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                result = measure_serial_section(
+                    segments,
+                    grain_map,
+                    deeper_segments,
+                    deeper_grains,
+                    depth_um=depth.depth_um,
+                    depth_sigma_um=depth.depth_sigma_um,
+                    step_um=step,
+                    laue_by_phase=laue_by_phase,
+                    fiducials_um=fiducials,
+                    threshold_deg=job.grains["threshold_deg"],
+                    grid=omap.grid,
+                    path=job.source_path,
+                    pointer=pointer,
+                )
+            stack.append((deeper_segments, deeper_grains, depth.depth_um, result.registration))
             table = result.boundaries
             reg = result.registration
             status, count = np.unique(np.asarray(table["status"]), return_counts=True)
@@ -227,8 +229,33 @@ def _sections(job, omap, grain_map, segments, progress):
                         "method": reg.method,
                     },
                     "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                    "warnings": [str(w.message) for w in caught],
                 }
             )
+        tables.append(table)
+    if len(stack) >= 2:
+        # Several serial sections of one area: one least-squares plane per boundary
+        # through all its traces (conventions §8), beside the pairwise measurements.
+        table = measure_stack(
+            segments,
+            grain_map,
+            [(seg, grains) for seg, grains, _, _ in stack],
+            depths_um=[d for _, _, d, _ in stack],
+            step_um=step,
+            laue_by_phase=laue_by_phase,
+            registrations=[reg for _, _, _, reg in stack],
+            threshold_deg=job.grains["threshold_deg"],
+            grid=omap.grid,
+        )
+        status, count = np.unique(np.asarray(table["status"]), return_counts=True)
+        notes.append(
+            {
+                "name": "stack of all serial sections",
+                "kind": "stack",
+                "depths_um": [d for _, _, d, _ in stack],
+                "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+            }
+        )
         tables.append(table)
     return tuple(tables), tuple(notes)
 

@@ -77,7 +77,12 @@ BOUNDARY_COLUMNS = (
         _c("measured_dip_deg", "float", 3, "dip measured on a section"),
         _c("measured_dip_sigma_deg", "float", 3, "standard uncertainty of the measured dip"),
         _c("measured_dip_azimuth_deg", "float", 3, "measured dip direction, declared axes"),
-        _c("dip_source", "str", 0, "cross-section, serial-section or stack; empty if not measured"),
+        _c(
+            "dip_source",
+            "str",
+            0,
+            "cross-section, serial-section or serial-stack; empty if not measured",
+        ),
         _c("sense", "str", 0, "agrees, opposite or undecided (empty if not measured)"),
         _c("sense_log10_lr", "float", 3, "log10 likelihood ratio, declared frame vs turned"),
         _c("normal_x", "float", 5, "measured plane normal, declared axes, x"),
@@ -87,6 +92,8 @@ BOUNDARY_COLUMNS = (
         _c("measured_plane_a_deviation_deg", "float", 3, "angle to that plane"),
         _c("measured_plane_b", "str", 0, "nearest low-index plane to the measured normal, grain b"),
         _c("measured_plane_b_deviation_deg", "float", 3, "angle to that plane"),
+        _c("measured_twin_plane_deviation_deg", "float", 3, "Σ3: measured plane to common {111}"),
+        _c("measured_coherent_twin", "str", 0, "Σ3: yes when the measured plane is the {111}"),
     )
 )
 

@@ -190,6 +190,10 @@ def boundaries_table(analysis) -> dict:
     out["measured_plane_a_deviation_deg"] = _by_segment(pf, ids, "plane_a_deviation_deg", np.nan)
     out["measured_plane_b"] = _by_segment(pf, ids, "plane_b_measured", "")
     out["measured_plane_b_deviation_deg"] = _by_segment(pf, ids, "plane_b_deviation_deg", np.nan)
+    out["measured_twin_plane_deviation_deg"] = _by_segment(
+        pf, ids, "twin_plane_deviation_deg", np.nan
+    )
+    out["measured_coherent_twin"] = _by_segment(pf, ids, "coherent_twin", "")
     for c in BOUNDARY_COLUMNS:
         if c.kind == "float":
             out[c.name] = np.asarray(out[c.name], float)

@@ -17,9 +17,10 @@ SCHEMA_VERSION = "1.0"
 _INDICES = r"^[\(\[\{<]-?\d+( -?\d+){2,3}[\)\]\}>]$"
 _ENUMS = {
     "sense": ["agrees", "opposite", "undecided"],
-    "dip_source": ["cross-section", "serial-section", "stack"],
+    "dip_source": ["cross-section", "serial-section", "serial-stack"],
     "identification": ["coherent_twin", "identified", "ambiguous", "none"],
     "twin_test": ["pass", "fail"],
+    "measured_coherent_twin": ["yes", "no"],
 }
 _PATTERNS = {
     "plane_a": _INDICES,
