@@ -48,7 +48,8 @@ def make_benchmark_map(
     """
     rng = np.random.default_rng(rng)
     n = int(n_grains if n_grains is not None else max(2, round(size * size / 4200)))
-    seeds = rng.random((n, 2)) * size
+    height = size * (np.sqrt(3.0) / 2 if grid == "hexagonal" else 1.0)
+    seeds = rng.random((n, 2)) * np.array([size, height])
     tree = cKDTree(seeds)
     grain_q = random_quat(n, rng=rng).astype(np.float32)  # (n, 4)
     quat = np.empty((4, size, size), dtype=np.float32)
@@ -59,6 +60,10 @@ def make_benchmark_map(
     for r0 in range(0, size, rows_per_block):
         r1 = min(size, r0 + rows_per_block)
         yy, xx = np.meshgrid(np.arange(r0, r1, dtype=np.float64), cols, indexing="ij")
+        if grid == "hexagonal":
+            # Conventions §1: rows √3/2 steps apart, odd rows shifted right by half a step.
+            xx = xx + 0.5 * (yy % 2)
+            yy = yy * (np.sqrt(3.0) / 2)
         _, idx = tree.query(np.column_stack([xx.ravel(), yy.ravel()]), workers=-1)
         truth[r0:r1] = (idx + 1).reshape(r1 - r0, size)
         g = grain_q[idx]  # (m, 4)
@@ -74,7 +79,8 @@ def make_benchmark_map(
         block[1] = a0 * b1 + a1 * b0 + a2 * b3 - a3 * b2
         block[2] = a0 * b2 - a1 * b3 + a2 * b0 + a3 * b1
         block[3] = a0 * b3 + a1 * b2 - a2 * b1 + a3 * b0
-    step_y = step_um * (np.sqrt(3.0) / 2 if grid == "hexagonal" else 1.0)
+    # A hexagonal map keeps step_y = step_x (the in-row step), as maps.OrientationMap does.
+    step_y = step_um
     return BenchmarkMap(
         quat=quat,
         phase=np.ones((size, size), dtype=np.int32),
