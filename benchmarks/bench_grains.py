@@ -40,8 +40,8 @@ def best_of(repeat, fn, clock):
     return min(times), result
 
 
-def run(size: int, repeat: int, cpu: bool) -> dict:
-    omap = make_benchmark_map(size, rng=size)
+def run(size: int, repeat: int, cpu: bool, grid: str = "square") -> dict:
+    omap = make_benchmark_map(size, rng=size, grid=grid)
     n = size * size
     # Wall time is what a user waits; CPU time (process_time) is steadier on a shared
     # machine. The kernels are single-threaded numpy, so on an idle machine they agree.
@@ -80,9 +80,11 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[1024, 2048, 4096])
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--cpu", action="store_true", help="time with process_time")
+    parser.add_argument("--grid", choices=("square", "hexagonal"), default="square")
     args = parser.parse_args(argv)
-    rows = [run(s, args.repeat, args.cpu) for s in args.sizes]
-    print(f"clock: {'process_time (CPU)' if args.cpu else 'perf_counter (wall)'}")
+    rows = [run(s, args.repeat, args.cpu, args.grid) for s in args.sizes]
+    clock = "process_time (CPU)" if args.cpu else "perf_counter (wall)"
+    print(f"grid: {args.grid}; clock: {clock}")
     head = (
         f"{'size':>6} {'grains':>7} {'truth':>6} {'chains':>7} {'copy s':>7} {'grains s':>9} "
         f"{'net s':>7} {'total s':>8} {'Mpt/s':>7} {'ns/pt':>7} {'x copy':>7} {'B/pt':>6}"
