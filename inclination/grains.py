@@ -235,7 +235,7 @@ def neighbour_shifts(grid: str, w: int) -> tuple[tuple[int, int], ...]:
     return ((1, -1), (w, -1), (w - 1, 0), (w + 1, 1))
 
 
-def pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndarray:
+def _pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndarray:
     """Which flat indices ``k`` have an in-map forward neighbour ``k + shift``."""
     i, j = np.divmod(k, w)
     ok = i < h - 1 if shift != 1 else j < w - 1
@@ -249,19 +249,15 @@ def pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndar
 # ----------------------------------------------------------------------------- kernels
 
 
-def gather_rows(q: np.ndarray, index: np.ndarray) -> np.ndarray:
-    """Columns ``index`` of the (4, N) planes as a (4, n) array, one row at a time.
-
-    ``q[:, index]`` goes through numpy's general fancy indexing, about four times slower
-    than a ``take`` per row on these shapes.
-    """
+def _gather_rows(q: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """Columns ``index`` of the (4, N) planes as a (4, n) array, one ``take`` per row."""
     out = np.empty((4, len(index)), q.dtype)
     for c in range(4):
         q[c].take(index, out=out[c])
     return out
 
 
-def misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
+def _misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
     """Crystal-frame misorientations ``qb ⊗ qa⁻¹`` of pairs given as (4, n) rows.
 
     Returned as an (n, 4) view of contiguous (4, n) rows, the layout the symmetry
@@ -277,12 +273,12 @@ def misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
     return out.T
 
 
-def disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
+def _disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
     """cos(ω/2) of the disorientation ω of pairs given as (4, n) rows.
 
     The misorientation ``qb ⊗ qa⁻¹`` goes to :func:`inclination.symmetry.max_scalar_part`.
     """
-    dq = misorientation_rows(qa, qb)
+    dq = _misorientation_rows(qa, qb)
     return symmetry.max_scalar_part(dq, info.laue, setting=info.setting)
 
 
@@ -325,8 +321,8 @@ def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, pro
                 sel = rest if len(infos) == 1 else rest[phases_here == info.code]
                 if sel.size == 0:
                     continue
-                m = disorientation_cos_half(
-                    gather_rows(q, s + sel), gather_rows(q, s + shift + sel), info
+                m = _disorientation_cos_half(
+                    _gather_rows(q, s + sel), _gather_rows(q, s + shift + sel), info
                 )
                 lk[sel] = m > cos_half
         if progress is not None:
@@ -546,7 +542,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     ref = np.zeros((4, m), np.float32)
     has = first_run >= 0
     has[0] = False
-    ref[:, has] = gather_rows(q, own_pos[first_run[has]])
+    ref[:, has] = _gather_rows(q, own_pos[first_run[has]])
     cos_safe = np.cos(_IDENTITY_SAFE_RAD / 2)
     blocks = []
     for s, e in _row_blocks(n_points, w):
@@ -572,7 +568,9 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         far = np.flatnonzero((np.abs(d) < cos_safe) & (sg != 0))
         if far.size:
             g = np.repeat(vals, counts)[far]
-            qn[:, far] = _nearest_equivalents(gather_rows(q, s + far), ref[:, g].T, g, grain_info).T
+            qn[:, far] = _nearest_equivalents(
+                _gather_rows(q, s + far), ref[:, g].T, g, grain_info
+            ).T
         run_sums[:, lo:hi] = np.add.reduceat(qn, starts, axis=1, dtype=np.float64)
         if progress is not None:
             progress(0.5 * (b + 1) / len(blocks))
@@ -608,7 +606,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         angle *= np.float32(4.0)
         if far.size:
             g = np.repeat(vals, counts)[far]
-            cos_half = _max_scalar_to(gather_rows(q, s + far), mean[g], g, grain_info)
+            cos_half = _max_scalar_to(_gather_rows(q, s + far), mean[g], g, grain_info)
             angle[far] = 2.0 * np.arccos(np.minimum(cos_half, 1.0))
         angle *= inside
         run_angle_sum[lo:hi] = np.add.reduceat(angle, starts, dtype=np.float64)
@@ -649,7 +647,7 @@ def _max_scalar_to(qs, means, g, grain_info):
     """cos(ω/2) of the disorientation between points (4, n) and their grain means (n, 4)."""
     out = np.empty(qs.shape[1])
     for info, sel in _by_phase(g, grain_info):
-        out[sel] = disorientation_cos_half(means[sel].T, qs[:, sel], info)
+        out[sel] = _disorientation_cos_half(means[sel].T, qs[:, sel], info)
     return out
 
 

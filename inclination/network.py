@@ -25,11 +25,11 @@ from .errors import SettingError
 from .grains import (
     BLOCK,
     _check_map,
+    _disorientation_cos_half,
+    _gather_rows,
+    _pair_mask,
     _phase_infos,
-    disorientation_cos_half,
-    gather_rows,
     neighbour_shifts,
-    pair_mask,
     point_xy_um,
 )
 
@@ -192,7 +192,7 @@ def _grain_edges(labels_flat, shifts, h, w):
             la = labels_flat[s:e]
             lb = labels_flat[s + shift : e + shift]
             k = np.flatnonzero((la != lb) & (la > 0) & (lb > 0)) + s
-            k = k[pair_mask(k, shift, parity, h, w)]
+            k = k[_pair_mask(k, shift, parity, h, w)]
             ks.append(k)
             ss.append(np.full(k.size, shift, np.int64))
     if not ks:
@@ -214,7 +214,7 @@ def _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low_deg, h
             d = np.abs(np.einsum("cn,cn->n", q[:, s:e], q[:, s + shift : e + shift]))
             # Pairs within low_deg without symmetry are within it with symmetry too.
             k = np.flatnonzero((la == lb) & (la > 0) & (d <= cos_low)) + s
-            k = k[pair_mask(k, shift, parity, h, w)]
+            k = k[_pair_mask(k, shift, parity, h, w)]
             if k.size == 0:
                 continue
             m = _pair_cos_half(q, k, k + shift, grain_code[labels_flat[k]], infos)
@@ -236,15 +236,17 @@ def _pair_cos_half(q, a, b, codes, infos):
         out = np.empty(a.size, q.dtype)
         for s in range(0, a.size, BLOCK):
             e = min(s + BLOCK, a.size)
-            out[s:e] = disorientation_cos_half(
-                gather_rows(q, a[s:e]), gather_rows(q, b[s:e]), infos[0]
+            out[s:e] = _disorientation_cos_half(
+                _gather_rows(q, a[s:e]), _gather_rows(q, b[s:e]), infos[0]
             )
         return out
     out = np.full(a.size, np.nan, np.float32)
     for info in infos:
         sel = np.flatnonzero(codes == info.code)
         if sel.size:
-            out[sel] = disorientation_cos_half(gather_rows(q, a[sel]), gather_rows(q, b[sel]), info)
+            out[sel] = _disorientation_cos_half(
+                _gather_rows(q, a[sel]), _gather_rows(q, b[sel]), info
+            )
     return out
 
 

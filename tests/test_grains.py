@@ -387,3 +387,18 @@ def test_every_grain_dissolved_gives_empty_table_not_error():
     for name in GRAIN_COLUMNS:
         assert len(gm.grains[name]) == 0
     assert gm.grains["quat"].shape == (0, 4)
+
+
+def test_misorientation_rows_match_scipy_matrices():
+    # Reference: scipy's Rotation matrices. Passive orientations (§3): the misorientation
+    # from a to b is g_b · g_aᵀ; scipy takes scalar-last quaternions of the same matrices.
+    from inclination import grains
+
+    rng = np.random.default_rng(4)
+    qa, qb = random_quat(5, rng=rng), random_quat(5, rng=rng)
+    dq = grains._misorientation_rows(qa.T.copy(), qb.T.copy())
+    ga = Rotation.from_quat(np.roll(qa, -1, axis=1)).as_matrix()
+    gb = Rotation.from_quat(np.roll(qb, -1, axis=1)).as_matrix()
+    expected = gb @ np.transpose(ga, (0, 2, 1))
+    got = Rotation.from_quat(np.roll(dq, -1, axis=1)).as_matrix()
+    assert_allclose(got, expected, rtol=0, atol=1e-12)
