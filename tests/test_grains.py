@@ -402,3 +402,22 @@ def test_misorientation_rows_match_scipy_matrices():
     expected = gb @ np.transpose(ga, (0, 2, 1))
     got = Rotation.from_quat(np.roll(dq, -1, axis=1)).as_matrix()
     assert_allclose(got, expected, rtol=0, atol=1e-12)
+
+
+def test_quaternion_sign_does_not_matter():
+    # q and -q are one orientation: flipping the sign of some points changes nothing.
+    rng = np.random.default_rng(9)
+    base = quat_from_axis_angle_deg([2, 1, -1], 71.0)
+    axes = rng.normal(size=(5, 6, 3))
+    q = quat_multiply(base, quat_from_axis_angle_deg(axes, rng.normal(0, 0.5, (5, 6))))
+    flipped = np.where(rng.random((5, 6, 1)) < 0.1, -q, q)
+    a = segment_grains(make_map(q), [CUBIC], min_pixels=1)
+    b = segment_grains(make_map(flipped), [CUBIC], min_pixels=1)
+    assert a.n_grains == b.n_grains == 1
+    assert_allclose(
+        disorientation_angle_deg(a.grains["quat"][0], b.grains["quat"][0], "m-3m"),
+        0.0,
+        rtol=0,
+        atol=1e-3,
+    )
+    assert_allclose(b.grains["spread_max_deg"], a.grains["spread_max_deg"], rtol=0, atol=1e-3)
