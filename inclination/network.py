@@ -30,7 +30,7 @@ from .grains import (
     _pair_mask,
     _phase_infos,
     neighbour_shifts,
-    point_xy_um,
+    row_pitch_um,
 )
 
 __all__ = ["BoundaryNetwork", "CHAIN_COLUMNS", "boundary_network"]
@@ -120,6 +120,24 @@ def _square_vertices(shift, i, j, w):
     tail = np.where(right, i * stride + j + 1, (i + 1) * stride + j + 1)
     head = np.where(right, (i + 1) * stride + j + 1, (i + 1) * stride + j)
     return tail, head
+
+
+def _edge_midpoints_um(omap, i, j, shift, w):
+    """Midpoints (x, y) in S (µm) of the pairs (i, j)–(i, j) + shift (§1), without divmod."""
+    step_x = float(omap.step_x_um)
+    pitch = row_pitch_um(omap)
+    down = shift != 1
+    dj = (
+        np.where(shift == 1, 1, 0)
+        + np.where(shift == w - 1, -1, 0)
+        + np.where(shift == w + 1, 1, 0)
+    )
+    x = (j + 0.5 * dj) * step_x
+    if omap.grid == "hexagonal":
+        odd = i % 2
+        x = x + 0.25 * step_x * (odd + np.where(down, 1 - odd, odd))
+    y = (i + 0.5 * down) * pitch
+    return x, y
 
 
 def _hex_vid(kind, r, c, w):
@@ -306,7 +324,7 @@ def _order_chains(nxt: np.ndarray):
     return chain, position, length, closed
 
 
-def _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, omap, angle):
+def _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, mid, angle):
     """Gather per-edge arrays into the ragged chains, ordered by grain pair then raster."""
     n_comp = length.size
     ga_e = labels_flat[edge_a]
@@ -327,9 +345,9 @@ def _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, omap
     pb = np.empty(edge_a.size, np.int64)
     pa[slot] = edge_a
     pb[slot] = edge_b
-    xa, ya = point_xy_um(omap, pa)
-    xb, yb = point_xy_um(omap, pb)
-    points = np.column_stack([(xa + xb) / 2, (ya + yb) / 2])
+    points = np.empty((edge_a.size, 2))
+    points[slot, 0] = mid[0]
+    points[slot, 1] = mid[1]
     chain_sorted = np.repeat(np.arange(n_comp), lens_sorted)
     ang = np.empty(edge_a.size)
     ang[slot] = angle
@@ -507,7 +525,8 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
 
     chain, position, length, closed = _order_chains(nxt)
     angle = _edge_angles(q, edge_a, edge_b, labels_flat, grain_code, grain_phase, infos, valid)
-    parts = _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, omap, angle)
+    mid = _edge_midpoints_um(omap, i, j, shift, w)
+    parts = _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, mid, angle)
     return _finish(parts, grain_phase, "grain", low_net)
 
 
@@ -553,7 +572,8 @@ def _low_angle_network(
             tail[sel], head[sel] = _hex_vertices(int(sh), i[sel], j[sel], w)
     nxt_state = _undirected_successors(omap.grid, labels, tail, head, w)
     chain, position, length, closed = _pick_direction(nxt_state, a.size)
-    parts = _assemble(a, b, chain, position, length, closed, labels_flat, omap, angle)
+    mid = _edge_midpoints_um(omap, i, j, shift, w)
+    parts = _assemble(a, b, chain, position, length, closed, labels_flat, mid, angle)
     return _finish(parts, grain_phase, "low_angle")
 
 

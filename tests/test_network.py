@@ -317,6 +317,9 @@ def test_hexagonal_network_on_voronoi_grains():
                     expected.add(tuple(sorted((i * w + j, r * w + c))))
     got = {tuple(sorted(p)) for p in net.pixel_pairs.tolist()}
     assert got == expected
+    pos = omap.positions_sample_um().reshape(-1, 2)
+    mid = (pos[net.pixel_pairs[:, 0]] + pos[net.pixel_pairs[:, 1]]) / 2
+    assert_allclose(net.points_um, mid, rtol=0, atol=1e-12)
     # Neighbouring sides of hexagonal cells (in-row step s) have midpoints s/2 apart.
     for c in range(net.n_chains):
         p = chain_points(net, c)
