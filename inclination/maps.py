@@ -68,7 +68,19 @@ _BLOCK = 1 << 18
 
 def _read_only(arr: np.ndarray) -> np.ndarray:
     arr.flags.writeable = False
+    if isinstance(arr.base, np.ndarray) and arr.base.flags.owndata:
+        arr.base.flags.writeable = False
     return arr
+
+
+def _sealed(arr: np.ndarray) -> bool:
+    """True when no writeable reference to ``arr``'s memory can exist (itself or its owner)."""
+    if arr.flags.writeable:
+        return False
+    if arr.flags.owndata:
+        return True
+    base = arr.base
+    return isinstance(base, np.ndarray) and base.flags.owndata and not base.flags.writeable
 
 
 @dataclass(frozen=True, eq=False)
@@ -125,7 +137,17 @@ class OrientationMap:
     provenance: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        quat = np.array(self.quat, dtype=np.float32, order="C", copy=True)
+        # An array that owns its memory, is float32, C-ordered and already read-only (as
+        # the readers hand over) cannot change under the record: it is kept, not copied,
+        # which spares a fresh 16-bytes-per-point allocation on every map read.
+        q_in = self.quat
+        adopted = (
+            isinstance(q_in, np.ndarray)
+            and q_in.dtype == np.float32
+            and q_in.flags.c_contiguous
+            and _sealed(q_in)
+        )
+        quat = q_in if adopted else np.array(q_in, dtype=np.float32, order="C", copy=True)
         if quat.ndim != 3 or quat.shape[0] != 4:
             raise ValueError(f"Expected `quat` to have shape (4, H, W), got {quat.shape}.")
         shape = quat.shape[1:]
@@ -148,15 +170,26 @@ class OrientationMap:
                 )
             if np.any(valid & (phase == 0)):
                 raise ValueError("Expected `valid` to be False wherever `phase` is 0, got True.")
-        planes = quat[:, valid]
-        if not np.all(np.isfinite(planes)):
-            raise ValueError("Expected `quat` to be finite at valid points, got NaN or inf.")
-        norm = np.sqrt(np.einsum("kn,kn->n", planes, planes, dtype=np.float64))
-        if norm.size and np.max(np.abs(norm - 1.0)) > 1e-3:
+        # Identity at the points that are not valid first, then the checks run over the
+        # whole array in blocks: no gather of the valid points, no full-size temporaries.
+        if adopted:
+            if not np.all(quat[:, ~valid] == np.asarray(_IDENTITY, dtype=np.float32)[:, None]):
+                raise ValueError("Expected `quat` to hold the identity where not valid.")
+        else:
+            quat[:, ~valid] = np.asarray(_IDENTITY, dtype=np.float32)[:, None]
+        flat = quat.reshape(4, -1)
+        worst = 0.0
+        for start in range(0, flat.shape[1], 1 << 20):
+            block = flat[:, start : start + (1 << 20)]
+            norm2 = np.einsum("kn,kn->n", block, block, dtype=np.float64)
+            if not np.all(np.isfinite(norm2)):
+                raise ValueError("Expected `quat` to be finite at valid points, got NaN or inf.")
+            if norm2.size:
+                worst = max(worst, float(np.max(np.abs(np.sqrt(norm2) - 1.0))))
+        if worst > 1e-3:
             raise ValueError(
-                f"Expected `quat` to be unit at valid points, got a norm of {norm.max():.6g}."
+                f"Expected `quat` to be unit at valid points, got a norm off by {worst:.6g}."
             )
-        quat[:, ~valid] = np.asarray(_IDENTITY, dtype=np.float32)[:, None]
         check_one_of(self.grid, "grid", GRIDS)
         for name in ("step_x_um", "step_y_um"):
             value = getattr(self, name)
@@ -331,18 +364,30 @@ def _start_conversion(pool, columns, valid_rows, axes, dfr, *, radians=False):
     small, and numpy's trigonometry releases the GIL, so the blocks run on two
     cores while the caller places points on the grid.
     """
-    out = np.zeros((4, valid_rows.size), dtype=np.float32)
-    out[0] = 1.0
-    index = np.flatnonzero(valid_rows)
+    out = np.empty((4, valid_rows.size), dtype=np.float32)
+    identity = np.array([1.0, 0.0, 0.0, 0.0])
+    # Data already in S (declared axes = S, no data-frame turn): the conversion is the
+    # identity, so it is skipped rather than multiplied out.
+    same_frame = axes.is_sample_frame and (
+        dfr is None or np.array_equal(np.asarray(dfr, float), identity)
+    )
 
-    def convert(block):
-        e = np.stack([c[block] for c in columns], axis=-1)
+    def convert(start):
+        # Contiguous blocks over every row (no gather of the valid rows): points that
+        # are not valid are converted from zero angles, then set to the identity.
+        stop = min(start + _BLOCK, valid_rows.size)
+        v = valid_rows[start:stop]
+        e = np.stack([c[start:stop] for c in columns], axis=-1).astype(np.float64)
+        e[~v] = 0.0
         largest = float(np.max(np.abs(e))) if e.size else 0.0
-        q = quat_from_euler_deg(np.rad2deg(e) if radians else e)
-        out[:, block] = orientations_to_sample(q, axes, dfr).T
+        q = quat_from_euler_deg(np.rad2deg(e) if radians else e, dtype=np.float32)
+        if not same_frame:
+            q = orientations_to_sample(q, axes, dfr)
+        q[~v] = identity
+        out[:, start:stop] = q.T
         return largest
 
-    futures = [pool.submit(convert, index[k : k + _BLOCK]) for k in range(0, index.size, _BLOCK)]
+    futures = [pool.submit(convert, k) for k in range(0, valid_rows.size, _BLOCK)]
     return out, futures
 
 
@@ -389,9 +434,14 @@ def _check_units(largest, n_valid, angles, path):
 
 
 def _phase_values(raw, phase_ids, path, line_of):
-    """Integer phase ids from a float column; NaN is 0. InputError for bad ids."""
-    finite = np.isfinite(raw)
-    bad = np.flatnonzero(finite & ((raw < 0) | (raw != np.rint(raw))))
+    """Integer phase ids from a float or integer column; NaN is 0. InputError for bad ids."""
+    if raw.dtype.kind in "iu":
+        # Integer arrays (npz, TIFF) need neither the NaN nor the whole-number test.
+        finite = None
+        bad = np.flatnonzero(raw < 0) if raw.dtype.kind == "i" else np.empty(0, int)
+    else:
+        finite = np.isfinite(raw)
+        bad = np.flatnonzero(finite & ((raw < 0) | (raw != np.rint(raw))))
     if bad.size:
         k = int(bad[0])
         raise InputError(
@@ -399,10 +449,18 @@ def _phase_values(raw, phase_ids, path, line_of):
             path=path,
             pointer=line_of(k),
         )
-    phase = np.where(finite, raw, 0.0).astype(np.int64)
+    if finite is None:
+        phase = raw.astype(np.int32, copy=False) if raw.max(initial=0) < 2**31 else raw
+    else:
+        phase = np.where(finite, raw, 0.0).astype(np.int64)
     if phase_ids is not None:
         known = np.asarray(sorted(set(int(p) for p in phase_ids)), dtype=np.int64)
-        unknown = np.flatnonzero((phase != 0) & ~np.isin(phase, known))
+        # A job names a handful of phases: one comparison per phase beats a sort or a
+        # lookup table over millions of points.
+        accepted = phase == 0
+        for k in known.tolist():
+            accepted |= phase == k
+        unknown = np.flatnonzero(~accepted) if not accepted.all() else np.empty(0, int)
         if unknown.size:
             k = int(unknown[0])
             raise InputError(
@@ -626,21 +684,28 @@ def _assemble(
     if callable(linear):
         linear, shape = linear(extra)
     n = shape[0] * shape[1]
-    quat = np.zeros((4, n), dtype=np.float32)
-    quat[0] = 1.0
-    quat[:, linear] = q_rows
-    del q_rows
-    valid = np.zeros(n, dtype=bool)
-    valid[linear] = valid_rows
-    phase = np.zeros(n, dtype=np.int32)
-    phase[linear] = np.where(valid_rows, phase_rows, 0)
-    quality = {}
-    for name, rows in quality_rows.items():
-        plane = np.full(n, np.nan, dtype=np.float32)
-        plane[linear] = rows
-        quality[name] = plane.reshape(shape)
+    if linear is None:
+        # Arrays already in grid order (npz, TIFF): no scatter, no second full-size copy.
+        quat = q_rows
+        valid = valid_rows
+        phase = np.where(valid_rows, phase_rows, 0).astype(np.int32)
+        quality = {name: np.asarray(rows).reshape(shape) for name, rows in quality_rows.items()}
+    else:
+        quat = np.zeros((4, n), dtype=np.float32)
+        quat[0] = 1.0
+        quat[:, linear] = q_rows
+        del q_rows
+        valid = np.zeros(n, dtype=bool)
+        valid[linear] = valid_rows
+        phase = np.zeros(n, dtype=np.int32)
+        phase[linear] = np.where(valid_rows, phase_rows, 0)
+        quality = {}
+        for name, rows in quality_rows.items():
+            plane = np.full(n, np.nan, dtype=np.float32)
+            plane[linear] = rows
+            quality[name] = plane.reshape(shape)
     args = dict(
-        quat=quat.reshape((4, *shape)),
+        quat=_read_only(quat.reshape((4, *shape))),
         phase=phase.reshape(shape),
         valid=valid.reshape(shape),
         quality=quality,
@@ -657,13 +722,14 @@ def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, 
         return f"row {k // width}, column {k % width}"
 
     phase = _phase_values(flat, ids, path, line_of)
-    columns = [euler[..., k].ravel() for k in range(3)]
+    # reshape(-1) keeps strided views of the (H, W, 3) array: no column copies.
+    columns = [euler[..., k].reshape(-1) for k in range(3)]
     quality_rows = {name: q.ravel() for name, q in quality.items()}
     args, _ = _assemble(
         columns,
         phase,
         quality_rows,
-        np.arange(h * w),
+        None,
         (h, w),
         angles,
         axes,

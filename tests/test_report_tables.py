@@ -172,3 +172,17 @@ def test_atomic_files_get_ordinary_permissions(tmp_path):
     current = os.umask(0)
     os.umask(current)
     assert mode == 0o666 & ~current
+
+
+def test_csv_cells_equal_format_cell(tmp_path):
+    # The fast column-wise CSV path must write exactly what format_cell writes.
+    cols = (Column("f", "float", 3), Column("i", "int"), Column("b", "bool"), Column("s", "str"))
+    table = {
+        "f": np.array([1.23456, -0.0001, np.nan, -2.5]),
+        "i": np.array([3, -1, 0, 7]),
+        "b": np.array([True, False, True, False]),
+        "s": np.array(["(1 1 -1)", "", "x", "y"], dtype=object),
+    }
+    rows = list(csv.reader(write_csv(tmp_path / "t.csv", table, cols).read_text().splitlines()))[1:]
+    expected = [[format_cell(table[c.name][i], c) for c in cols] for i in range(4)]
+    assert rows == expected

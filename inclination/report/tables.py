@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import math
 import re
 
 import numpy as np
 
-from ._io import write_json_atomic, write_text_atomic
+from ._io import _clean_json, write_text_atomic
 
 __all__ = [
     "format_cell",
@@ -73,6 +74,19 @@ def _check_table(table, columns) -> int:
     return next(iter(lengths.values()), 0)
 
 
+def _json_column(values, column) -> list:
+    """One column as JSON-ready Python values, absent ones as None (one pass per column)."""
+    arr = np.asarray(values)
+    if column.kind == "float":
+        arr = np.round(arr.astype(float), column.decimals + 3)
+        return [None if not math.isfinite(v) else v for v in arr.tolist()]
+    if column.kind == "int":
+        return [None if v < 0 else v for v in arr.astype(np.int64).tolist()]
+    if column.kind == "bool":
+        return arr.astype(bool).tolist()
+    return [None if v is None or str(v) == "" else str(v) for v in arr.tolist()]
+
+
 def table_rows(table, columns) -> list[dict]:
     """Rows as JSON-ready dicts (absent values as None).
 
@@ -82,48 +96,54 @@ def table_rows(table, columns) -> list[dict]:
     >>> table_rows({"a": np.array([1.5, np.nan])}, [Column("a", "float", 1)])
     [{'a': 1.5}, {'a': None}]
     """
-    n = _check_table(table, columns)
-    rows = []
-    for i in range(n):
-        row = {}
-        for c in columns:
-            v = table[c.name][i]
-            if _absent(v, c.kind):
-                row[c.name] = None
-            elif c.kind == "float":
-                row[c.name] = round(float(v), c.decimals + 3)
-            elif c.kind == "int":
-                row[c.name] = int(v)
-            elif c.kind == "bool":
-                row[c.name] = bool(v)
-            else:
-                row[c.name] = str(v)
-        rows.append(row)
-    return rows
+    _check_table(table, columns)
+    names = [c.name for c in columns]
+    values = [_json_column(table[c.name], c) for c in columns]
+    return [dict(zip(names, row, strict=True)) for row in zip(*values, strict=True)]
+
+
+def _text_column(values, column) -> list[str]:
+    """One column as text cells, as :func:`format_cell` writes them, in one pass."""
+    arr = np.asarray(values)
+    if column.kind == "float":
+        fmt = f"{{:.{column.decimals}f}}"
+        negative_zero = fmt.format(-0.0)
+        cells = [fmt.format(v) if math.isfinite(v) else "" for v in arr.astype(float).tolist()]
+        return [c[1:] if c == negative_zero else c for c in cells]
+    if column.kind == "int":
+        return ["" if v < 0 else str(v) for v in arr.astype(np.int64).tolist()]
+    if column.kind == "bool":
+        return ["true" if v else "false" for v in arr.astype(bool).tolist()]
+    return ["" if v is None else str(v) for v in arr.tolist()]
 
 
 def write_csv(path, table, columns):
     """Write a table as CSV with a header row; returns the path."""
-    n = _check_table(table, columns)
+    _check_table(table, columns)
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow([c.name for c in columns])
-    for i in range(n):
-        writer.writerow([format_cell(table[c.name][i], c) for c in columns])
+    writer.writerows(zip(*[_text_column(table[c.name], c) for c in columns], strict=True))
     return write_text_atomic(path, buf.getvalue())
 
 
 def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
     """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
-    document = {
-        "schema_version": schema_version,
-        "meta": meta,
-        "columns": [
-            {"name": c.name, "kind": c.kind, "description": c.description} for c in columns
-        ],
-        "rows": table_rows(table, columns),
-    }
-    return write_json_atomic(path, document)
+    head = _clean_json(
+        {
+            "schema_version": schema_version,
+            "meta": meta,
+            "columns": [
+                {"name": c.name, "kind": c.kind, "description": c.description} for c in columns
+            ],
+        }
+    )
+    # Rows are built JSON-ready column by column and written one per line: large tables
+    # stay fast to write and still readable.
+    rows = [json.dumps(r, ensure_ascii=False, allow_nan=False) for r in table_rows(table, columns)]
+    text = json.dumps(head, indent=2, ensure_ascii=False, allow_nan=False)[:-2]
+    body = ("\n    " + ",\n    ".join(rows) + "\n  ") if rows else ""
+    return write_text_atomic(path, text + ',\n  "rows": [' + body + "]\n}\n")
 
 
 def write_markdown(path, table, columns, *, title: str, notes: str = ""):
