@@ -10,11 +10,35 @@ from __future__ import annotations
 
 from importlib.metadata import PackageNotFoundError, version
 
-from .errors import InclinationError, InputError, SettingError
-
+# Set before the submodules load: pipeline and cli read it at import time.
 try:
     __version__ = version("inclination")
 except PackageNotFoundError:  # running from a source tree that was never installed
     __version__ = "0.0.0+unknown"
 
-__all__ = ["InclinationError", "InputError", "SettingError", "__version__"]
+from .errors import InclinationError, InputError, SettingError
+from .frames import DeclaredAxes
+from .job import Job, job_from_dict, load_job
+from .lattice import Lattice, Phase, format_indices, parse_indices
+from .maps import OrientationMap, read_map
+from .pipeline import Analysis, analyse, run
+
+__all__ = [
+    "Analysis",
+    "DeclaredAxes",
+    "InclinationError",
+    "InputError",
+    "Job",
+    "Lattice",
+    "OrientationMap",
+    "Phase",
+    "SettingError",
+    "__version__",
+    "analyse",
+    "format_indices",
+    "job_from_dict",
+    "load_job",
+    "parse_indices",
+    "read_map",
+    "run",
+]
