@@ -42,6 +42,7 @@ class Analysis:
     stage: str
     network: object = None
     segments: dict | None = None
+    subgrain_segments: dict | None = None
     identification: dict | None = None
     candidates: dict | None = None
     twin_summary: object = None
@@ -89,7 +90,8 @@ def _phases_by_id(job):
     return {p.id: p for p in job.phases}
 
 
-def _grains_and_segments(omap, job, stage_i, progress, label):
+def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
+    """Grains, network and straight segments of one map; the sub-grain segments on request."""
     from .grains import segment_grains
     from .network import boundary_network
     from .traces import fit_segments
@@ -109,8 +111,9 @@ def _grains_and_segments(omap, job, stage_i, progress, label):
     finally:
         close()
     if stage_i < 1:
-        return grain_map, None, None
-    network = boundary_network(omap, grain_map, job.phases)
+        return grain_map, None, None, None
+    low_angle = g["low_angle_deg"] if subgrains and g.get("subgrain_network") else None
+    network = boundary_network(omap, grain_map, job.phases, low_angle_deg=low_angle)
     step = float(min(omap.step_x_um, omap.step_y_um))
     t = job.traces
     segments = fit_segments(
@@ -120,7 +123,17 @@ def _grains_and_segments(omap, job, stage_i, progress, label):
         min_length_um=t.get("min_length_um"),
         grid=omap.grid,
     )
-    return grain_map, network, segments
+    subgrain = None
+    if network.low_angle is not None:
+        # The sub-grain network is kept apart from the grain boundaries: its own table.
+        subgrain = fit_segments(
+            network.low_angle,
+            step_um=step,
+            tolerance_um=t.get("tolerance_um"),
+            min_length_um=t.get("min_length_um"),
+            grid=omap.grid,
+        )
+    return grain_map, network, segments, subgrain
 
 
 def _map_bounds_um(omap):
@@ -180,7 +193,9 @@ def _sections(job, omap, grain_map, segments, progress):
                     path=job.source_path,
                     pointer=f"{pointer}/map",
                 )
-            deeper_grains, _, deeper_segments = _grains_and_segments(deeper, job, 1, progress, name)
+            deeper_grains, _, deeper_segments, _ = _grains_and_segments(
+                deeper, job, 1, progress, name, subgrains=False
+            )
             fiducials = None
             if section.get("fiducials"):
                 fiducials = np.array(
@@ -321,9 +336,19 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     """
     stage_i = _stage_index(stage)
     omap = job.read_surface_map()
-    grain_map, network, segments = _grains_and_segments(omap, job, stage_i, progress, "surface")
+    grain_map, network, segments, subgrain = _grains_and_segments(
+        omap, job, stage_i, progress, "surface", subgrains=True
+    )
     if stage_i < 2:
-        return Analysis(job, omap, grain_map, stage, network=network, segments=segments)
+        return Analysis(
+            job,
+            omap,
+            grain_map,
+            stage,
+            network=network,
+            segments=segments,
+            subgrain_segments=subgrain,
+        )
     # Imported here: a grains- or traces-only run should not pay for scipy.stats at start-up.
     from .planes import candidates, identify, twin_test_summary
 
@@ -344,6 +369,7 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
         stage,
         network=network,
         segments=segments,
+        subgrain_segments=subgrain,
         identification=identification,
         candidates=cands,
         twin_summary=twin,
@@ -362,6 +388,7 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
         stage,
         network=network,
         segments=segments,
+        subgrain_segments=subgrain,
         identification=identification,
         candidates=cands,
         twin_summary=twin,

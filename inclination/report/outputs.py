@@ -84,9 +84,9 @@ def grains_table(analysis) -> dict:
     }
 
 
-def segments_table(analysis) -> dict:
-    """The segments table in declared axes, with a WKT LINESTRING column."""
-    s = analysis.segments
+def segments_table(analysis, segments=None) -> dict:
+    """A segments table (default: the grain boundaries') in declared axes, with WKT."""
+    s = analysis.segments if segments is None else segments
     axes = analysis.omap.axes
     x0, y0 = _declared_points(axes, s["x0_um"], s["y0_um"])
     x1, y1 = _declared_points(axes, s["x1_um"], s["y1_um"])
@@ -319,6 +319,14 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
         files.append(
             write_json_atomic(
                 out_dir / "segments.meta.json", {"schema_version": SCHEMA_VERSION, **meta}
+            )
+        )
+    if analysis.subgrain_segments is not None:
+        files.append(
+            write_csv(
+                out_dir / "subgrain_segments.csv",
+                segments_table(analysis, analysis.subgrain_segments),
+                SEGMENT_COLUMNS,
             )
         )
     if analysis.identification is not None:

@@ -159,3 +159,13 @@ def test_report_command_rebuilds_from_run_folder(demo_run, tmp_path, capsys):
     assert "data:image/png;base64," in html and "boundary_id" in html
     assert main(["report", str(tmp_path)]) == 2
     assert "summary.json" in capsys.readouterr().err
+
+
+def test_subgrain_network_on_request(scenario, tmp_path):
+    job = _bad_job(scenario, tmp_path, lambda d: d["grains"].__setitem__("subgrain_network", True))
+    assert main(["traces", str(job), "--out", str(tmp_path / "s"), "--quiet"]) == 0
+    header = (tmp_path / "s" / "subgrain_segments.csv").read_text().splitlines()[0]
+    assert header.startswith("segment_id,")
+    # Without the request no sub-grain table is written.
+    assert main(["traces", str(scenario["job"]), "--out", str(tmp_path / "n"), "--quiet"]) == 0
+    assert not (tmp_path / "n" / "subgrain_segments.csv").exists()
