@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import platform
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -339,16 +339,17 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     grain_map, network, segments, subgrain = _grains_and_segments(
         omap, job, stage_i, progress, "surface", subgrains=True
     )
+    analysis = Analysis(
+        job,
+        omap,
+        grain_map,
+        stage,
+        network=network,
+        segments=segments,
+        subgrain_segments=subgrain,
+    )
     if stage_i < 2:
-        return Analysis(
-            job,
-            omap,
-            grain_map,
-            stage,
-            network=network,
-            segments=segments,
-            subgrain_segments=subgrain,
-        )
+        return analysis
     # Imported here: a grains- or traces-only run should not pay for scipy.stats at start-up.
     from .planes import candidates, identify, twin_test_summary
 
@@ -362,18 +363,7 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     identification = identify(segments, grain_map.grains, job.phases, **options)
     cands = candidates(segments, grain_map.grains, job.phases, **options)
     twin = twin_test_summary(identification, segments)
-    analysis = Analysis(
-        job,
-        omap,
-        grain_map,
-        stage,
-        network=network,
-        segments=segments,
-        subgrain_segments=subgrain,
-        identification=identification,
-        candidates=cands,
-        twin_summary=twin,
-    )
+    analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
         return analysis
     from .compare import best_measurements
@@ -381,17 +371,8 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     tables, notes = _sections(job, omap, grain_map, segments, progress)
     measured = best_measurements(*tables)
     measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)
-    return Analysis(
-        job,
-        omap,
-        grain_map,
-        stage,
-        network=network,
-        segments=segments,
-        subgrain_segments=subgrain,
-        identification=identification,
-        candidates=cands,
-        twin_summary=twin,
+    return replace(
+        analysis,
         section_tables=tables,
         section_notes=notes,
         measured=measured,
