@@ -169,3 +169,28 @@ def test_subgrain_network_on_request(scenario, tmp_path):
     # Without the request no sub-grain table is written.
     assert main(["traces", str(scenario["job"]), "--out", str(tmp_path / "n"), "--quiet"]) == 0
     assert not (tmp_path / "n" / "subgrain_segments.csv").exists()
+
+
+def test_latex_table_compiles(demo_run, tmp_path):
+    # The booktabs table must compile as part of a document; needs a TeX engine.
+    import subprocess
+
+    engine = shutil.which("pdflatex") or shutil.which("lualatex")
+    if engine is None:
+        pytest.skip("no TeX engine (pdflatex or lualatex) on this machine")
+    shutil.copy(demo_run / "results" / "boundaries.tex", tmp_path / "boundaries.tex")
+    (tmp_path / "doc.tex").write_text(
+        "\\documentclass{article}\n\\usepackage[T1]{fontenc}\n\\usepackage{booktabs}\n"
+        "\\usepackage[landscape,margin=1cm]{geometry}\n\\begin{document}\n"
+        "\\tiny\n\\input{boundaries.tex}\n\\end{document}\n"
+    )
+    result = subprocess.run(
+        [engine, "-interaction=nonstopmode", "-halt-on-error", "doc.tex"],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+    )
+    assert result.returncode == 0, result.stdout[-3000:]
+    assert (tmp_path / "doc.pdf").exists()
