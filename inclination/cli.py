@@ -67,7 +67,7 @@ def _progress(quiet: bool):
     from tqdm import tqdm
 
     def factory(total, desc):
-        return tqdm(total=total, desc=desc, unit="pt", unit_scale=True, leave=False)
+        return tqdm(total=total, desc=desc, unit="%", leave=False)
 
     return factory
 

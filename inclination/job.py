@@ -74,12 +74,16 @@ class Job:
         """The phases' ids, in file order."""
         return tuple(p.id for p in self.phases)
 
-    def read_surface_map(self):
+    def read_surface_map(self, *, progress=None):
         """Read the surface map (``inclination.maps.read_map`` with this job's context)."""
         from .maps import read_map
 
         return read_map(
-            self.map, phase_ids=self.phase_ids, path_for_errors=self.source_path, pointer="/map"
+            self.map,
+            phase_ids=self.phase_ids,
+            path_for_errors=self.source_path,
+            pointer="/map",
+            progress=progress,
         )
 
     def read_section_map(self, index: int):

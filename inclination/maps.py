@@ -391,8 +391,13 @@ def _start_conversion(pool, columns, valid_rows, axes, dfr, *, radians=False):
     return out, futures
 
 
-def _wait(futures) -> float:
-    return max((f.result() for f in futures), default=0.0)
+def _wait(futures, progress=None) -> float:
+    largest = 0.0
+    for done, f in enumerate(futures, start=1):
+        largest = max(largest, f.result())
+        if progress is not None:
+            progress(done / len(futures))
+    return largest
 
 
 def _quat_planes_sample(euler, valid, axes, dfr):
@@ -523,7 +528,13 @@ def _spec_choice(spec, key, allowed, job_path, pointer, default=None):
 
 
 def read_map(
-    spec: Mapping, *, base_dir=None, phase_ids=None, path_for_errors=None, pointer: str = "/map"
+    spec: Mapping,
+    *,
+    base_dir=None,
+    phase_ids=None,
+    path_for_errors=None,
+    pointer: str = "/map",
+    progress=None,
 ) -> OrientationMap:
     """Read an orientation map as the job file describes it, converting into S.
 
@@ -543,6 +554,9 @@ def read_map(
         The job file, named in errors about the spec's fields.
     pointer : str
         JSON pointer of ``spec`` in the job file.
+    progress : callable, optional
+        Called with the fraction of the orientation conversion done, a float in
+        [0, 1]; silent when omitted.
 
     Returns
     -------
@@ -613,6 +627,7 @@ def read_map(
             job_path,
             pointer,
             settings,
+            progress,
         )
     else:
         if grid is None or step_x is None:
@@ -633,7 +648,18 @@ def read_map(
             settings["sidecar"] = str(sidecar)
             reader = "tiff stack"
         omap_args = _arrays_to_map_args(
-            euler, phase_raw, quality, angles, axes, dfr, grid, step_x, step_y, phase_ids, path
+            euler,
+            phase_raw,
+            quality,
+            angles,
+            axes,
+            dfr,
+            grid,
+            step_x,
+            step_y,
+            phase_ids,
+            path,
+            progress=progress,
         )
         omap_args["provenance_reader"] = reader
     settings.update(omap_args.pop("settings", {}))
@@ -655,7 +681,18 @@ def _no_indexed_point(path):
 
 
 def _assemble(
-    columns, phase_rows, quality_rows, linear, shape, angles, axes, dfr, path, *, while_converting
+    columns,
+    phase_rows,
+    quality_rows,
+    linear,
+    shape,
+    angles,
+    axes,
+    dfr,
+    path,
+    *,
+    while_converting,
+    progress=None,
 ):
     """Validity, conversion into S, unit check and placement shared by every reader.
 
@@ -679,7 +716,7 @@ def _assemble(
             for f in futures:
                 f.cancel()
             raise
-        largest = _wait(futures)
+        largest = _wait(futures, progress)
     _check_units(largest, int(np.count_nonzero(valid_rows)), angles, path)
     if callable(linear):
         linear, shape = linear(extra)
@@ -713,7 +750,9 @@ def _assemble(
     return args, extra
 
 
-def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, sy, ids, path):
+def _arrays_to_map_args(
+    euler, phase_raw, quality, angles, axes, dfr, grid, sx, sy, ids, path, *, progress=None
+):
     h, w = phase_raw.shape
     flat = phase_raw.ravel()
     width = w
@@ -736,6 +775,7 @@ def _arrays_to_map_args(euler, phase_raw, quality, angles, axes, dfr, grid, sx, 
         dfr,
         path,
         while_converting=lambda: None,
+        progress=progress,
     )
     # Declared coordinates start at 0 on both axes over the map's bounding box.
     pitch = sy * (_SQRT3_2 if grid == "hexagonal" else 1.0)
@@ -765,6 +805,7 @@ def _read_table_map(
     job_path,
     pointer,
     settings,
+    progress=None,
 ):
     delimiter = spec.get("delimiter", TABLE_DELIMITERS[fmt])
     table = read_table(path, delimiter=delimiter, whitespace=delimiter is None)
@@ -855,6 +896,7 @@ def _read_table_map(
         dfr,
         path,
         while_converting=place,
+        progress=progress,
     )
     origin_declared = DeclaredAxes(axes.x, axes.y).points_to_declared(
         np.asarray(placement.origin_sample_um)

@@ -335,7 +335,11 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     Analysis
     """
     stage_i = _stage_index(stage)
-    omap = job.read_surface_map()
+    update, close = _progress_callback(progress, "surface: read map")
+    try:
+        omap = job.read_surface_map(progress=update)
+    finally:
+        close()
     grain_map, network, segments, subgrain = _grains_and_segments(
         omap, job, stage_i, progress, "surface", subgrains=True
     )

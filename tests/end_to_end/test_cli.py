@@ -194,3 +194,27 @@ def test_latex_table_compiles(demo_run, tmp_path):
     )
     assert result.returncode == 0, result.stdout[-3000:]
     assert (tmp_path / "doc.pdf").exists()
+
+
+def test_progress_reaches_every_long_stage(scenario):
+    # The CLI hands a tqdm factory to the pipeline on a terminal; here a recording
+    # factory stands in for it: each long stage opens a bar that ends at 100 %.
+    from inclination.job import load_job
+    from inclination.pipeline import run
+
+    bars = {}
+
+    class Bar:
+        def __init__(self, total, desc):
+            self.total, self.n, self.closed = total, 0, False
+            bars[desc] = self
+
+        def update(self, k):
+            self.n += k
+
+        def close(self):
+            self.closed = True
+
+    run(load_job(scenario["job"]), stage="traces", progress=Bar)
+    assert {"surface: read map", "surface: grains"} <= set(bars)
+    assert all(b.closed and b.n == b.total for b in bars.values())
