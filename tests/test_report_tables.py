@@ -186,3 +186,12 @@ def test_csv_cells_equal_format_cell(tmp_path):
     rows = list(csv.reader(write_csv(tmp_path / "t.csv", table, cols).read_text().splitlines()))[1:]
     expected = [[format_cell(table[c.name][i], c) for c in cols] for i in range(4)]
     assert rows == expected
+
+
+def test_long_tables_become_longtable(tmp_path):
+    cols = (Column("n", "int"),)
+    short = write_latex(tmp_path / "s.tex", {"n": np.arange(3)}, cols, caption="c", label="l")
+    long = write_latex(tmp_path / "l.tex", {"n": np.arange(100)}, cols, caption="c", label="l")
+    assert r"\begin{table}" in short.read_text()
+    text = long.read_text()
+    assert r"\begin{longtable}" in text and r"\endhead" in text and "longtable}." in text

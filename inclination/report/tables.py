@@ -199,31 +199,56 @@ def _latex_escape(text: str) -> str:
     )
 
 
-def write_latex(path, table, columns, *, caption: str, label: str, sigma_of: dict | None = None):
-    """Write a booktabs ``table`` environment; returns the path.
+#: Above this many rows a table cannot sit on one page: it is written as a longtable.
+LONG_TABLE_ROWS = 40
 
-    ``sigma_of`` maps a value column to its uncertainty column; the pair is
-    written as one cell ``v \\pm σ``. Columns whose values look like Miller
-    indices are written with overbars.
+
+def write_latex(path, table, columns, *, caption: str, label: str, sigma_of: dict | None = None):
+    """Write a booktabs table; returns the path.
+
+    Up to :data:`LONG_TABLE_ROWS` rows it is a ``table`` float; longer tables are a
+    ``longtable`` that breaks across pages with its header repeated (the file's first
+    line names the packages it needs). ``sigma_of`` maps a value column to its
+    uncertainty column; the pair is written as one cell ``v \\pm σ``. Columns whose
+    values look like Miller indices are written with overbars.
     """
     sigma_of = dict(sigma_of or {})
     n = _check_table(table, columns)
     shown = [c for c in columns if c.name not in sigma_of.values()]
     by_name = {c.name: c for c in columns}
-    head = [_latex_escape(c.name) for c in shown]
-    lines = [
-        r"% Requires \usepackage{booktabs}.",
-        r"\begin{table}",
-        r"\centering",
-        r"\caption{" + _latex_escape(caption) + "}",
-        r"\label{" + label + "}",
-        r"\begin{tabular}{"
-        + "".join("r" if c.kind in ("int", "float") else "l" for c in shown)
-        + "}",
-        r"\toprule",
-        " & ".join(head) + r" \\",
-        r"\midrule",
-    ]
+    head = " & ".join(_latex_escape(c.name) for c in shown) + r" \\"
+    spec = "".join("r" if c.kind in ("int", "float") else "l" for c in shown)
+    caption_line = r"\caption{" + _latex_escape(caption) + "}"
+    if n > LONG_TABLE_ROWS:
+        lines = [
+            r"% Requires \usepackage{booktabs} and \usepackage{longtable}.",
+            r"\begin{longtable}{" + spec + "}",
+            caption_line + r"\label{" + label + r"} \\",
+            r"\toprule",
+            head,
+            r"\midrule",
+            r"\endfirsthead",
+            r"\toprule",
+            head,
+            r"\midrule",
+            r"\endhead",
+            r"\bottomrule",
+            r"\endfoot",
+        ]
+        closing = [r"\end{longtable}"]
+    else:
+        lines = [
+            r"% Requires \usepackage{booktabs}.",
+            r"\begin{table}",
+            r"\centering",
+            caption_line,
+            r"\label{" + label + "}",
+            r"\begin{tabular}{" + spec + "}",
+            r"\toprule",
+            head,
+            r"\midrule",
+        ]
+        closing = [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
     for i in range(n):
         cells = []
         for c in shown:
@@ -237,10 +262,4 @@ def write_latex(path, table, columns, *, caption: str, label: str, sigma_of: dic
                 text = _latex_escape(text)
             cells.append(text)
         lines.append(" & ".join(cells) + r" \\")
-    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
-    return write_text_atomic(path, "\n".join(lines) + "\n")
-
-
-def as_object_column(values) -> np.ndarray:
-    """A string column as an object array (helper for building tables)."""
-    return np.asarray(list(values), dtype=object)
+    return write_text_atomic(path, "\n".join(lines + closing) + "\n")

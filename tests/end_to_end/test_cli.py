@@ -181,6 +181,7 @@ def test_latex_table_compiles(demo_run, tmp_path):
     shutil.copy(demo_run / "results" / "boundaries.tex", tmp_path / "boundaries.tex")
     (tmp_path / "doc.tex").write_text(
         "\\documentclass{article}\n\\usepackage[T1]{fontenc}\n\\usepackage{booktabs}\n"
+        "\\usepackage{longtable}\n"
         "\\usepackage[landscape,margin=1cm]{geometry}\n\\begin{document}\n"
         "\\tiny\n\\input{boundaries.tex}\n\\end{document}\n"
     )
