@@ -89,6 +89,7 @@ def plot_boundaries(
     """
     import matplotlib.pyplot as plt
     from matplotlib.collections import LineCollection
+    from matplotlib.patches import Rectangle
 
     labels = np.asarray(labels)
     if ax is None:
@@ -132,15 +133,39 @@ def plot_boundaries(
     x0 = extent[0] + 0.04 * width_um
     y0 = extent[2] - 0.05 * height_um
     (scale_bar,) = ax.plot(
-        [x0, x0 + bar], [y0, y0], color="black", linewidth=4, solid_capstyle="butt"
+        [x0, x0 + bar], [y0, y0], color="black", linewidth=4, solid_capstyle="butt", zorder=3
     )
     ax.text(
-        x0 + bar / 2, y0 - 0.015 * height_um, f"{bar:g} µm", ha="center", va="bottom", fontsize=9
+        x0 + bar / 2,
+        y0 - 0.015 * height_um,
+        f"{bar:g} µm",
+        ha="center",
+        va="bottom",
+        fontsize=9,
+        zorder=3,
     )
-    # Declared axes as arrows from the top-right corner, in screen directions.
+    # Declared axes as arrows from the top-right corner, in screen directions, on a white
+    # card so that segments underneath do not read as part of the arrows.
     arrows = []
     origin = np.array([extent[1] - 0.14 * width_um, extent[3] + 0.14 * height_um])
     length = 0.09 * min(width_um, height_um)
+    ends = [origin] + [origin + 1.5 * np.array(_SCREEN[d]) * length for d in axes_declared]
+    lo = np.min(ends, axis=0) - 0.3 * length
+    hi = np.max(ends, axis=0) + 0.3 * length
+    ax.add_patch(
+        Rectangle(lo, *(hi - lo), facecolor="white", edgecolor="0.6", linewidth=0.6, zorder=2.5)
+    )
+    ax.add_patch(
+        Rectangle(
+            (x0 - 0.02 * width_um, y0 - 0.06 * height_um),
+            bar + 0.04 * width_um,
+            0.085 * height_um,
+            facecolor="white",
+            edgecolor="0.6",
+            linewidth=0.6,
+            zorder=2.5,
+        )
+    )
     for name, direction in zip(("x", "y"), axes_declared, strict=True):
         d = np.array(_SCREEN[direction]) * length
         arrows.append(
@@ -149,9 +174,10 @@ def plot_boundaries(
                 xy=origin + d,
                 xytext=origin,
                 arrowprops={"arrowstyle": "->", "color": "black", "linewidth": 1.4},
+                zorder=3,
             )
         )
-        ax.text(*(origin + 1.35 * d), name, ha="center", va="center", fontsize=10)
+        ax.text(*(origin + 1.35 * d), name, ha="center", va="center", fontsize=10, zorder=3)
     ax.set_xlim(extent[0], extent[1])
     ax.set_ylim(extent[2], extent[3])
     ax.set_aspect("equal")
