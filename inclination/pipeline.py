@@ -146,6 +146,12 @@ def _map_bounds_um(omap):
     )
 
 
+def _status_counts(table) -> dict:
+    """How many rows of a section table have each status (for summary.json)."""
+    status, count = np.unique(np.asarray(table["status"]), return_counts=True)
+    return dict(zip(status.tolist(), count.tolist(), strict=True))
+
+
 def _sections(job, omap, grain_map, segments, progress):
     """Measure every section of the job; returns (tables, notes)."""
     from .sections import (
@@ -173,13 +179,12 @@ def _sections(job, omap, grain_map, segments, progress):
                 path=job.source_path,
                 pointer=pointer,
             )
-            status, count = np.unique(np.asarray(table["status"]), return_counts=True)
             notes.append(
                 {
                     "name": name,
                     "kind": "cross-section",
                     "entries": int(len(table["status"])),
-                    "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                    "status": _status_counts(table),
                 }
             )
         else:
@@ -227,7 +232,6 @@ def _sections(job, omap, grain_map, segments, progress):
             stack.append((deeper_segments, deeper_grains, depth.depth_um, result.registration))
             table = result.boundaries
             reg = result.registration
-            status, count = np.unique(np.asarray(table["status"]), return_counts=True)
             notes.append(
                 {
                     "name": name,
@@ -243,7 +247,7 @@ def _sections(job, omap, grain_map, segments, progress):
                         "n_points": reg.n_points,
                         "method": reg.method,
                     },
-                    "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                    "status": _status_counts(table),
                     "warnings": [str(w.message) for w in caught],
                 }
             )
@@ -262,13 +266,12 @@ def _sections(job, omap, grain_map, segments, progress):
             threshold_deg=job.grains["threshold_deg"],
             grid=omap.grid,
         )
-        status, count = np.unique(np.asarray(table["status"]), return_counts=True)
         notes.append(
             {
                 "name": "stack of all serial sections",
                 "kind": "stack",
                 "depths_um": [d for _, _, d, _ in stack],
-                "status": dict(zip(status.tolist(), count.tolist(), strict=True)),
+                "status": _status_counts(table),
             }
         )
         tables.append(table)

@@ -11,7 +11,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["Column", "BOUNDARY_COLUMNS", "SEGMENT_COLUMNS", "GRAIN_COLUMNS", "column_names"]
+__all__ = [
+    "Column",
+    "GEOMETRY_COLUMNS",
+    "BOUNDARY_COLUMNS",
+    "SEGMENT_COLUMNS",
+    "GRAIN_COLUMNS",
+    "column_names",
+]
 
 
 @dataclass(frozen=True)
@@ -28,8 +35,8 @@ def _c(name, kind, decimals=0, description=""):
     return Column(name, kind, decimals, description)
 
 
-# Columns shared by the segments and boundaries tables, in the declared frame.
-_GEOMETRY = (
+#: Columns shared by the segments and boundaries tables, in the declared frame.
+GEOMETRY_COLUMNS = (
     _c("grain_a", "int", 0, "grain on one side (grain ids of grains.csv)"),
     _c("grain_b", "int", 0, "grain on the other side; grain_a < grain_b"),
     _c("phase_a", "int", 0, "phase id of grain_a"),
@@ -45,7 +52,7 @@ _GEOMETRY = (
 
 SEGMENT_COLUMNS = (
     (_c("segment_id", "int", 0, "segment number, from 1"),)
-    + _GEOMETRY
+    + GEOMETRY_COLUMNS
     + (
         _c("residual_um", "float", 4, "RMS distance of the edge midpoints from the fitted line"),
         _c("n_edges", "int", 0, "number of pixel edges along the segment"),
@@ -58,7 +65,7 @@ SEGMENT_COLUMNS = (
 
 BOUNDARY_COLUMNS = (
     (_c("boundary_id", "int", 0, "boundary (straight segment) number, from 1"),)
-    + _GEOMETRY
+    + GEOMETRY_COLUMNS
     + (
         _c("misorientation_deg", "float", 3, "disorientation angle between the grains"),
         _c("axis_a", "str", 0, "disorientation axis in grain a's crystal frame"),

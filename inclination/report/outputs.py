@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from ._io import write_json_atomic
-from .columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
+from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
 from .tables import write_csv, write_latex, write_markdown, write_table_json
 
@@ -116,18 +116,24 @@ def segments_table(analysis, segments=None) -> dict:
     return out
 
 
-def _by_segment(table, segment_ids, column, fill):
-    """Column of ``table`` aligned to ``segment_ids`` (``fill`` where a segment is absent)."""
-    out = np.full(len(segment_ids), fill, dtype=object if isinstance(fill, str) else float)
-    if table is None or len(table["segment_id"]) == 0:
+def _aligned(table, segment_ids):
+    """A getter of ``table``'s columns aligned to ``segment_ids``; the row lookup is done once.
+
+    ``column(name, fill)`` returns the column with ``fill`` where a segment is absent.
+    """
+    rows = np.full(len(segment_ids), -1, dtype=int)
+    if table is not None and len(table["segment_id"]):
+        index = {int(s): i for i, s in enumerate(table["segment_id"])}
+        rows = np.array([index.get(int(s), -1) for s in segment_ids], dtype=int)
+    found = rows >= 0
+
+    def column(name, fill):
+        out = np.full(len(segment_ids), fill, dtype=object if isinstance(fill, str) else float)
+        if found.any():
+            out[found] = np.asarray(table[name])[rows[found]]
         return out
-    index = {int(s): i for i, s in enumerate(table["segment_id"])}
-    values = np.asarray(table[column])
-    for row, sid in enumerate(segment_ids):
-        i = index.get(int(sid))
-        if i is not None:
-            out[row] = values[i]
-    return out
+
+    return column
 
 
 def boundaries_table(analysis) -> dict:
@@ -138,20 +144,12 @@ def boundaries_table(analysis) -> dict:
     ids = seg["segment_id"][keep]
     axes = analysis.omap.axes
     out = {"boundary_id": ids}
-    for name in (
-        "grain_a",
-        "grain_b",
-        "phase_a",
-        "phase_b",
-        "x0_um",
-        "y0_um",
-        "x1_um",
-        "y1_um",
-        "length_um",
-        "trace_angle_deg",
-        "trace_sigma_deg",
-    ):
-        out[name] = seg[name][keep]
+    for c in GEOMETRY_COLUMNS:
+        out[c.name] = seg[c.name][keep]
+    from_ident = _aligned(ident, ids)
+    from_measured = _aligned(analysis.measured, ids)
+    from_senses = _aligned(analysis.senses, ids)
+    from_planes = _aligned(analysis.planes_full, ids)
     for name, fill in (
         ("misorientation_deg", np.nan),
         ("axis_a", ""),
@@ -167,33 +165,29 @@ def boundaries_table(analysis) -> dict:
         ("twin_test", ""),
         ("predicted_dip_deg", np.nan),
     ):
-        out[name] = _by_segment(ident, ids, name, fill)
+        out[name] = from_ident(name, fill)
     counts = out["candidates_within_tolerance"]
     out["candidates_within_tolerance"] = np.where(np.isfinite(counts), counts, -1).astype(int)
     out["predicted_dip_azimuth_deg"] = axes.angle_to_declared_deg(
-        _by_segment(ident, ids, "predicted_dip_azimuth_deg", np.nan), kind="azimuth"
+        from_ident("predicted_dip_azimuth_deg", np.nan), kind="azimuth"
     )
-    m = analysis.measured
-    out["measured_dip_deg"] = _by_segment(m, ids, "measured_dip_deg", np.nan)
-    out["measured_dip_sigma_deg"] = _by_segment(m, ids, "measured_dip_sigma_deg", np.nan)
+    out["measured_dip_deg"] = from_measured("measured_dip_deg", np.nan)
+    out["measured_dip_sigma_deg"] = from_measured("measured_dip_sigma_deg", np.nan)
     out["measured_dip_azimuth_deg"] = axes.angle_to_declared_deg(
-        _by_segment(m, ids, "dip_direction_azimuth_deg", np.nan), kind="azimuth"
+        from_measured("dip_direction_azimuth_deg", np.nan), kind="azimuth"
     )
-    out["dip_source"] = _by_segment(m, ids, "dip_source", "")
-    out["sense"] = _by_segment(analysis.senses, ids, "sense", "")
-    out["sense_log10_lr"] = _by_segment(analysis.senses, ids, "log10_likelihood_ratio", np.nan)
-    normal_s = np.stack([_by_segment(m, ids, f"normal_{c}", np.nan) for c in "xyz"], axis=-1)
+    out["dip_source"] = from_measured("dip_source", "")
+    out["sense"] = from_senses("sense", "")
+    out["sense_log10_lr"] = from_senses("log10_likelihood_ratio", np.nan)
+    normal_s = np.stack([from_measured(f"normal_{c}", np.nan) for c in "xyz"], axis=-1)
     normal_d = axes.vectors_to_declared(normal_s.reshape(-1, 3)).reshape(-1, 3)
     out["normal_x"], out["normal_y"], out["normal_z"] = normal_d.T
-    pf = analysis.planes_full
-    out["measured_plane_a"] = _by_segment(pf, ids, "plane_a_measured", "")
-    out["measured_plane_a_deviation_deg"] = _by_segment(pf, ids, "plane_a_deviation_deg", np.nan)
-    out["measured_plane_b"] = _by_segment(pf, ids, "plane_b_measured", "")
-    out["measured_plane_b_deviation_deg"] = _by_segment(pf, ids, "plane_b_deviation_deg", np.nan)
-    out["measured_twin_plane_deviation_deg"] = _by_segment(
-        pf, ids, "twin_plane_deviation_deg", np.nan
-    )
-    out["measured_coherent_twin"] = _by_segment(pf, ids, "coherent_twin", "")
+    out["measured_plane_a"] = from_planes("plane_a_measured", "")
+    out["measured_plane_a_deviation_deg"] = from_planes("plane_a_deviation_deg", np.nan)
+    out["measured_plane_b"] = from_planes("plane_b_measured", "")
+    out["measured_plane_b_deviation_deg"] = from_planes("plane_b_deviation_deg", np.nan)
+    out["measured_twin_plane_deviation_deg"] = from_planes("twin_plane_deviation_deg", np.nan)
+    out["measured_coherent_twin"] = from_planes("coherent_twin", "")
     for c in BOUNDARY_COLUMNS:
         if c.kind == "float":
             out[c.name] = np.asarray(out[c.name], float)
