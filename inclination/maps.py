@@ -402,7 +402,7 @@ def _wait(futures, progress=None) -> float:
 
 def _quat_planes_sample(euler, valid, axes, dfr):
     """(4, H, W) float32 quaternions in S from data-frame Euler angles in degrees."""
-    columns = [euler[..., k].ravel() for k in range(3)]
+    columns = [euler[..., k].reshape(-1) for k in range(3)]  # strided views, no copies
     with ThreadPoolExecutor(max_workers=2) as pool:
         out, futures = _start_conversion(pool, columns, valid.ravel(), axes, dfr)
         _wait(futures)
