@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
-from inclination.rotations import random_quat
+from inclination.crystal.rotations import random_quat
 
 __all__ = ["BenchmarkMap", "make_benchmark_map"]
 

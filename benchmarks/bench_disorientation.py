@@ -18,13 +18,17 @@ import time
 
 import numpy as np
 
-from inclination.csl import (
+from inclination.crystal.csl import (
     classify_misorientation_quat,
     cubic_csl_relations,
     relation_deviation_deg,
 )
-from inclination.rotations import random_quat
-from inclination.symmetry import disorientation_angle_deg, max_scalar_part, misorientation_quat
+from inclination.crystal.rotations import random_quat
+from inclination.crystal.symmetry import (
+    disorientation_angle_deg,
+    max_scalar_part,
+    misorientation_quat,
+)
 
 
 def _best_rate(func, n_pairs: int, repeat: int) -> float:

@@ -22,8 +22,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from _maps import make_benchmark_map  # noqa: E402
 
+from inclination.crystal.lattice import Lattice, Phase  # noqa: E402
 from inclination.grains import segment_grains  # noqa: E402
-from inclination.lattice import Lattice, Phase  # noqa: E402
 from inclination.network import boundary_network  # noqa: E402
 
 CUBIC = Phase(1, "fcc", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90), ("{1 1 1}",))

@@ -30,7 +30,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from _maps import make_benchmark_map  # noqa: E402
 
-from inclination.rotations import quat_as_euler_deg  # noqa: E402
+from inclination.crystal.rotations import quat_as_euler_deg  # noqa: E402
 
 JOB = {
     "phases": [

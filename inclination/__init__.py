@@ -16,10 +16,10 @@ try:
 except PackageNotFoundError:  # running from a source tree that was never installed
     __version__ = "0.0.0+unknown"
 
+from .crystal.lattice import Lattice, Phase, format_indices, parse_indices
 from .errors import InclinationError, InputError, SettingError
 from .frames import DeclaredAxes
-from .job import Job, job_from_dict, load_job
-from .lattice import Lattice, Phase, format_indices, parse_indices
+from .io.job import Job, job_from_dict, load_job
 from .maps import OrientationMap, read_map
 from .pipeline import Analysis, analyse, run
 

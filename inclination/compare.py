@@ -23,8 +23,8 @@ import numpy as np
 from scipy.stats import binom
 
 from ._validation import as_float_array, check_positive
-from .lattice import format_indices, plane_normals_crystal
-from .rotations import quat_apply, quat_as_matrix
+from .crystal.lattice import format_indices, plane_normals_crystal
+from .crystal.rotations import quat_apply, quat_as_matrix
 
 __all__ = [
     "SENSES",
@@ -424,7 +424,7 @@ def low_index_planes(lattice, *, max_index: int = 3):
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice
+    >>> from inclination.crystal.lattice import Lattice
     >>> hkl, _ = low_index_planes(Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...                           max_index=1)
     >>> len(hkl)
@@ -494,7 +494,7 @@ def full_planes(
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice, Phase
     >>> cu = Phase(1, "copper", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> out = full_planes(

@@ -154,7 +154,7 @@ def write_demo_scenario(out_dir, *, seed: int = DEMO_SEED) -> dict[str, Path]:
     >>> sorted(paths)
     ['job', 'job_z180', 'serial', 'serial_z180', 'surface', 'surface_z180', 'truth']
     """
-    from .lattice import Phase
+    from .crystal.lattice import Phase
 
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
         raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")

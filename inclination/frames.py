@@ -27,8 +27,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from ._validation import as_float_array, check_last_axis, check_one_of
+from .crystal.rotations import (
+    quat_from_axis_angle_deg,
+    quat_from_matrix,
+    quat_inverse,
+    quat_multiply,
+)
 from .errors import InputError
-from .rotations import quat_from_axis_angle_deg, quat_from_matrix, quat_inverse, quat_multiply
 
 __all__ = [
     "SCREEN_DIRECTIONS",
@@ -376,7 +381,7 @@ def orientations_to_sample(quat_data, axes: DeclaredAxes, data_frame_rotation=No
 
     Examples
     --------
-    >>> from inclination.rotations import quat_as_matrix
+    >>> from inclination.crystal.rotations import quat_as_matrix
     >>> q = orientations_to_sample([1.0, 0.0, 0.0, 0.0], DeclaredAxes("left", "up"))
     >>> quat_as_matrix(q).round(6).tolist()  # declared axes: S turned 180° about Z_S
     [[-1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.0, 0.0, 1.0]]

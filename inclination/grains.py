@@ -9,7 +9,7 @@ The link test never computes an angle: a pair is linked when the largest
 ``|scalar(dq ⊗ s)|`` over the proper rotations ``s`` exceeds ``cos(θ/2)``. The plain
 ``|q_a · q_b|`` is a lower bound of that maximum (it is the term of ``s = 1``), so a pair
 that passes it is linked whatever the symmetry; only the rest (the boundaries) go through
-:func:`inclination.symmetry.max_scalar_part`. Labels are built on row runs: points of a
+:func:`inclination.crystal.symmetry.max_scalar_part`. Labels are built on row runs: points of a
 row joined by horizontal links form a run, and a graph with one node per run and one
 edge per linked pair of runs (a few per point row instead of one per point) goes to
 ``scipy.sparse.csgraph.connected_components``.
@@ -28,10 +28,10 @@ import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
-from . import symmetry
 from ._validation import check_one_of
+from .crystal import symmetry
+from .crystal.rotations import quat_multiply
 from .errors import InputError, SettingError
-from .rotations import quat_multiply
 
 __all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
 
@@ -276,7 +276,7 @@ def _misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
 def _disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
     """cos(ω/2) of the disorientation ω of pairs given as (4, n) rows.
 
-    The misorientation ``qb ⊗ qa⁻¹`` goes to :func:`inclination.symmetry.max_scalar_part`.
+    The misorientation ``qb ⊗ qa⁻¹`` goes to :func:`inclination.crystal.symmetry.max_scalar_part`.
     """
     dq = _misorientation_rows(qa, qb)
     return symmetry.max_scalar_part(dq, info.laue, setting=info.setting)
@@ -729,7 +729,7 @@ def segment_grains(
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice, Phase
     >>> from inclination.maps import OrientationMap
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
     >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))

@@ -27,16 +27,16 @@ from types import MappingProxyType
 import numpy as np
 
 from ._validation import check_one_of
+from .crystal.rotations import quat_as_euler_deg, quat_from_euler_deg
 from .errors import InputError
 from .frames import DeclaredAxes, data_frame_quat, orientations_to_declared, orientations_to_sample
-from .readers import (
+from .io.readers import (
     TABLE_DELIMITERS,
     place_on_grid,
     read_npz_arrays,
     read_table,
     read_tiff_arrays,
 )
-from .rotations import quat_as_euler_deg, quat_from_euler_deg
 
 __all__ = [
     "GRIDS",
@@ -566,7 +566,7 @@ def read_map(
     Raises
     ------
     InputError
-        For every bad field or file content (module docs of inclination.readers).
+        For every bad field or file content (module docs of inclination.io.readers).
 
     Examples
     --------

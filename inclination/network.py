@@ -440,7 +440,7 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice, Phase
     >>> from inclination.maps import OrientationMap
     >>> from inclination.grains import segment_grains
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)

@@ -326,7 +326,7 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
 
     Parameters
     ----------
-    job : inclination.job.Job
+    job : inclination.io.job.Job
     stage : {'grains', 'traces', 'planes', 'sections'}
         The last stage to run; each includes the ones before it.
     progress : callable, optional
@@ -396,7 +396,7 @@ def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = Fal
     -------
     RunResult
     """
-    from .job import load_job
+    from .io.job import load_job
     from .report._io import staged_output_dir
 
     job = load_job(job_path)
@@ -430,7 +430,7 @@ def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> R
     in a frame turned 180° about the surface normal: its verdict must say so).
     """
     from .demo import write_demo_scenario
-    from .job import load_job
+    from .io.job import load_job
     from .report._io import staged_output_dir
 
     out = Path(out_dir)

@@ -25,7 +25,7 @@ from ._validation import (
     check_one_of,
     check_positive,
 )
-from .rotations import quat_as_matrix
+from .crystal.rotations import quat_as_matrix
 
 __all__ = [
     "PlanePrediction",
@@ -377,7 +377,7 @@ def _low_index_directions(lattice) -> tuple[np.ndarray, list[str]]:
     """Directions [uvw] with no common factor and indices up to 3, low indices first."""
     from math import gcd
 
-    from .lattice import direction_crystal, format_indices
+    from .crystal.lattice import direction_crystal, format_indices
 
     n = _MAX_AXIS_INDEX
     grid = np.array(
@@ -403,7 +403,7 @@ def _nearest_direction(axis_crystal: np.ndarray, lattice) -> tuple[np.ndarray, n
 
 
 def _classify_sigma(angle_deg, axis_crystal, criterion):
-    from .csl import classify_misorientation
+    from .crystal.csl import classify_misorientation
 
     result = classify_misorientation(angle_deg, axis_crystal, criterion=criterion)
     labels = np.asarray(result.label, dtype=str)
@@ -413,7 +413,7 @@ def _classify_sigma(angle_deg, axis_crystal, criterion):
 
 def _misorientation_columns(qa, qb, phase, criterion):
     """Disorientation angle, nearest low-index axis and Σ class of same-phase pairs."""
-    from .symmetry import disorientation
+    from .crystal.symmetry import disorientation
 
     n = len(qa)
     sigma = np.full(n, "", dtype=object)
@@ -597,7 +597,7 @@ def _twin_test(out, rows, blk, tol_normal, phase, settings):
     trace, which is the condition "trace ⟂ common <111>" carried over to trace angles:
     the angle of t from the perpendicular is asin(sin δ · sin Δ) for a trace deviation Δ.
     """
-    from .lattice import plane_normals_crystal
+    from .crystal.lattice import plane_normals_crystal
 
     normals = plane_normals_crystal(phase.lattice, _CUBIC_111.astype(int))
     na = predict_planes(blk["qa"][rows], normals).normal_sample
@@ -784,7 +784,7 @@ def _long_table(parts, segment_id) -> dict:
 
 
 def _check_criterion(sigma_criterion) -> None:
-    from .csl import CRITERIA
+    from .crystal.csl import CRITERIA
 
     check_one_of(sigma_criterion, "sigma_criterion", CRITERIA)
 
@@ -802,7 +802,7 @@ def identify(
     """Identify the crystal plane of each straight boundary segment from its trace.
 
     For each segment, every candidate plane of both grains (the phase's
-    families, ±n once; :meth:`inclination.lattice.Phase.candidate_planes`) is
+    families, ±n once; :meth:`inclination.crystal.lattice.Phase.candidate_planes`) is
     predicted in S with :func:`predict_planes` and compared with the measured
     trace. A plane *fits* when its trace deviation is at most its tolerance
     τ = k·√(σ_measured² + σ_predicted²), floored at ``floor_deg`` and capped at
@@ -849,7 +849,7 @@ def identify(
     floor_deg, max_tolerance_deg : float, default 1.0, 5.0
         Smallest and largest tolerance, degrees.
     sigma_criterion : str, default "brandon"
-        CSL acceptance criterion, one of ``inclination.csl.CRITERIA``.
+        CSL acceptance criterion, one of ``inclination.crystal.csl.CRITERIA``.
 
     Returns
     -------
@@ -877,11 +877,11 @@ def identify(
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice, Phase
-    >>> from inclination.rotations import quat_from_axis_angle_deg, quat_multiply
+    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90),
     ...            ("{1 1 1}", "{1 1 0}"))
-    >>> from inclination.rotations import quat_from_euler_deg
+    >>> from inclination.crystal.rotations import quat_from_euler_deg
     >>> qa = quat_from_euler_deg([30.0, 50.0, 10.0])  # its (1 1 1) traces at 118.489°
     >>> qb = quat_multiply(quat_from_axis_angle_deg([1, 1, 1], 180.0), qa)  # the Σ3 twin
     >>> grains = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
@@ -928,7 +928,7 @@ def candidates(
 
     Examples
     --------
-    >>> from inclination.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice, Phase
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> grains = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),

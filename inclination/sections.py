@@ -31,8 +31,8 @@ from scipy.ndimage import uniform_filter
 from scipy.sparse.csgraph import connected_components
 
 from ._validation import as_float_array, check_finite, check_one_of, check_positive
+from .crystal.symmetry import disorientation_angle_deg
 from .errors import InputError
-from .symmetry import disorientation_angle_deg
 
 __all__ = [
     "VICKERS_DEPTH_FACTOR",

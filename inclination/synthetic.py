@@ -41,7 +41,7 @@ import numpy as np
 from scipy.spatial import Voronoi, cKDTree
 
 from ._validation import as_float_array, check_finite, check_one_of, check_positive
-from .rotations import (
+from .crystal.rotations import (
     quat_apply,
     quat_as_euler_deg,
     quat_from_axis_angle_deg,
@@ -152,7 +152,7 @@ class Microstructure:
     lamellae : tuple of TwinLamella
         Regions G+1.. in order.
     phases : tuple
-        The phase records (``inclination.lattice.Phase``) of the sample.
+        The phase records (``inclination.crystal.lattice.Phase``) of the sample.
     grain_pairs : ndarray, shape (M, 2)
         Pairs (a < b) of grains that share a face inside the box.
     """
@@ -245,7 +245,7 @@ def twin_planes_crystal(phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
     Parameters
     ----------
-    phase : inclination.lattice.Phase
+    phase : inclination.crystal.lattice.Phase
         Needs ``laue``; a hexagonal phase also needs ``lattice`` (§4 reciprocal vectors).
 
     Returns
@@ -257,7 +257,7 @@ def twin_planes_crystal(phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
     Examples
     --------
-    >>> from inclination.lattice import Phase
+    >>> from inclination.crystal.lattice import Phase
     >>> steel = Phase.from_dict({"id": 1, "name": "steel", "laue": "m-3m",
     ...     "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90}})
     >>> normals, labels = twin_planes_crystal(steel)
@@ -271,14 +271,14 @@ def twin_planes_crystal(phase) -> tuple[np.ndarray, tuple[str, ...]]:
         return hkl / np.linalg.norm(hkl, axis=1, keepdims=True), tuple(
             _format_indices(v) for v in _CUBIC_TWIN_PLANES
         )
-    from .lattice import plane_normals_crystal
+    from .crystal.lattice import plane_normals_crystal
 
     normals = np.asarray(plane_normals_crystal(phase.lattice, _HEXAGONAL_TWIN_PLANES))
     return normals, tuple(_format_indices(v) for v in _HEXAGONAL_TWIN_PLANES)
 
 
 def _default_phases():
-    from .lattice import Phase
+    from .crystal.lattice import Phase
 
     # An austenitic (FCC) matrix; a = 3.59 Å is typical of such steels (from memory).
     return (
@@ -425,7 +425,7 @@ def make_microstructure(
         Number of Voronoi seeds, >= 1, drawn uniformly in the box.
     rng : None, int or numpy.random.Generator
         Seed of everything random here.
-    phases : sequence of inclination.lattice.Phase, optional
+    phases : sequence of inclination.crystal.lattice.Phase, optional
         Default: one FCC phase (id 1, Laue m-3m).
     phase_fractions : sequence of float, optional
         Probability of each phase per grain; equal if omitted.

@@ -20,8 +20,13 @@ from inclination.compare import (
     full_planes,
     low_index_planes,
 )
-from inclination.lattice import Lattice, Phase
-from inclination.rotations import quat_apply, quat_from_axis_angle_deg, quat_inverse, random_quat
+from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.rotations import (
+    quat_apply,
+    quat_from_axis_angle_deg,
+    quat_inverse,
+    random_quat,
+)
 
 CU = Phase(
     1, "copper", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90), ("{1 1 1}",)
@@ -210,7 +215,7 @@ def _twin_pair(gen):
     qa = random_quat(1, rng=gen)[0]
     # Σ3: 60° about a <111> (passive: q_b = r ⊗ q_a with r the crystal rotation).
     r = quat_from_axis_angle_deg(np.array([1.0, 1.0, 1.0]) / math.sqrt(3), 60.0)
-    from inclination.rotations import quat_multiply
+    from inclination.crystal.rotations import quat_multiply
 
     qb = quat_multiply(r, qa)
     return qa, qb

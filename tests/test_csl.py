@@ -1,4 +1,4 @@
-"""Unit and property tests of inclination.csl."""
+"""Unit and property tests of inclination.crystal.csl."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from inclination.csl import (
+from inclination.crystal.csl import (
     CSLRelation,
     classify_hexagonal_misorientation,
     classify_misorientation,
@@ -20,14 +20,14 @@ from inclination.csl import (
     max_deviation_deg,
     relation_deviation_deg,
 )
-from inclination.rotations import (
+from inclination.crystal.rotations import (
     quat_as_matrix,
     quat_from_axis_angle_deg,
     quat_inverse,
     quat_multiply,
     random_quat,
 )
-from inclination.symmetry import disorientation, proper_rotations
+from inclination.crystal.symmetry import disorientation, proper_rotations
 
 RELATIONS_29 = {r.label: r for r in cubic_csl_relations(29)}
 

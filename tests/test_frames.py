@@ -7,6 +7,7 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
+from inclination.crystal.rotations import quat_as_matrix, quat_from_euler_deg, random_quat
 from inclination.errors import InputError
 from inclination.frames import (
     NAMED_TURNS,
@@ -15,7 +16,6 @@ from inclination.frames import (
     orientations_to_declared,
     orientations_to_sample,
 )
-from inclination.rotations import quat_as_matrix, quat_from_euler_deg, random_quat
 
 # Hand table (conventions §2: X_S right, Y_S down, Z_S = X_S × Y_S into the material):
 # each screen direction as a vector in S, and where x × y points for every perpendicular pair.

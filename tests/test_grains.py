@@ -9,6 +9,9 @@ from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 from skimage.measure import label as sk_label
 
+from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply, random_quat
+from inclination.crystal.symmetry import disorientation_angle_deg, proper_rotations
 from inclination.errors import InputError, SettingError
 from inclination.grains import (
     GRAIN_COLUMNS,
@@ -17,10 +20,7 @@ from inclination.grains import (
     point_xy_um,
     segment_grains,
 )
-from inclination.lattice import Lattice, Phase
 from inclination.maps import OrientationMap
-from inclination.rotations import quat_from_axis_angle_deg, quat_multiply, random_quat
-from inclination.symmetry import disorientation_angle_deg, proper_rotations
 
 CUBIC = Phase(1, "copper", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90), ("{1 1 1}",))
 HEXAGONAL = Phase(

@@ -9,9 +9,9 @@ import jsonschema
 import numpy as np
 import pytest
 
-from inclination._schemas import load_schema, schema_path
 from inclination.errors import InputError
-from inclination.job import SCHEMA_VERSION, job_from_dict, load_job
+from inclination.io.job import SCHEMA_VERSION, job_from_dict, load_job
+from inclination.io.schemas import load_schema, schema_path
 
 CUBIC = {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}
 

@@ -1,4 +1,4 @@
-"""Unit tests of inclination.lattice: cells, indices, normals, families, phases (conventions §4)."""
+"""Unit tests of inclination.crystal.lattice: cells, indices, normals, families, phases (conventions §4)."""
 
 from __future__ import annotations
 
@@ -10,8 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from inclination.errors import InputError
-from inclination.lattice import (
+from inclination.crystal.lattice import (
     LAUE_CRYSTAL_SYSTEMS,
     SETTINGS,
     Indices,
@@ -27,6 +26,7 @@ from inclination.lattice import (
     parse_indices,
     plane_normals_crystal,
 )
+from inclination.errors import InputError
 
 # One cell of each crystal system, with the Laue class the cell is tested under.
 CELLS = {

@@ -17,8 +17,10 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
+from inclination.crystal.rotations import quat_inverse, quat_multiply, random_quat
 from inclination.errors import InputError
 from inclination.frames import DeclaredAxes
+from inclination.io.readers import place_on_grid, read_table
 from inclination.maps import (
     OrientationMap,
     read_map,
@@ -27,8 +29,6 @@ from inclination.maps import (
     write_npz,
     write_tiff,
 )
-from inclination.readers import place_on_grid, read_table
-from inclination.rotations import quat_inverse, quat_multiply, random_quat
 
 SCREEN = {"right": (1, 0), "left": (-1, 0), "down": (0, 1), "up": (0, -1)}
 EIGHT = [
@@ -852,7 +852,7 @@ def test_array_maps_need_a_step(tmp_path):
 
 
 def test_tiff_reader_direct_errors(tmp_path):
-    from inclination.readers import read_tiff_arrays
+    from inclination.io.readers import read_tiff_arrays
 
     side = tmp_path / "c.tif.json"
     side.write_text(json.dumps({"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase"]}))

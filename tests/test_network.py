@@ -18,10 +18,10 @@ from test_grains import (
     voronoi_map,
 )
 
+from inclination.crystal.rotations import quat_from_axis_angle_deg
 from inclination.errors import SettingError
 from inclination.grains import segment_grains
 from inclination.network import CHAIN_COLUMNS, BoundaryNetwork, boundary_network
-from inclination.rotations import quat_from_axis_angle_deg
 
 Q4 = quat_from_axis_angle_deg([1, 1, 0], 50.0)
 

@@ -8,7 +8,13 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from inclination.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.rotations import (
+    quat_from_axis_angle_deg,
+    quat_from_euler_deg,
+    quat_multiply,
+    random_quat,
+)
 from inclination.planes import (
     IDENTIFICATION_CLASSES,
     candidates,
@@ -19,12 +25,6 @@ from inclination.planes import (
     trace_sigma_predicted_deg,
     trace_tolerance_deg,
     twin_test_summary,
-)
-from inclination.rotations import (
-    quat_from_axis_angle_deg,
-    quat_from_euler_deg,
-    quat_multiply,
-    random_quat,
 )
 
 CUBIC_111 = np.array([[1, 1, 1], [-1, 1, 1], [1, -1, 1], [1, 1, -1]], dtype=float)

@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
-from inclination.rotations import (
+from inclination.crystal.rotations import (
     matrix_from_euler_deg,
     mean_quat,
     quat_angle_deg,

@@ -630,7 +630,7 @@ def test_registration_on_a_hexagonal_grid(voronoi, shift_um):
 
 
 def test_registration_without_common_grains(voronoi):
-    from inclination.rotations import quat_from_axis_angle_deg, quat_multiply
+    from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply
     from inclination.synthetic import sample_map
 
     surface = _truth_grain_map(voronoi, sample_map(voronoi, step_um=1.0, rng=0, noise_deg=0.0))
@@ -689,7 +689,7 @@ def test_grain_matching_uses_orientation_and_overlap():
     assert_allclose(pairs["surface_grain"], pairs["deeper_grain"], rtol=0, atol=0)
     assert_allclose(pairs["disorientation_deg"], 0.0, rtol=0, atol=1e-4)
     # Turn every deeper grain by 20°: no grain is the same grain any more.
-    from inclination.rotations import quat_from_axis_angle_deg, quat_multiply
+    from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply
 
     turned = dict(deeper.grains)
     turned["quat"] = quat_multiply(deeper.grains["quat"], quat_from_axis_angle_deg([0, 0, 1], 20))

@@ -1,4 +1,4 @@
-"""Unit and property tests of inclination.symmetry (conventions §4)."""
+"""Unit and property tests of inclination.crystal.symmetry (conventions §4)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 
-from inclination.rotations import (
+from inclination.crystal.rotations import (
     quat_apply,
     quat_as_matrix,
     quat_from_axis_angle_deg,
@@ -19,7 +19,7 @@ from inclination.rotations import (
     quat_multiply,
     random_quat,
 )
-from inclination.symmetry import (
+from inclination.crystal.symmetry import (
     LAUE_CLASSES,
     SETTINGS,
     disorientation,
@@ -31,7 +31,7 @@ from inclination.symmetry import (
     reduce_axis_to_triangle,
     reduce_to_fundamental_zone,
 )
-from inclination.symmetry import _triangle_walls as triangle_walls
+from inclination.crystal.symmetry import _triangle_walls as triangle_walls
 
 SIZES = dict(zip(LAUE_CLASSES, (1, 2, 4, 4, 8, 3, 6, 6, 12, 12, 24), strict=True))
 CASES = [(laue, setting) for laue in LAUE_CLASSES for setting in SETTINGS]

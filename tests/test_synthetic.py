@@ -13,9 +13,9 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 
-from inclination import symmetry
-from inclination.lattice import Phase
-from inclination.rotations import (
+from inclination.crystal import symmetry
+from inclination.crystal.lattice import Phase
+from inclination.crystal.rotations import (
     quat_apply,
     quat_as_matrix,
     quat_from_euler_deg,
@@ -717,9 +717,9 @@ def test_demo_scenario_files(tmp_path):
     # the maps the npz reader; the z180 case holds the same orientations turned (§6).
     import jsonschema
 
-    from inclination._schemas import load_schema
     from inclination.demo import write_demo_scenario
-    from inclination.readers import read_npz_arrays
+    from inclination.io.readers import read_npz_arrays
+    from inclination.io.schemas import load_schema
 
     paths = write_demo_scenario(tmp_path, seed=3)
     schema = load_schema("job.schema.json")

@@ -57,8 +57,8 @@ def _declared_points(axes, x, y):
 
 def grains_table(analysis) -> dict:
     """The grains table in declared axes (orientations back in the data frame)."""
+    from ..crystal.rotations import quat_as_euler_deg
     from ..frames import orientations_to_declared
-    from ..rotations import quat_as_euler_deg
 
     g = analysis.grain_map.grains
     omap = analysis.omap

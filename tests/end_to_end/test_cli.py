@@ -200,7 +200,7 @@ def test_latex_table_compiles(demo_run, tmp_path):
 def test_progress_reaches_every_long_stage(scenario):
     # The CLI hands a tqdm factory to the pipeline on a terminal; here a recording
     # factory stands in for it: each long stage opens a bar that ends at 100 %.
-    from inclination.job import load_job
+    from inclination.io.job import load_job
     from inclination.pipeline import run
 
     bars = {}

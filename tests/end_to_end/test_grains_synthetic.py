@@ -13,9 +13,9 @@ from scipy.sparse.csgraph import connected_components
 from skimage.measure import label as sk_label
 
 from inclination import synthetic
+from inclination.crystal.symmetry import disorientation_angle_deg
 from inclination.grains import segment_grains
 from inclination.network import boundary_network
-from inclination.symmetry import disorientation_angle_deg
 
 MIN_PIXELS = 8
 

@@ -12,12 +12,12 @@ import numpy as np
 import pytest
 
 from inclination import synthetic
-from inclination.csl import classify_misorientation
+from inclination.crystal.csl import classify_misorientation
+from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.symmetry import disorientation
 from inclination.grains import segment_grains
-from inclination.lattice import Lattice, Phase
 from inclination.network import boundary_network
 from inclination.planes import candidates, identify
-from inclination.symmetry import disorientation
 from inclination.traces import fit_segments
 
 STEP_UM = 0.5

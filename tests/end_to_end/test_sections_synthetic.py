@@ -14,9 +14,9 @@ import pytest
 
 from inclination import synthetic
 from inclination.compare import boundary_sense, frame_verdict
+from inclination.crystal.lattice import Lattice, Phase
 from inclination.frames import DeclaredAxes
 from inclination.grains import segment_grains
-from inclination.lattice import Lattice, Phase
 from inclination.network import boundary_network
 from inclination.planes import identify
 from inclination.sections import (

@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 
 from inclination import grains, network
-from inclination.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice, Phase
 from inclination.synthetic import (
     as_orientation_map,
     boundary_normals_sample,

@@ -12,9 +12,9 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
-from inclination import lattice
+from inclination.crystal import lattice
+from inclination.crystal.rotations import quat_from_euler_deg, quat_from_matrix
 from inclination.planes import predict_planes
-from inclination.rotations import quat_from_euler_deg, quat_from_matrix
 
 CUBIC_111 = np.array([[1, 1, 1], [-1, 1, 1], [1, -1, 1], [1, 1, -1]], dtype=float)
 

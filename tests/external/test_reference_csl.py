@@ -18,9 +18,9 @@ from conftest import require_reference
 from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
-from inclination.csl import cubic_csl_relations, hexagonal_twins, relation_deviation_deg
-from inclination.rotations import quat_from_axis_angle_deg
-from inclination.symmetry import disorientation
+from inclination.crystal.csl import cubic_csl_relations, hexagonal_twins, relation_deviation_deg
+from inclination.crystal.rotations import quat_from_axis_angle_deg
+from inclination.crystal.symmetry import disorientation
 
 # Grimmer, Bollmann & Warrington (1974): label, angle (°), axis, as quoted in issue 2.
 GRIMMER_1974 = [

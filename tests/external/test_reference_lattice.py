@@ -19,7 +19,7 @@ import pytest
 from conftest import require_reference
 from numpy.testing import assert_allclose
 
-from inclination.lattice import (
+from inclination.crystal.lattice import (
     SETTINGS,
     Lattice,
     d_spacing,

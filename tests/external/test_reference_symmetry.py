@@ -21,8 +21,8 @@ from conftest import require_reference
 from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
-from inclination.rotations import quat_from_axis_angle_deg, quat_from_matrix, random_quat
-from inclination.symmetry import (
+from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_from_matrix, random_quat
+from inclination.crystal.symmetry import (
     LAUE_CLASSES,
     SETTINGS,
     disorientation,

@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._validation import as_float_array, check_finite, check_last_axis
+from .._validation import as_float_array, check_finite, check_last_axis
 
 __all__ = [
     "quat_from_euler_deg",

@@ -31,8 +31,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ._schemas import load_schema
-from .errors import InputError
+from ..errors import InputError
+from .schemas import load_schema
 
 __all__ = [
     "Table",

@@ -26,8 +26,8 @@ from types import MappingProxyType
 
 import numpy as np
 
-from ._validation import as_float_array, check_finite, check_one_of
-from .errors import InputError
+from .._validation import as_float_array, check_finite, check_one_of
+from ..errors import InputError
 from .rotations import quat_as_matrix
 from .symmetry import LAUE_CLASSES, SETTINGS, proper_rotations
 
@@ -912,7 +912,7 @@ def default_families(laue: str) -> tuple[str, ...]:
     check_one_of(laue, "laue", _LAUE)
     system = LAUE_CRYSTAL_SYSTEMS[laue]
     # Families in index space do not depend on the setting (the -3m 2-folds follow
-    # the a-axes in both, see inclination.symmetry); one setting serves for all.
+    # the a-axes in both, see inclination.crystal.symmetry); one setting serves for all.
     setting = "x_parallel_a"
     if system == "cubic":
         return _DEFAULT_CUBIC

@@ -37,7 +37,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validation import as_float_array, check_finite, check_last_axis, check_one_of
+from .._validation import as_float_array, check_finite, check_last_axis, check_one_of
 from .rotations import quat_as_matrix, quat_multiply
 
 __all__ = [
@@ -313,7 +313,7 @@ def max_scalar_part(dq, laue: str, *, setting: str = "x_parallel_a", out=None) -
 
     Examples
     --------
-    >>> from inclination.rotations import quat_from_axis_angle_deg
+    >>> from inclination.crystal.rotations import quat_from_axis_angle_deg
     >>> dq = quat_from_axis_angle_deg([[0, 0, 1], [1, 1, 1]], [95.0, 120.0])
     >>> max_scalar_part(dq, "m-3m").round(6).tolist()  # cos(5°/2) and cos(0°/2)
     [0.999048, 1.0]
@@ -376,7 +376,7 @@ def misorientation_quat(qa, qb) -> np.ndarray:
 
     Examples
     --------
-    >>> from inclination.rotations import quat_from_axis_angle_deg
+    >>> from inclination.crystal.rotations import quat_from_axis_angle_deg
     >>> qa = quat_from_axis_angle_deg([0, 0, 1], 10.0)
     >>> qb = quat_from_axis_angle_deg([0, 0, 1], 40.0)
     >>> misorientation_quat(qa, qb).round(6).tolist()  # 30° about [001]
@@ -457,7 +457,7 @@ def disorientation_angle_deg(qa, qb, laue: str, *, setting: str = "x_parallel_a"
 
     Examples
     --------
-    >>> from inclination.rotations import quat_from_euler_deg
+    >>> from inclination.crystal.rotations import quat_from_euler_deg
     >>> qa = quat_from_euler_deg([0.0, 0.0, 0.0])
     >>> qb = quat_from_euler_deg([[100.0, 0.0, 0.0], [0.0, 90.0, 0.0]])
     >>> disorientation_angle_deg(qa, qb, "m-3m").round(6).tolist()
@@ -645,7 +645,7 @@ def disorientation(qa, qb, laue: str, *, setting: str = "x_parallel_a") -> Disor
 
     Examples
     --------
-    >>> from inclination.rotations import quat_from_axis_angle_deg
+    >>> from inclination.crystal.rotations import quat_from_axis_angle_deg
     >>> twin = quat_from_axis_angle_deg([1, -1, 0], 70.528779)  # Σ3 written about <110>
     >>> d = disorientation([1.0, 0.0, 0.0, 0.0], twin, "m-3m")
     >>> round(float(d.angle_deg), 4), d.axis_crystal.round(6).tolist()
@@ -700,7 +700,7 @@ def reduce_to_fundamental_zone(q, laue: str, *, setting: str = "x_parallel_a") -
 
     Examples
     --------
-    >>> from inclination.rotations import quat_from_axis_angle_deg, quat_as_axis_angle_deg
+    >>> from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_as_axis_angle_deg
     >>> q = quat_from_axis_angle_deg([0, 0, 1], 100.0)
     >>> float(quat_as_axis_angle_deg(reduce_to_fundamental_zone(q, "m-3m"))[1].round(6))
     10.0

@@ -27,7 +27,7 @@ def schema_path(name: str) -> Path:
     packaged = resources.files("inclination") / "schemas" / name
     if packaged.is_file():
         return Path(str(packaged))
-    in_source = Path(__file__).resolve().parent.parent / "schemas" / name
+    in_source = Path(__file__).resolve().parents[2] / "schemas" / name
     if in_source.is_file():
         return in_source
     raise FileNotFoundError(

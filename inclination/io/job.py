@@ -17,8 +17,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ._schemas import load_schema
-from .errors import InputError
+from ..errors import InputError
+from .schemas import load_schema
 
 __all__ = ["Job", "load_job", "job_from_dict", "SCHEMA_VERSION"]
 
@@ -37,7 +37,7 @@ class Job:
 
     Attributes
     ----------
-    phases : tuple of inclination.lattice.Phase
+    phases : tuple of inclination.crystal.lattice.Phase
     map : dict
         The surface map entry, defaults filled, ``path`` (and ``sidecar``)
         absolute. Pass it to :func:`inclination.maps.read_map`.
@@ -76,7 +76,7 @@ class Job:
 
     def read_surface_map(self, *, progress=None):
         """Read the surface map (``inclination.maps.read_map`` with this job's context)."""
-        from .maps import read_map
+        from ..maps import read_map
 
         return read_map(
             self.map,
@@ -88,7 +88,7 @@ class Job:
 
     def read_section_map(self, index: int):
         """Read the map of serial section ``index`` (position in ``sections``)."""
-        from .maps import read_map
+        from ..maps import read_map
 
         section = self.sections[index]
         if section["kind"] != "serial":
@@ -244,7 +244,7 @@ def _declared_step(map_spec) -> float | None:
 
 
 def _build_phases(entries, path):
-    from .lattice import Phase
+    from ..crystal.lattice import Phase
 
     seen = {}
     phases = []

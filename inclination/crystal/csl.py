@@ -28,7 +28,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from ._validation import as_float_array, check_finite, check_last_axis, check_one_of
+from .._validation import as_float_array, check_finite, check_last_axis, check_one_of
 from .rotations import quat_from_axis_angle_deg, quat_multiply
 from .symmetry import (
     LAUE_CLASSES,
