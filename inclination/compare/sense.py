@@ -22,9 +22,9 @@ from itertools import product
 import numpy as np
 from scipy.stats import binom
 
-from ._validation import as_float_array, check_positive
-from .crystal.lattice import format_indices, plane_normals_crystal
-from .crystal.rotations import quat_apply, quat_as_matrix
+from .._validation import as_float_array, check_positive
+from ..crystal.lattice import format_indices, plane_normals_crystal
+from ..crystal.rotations import quat_apply, quat_as_matrix
 
 __all__ = [
     "SENSES",

@@ -18,17 +18,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validation import (
+from .._validation import (
     as_float_array,
     check_finite,
     check_last_axis,
     check_one_of,
     check_positive,
 )
-from .crystal.rotations import quat_as_matrix
+from ..crystal.rotations import quat_as_matrix
+from .geometry import PlanePrediction, surface_geometry
 
 __all__ = [
-    "PlanePrediction",
     "predict_planes",
     "trace_sigma_predicted_deg",
     "trace_tolerance_deg",
@@ -41,63 +41,9 @@ __all__ = [
     "twin_test_summary",
 ]
 
-# |n_z| above cos 1°: the plane lies within 1° of the surface; its trace is
-# undefined for any practical purpose (§5), so it is never matched.
-_NO_TRACE_NZ = np.cos(np.deg2rad(1.0))
-# |n_z| below this is round-off from the rotation of an exactly vertical plane
-# (about 6e-8 degrees); such a plane has no dip direction.
-_VERTICAL_NZ = 1e-9
 # A first-order trace uncertainty cannot usefully exceed a right angle: the
 # trace of a plane within a degree of the surface is unknown anyway.
 _MAX_TRACE_SIGMA_DEG = 90.0
-
-
-@dataclass(frozen=True)
-class PlanePrediction:
-    """Surface geometry of planes in grains, conventions §5.
-
-    Attributes
-    ----------
-    normal_sample : ndarray, shape (..., M, 3)
-        Unit plane normals in S, signed so that n_z >= 0 (into the material).
-    trace_angle_deg : ndarray, shape (..., M)
-        Angle of the trace direction t = Z × n from +X toward +Y, in [0, 180);
-        NaN where ``has_trace`` is False.
-    dip_deg : ndarray, shape (..., M)
-        arccos |n_z|: 0 for a plane parallel to the surface, 90 for a vertical one.
-    dip_azimuth_deg : ndarray, shape (..., M)
-        Angle of the dip direction d from +X toward +Y, in [0, 360); NaN for a
-        vertical plane or one exactly parallel to the surface (no dip direction).
-    has_trace : ndarray of bool, shape (..., M)
-        False when the plane lies within 1° of the surface (|n_z| > cos 1°).
-    """
-
-    normal_sample: np.ndarray
-    trace_angle_deg: np.ndarray
-    dip_deg: np.ndarray
-    dip_azimuth_deg: np.ndarray
-    has_trace: np.ndarray
-
-
-def _surface_geometry(normal_sample: np.ndarray) -> PlanePrediction:
-    """Trace, dip and dip direction of unit normals in S (any sign), §5."""
-    n = np.where(normal_sample[..., 2:3] < 0, -normal_sample, normal_sample)
-    nx, ny, nz = n[..., 0], n[..., 1], n[..., 2]
-    has_trace = nz <= _NO_TRACE_NZ
-    # t = Z × n = (−n_y, n_x, 0); its angle mod 180 does not depend on the sign of n.
-    trace = np.mod(np.rad2deg(np.arctan2(nx, -ny)), 180.0)
-    trace = np.where(trace >= 180.0, 0.0, trace)
-    trace = np.where(has_trace, trace, np.nan)
-    dip = np.rad2deg(np.arccos(np.clip(nz, 0.0, 1.0)))
-    # With n_z >= 0, d = −(n_x, n_y) up to its length.
-    azimuth = np.mod(np.rad2deg(np.arctan2(-ny, -nx)), 360.0)
-    azimuth = np.where(azimuth >= 360.0, 0.0, azimuth)
-    # Neither a vertical plane nor one exactly parallel to the surface has a dip direction.
-    undefined = (nz < _VERTICAL_NZ) | (np.hypot(nx, ny) < _VERTICAL_NZ)
-    azimuth = np.where(undefined, np.nan, azimuth)
-    for arr in (n, trace, dip, azimuth, has_trace):
-        arr.setflags(write=False)
-    return PlanePrediction(n + 0.0, trace, dip, azimuth, has_trace)
 
 
 def predict_planes(quat, normals_crystal) -> PlanePrediction:
@@ -148,7 +94,7 @@ def predict_planes(quat, normals_crystal) -> PlanePrediction:
         g = quat_as_matrix(q)
     # n_S = gᵀ n_C: the rows of g are the crystal axes written in S (§3).
     normal_sample = np.einsum("...ji,mj->...mi", g, nc)
-    return _surface_geometry(normal_sample)
+    return surface_geometry(normal_sample)
 
 
 def trace_sigma_predicted_deg(spread_deg, dip_deg) -> np.ndarray:
@@ -377,7 +323,7 @@ def _low_index_directions(lattice) -> tuple[np.ndarray, list[str]]:
     """Directions [uvw] with no common factor and indices up to 3, low indices first."""
     from math import gcd
 
-    from .crystal.lattice import direction_crystal, format_indices
+    from ..crystal.lattice import direction_crystal, format_indices
 
     n = _MAX_AXIS_INDEX
     grid = np.array(
@@ -403,7 +349,7 @@ def _nearest_direction(axis_crystal: np.ndarray, lattice) -> tuple[np.ndarray, n
 
 
 def _classify_sigma(angle_deg, axis_crystal, criterion):
-    from .crystal.csl import classify_misorientation
+    from ..crystal.csl import classify_misorientation
 
     result = classify_misorientation(angle_deg, axis_crystal, criterion=criterion)
     labels = np.asarray(result.label, dtype=str)
@@ -413,7 +359,7 @@ def _classify_sigma(angle_deg, axis_crystal, criterion):
 
 def _misorientation_columns(qa, qb, phase, criterion):
     """Disorientation angle, nearest low-index axis and Σ class of same-phase pairs."""
-    from .crystal.symmetry import disorientation
+    from ..crystal.symmetry import disorientation
 
     n = len(qa)
     sigma = np.full(n, "", dtype=object)
@@ -464,7 +410,7 @@ def _side_fit(pred: PlanePrediction, theta, sigma_m, spread, settings):
 
 def _pair_geometry(na, nb, sign):
     """The shared plane of two normals that agree: their mean, signed n_z >= 0."""
-    return _surface_geometry(_unit(na + sign[..., None] * nb))
+    return surface_geometry(_unit(na + sign[..., None] * nb))
 
 
 def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
@@ -597,7 +543,7 @@ def _twin_test(out, rows, blk, tol_normal, phase, settings):
     trace, which is the condition "trace ⟂ common <111>" carried over to trace angles:
     the angle of t from the perpendicular is asin(sin δ · sin Δ) for a trace deviation Δ.
     """
-    from .crystal.lattice import plane_normals_crystal
+    from ..crystal.lattice import plane_normals_crystal
 
     normals = plane_normals_crystal(phase.lattice, _CUBIC_111.astype(int))
     na = predict_planes(blk["qa"][rows], normals).normal_sample
@@ -784,7 +730,7 @@ def _long_table(parts, segment_id) -> dict:
 
 
 def _check_criterion(sigma_criterion) -> None:
-    from .crystal.csl import CRITERIA
+    from ..crystal.csl import CRITERIA
 
     check_one_of(sigma_criterion, "sigma_criterion", CRITERIA)
 

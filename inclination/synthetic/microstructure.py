@@ -40,8 +40,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import Voronoi, cKDTree
 
-from ._validation import as_float_array, check_finite, check_one_of, check_positive
-from .crystal.rotations import (
+from .._validation import as_float_array, check_finite, check_one_of, check_positive
+from ..crystal.rotations import (
     quat_apply,
     quat_as_euler_deg,
     quat_from_axis_angle_deg,
@@ -271,14 +271,14 @@ def twin_planes_crystal(phase) -> tuple[np.ndarray, tuple[str, ...]]:
         return hkl / np.linalg.norm(hkl, axis=1, keepdims=True), tuple(
             _format_indices(v) for v in _CUBIC_TWIN_PLANES
         )
-    from .crystal.lattice import plane_normals_crystal
+    from ..crystal.lattice import plane_normals_crystal
 
     normals = np.asarray(plane_normals_crystal(phase.lattice, _HEXAGONAL_TWIN_PLANES))
     return normals, tuple(_format_indices(v) for v in _HEXAGONAL_TWIN_PLANES)
 
 
 def _default_phases():
-    from .crystal.lattice import Phase
+    from ..crystal.lattice import Phase
 
     # An austenitic (FCC) matrix; a = 3.59 Å is typical of such steels (from memory).
     return (
@@ -888,7 +888,7 @@ def as_orientation_map(sample: SampledMap):
     >>> omap.shape, omap.quat.shape, omap.step_x_um
     ((40, 40), (4, 40, 40), 0.5)
     """
-    from .maps import OrientationMap
+    from ..maps import OrientationMap
 
     if not isinstance(sample, SampledMap):
         raise TypeError(f"Expected `sample` to be a SampledMap, got {type(sample).__name__}.")

@@ -30,9 +30,9 @@ import numpy as np
 from scipy.ndimage import uniform_filter
 from scipy.sparse.csgraph import connected_components
 
-from ._validation import as_float_array, check_finite, check_one_of, check_positive
-from .crystal.symmetry import disorientation_angle_deg
-from .errors import InputError
+from .._validation import as_float_array, check_finite, check_one_of, check_positive
+from ..crystal.symmetry import disorientation_angle_deg
+from ..errors import InputError
 
 __all__ = [
     "VICKERS_DEPTH_FACTOR",
