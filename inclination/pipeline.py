@@ -10,15 +10,28 @@ file is complete. The command line calls these and nothing else.
 
 from __future__ import annotations
 
+import os
 import platform
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, SettingError
+from .io.job import Job
+from .maps import OrientationMap
+
+if TYPE_CHECKING:
+    # Annotations only: a grains-only run should not import the later stages (and
+    # scipy.stats with them) at start-up.
+    from .compare import FrameVerdict
+    from .grains import GrainMap
+    from .network import BoundaryNetwork
+    from .planes import TwinTestSummary
 
 __all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "demo"]
 
@@ -27,46 +40,84 @@ STAGES = ("grains", "traces", "planes", "sections")
 #: Version of the summary.json layout.
 SUMMARY_VERSION = "1.0"
 
+#: A table: one key per column, equal-length 1-D arrays (docs/architecture.md).
+Table = dict[str, np.ndarray]
+#: ``progress(total, desc)`` returning a bar with ``update(n)`` and ``close()``.
+ProgressFactory = Callable[[int, str], Any]
+
 
 @dataclass(frozen=True)
 class Analysis:
-    """Everything one run computed, in the sample frame S.
+    """Everything one run computed, in the sample frame S (conventions §2).
 
-    ``segments``, ``identification``, ``measured``, ``senses`` and ``planes_full``
-    are tables (dicts of equal-length arrays); absent stages hold None.
+    Attributes
+    ----------
+    job : Job
+        The job that was run.
+    omap : OrientationMap
+        The surface map.
+    grain_map : GrainMap
+    stage : str
+        The last stage run, one of ``STAGES``.
+    network : BoundaryNetwork or None
+    segments, subgrain_segments : Table or None
+        Straight segments of the grain boundaries and of the sub-grain network.
+    identification, candidates : Table or None
+        Tables of :func:`inclination.planes.identify` and ``candidates``.
+    twin_summary : TwinTestSummary or None
+    section_tables : tuple of Table
+        One table per section of the job (and one for a stack), in job order.
+    section_notes : tuple of dict
+        What ``summary.json`` says of each of those tables.
+    measured, senses, planes_full : Table or None
+        The fields of :class:`inclination.compare.Comparison`.
+    verdict : FrameVerdict or None
+
+    Absent stages hold None (or an empty tuple).
     """
 
-    job: object
-    omap: object
-    grain_map: object
+    job: Job
+    omap: OrientationMap
+    grain_map: GrainMap
     stage: str
-    network: object = None
-    segments: dict | None = None
-    subgrain_segments: dict | None = None
-    identification: dict | None = None
-    candidates: dict | None = None
-    twin_summary: object = None
-    section_tables: tuple = ()
-    section_notes: tuple = ()
-    measured: dict | None = None
-    senses: dict | None = None
-    verdict: object = None
-    planes_full: dict | None = None
+    network: BoundaryNetwork | None = None
+    segments: Table | None = None
+    subgrain_segments: Table | None = None
+    identification: Table | None = None
+    candidates: Table | None = None
+    twin_summary: TwinTestSummary | None = None
+    section_tables: tuple[Table, ...] = ()
+    section_notes: tuple[dict, ...] = ()
+    measured: Table | None = None
+    senses: Table | None = None
+    verdict: FrameVerdict | None = None
+    planes_full: Table | None = None
 
 
 @dataclass(frozen=True)
 class RunResult:
-    """What a command wrote, and the lines it tells the user."""
+    """What a command wrote, and the lines it tells the user.
+
+    Attributes
+    ----------
+    out_dir : Path
+    files : tuple of Path
+        The files written (empty for ``demo``, which writes whole folders).
+    messages : tuple of str
+        The lines the command line prints.
+    summary : dict or None
+        What ``summary.json`` holds; for ``demo``, the two summaries by folder name.
+    """
 
     out_dir: Path
-    files: tuple
-    messages: tuple = field(default=())
+    files: tuple[Path, ...]
+    messages: tuple[str, ...] = field(default=())
     summary: dict | None = None
 
 
 def _stage_index(stage: str) -> int:
     if stage not in STAGES:
-        raise ValueError(f"Expected `stage` to be one of {STAGES}, got {stage!r}.")
+        raise SettingError(f"Expected `stage` to be one of {STAGES}, got {stage!r}.")
     return STAGES.index(stage)
 
 
@@ -278,50 +329,7 @@ def _sections(job, omap, grain_map, segments, progress):
     return tuple(tables), tuple(notes)
 
 
-def _compare(job, grain_map, identification, measured):
-    from .compare import boundary_sense, frame_verdict, full_planes
-
-    ident_row = {int(s): i for i, s in enumerate(identification["segment_id"])}
-    rows = np.array([ident_row.get(int(s), -1) for s in measured["segment_id"]], dtype=int)
-    keep = rows >= 0
-    measured = {k: np.asarray(v)[keep] for k, v in measured.items()}
-    rows = rows[keep]
-
-    def ident(col):
-        return np.asarray(identification[col])[rows]
-
-    # Only planes that traces pin down (a shared twin plane, or one shared plane) carry a
-    # predicted dip direction worth testing; an ambiguous trace fits several directions.
-    trusted = np.isin(ident("identification"), ("coherent_twin", "identified"))
-    predicted_azimuth = np.where(trusted, ident("predicted_dip_azimuth_deg"), np.nan)
-    senses = boundary_sense(
-        predicted_azimuth,
-        ident("predicted_dip_deg"),
-        measured["dip_direction_azimuth_deg"],
-        measured["dip_direction_sigma_deg"],
-        measured_dip_deg=measured["measured_dip_deg"],
-        measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
-        predicted_azimuth_sigma_deg=ident("tolerance_deg") / 2.0,
-        predicted_dip_sigma_deg=ident("tolerance_deg") / 2.0,
-    )
-    senses = {"segment_id": np.asarray(measured["segment_id"]), **senses}
-    verdict = frame_verdict(senses)
-    planes_full = full_planes(
-        measured,
-        {
-            "segment_id": np.asarray(measured["segment_id"]),
-            "grain_a": ident("grain_a"),
-            "grain_b": ident("grain_b"),
-            "sigma": ident("sigma"),
-        },
-        grain_map.grains,
-        _phases_by_id(job),
-        coherent_tolerance_deg=job.planes["max_tolerance_deg"],
-    )
-    return measured, senses, verdict, planes_full
-
-
-def run(job, *, stage: str = "sections", progress=None) -> Analysis:
+def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None = None) -> Analysis:
     """Run the job's stages up to ``stage`` and return what they computed.
 
     Parameters
@@ -373,23 +381,35 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
         return analysis
-    from .compare import best_measurements
+    from .compare import best_measurements, compare_map
 
     tables, notes = _sections(job, omap, grain_map, segments, progress)
-    measured = best_measurements(*tables)
-    measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)
+    comparison = compare_map(
+        best_measurements(*tables),
+        identification,
+        grain_map.grains,
+        _phases_by_id(job),
+        coherent_tolerance_deg=job.planes["max_tolerance_deg"],
+    )
     return replace(
         analysis,
         section_tables=tables,
         section_notes=notes,
-        measured=measured,
-        senses=senses,
-        verdict=verdict,
-        planes_full=planes_full,
+        measured=comparison.measured,
+        senses=comparison.senses,
+        verdict=comparison.verdict,
+        planes_full=comparison.planes_full,
     )
 
 
-def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = False, progress=None):
+def analyse(
+    job_path: str | os.PathLike,
+    out_dir: str | os.PathLike,
+    *,
+    stage: str = "sections",
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
     """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
 
     Returns
@@ -422,7 +442,13 @@ def _messages(summary, out):
     return lines
 
 
-def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> RunResult:
+def demo(
+    out_dir: str | os.PathLike,
+    *,
+    seed: int = 7,
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
     """Write the demo scenario and run the whole job on it, and on its turned-frame twin.
 
     The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
@@ -450,7 +476,7 @@ def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> R
     return RunResult(out, (), tuple(messages), summaries)
 
 
-def rebuild_report(run_dir) -> RunResult:
+def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     """Write ``report.html`` and ``report.md`` again from a finished run's own files.
 
     Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
@@ -498,7 +524,7 @@ def rebuild_report(run_dir) -> RunResult:
 # ----------------------------------------------------------------------------- outputs
 
 
-def write_outputs(analysis: Analysis, out_dir):
+def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[Path], dict]:
     """Write every table, figure and the report of ``analysis`` into ``out_dir``.
 
     Returns
