@@ -75,14 +75,18 @@ def predicted_directions(
     Only identifications in :data:`TRUSTED_IDENTIFICATIONS` keep their predicted dip
     direction; every other row gets NaN, which :func:`boundary_sense` reports as "no
     predicted dip direction". The σ of the prediction, for the azimuth and for the
-    dip alike, is τ/2 with τ the row's ``tolerance_deg``: the identification accepts a
-    trace within τ = k·√(σ_trace² + σ_predicted²) of the predicted one
-    (:func:`inclination.planes.trace_tolerance_deg`), with the coverage factor
-    k = 2 by default, so τ/2 is one σ of the angular mismatch the identification
-    allowed between the plane and the measured trace. The same angular error of the
-    normal moves trace, dip and dip direction alike to first order, hence one σ for
-    both. τ/2 is kept whatever the job's k: the floor and cap of τ make τ/k no truer,
-    and the comparator's odds are calibrated on synthetic samples with this σ
+    dip alike, is τ/2 with τ the row's ``tolerance_deg``. The identification accepts a
+    trace within τ = k·√(σ_trace² + σ_predicted²) of the predicted one, floored and
+    capped (:func:`inclination.planes.trace_tolerance_deg`), with the coverage factor
+    k = 2 by default: τ/2 is then one σ of the whole trace mismatch the
+    identification allowed, of which the error of the prediction is only a part. It is
+    therefore an upper bound on the σ of the prediction, and meant as one: a too large
+    σ only weakens each boundary's odds, a too small one would make them
+    overconfident. One σ serves azimuth and dip: the tolerance is the only
+    uncertainty of the plane the identification carries. The divisor stays 2 whatever
+    the job's k (with k < 2, τ/2 falls below one σ of the mismatch). On synthetic
+    samples every trusted prediction lies well within τ/2 of the true dip and dip
+    direction, and the untrusted (ambiguous) ones mostly miss the true plane
     (tests/end_to_end/test_compare_synthetic.py).
 
     Parameters
@@ -113,7 +117,7 @@ def predicted_directions(
     if np.any(rows < 0):
         missing = seg[rows < 0][0]
         raise ValueError(
-            f"Expected every segment in `identification`, got segment_id {missing!r} "
+            f"Expected every segment in `identification`, got segment_id {int(missing)} "
             f"at index ({int(np.flatnonzero(rows < 0)[0])},)."
         )
 
