@@ -344,6 +344,30 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     Returns
     -------
     Analysis
+
+    Raises
+    ------
+    SettingError
+        ``stage`` is not one of ``STAGES``.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> a = run(job_from_dict(spec, base_dir=folder), stage="planes")
+    >>> len(a.grain_map.grains["grain_id"]), a.segments["trace_angle_deg"].round(6).tolist()
+    (2, [90.0])
+    >>> a.identification["identification"].tolist(), a.verdict is None
+    (['ambiguous'], True)
     """
     stage_i = _stage_index(stage)
     update, close = _progress_callback(progress, "surface: read map")
@@ -412,9 +436,46 @@ def analyse(
 ) -> RunResult:
     """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
 
+    The outputs are written into a staged folder that replaces ``out_dir`` only once
+    every file is complete; an existing ``out_dir`` is replaced only with ``overwrite``.
+
+    Parameters
+    ----------
+    job_path : str or PathLike
+        The job file (JSON, ``schemas/job.schema.json``).
+    out_dir : str or PathLike
+        The output folder.
+    stage : {'grains', 'traces', 'planes', 'sections'}, optional
+        The last stage to run.
+    overwrite : bool, optional
+        Replace an existing ``out_dir``.
+    progress : callable, optional
+        As for :func:`run`.
+
     Returns
     -------
     RunResult
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> import json
+    >>> _ = (folder / "job.json").write_text(json.dumps(spec))
+    >>> result = analyse(folder / "job.json", folder / "out", stage="traces")
+    >>> [p.name for p in result.files]
+    ['grains.csv', 'segments.csv', 'segments.json', 'segments.meta.json', 'summary.json']
+    >>> result.summary["counts"]["segments"]
+    1
     """
     from .io.job import load_job
     from .report._io import staged_output_dir
@@ -454,6 +515,14 @@ def demo(
     The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
     (the job as declared) and ``results-turned-frame/`` (the same sample recorded
     in a frame turned 180° about the surface normal: its verdict must say so).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> result = demo(Path(tempfile.mkdtemp()) / "demo")
+    >>> [result.summary[k]["frame_verdict"]["verdict"]
+    ...  for k in ("results", "results-turned-frame")]
+    ['as_declared', 'turned_180_about_normal']
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
@@ -481,6 +550,31 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
 
     Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
     folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
+
+    Raises
+    ------
+    InputError
+        A file is missing or unreadable.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> a = run(job_from_dict(spec, base_dir=folder), stage="planes")
+    >>> (folder / "out").mkdir()
+    >>> _ = write_outputs(a, folder / "out")
+    >>> (folder / "out" / "report.html").unlink()
+    >>> [p.name for p in rebuild_report(folder / "out").files]
+    ['report.html', 'report.md']
     """
     import json
 
@@ -527,11 +621,32 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
 def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[Path], dict]:
     """Write every table, figure and the report of ``analysis`` into ``out_dir``.
 
+    Values are written in the map's declared axes (conventions §2); ``out_dir`` must
+    exist (:func:`analyse` stages it).
+
     Returns
     -------
     files : list of Path
     summary : dict
         What ``summary.json`` holds.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> (folder / "out").mkdir()
+    >>> files, summary = write_outputs(run(job_from_dict(spec, base_dir=folder)), folder / "out")
+    >>> sorted(p.name for p in files if p.suffix == ".csv"), summary["stage"]
+    (['boundaries.csv', 'grains.csv', 'segments.csv'], 'sections')
     """
     from .report import outputs
 
