@@ -197,10 +197,10 @@ class Comparison:
         :func:`inclination.compare.full_planes` of those planes.
     """
 
-    measured: dict
-    senses: dict
+    measured: dict[str, np.ndarray]
+    senses: dict[str, np.ndarray]
     verdict: FrameVerdict
-    planes_full: dict
+    planes_full: dict[str, np.ndarray]
 
 
 def compare_map(
