@@ -10,15 +10,28 @@ file is complete. The command line calls these and nothing else.
 
 from __future__ import annotations
 
+import os
 import platform
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from . import __version__
-from .errors import InputError
+from .errors import InputError, SettingError
+from .io.job import Job
+from .maps import OrientationMap
+
+if TYPE_CHECKING:
+    # Annotations only: a grains-only run should not import the later stages (and
+    # scipy.stats with them) at start-up.
+    from .compare import FrameVerdict
+    from .grains import GrainMap
+    from .network import BoundaryNetwork
+    from .planes import TwinTestSummary
 
 __all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "demo"]
 
@@ -27,46 +40,84 @@ STAGES = ("grains", "traces", "planes", "sections")
 #: Version of the summary.json layout.
 SUMMARY_VERSION = "1.0"
 
+#: A table: one key per column, equal-length 1-D arrays (docs/architecture.md).
+Table = dict[str, np.ndarray]
+#: ``progress(total, desc)`` returning a bar with ``update(n)`` and ``close()``.
+ProgressFactory = Callable[[int, str], Any]
+
 
 @dataclass(frozen=True)
 class Analysis:
-    """Everything one run computed, in the sample frame S.
+    """Everything one run computed, in the sample frame S (conventions §2).
 
-    ``segments``, ``identification``, ``measured``, ``senses`` and ``planes_full``
-    are tables (dicts of equal-length arrays); absent stages hold None.
+    Attributes
+    ----------
+    job : Job
+        The job that was run.
+    omap : OrientationMap
+        The surface map.
+    grain_map : GrainMap
+    stage : str
+        The last stage run, one of ``STAGES``.
+    network : BoundaryNetwork or None
+    segments, subgrain_segments : Table or None
+        Straight segments of the grain boundaries and of the sub-grain network.
+    identification, candidates : Table or None
+        Tables of :func:`inclination.planes.identify` and ``candidates``.
+    twin_summary : TwinTestSummary or None
+    section_tables : tuple of Table
+        One table per section of the job (and one for a stack), in job order.
+    section_notes : tuple of dict
+        What ``summary.json`` says of each of those tables.
+    measured, senses, planes_full : Table or None
+        The fields of :class:`inclination.compare.Comparison`.
+    verdict : FrameVerdict or None
+
+    Absent stages hold None (or an empty tuple).
     """
 
-    job: object
-    omap: object
-    grain_map: object
+    job: Job
+    omap: OrientationMap
+    grain_map: GrainMap
     stage: str
-    network: object = None
-    segments: dict | None = None
-    subgrain_segments: dict | None = None
-    identification: dict | None = None
-    candidates: dict | None = None
-    twin_summary: object = None
-    section_tables: tuple = ()
-    section_notes: tuple = ()
-    measured: dict | None = None
-    senses: dict | None = None
-    verdict: object = None
-    planes_full: dict | None = None
+    network: BoundaryNetwork | None = None
+    segments: Table | None = None
+    subgrain_segments: Table | None = None
+    identification: Table | None = None
+    candidates: Table | None = None
+    twin_summary: TwinTestSummary | None = None
+    section_tables: tuple[Table, ...] = ()
+    section_notes: tuple[dict, ...] = ()
+    measured: Table | None = None
+    senses: Table | None = None
+    verdict: FrameVerdict | None = None
+    planes_full: Table | None = None
 
 
 @dataclass(frozen=True)
 class RunResult:
-    """What a command wrote, and the lines it tells the user."""
+    """What a command wrote, and the lines it tells the user.
+
+    Attributes
+    ----------
+    out_dir : Path
+    files : tuple of Path
+        The files written (empty for ``demo``, which writes whole folders).
+    messages : tuple of str
+        The lines the command line prints.
+    summary : dict or None
+        What ``summary.json`` holds; for ``demo``, the two summaries by folder name.
+    """
 
     out_dir: Path
-    files: tuple
-    messages: tuple = field(default=())
+    files: tuple[Path, ...]
+    messages: tuple[str, ...] = field(default=())
     summary: dict | None = None
 
 
 def _stage_index(stage: str) -> int:
     if stage not in STAGES:
-        raise ValueError(f"Expected `stage` to be one of {STAGES}, got {stage!r}.")
+        raise SettingError(f"Expected `stage` to be one of {STAGES}, got {stage!r}.")
     return STAGES.index(stage)
 
 
@@ -278,50 +329,7 @@ def _sections(job, omap, grain_map, segments, progress):
     return tuple(tables), tuple(notes)
 
 
-def _compare(job, grain_map, identification, measured):
-    from .compare import boundary_sense, frame_verdict, full_planes
-
-    ident_row = {int(s): i for i, s in enumerate(identification["segment_id"])}
-    rows = np.array([ident_row.get(int(s), -1) for s in measured["segment_id"]], dtype=int)
-    keep = rows >= 0
-    measured = {k: np.asarray(v)[keep] for k, v in measured.items()}
-    rows = rows[keep]
-
-    def ident(col):
-        return np.asarray(identification[col])[rows]
-
-    # Only planes that traces pin down (a shared twin plane, or one shared plane) carry a
-    # predicted dip direction worth testing; an ambiguous trace fits several directions.
-    trusted = np.isin(ident("identification"), ("coherent_twin", "identified"))
-    predicted_azimuth = np.where(trusted, ident("predicted_dip_azimuth_deg"), np.nan)
-    senses = boundary_sense(
-        predicted_azimuth,
-        ident("predicted_dip_deg"),
-        measured["dip_direction_azimuth_deg"],
-        measured["dip_direction_sigma_deg"],
-        measured_dip_deg=measured["measured_dip_deg"],
-        measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
-        predicted_azimuth_sigma_deg=ident("tolerance_deg") / 2.0,
-        predicted_dip_sigma_deg=ident("tolerance_deg") / 2.0,
-    )
-    senses = {"segment_id": np.asarray(measured["segment_id"]), **senses}
-    verdict = frame_verdict(senses)
-    planes_full = full_planes(
-        measured,
-        {
-            "segment_id": np.asarray(measured["segment_id"]),
-            "grain_a": ident("grain_a"),
-            "grain_b": ident("grain_b"),
-            "sigma": ident("sigma"),
-        },
-        grain_map.grains,
-        _phases_by_id(job),
-        coherent_tolerance_deg=job.planes["max_tolerance_deg"],
-    )
-    return measured, senses, verdict, planes_full
-
-
-def run(job, *, stage: str = "sections", progress=None) -> Analysis:
+def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None = None) -> Analysis:
     """Run the job's stages up to ``stage`` and return what they computed.
 
     Parameters
@@ -336,6 +344,30 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     Returns
     -------
     Analysis
+
+    Raises
+    ------
+    SettingError
+        ``stage`` is not one of ``STAGES``.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> a = run(job_from_dict(spec, base_dir=folder), stage="planes")
+    >>> len(a.grain_map.grains["grain_id"]), a.segments["trace_angle_deg"].round(6).tolist()
+    (2, [90.0])
+    >>> a.identification["identification"].tolist(), a.verdict is None
+    (['ambiguous'], True)
     """
     stage_i = _stage_index(stage)
     update, close = _progress_callback(progress, "surface: read map")
@@ -373,28 +405,77 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
         return analysis
-    from .compare import best_measurements
+    from .compare import best_measurements, compare_map
 
     tables, notes = _sections(job, omap, grain_map, segments, progress)
-    measured = best_measurements(*tables)
-    measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)
+    comparison = compare_map(
+        best_measurements(*tables),
+        identification,
+        grain_map.grains,
+        _phases_by_id(job),
+        coherent_tolerance_deg=job.planes["max_tolerance_deg"],
+    )
     return replace(
         analysis,
         section_tables=tables,
         section_notes=notes,
-        measured=measured,
-        senses=senses,
-        verdict=verdict,
-        planes_full=planes_full,
+        measured=comparison.measured,
+        senses=comparison.senses,
+        verdict=comparison.verdict,
+        planes_full=comparison.planes_full,
     )
 
 
-def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = False, progress=None):
+def analyse(
+    job_path: str | os.PathLike,
+    out_dir: str | os.PathLike,
+    *,
+    stage: str = "sections",
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
     """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
+
+    The outputs are written into a staged folder that replaces ``out_dir`` only once
+    every file is complete; an existing ``out_dir`` is replaced only with ``overwrite``.
+
+    Parameters
+    ----------
+    job_path : str or PathLike
+        The job file (JSON, ``schemas/job.schema.json``).
+    out_dir : str or PathLike
+        The output folder.
+    stage : {'grains', 'traces', 'planes', 'sections'}, optional
+        The last stage to run.
+    overwrite : bool, optional
+        Replace an existing ``out_dir``.
+    progress : callable, optional
+        As for :func:`run`.
 
     Returns
     -------
     RunResult
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> import json
+    >>> _ = (folder / "job.json").write_text(json.dumps(spec))
+    >>> result = analyse(folder / "job.json", folder / "out", stage="traces")
+    >>> [p.name for p in result.files]
+    ['grains.csv', 'segments.csv', 'segments.json', 'segments.meta.json', 'summary.json']
+    >>> result.summary["counts"]["segments"]
+    1
     """
     from .io.job import load_job
     from .report._io import staged_output_dir
@@ -422,12 +503,26 @@ def _messages(summary, out):
     return lines
 
 
-def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> RunResult:
+def demo(
+    out_dir: str | os.PathLike,
+    *,
+    seed: int = 7,
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
     """Write the demo scenario and run the whole job on it, and on its turned-frame twin.
 
     The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
     (the job as declared) and ``results-turned-frame/`` (the same sample recorded
     in a frame turned 180° about the surface normal: its verdict must say so).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> result = demo(Path(tempfile.mkdtemp()) / "demo")
+    >>> [result.summary[k]["frame_verdict"]["verdict"]
+    ...  for k in ("results", "results-turned-frame")]
+    ['as_declared', 'turned_180_about_normal']
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
@@ -450,11 +545,36 @@ def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> R
     return RunResult(out, (), tuple(messages), summaries)
 
 
-def rebuild_report(run_dir) -> RunResult:
+def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     """Write ``report.html`` and ``report.md`` again from a finished run's own files.
 
     Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
     folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
+
+    Raises
+    ------
+    InputError
+        A file is missing or unreadable.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> a = run(job_from_dict(spec, base_dir=folder), stage="planes")
+    >>> (folder / "out").mkdir()
+    >>> _ = write_outputs(a, folder / "out")
+    >>> (folder / "out" / "report.html").unlink()
+    >>> [p.name for p in rebuild_report(folder / "out").files]
+    ['report.html', 'report.md']
     """
     import json
 
@@ -498,14 +618,35 @@ def rebuild_report(run_dir) -> RunResult:
 # ----------------------------------------------------------------------------- outputs
 
 
-def write_outputs(analysis: Analysis, out_dir):
+def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[Path], dict]:
     """Write every table, figure and the report of ``analysis`` into ``out_dir``.
+
+    Values are written in the map's declared axes (conventions §2); ``out_dir`` must
+    exist (:func:`analyse` stages it).
 
     Returns
     -------
     files : list of Path
     summary : dict
         What ``summary.json`` holds.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from inclination.io.job import job_from_dict
+    >>> from inclination.maps import write_npz
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> (folder / "out").mkdir()
+    >>> files, summary = write_outputs(run(job_from_dict(spec, base_dir=folder)), folder / "out")
+    >>> sorted(p.name for p in files if p.suffix == ".csv"), summary["stage"]
+    (['boundaries.csv', 'grains.csv', 'segments.csv'], 'sections')
     """
     from .report import outputs
 

@@ -13,12 +13,16 @@ from scipy.stats import binomtest
 
 from inclination.compare import (
     SENSES,
+    TRUSTED_IDENTIFICATIONS,
     VERDICTS,
     best_measurements,
     boundary_sense,
+    compare_map,
     frame_verdict,
     full_planes,
     low_index_planes,
+    measured_senses,
+    predicted_directions,
 )
 from inclination.crystal.lattice import Lattice, Phase
 from inclination.crystal.rotations import (
@@ -27,6 +31,7 @@ from inclination.crystal.rotations import (
     quat_inverse,
     random_quat,
 )
+from inclination.errors import SettingError
 
 CU = Phase(
     1, "copper", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90), ("{1 1 1}",)
@@ -94,7 +99,7 @@ def test_likelihood_ratio_grows_with_precision():
 def test_sense_argument_errors():
     with pytest.raises(ValueError, match="`predicted_dip_deg` to have length 2"):
         boundary_sense([1.0, 2.0], [1.0], [1.0, 2.0], [1.0, 1.0])
-    with pytest.raises(ValueError, match="`n_sigma_vertical` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="`n_sigma_vertical` to be a finite number > 0"):
         boundary_sense([1.0], [1.0], [1.0], [1.0], n_sigma_vertical=0)
     with pytest.raises(ValueError, match="σ of the prediction >= 0"):
         boundary_sense([1.0], [1.0], [1.0], [-1.0])
@@ -158,10 +163,12 @@ def test_each_boundary_is_bounded_by_the_error_rate():
 
 
 def test_frame_verdict_errors():
-    with pytest.raises(ValueError, match=r"`error_rate` to be in \(0, 0.5\)"):
+    with pytest.raises(SettingError, match=r"`error_rate` to be in \(0, 0.5\)"):
         frame_verdict(_senses(1, 0), error_rate=0.5)
-    with pytest.raises(ValueError, match=r"`alpha` to be in \(0, 1\)"):
+    with pytest.raises(SettingError, match=r"`alpha` to be in \(0, 1\)"):
         frame_verdict(_senses(1, 0), alpha=0.0)
+    with pytest.raises(SettingError, match="`min_log10_ratio` to be a finite number > 0"):
+        frame_verdict(_senses(1, 0), min_log10_ratio=float("nan"))
     with pytest.raises(ValueError, match="`sense` to be one of"):
         frame_verdict({"sense": np.array(["yes"]), "log10_likelihood_ratio": np.array([1.0])})
 
@@ -207,7 +214,7 @@ def test_low_index_planes_count():
     hkl, normals = low_index_planes(CU.lattice, max_index=3)
     assert len(hkl) == count
     assert_allclose(np.linalg.norm(normals, axis=1), 1.0, rtol=0, atol=1e-12)
-    with pytest.raises(ValueError, match="`max_index` to be an integer >= 1"):
+    with pytest.raises(SettingError, match="`max_index` to be an integer >= 1"):
         low_index_planes(CU.lattice, max_index=0)
 
 
@@ -280,6 +287,8 @@ def test_full_planes_of_a_general_boundary_has_no_twin_columns():
         full_planes({**measured, "segment_id": np.array([9])}, boundaries, grains, {1: CU})
     with pytest.raises(ValueError, match="every grain of `boundaries` in `grains`"):
         full_planes(measured, {**boundaries, "grain_b": np.array([7])}, grains, {1: CU})
+    with pytest.raises(SettingError, match="`coherent_tolerance_deg` to be a finite number > 0"):
+        full_planes(measured, boundaries, grains, {1: CU}, coherent_tolerance_deg=0.0)
 
 
 def test_hexagonal_planes_are_written_with_four_indices():
@@ -305,3 +314,87 @@ def test_hexagonal_planes_are_written_with_four_indices():
     out = full_planes(measured, boundaries, grains, {2: ti})
     assert out["plane_a_measured"].tolist() == ["(0 0 0 1)"]
     assert_allclose(out["plane_a_deviation_deg"], [0.0], rtol=0, atol=1e-9)
+
+
+# --------------------------------------------------------------------------- trust rules
+
+
+def _identification():
+    classes = ["coherent_twin", "identified", "ambiguous", "none"]
+    return {
+        "segment_id": np.array([10, 11, 12, 13]),
+        "identification": np.array(classes),
+        "predicted_dip_azimuth_deg": np.array([40.0, 100.0, 200.0, 300.0]),
+        "predicted_dip_deg": np.array([50.0, 60.0, 70.0, 45.0]),
+        "tolerance_deg": np.array([1.0, 2.0, 3.0, 5.0]),
+        "grain_a": np.array([1, 1, 1, 1]),
+        "grain_b": np.array([2, 2, 2, 2]),
+        "sigma": np.array(["3", "", "", ""]),
+    }
+
+
+def test_only_pinned_down_planes_keep_their_dip_direction():
+    p = predicted_directions(_identification(), [13, 12, 11, 10])
+    assert p.segment_id.tolist() == [13, 12, 11, 10]
+    assert p.trusted.tolist() == [False, False, True, True]
+    assert set(TRUSTED_IDENTIFICATIONS) == {"coherent_twin", "identified"}
+    assert_allclose(p.dip_azimuth_deg, [np.nan, np.nan, 100.0, 40.0], rtol=0, atol=0)
+    # A turn about Z keeps dips: every row keeps its predicted dip.
+    assert_allclose(p.dip_deg, [45.0, 70.0, 60.0, 50.0], rtol=0, atol=0)
+    # One σ of a tolerance with coverage factor 2: σ = τ/2.
+    assert_allclose(p.azimuth_sigma_deg, [2.5, 1.5, 1.0, 0.5], rtol=0, atol=0)
+    assert_allclose(p.dip_sigma_deg, p.azimuth_sigma_deg, rtol=0, atol=0)
+    with pytest.raises(ValueError, match=r"`identification`, got segment_id 14 at index \(1,\)"):
+        predicted_directions(_identification(), [10, 14])
+
+
+def _measured(segment_id, azimuth_deg):
+    n = len(segment_id)
+    return {
+        "segment_id": np.asarray(segment_id),
+        "normal_x": np.zeros(n),
+        "normal_y": np.full(n, 0.6),
+        "normal_z": np.full(n, 0.8),
+        "dip_direction_azimuth_deg": np.asarray(azimuth_deg, float),
+        "dip_direction_sigma_deg": np.full(n, 2.0),
+        "measured_dip_deg": np.asarray([50.0, 60.0, 70.0, 45.0, 50.0][:n]),
+        "measured_dip_sigma_deg": np.full(n, 1.0),
+    }
+
+
+def test_measured_senses_follow_the_trust_rules():
+    # Trusted rows decide (the turned one is "opposite"); the ambiguous and the
+    # unidentified rows cannot, however well their measurement fits.
+    senses = measured_senses(
+        _measured([10, 11, 12, 13], [41.0, 281.0, 200.0, 300.0]), _identification()
+    )
+    assert senses["segment_id"].tolist() == [10, 11, 12, 13]
+    assert senses["sense"].tolist() == ["agrees", "opposite", "undecided", "undecided"]
+    assert senses["reason"].tolist()[2:] == ["no predicted dip direction"] * 2
+    # The σ passed on is the combination of the measured σ and τ/2 (von Mises odds,
+    # 2κ cos Δ / ln 10 with 1/κ = σ_m² + (τ/2)², hand-derived as in boundary_sense).
+    kappa = 1.0 / (math.radians(2.0) ** 2 + math.radians(0.5) ** 2)
+    assert_allclose(
+        senses["log10_likelihood_ratio"][0],
+        2.0 * kappa * math.cos(math.radians(1.0)) / math.log(10.0),
+        rtol=1e-12,
+        atol=0,
+    )
+
+
+def test_compare_map_leaves_out_unidentified_segments():
+    grains = {
+        "grain_id": np.array([1, 2]),
+        "phase": np.array([1, 1]),
+        "quat": np.array([[1.0, 0, 0, 0], [0.0, 1, 0, 0]]),
+    }
+    measured = _measured([10, 99, 11], [41.0, 41.0, 101.0])
+    c = compare_map(measured, _identification(), grains, {1: CU}, coherent_tolerance_deg=4.0)
+    assert c.measured["segment_id"].tolist() == [10, 11]
+    assert c.senses["segment_id"].tolist() == [10, 11]
+    assert c.planes_full["segment_id"].tolist() == [10, 11]
+    assert c.senses["sense"].tolist() == ["agrees", "agrees"]
+    assert c.verdict == frame_verdict(c.senses)
+    # Σ3 comes from the identification: the coherent-twin test runs on segment 10 only.
+    assert c.planes_full["coherent_twin"][1] == ""
+    assert c.planes_full["coherent_twin"][0] in ("yes", "no")

@@ -1,29 +1,39 @@
 """The comparator: sense of each boundary, the frame verdict, full planes (§6).
 
 The public names of the submodules are gathered here; each submodule's opening
-docstring says what it owns.
+docstring says what it owns: :mod:`.sense` (one boundary's measured against
+predicted dip direction), :mod:`.verdict` (the map's frame verdict),
+:mod:`.measured` (measured planes, best per segment, in both crystals) and
+:mod:`.comparison` (which predictions are trusted, and the whole comparison of a map).
 """
 
 from __future__ import annotations
 
-from .sense import (
-    SENSES,
-    VERDICTS,
-    FrameVerdict,
-    best_measurements,
-    boundary_sense,
-    frame_verdict,
-    full_planes,
-    low_index_planes,
+from .comparison import (
+    TRUSTED_IDENTIFICATIONS,
+    Comparison,
+    PredictedDirections,
+    compare_map,
+    measured_senses,
+    predicted_directions,
 )
+from .measured import best_measurements, full_planes, low_index_planes
+from .sense import SENSES, boundary_sense
+from .verdict import VERDICTS, FrameVerdict, frame_verdict
 
 __all__ = [
+    "Comparison",
     "FrameVerdict",
+    "PredictedDirections",
     "SENSES",
+    "TRUSTED_IDENTIFICATIONS",
     "VERDICTS",
     "best_measurements",
     "boundary_sense",
+    "compare_map",
     "frame_verdict",
     "full_planes",
     "low_index_planes",
+    "measured_senses",
+    "predicted_directions",
 ]

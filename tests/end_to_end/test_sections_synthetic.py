@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from inclination import synthetic
-from inclination.compare import boundary_sense, frame_verdict
+from inclination.compare import frame_verdict, measured_senses
 from inclination.crystal.lattice import Lattice, Phase
 from inclination.frames import DeclaredAxes
 from inclination.grains import segment_grains
@@ -63,21 +63,8 @@ def _region_of(labels, truth, n_regions):
 
 
 def _senses(measured, identification):
-    """boundary_sense on the trusted identifications, as the pipeline calls it."""
-    row_of = {int(s): i for i, s in enumerate(identification["segment_id"])}
-    rows = np.array([row_of[int(s)] for s in measured["segment_id"]], dtype=int)
-    trusted = np.isin(identification["identification"][rows], ("coherent_twin", "identified"))
-    tol = identification["tolerance_deg"][rows]
-    return boundary_sense(
-        np.where(trusted, identification["predicted_dip_azimuth_deg"][rows], np.nan),
-        identification["predicted_dip_deg"][rows],
-        measured["dip_direction_azimuth_deg"],
-        measured["dip_direction_sigma_deg"],
-        measured_dip_deg=measured["measured_dip_deg"],
-        measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
-        predicted_azimuth_sigma_deg=tol / 2.0,
-        predicted_dip_sigma_deg=tol / 2.0,
-    )
+    """The senses of the measured planes, by the function the pipeline calls."""
+    return measured_senses(measured, identification)
 
 
 def _cross_sections(micro, sampled, segments):
