@@ -206,10 +206,11 @@ def _status_counts(table) -> dict:
 def _sections(job, omap, grain_map, segments, progress):
     """Measure every section of the job; returns (tables, notes)."""
     from .sections import (
+        CrossSection,
+        SerialLayer,
         measure_cross_section,
         measure_serial_section,
         measure_stack,
-        section_depth,
     )
 
     tables, notes = [], []
@@ -221,10 +222,13 @@ def _sections(job, omap, grain_map, segments, progress):
         pointer = f"/sections/{index}"
         name = section.get("name") or f"section {index + 1}"
         if section["kind"] == "cross-section":
+            # The job entry becomes a typed record in S here, once (conventions §2).
+            record = CrossSection.from_job_entry(
+                section, axes=omap.axes, path=job.source_path, pointer=pointer
+            )
             table = measure_cross_section(
-                section,
+                record,
                 segments,
-                axes=omap.axes,
                 step_um=step,
                 bounds_um=_map_bounds_um(omap),
                 path=job.source_path,
@@ -239,7 +243,6 @@ def _sections(job, omap, grain_map, segments, progress):
                 }
             )
         else:
-            depth = section_depth(section, path=job.source_path, pointer=pointer)
             deeper = job.read_section_map(index)
             if deeper.grid != omap.grid or not np.isclose(deeper.step_x_um, omap.step_x_um):
                 raise InputError(
@@ -252,17 +255,14 @@ def _sections(job, omap, grain_map, segments, progress):
             deeper_grains, _, deeper_segments, _ = _grains_and_segments(
                 deeper, job, 1, progress, name, subgrains=False
             )
-            fiducials = None
-            if section.get("fiducials"):
-                fiducials = np.array(
-                    [
-                        [
-                            omap.axes.points_to_sample(f["surface_um"]),
-                            deeper.axes.points_to_sample(f["section_um"]),
-                        ]
-                        for f in section["fiducials"]
-                    ]
-                )
+            layer = SerialLayer.from_job_entry(
+                section,
+                surface_axes=omap.axes,
+                section_axes=deeper.axes,
+                path=job.source_path,
+                pointer=pointer,
+            )
+            depth = layer.depth
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
                 result = measure_serial_section(
@@ -274,7 +274,7 @@ def _sections(job, omap, grain_map, segments, progress):
                     depth_sigma_um=depth.depth_sigma_um,
                     step_um=step,
                     laue_by_phase=laue_by_phase,
-                    fiducials_um=fiducials,
+                    fiducials_um=layer.fiducials_um,
                     threshold_deg=job.grains["threshold_deg"],
                     grid=omap.grid,
                     path=job.source_path,

@@ -15,8 +15,6 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
-
 from ..errors import InputError
 from .schemas import load_schema
 
@@ -215,7 +213,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
     sections = []
     for i, section in enumerate(doc["sections"]):
         pointer = f"/sections/{i}"
-        _check_section(section, path_for_errors, pointer)
+        _check_section(section, doc["map"], path_for_errors, pointer)
         resolved = copy.deepcopy(section)
         if section["kind"] == "serial":
             resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
@@ -284,44 +282,22 @@ def _resolve_map(spec, base: Path, path, pointer) -> dict:
     return out
 
 
-def _check_section(section, path, pointer):
-    """Geometry the schema cannot express: a real line, a viewer off it, a positive depth."""
+def _check_section(section, map_spec, path, pointer):
+    """Section checks the schema cannot express, made where the section records are built.
+
+    The records' constructors (``inclination.sections``) hold those checks; building
+    the records here, with the map's declared axes, makes a bad section fail when the
+    job is read rather than after the maps are segmented. The checks do not depend on
+    the axes' origin, which only the map's reader knows.
+    """
+    from ..frames import DeclaredAxes
+    from ..sections import CrossSection, section_depth
+
     if section["kind"] == "cross-section":
-        (x0, y0), (x1, y1) = section["line_um"]
-        length = float(np.hypot(x1 - x0, y1 - y0))
-        if length == 0:
-            raise InputError(
-                f"Expected two distinct points on the section line, got {section['line_um']}.",
-                path=path,
-                pointer=f"{pointer}/line_um",
-            )
-        vx, vy = section["viewer_at_um"]
-        offset = ((x1 - x0) * (vy - y0) - (y1 - y0) * (vx - x0)) / length
-        if abs(offset) < 1e-9 * max(length, 1.0):
-            raise InputError(
-                "Expected the viewer point off the section line (it tells which side the "
-                f"face is seen from), got {section['viewer_at_um']} on the line.",
-                path=path,
-                pointer=f"{pointer}/viewer_at_um",
-            )
-        for k, b in enumerate(section["boundaries"]):
-            if b["along_um"] > length * (1 + 1e-9):
-                raise InputError(
-                    f"Expected along_um within the section line's length {length:.6g} µm, "
-                    f"got {b['along_um']}.",
-                    path=path,
-                    pointer=f"{pointer}/boundaries/{k}/along_um",
-                )
-    elif "indent" in section:
-        before = section["indent"]["diagonal_before_um"]
-        after = section["indent"]["diagonal_after_um"]
-        if not after < before:
-            raise InputError(
-                "Expected the indent diagonal to shrink after removing a layer "
-                f"(diagonal_after_um < diagonal_before_um), got {after} >= {before}.",
-                path=path,
-                pointer=f"{pointer}/indent",
-            )
+        axes = DeclaredAxes.from_dict(map_spec["axes"], path=path, pointer="/map/axes")
+        CrossSection.from_job_entry(section, axes=axes, path=path, pointer=pointer)
+    else:
+        section_depth(section, path=path, pointer=pointer)
 
 
 def _resolve_ref(schema, root):

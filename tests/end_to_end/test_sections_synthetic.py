@@ -20,6 +20,7 @@ from inclination.grains import segment_grains
 from inclination.network import boundary_network
 from inclination.planes import identify
 from inclination.sections import (
+    CrossSection,
     Registration,
     measure_cross_section,
     measure_serial_section,
@@ -81,9 +82,8 @@ def _cross_sections(micro, sampled, segments):
         truth = synthetic.cross_section_crossings(micro, **geometry, max_depth_um=3.0)
         section = {**geometry, "boundaries": entries}
         out = measure_cross_section(
-            section,
+            CrossSection.from_job_entry(section, axes=DeclaredAxes("right", "down")),
             segments,
-            axes=DeclaredAxes("right", "down"),
             step_um=STEP_UM,
             bounds_um=bounds,
         )

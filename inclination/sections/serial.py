@@ -1,0 +1,623 @@
+"""Serial sections: the layer record and the planes measured from two maps (conventions §8).
+
+Owns the serial-section stage: :class:`LayerDepth` and :func:`section_depth` (the
+removed layer's thickness from a job entry, given or from a Vickers indent through
+:func:`~inclination.sections.formulas.depth_from_indent_um`), :class:`SerialLayer`,
+the typed record of one serial-section entry (depth and fiducials, the fiducials
+converted from each map's declared axes into the sample frame S once, conventions
+§2), and :func:`measure_serial_section`: register, match grains, pair each surface
+trace with its deeper trace (:func:`match_segments`) and turn the sideways offset
+into a plane (normal ``n ∝ t × (Δ·u + h·Z_S)``, whose dip and dip direction come from
+:func:`inclination.planes.geometry.surface_geometry`, §5; its dip is ``tan δ = h / Δ`` of
+:func:`~inclination.sections.formulas.serial_dip_deg`, §8, and its σ
+:func:`~inclination.sections.formulas.serial_dip_sigma_deg`). The segment pairing is
+public because the stack stage (:mod:`.stack`) uses it.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from ..errors import InputError
+from ..frames import DeclaredAxes
+from ..planes.geometry import surface_geometry
+from ._settings import setting_positive
+from .formulas import depth_from_indent_um, serial_dip_sigma_deg
+from .registration import Registration, match_grains, register_sections
+
+if TYPE_CHECKING:
+    from ..grains import GrainMap
+
+__all__ = [
+    "LayerDepth",
+    "SegmentMatch",
+    "SerialLayer",
+    "SerialSection",
+    "check_section_phases",
+    "match_segments",
+    "measure_serial_section",
+    "section_depth",
+    "segment_ends",
+    "trace_position_sigma_um",
+]
+
+_Z = np.array([0.0, 0.0, 1.0])
+_Z.setflags(write=False)
+
+# A layer known to 10 % when the job states no σ (common practice for polished layers).
+_DEFAULT_DEPTH_SIGMA = 0.1
+
+
+@dataclass(frozen=True)
+class LayerDepth:
+    """Thickness of the layer removed between two sections.
+
+    Attributes
+    ----------
+    depth_um : float
+        Layer thickness h, µm.
+    depth_sigma_um : float
+        Its standard deviation, µm.
+    source : str
+        ``"given"`` or ``"indent"``.
+    """
+
+    depth_um: float
+    depth_sigma_um: float
+    source: str
+
+
+def section_depth(section: Mapping, *, path=None, pointer: str = "") -> LayerDepth:
+    """Layer thickness of a serial-section job entry (§8).
+
+    The entry gives ``depth_um``, or ``indent``: the Vickers indent diagonals
+    ``{"diagonal_before_um": ..., "diagonal_after_um": ...}``, with the depth from
+    :func:`~inclination.sections.formulas.depth_from_indent_um`. ``depth_sigma_um``
+    states the σ of h; when it is absent or null the depth is taken to be known to
+    10 % (common practice for polished layers; state it in the job to do better).
+
+    The entry has passed the job schema (numbers > 0, exactly one of ``depth_um`` and
+    ``indent``); the one check the schema cannot express, an indent that shrinks, is
+    made here.
+
+    Parameters
+    ----------
+    section : mapping
+        One ``sections`` entry of kind ``serial``.
+    path, pointer : optional
+        File and JSON pointer of the entry, for error messages.
+
+    Returns
+    -------
+    LayerDepth
+
+    Raises
+    ------
+    InputError
+        An indent whose diagonal does not shrink.
+
+    Examples
+    --------
+    >>> section_depth({"depth_um": 1.5, "depth_sigma_um": 0.1})
+    LayerDepth(depth_um=1.5, depth_sigma_um=0.1, source='given')
+    >>> d = section_depth({"indent": {"diagonal_before_um": 30.0, "diagonal_after_um": 23.0}})
+    >>> round(d.depth_um, 5), round(d.depth_sigma_um, 5), d.source
+    (0.99991, 0.09999, 'indent')
+    """
+    if section.get("depth_um") is not None:
+        depth = float(section["depth_um"])
+        source = "given"
+    else:
+        before = float(section["indent"]["diagonal_before_um"])
+        after = float(section["indent"]["diagonal_after_um"])
+        if not after < before:
+            raise InputError(
+                "Expected the indent diagonal to shrink after removing a layer "
+                f"(diagonal_after_um < diagonal_before_um), got {after:g} >= {before:g}.",
+                path=path,
+                pointer=f"{pointer}/indent",
+            )
+        depth = float(depth_from_indent_um(before, after))
+        source = "indent"
+    sigma = section.get("depth_sigma_um")
+    sigma = _DEFAULT_DEPTH_SIGMA * depth if sigma is None else float(sigma)
+    return LayerDepth(depth_um=depth, depth_sigma_um=sigma, source=source)
+
+
+@dataclass(frozen=True)
+class SerialLayer:
+    """One serial-section entry of a job, in the sample frame S (§8).
+
+    Attributes
+    ----------
+    depth : LayerDepth
+        Thickness of the removed layer and its σ.
+    fiducials_um : ndarray, shape (K, 2, 2), or None
+        K marks seen on both maps, each ``[[x, y] on the surface map, [x, y] on the
+        deeper map]`` in S, µm; None when the entry lists none.
+    """
+
+    depth: LayerDepth
+    fiducials_um: np.ndarray | None = None
+
+    @classmethod
+    def from_job_entry(
+        cls,
+        entry: Mapping,
+        *,
+        surface_axes: DeclaredAxes,
+        section_axes: DeclaredAxes,
+        path=None,
+        pointer: str = "",
+    ) -> SerialLayer:
+        """The record of a ``serial`` job entry; fiducials converted into S (§2).
+
+        Parameters
+        ----------
+        entry : mapping
+            The job entry (``depth_um`` or ``indent``, ``depth_sigma_um``,
+            ``fiducials``), past the schema.
+        surface_axes, section_axes : DeclaredAxes
+            Declared axes of the surface map and of the section's map; each
+            fiducial's ``surface_um`` and ``section_um`` are in their own map's axes.
+        path, pointer : optional
+            Job file and JSON pointer of the entry, for error messages.
+
+        Returns
+        -------
+        SerialLayer
+
+        Examples
+        --------
+        >>> layer = SerialLayer.from_job_entry(
+        ...     {"depth_um": 2.0, "fiducials": [{"surface_um": [1, 9], "section_um": [2, 8]}]},
+        ...     surface_axes=DeclaredAxes("right", "up", origin_um=(0.0, 10.0)),
+        ...     section_axes=DeclaredAxes("right", "down"))
+        >>> layer.depth.depth_um, layer.fiducials_um.tolist()
+        (2.0, [[[1.0, 1.0], [2.0, 8.0]]])
+        """
+        depth = section_depth(entry, path=path, pointer=pointer)
+        marks = entry.get("fiducials") or []
+        fiducials = None
+        if marks:
+            fiducials = np.array(
+                [
+                    [
+                        surface_axes.points_to_sample(f["surface_um"]),
+                        section_axes.points_to_sample(f["section_um"]),
+                    ]
+                    for f in marks
+                ]
+            )
+            fiducials.setflags(write=False)
+        return cls(depth, fiducials)
+
+
+@dataclass(frozen=True)
+class SerialSection:
+    """Result of :func:`measure_serial_section`.
+
+    Attributes
+    ----------
+    boundaries : dict of 1-D arrays
+        One row per surface segment (see :func:`measure_serial_section`).
+    registration : Registration
+        Placement of the deeper map on the surface map.
+    grain_pairs : dict of 1-D arrays
+        The grain matching (``surface_grain, deeper_grain, disorientation_deg,
+        overlap_fraction``).
+    depth_um, depth_sigma_um : float
+        Layer thickness and its σ.
+    """
+
+    boundaries: dict
+    registration: Registration
+    grain_pairs: dict
+    depth_um: float
+    depth_sigma_um: float
+
+
+def _take_or(values, index, fill):
+    """``values[index]`` where index >= 0, else ``fill`` (works for empty ``values``)."""
+    out = np.full(len(index), fill, dtype=np.asarray(values).dtype if len(values) else int)
+    ok = index >= 0
+    out[ok] = np.asarray(values)[index[ok]]
+    return out
+
+
+def segment_ends(segments: Mapping) -> tuple:
+    """Usable rows, end points (N, 2) µm in S and grain ids of a segments table.
+
+    Returns ``(usable, start_um, end_um, grain_a, grain_b)``; ``usable`` is False on
+    the rows marked ``too_short``.
+    """
+    keep = np.ones(len(np.asarray(segments["segment_id"])), bool)
+    if "too_short" in segments:
+        keep &= ~np.asarray(segments["too_short"], bool)
+    a = np.stack([segments["x0_um"], segments["y0_um"]], -1).astype(float)
+    b = np.stack([segments["x1_um"], segments["y1_um"]], -1).astype(float)
+    ga = np.asarray(segments["grain_a"], np.int64)
+    gb = np.asarray(segments["grain_b"], np.int64)
+    return keep, a, b, ga, gb
+
+
+def trace_position_sigma_um(segments: Mapping, *, step_um: float) -> np.ndarray:
+    """σ of each fitted trace's perpendicular position at its middle, µm, shape (N,).
+
+    The fit residual (at least the pixel staircase, step/√12) over √(number of edges).
+    """
+    n = len(np.asarray(segments["segment_id"]))
+    floor = step_um / math.sqrt(12.0)  # a pixel-staircase boundary
+    resid = np.asarray(segments.get("residual_um", np.full(n, floor)), float)
+    if "n_edges" in segments:
+        count = np.asarray(segments["n_edges"], float)
+    else:
+        count = np.asarray(segments["length_um"], float) / step_um
+    return np.maximum(resid, floor) / np.sqrt(np.maximum(count, 2.0))
+
+
+def check_section_phases(
+    surface_grains: GrainMap,
+    deeper_grains: GrainMap,
+    laue_by_phase: Mapping,
+    *,
+    path=None,
+    pointer: str = "",
+) -> None:
+    """InputError unless the deeper map holds known phases shared with the surface map."""
+    s_phases = set(np.unique(np.asarray(surface_grains.grains["phase"])).tolist())
+    d_phases = set(np.unique(np.asarray(deeper_grains.grains["phase"])).tolist())
+    known = {int(k) for k in laue_by_phase}
+    unknown = sorted(d_phases - known)
+    if unknown or not (d_phases & s_phases):
+        raise InputError(
+            f"Expected the serial-section map to hold the phases of the surface map "
+            f"{sorted(s_phases)}, got phases {sorted(d_phases)}.",
+            path=path,
+            pointer=f"{pointer}/map",
+        )
+
+
+@dataclass(frozen=True)
+class SegmentMatch:
+    """Each surface segment's deeper trace, from :func:`match_segments`.
+
+    Attributes
+    ----------
+    deeper_row : ndarray of int, shape (N,)
+        Row of the matched deeper segment, -1 where none.
+    offset_um : ndarray, shape (N,)
+        Signed perpendicular offset Δ along u = Z_S × t, µm (NaN where none).
+    direction_sample : ndarray, shape (N, 2)
+        Length-weighted mean unit trace direction t of the pair, in S.
+    ambiguous : ndarray of bool, shape (N,)
+        True where two deeper traces at different offsets fit equally well.
+    usable : ndarray of bool, shape (N,)
+        False on surface rows marked ``too_short``.
+    deeper_start_um, deeper_end_um : ndarray, shape (M, 2)
+        The deeper segments' end points registered onto the surface map, µm, in S.
+    """
+
+    deeper_row: np.ndarray
+    offset_um: np.ndarray
+    direction_sample: np.ndarray
+    ambiguous: np.ndarray
+    usable: np.ndarray
+    deeper_start_um: np.ndarray
+    deeper_end_um: np.ndarray
+
+
+def match_segments(
+    surface_segments: Mapping,
+    deeper_segments: Mapping,
+    grain_pairs: Mapping,
+    registration: Registration,
+    *,
+    step_um: float,
+    max_angle_deg: float,
+    max_offset_um: float,
+) -> SegmentMatch:
+    """Pair each surface segment with a deeper segment of the same grain pair (§8).
+
+    A candidate runs within ``max_angle_deg`` of the surface trace, overlaps it by at
+    least a step along its length and lies within ``max_offset_um``; the one that
+    overlaps most is taken, and two candidates at offsets more than two steps apart
+    that overlap comparably make the pair ambiguous.
+
+    Parameters
+    ----------
+    surface_segments, deeper_segments : mapping
+        Segments tables (S) with ``segment_id, grain_a, grain_b, x0_um, y0_um,
+        x1_um, y1_um`` (optionally ``too_short``).
+    grain_pairs : mapping
+        :func:`~inclination.sections.registration.match_grains` output.
+    registration : Registration
+        Placement of the deeper map on the surface map.
+    step_um, max_angle_deg, max_offset_um : float
+        Map step, largest angle between the two traces, largest offset.
+
+    Returns
+    -------
+    SegmentMatch
+    """
+    keep_s, a_s, b_s, ga_s, gb_s = segment_ends(surface_segments)
+    keep_d, a_d, b_d, ga_d, gb_d = segment_ends(deeper_segments)
+    n_s = len(a_s)
+    a_d, b_d = registration.apply(a_d), registration.apply(b_d)
+    top = int(max(ga_d.max(initial=0), gb_d.max(initial=0))) + 1
+    to_surface = np.full(top, -1, np.int64)
+    sel = grain_pairs["deeper_grain"] < top
+    to_surface[grain_pairs["deeper_grain"][sel]] = grain_pairs["surface_grain"][sel]
+    ma, mb = to_surface[ga_d], to_surface[gb_d]
+    valid_d = keep_d & (ma >= 0) & (mb >= 0) & (ma != mb)
+    lo, hi = np.minimum(ma, mb), np.maximum(ma, mb)
+    by_pair: dict = {}
+    for j in np.flatnonzero(valid_d):
+        by_pair.setdefault((int(lo[j]), int(hi[j])), []).append(j)
+
+    match = np.full(n_s, -1, np.int64)
+    offset = np.full(n_s, np.nan)
+    t_mean = np.full((n_s, 2), np.nan)
+    ambiguous = np.zeros(n_s, bool)
+    cos_max = math.cos(math.radians(max_angle_deg))
+    for i in np.flatnonzero(keep_s):
+        key = (int(min(ga_s[i], gb_s[i])), int(max(ga_s[i], gb_s[i])))
+        cand = by_pair.get(key)
+        if not cand:
+            continue
+        cand = np.asarray(cand)
+        len_i = float(np.hypot(*(b_s[i] - a_s[i])))
+        if len_i <= 0:
+            continue
+        t_i = (b_s[i] - a_s[i]) / len_i
+        u_i = np.array([-t_i[1], t_i[0]])
+        d_vec = b_d[cand] - a_d[cand]
+        len_j = np.hypot(d_vec[:, 0], d_vec[:, 1])
+        t_j = d_vec / np.maximum(len_j, 1e-12)[:, None]
+        flip = t_j @ t_i < 0
+        t_j[flip] *= -1.0
+        cos_ij = t_j @ t_i
+        p0 = (a_d[cand] - a_s[i]) @ t_i
+        p1 = (b_d[cand] - a_s[i]) @ t_i
+        start = np.maximum(0.0, np.minimum(p0, p1))
+        stop = np.minimum(len_i, np.maximum(p0, p1))
+        overlap = stop - start
+        mid = 0.5 * (start + stop)
+        lam = (mid - p0) / np.maximum(cos_ij, 1e-12)
+        q = a_d[cand] + lam[:, None] * t_j
+        delta = (q - a_s[i]) @ u_i
+        ok = (cos_ij >= cos_max) & (overlap >= step_um) & (np.abs(delta) <= max_offset_um)
+        if not ok.any():
+            continue
+        order = np.argsort(-np.where(ok, overlap, -np.inf))
+        best = order[0]
+        if ok.sum() > 1:
+            second = order[1]
+            # Collinear pieces of one boundary are one answer; two offsets are two.
+            ambiguous[i] = (overlap[second] >= 0.5 * overlap[best]) and (
+                abs(delta[second] - delta[best]) > 2.0 * step_um
+            )
+        match[i] = cand[best]
+        offset[i] = delta[best]
+        t_sum = len_i * t_i + len_j[best] * t_j[best]
+        t_mean[i] = t_sum / np.hypot(*t_sum)
+    return SegmentMatch(match, offset, t_mean, ambiguous, keep_s, a_d, b_d)
+
+
+def measure_serial_section(
+    surface_segments: Mapping,
+    surface_grains: GrainMap,
+    deeper_segments: Mapping,
+    deeper_grains: GrainMap,
+    *,
+    depth_um: float,
+    depth_sigma_um: float,
+    step_um: float,
+    laue_by_phase: Mapping,
+    registration: Registration | None = None,
+    fiducials_um: ArrayLike | None = None,
+    fit_rotation: bool = False,
+    threshold_deg: float = 5.0,
+    max_angle_deg: float = 15.0,
+    max_offset_um: float | None = None,
+    max_sigma_deg: float = 10.0,
+    grid: str = "square",
+    path=None,
+    pointer: str = "",
+) -> SerialSection:
+    """Measured planes from the shift of each trace between two sections (§8).
+
+    The deeper map is registered on the surface map (:func:`register_sections`,
+    unless ``registration`` is given), its grains matched by orientation and overlap
+    (:func:`match_grains`) and each surface segment paired with a deeper segment of
+    the same grain pair that runs within ``max_angle_deg`` of it, overlaps it along
+    its length and lies within ``max_offset_um``. Its perpendicular offset Δ, signed
+    along u = Z_S × t, gives ``tan δ = h / |Δ|``, the dip direction ``sign(Δ)·u`` and
+    the normal ``n ∝ t × (Δ·u + h·Z_S)``. σ_Δ combines the two line fits and the
+    registration; σ_δ = √((Δσ_h)² + (hσ_Δ)²) / (h² + Δ²) (first order).
+
+    Parameters
+    ----------
+    surface_segments, deeper_segments : mapping
+        Segments tables (S) of the two maps (``segment_id, grain_a, grain_b, x0_um,
+        y0_um, x1_um, y1_um, length_um, trace_sigma_deg``, optionally
+        ``residual_um, n_edges, too_short``).
+    surface_grains, deeper_grains : GrainMap
+        The grain maps the segments came from.
+    depth_um, depth_sigma_um : float
+        Layer thickness h between the sections and its σ, µm.
+    step_um : float
+        Map step, µm.
+    laue_by_phase : mapping of int to str or Phase
+        Laue class of every phase id of the job.
+    registration : Registration, optional
+        A known placement of the deeper map; skips the estimate.
+    fiducials_um : array_like, shape (K, 2, 2), optional
+        Fiducial pairs in S for :func:`register_sections`.
+    fit_rotation, threshold_deg : optional
+        Passed to :func:`register_sections` and :func:`match_grains`.
+    max_angle_deg : float, optional
+        Largest angle between the two traces of one boundary, degrees.
+    max_offset_um : float, optional
+        Largest offset; default ``h / tan 5° + 2 steps`` (dips down to 5°).
+    max_sigma_deg : float, optional
+        Dip σ above which a boundary is ``ill_conditioned``; a warning says how many.
+    grid : {"square", "hexagonal"}, optional
+        The maps' grid (§1).
+    path, pointer : optional
+        Job file and JSON pointer of the section entry, for error messages.
+
+    Returns
+    -------
+    SerialSection
+        ``boundaries`` has one row per surface segment: ``segment_id,
+        deeper_segment_id`` (-1 if none), ``offset_um`` (|Δ|), ``offset_sigma_um,
+        normal_x, normal_y, normal_z`` (S, n_z >= 0), ``measured_dip_deg,
+        measured_dip_sigma_deg, dip_direction_azimuth_deg`` (S), ``dip_direction_sigma_deg,
+        dip_source`` (``serial-section``), ``status`` (one of ``CROSS_SECTION_STATUSES``).
+
+    Warns
+    -----
+    UserWarning
+        When a matched boundary's dip σ exceeds ``max_sigma_deg`` (layer too thin).
+
+    Examples
+    --------
+    A boundary that moves 2 µm toward +X when 2 µm are removed dips 45° toward +X:
+
+    >>> from inclination.grains import GrainMap
+    >>> def grains(edge):  # grain 1 left of column `edge`, grain 2 right of it, 1 µm step
+    ...     labels = np.repeat(np.where(np.arange(20) < edge, 1, 2)[None, :], 20, 0)
+    ...     table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...              "quat": np.array([[1.0, 0, 0, 0], [0.939693, 0, 0, 0.34202]]),
+    ...              "area_px": np.array([20 * edge, 20 * (20 - edge)]),
+    ...              "centroid_x_um": np.array([(edge - 1) / 2, (edge + 19) / 2]),
+    ...              "centroid_y_um": np.array([9.5, 9.5]), "touches_edge": np.array([1, 1])}
+    ...     return GrainMap(labels.astype(np.int32), table, {}, 5.0, 4)
+    >>> def trace(x):  # the boundary's trace at x, along +Y
+    ...     one = lambda v: np.array([v])
+    ...     return {"segment_id": one(0), "grain_a": one(1), "grain_b": one(2),
+    ...             "x0_um": one(x), "y0_um": one(0.0), "x1_um": one(x), "y1_um": one(19.0),
+    ...             "length_um": one(19.0), "trace_angle_deg": one(90.0),
+    ...             "trace_sigma_deg": one(0.5)}
+    >>> out = measure_serial_section(trace(9.5), grains(10), trace(11.5), grains(12),
+    ...     depth_um=2.0, depth_sigma_um=0.1, step_um=1.0, laue_by_phase={1: "m-3m"},
+    ...     registration=Registration(0.0, 0.0, 0.0, 0.0, 1, "given")).boundaries
+    >>> out["status"].tolist(), out["measured_dip_deg"].round(6).tolist()
+    (['measured'], [45.0])
+    >>> out["dip_direction_azimuth_deg"].round(6).tolist(), out["offset_um"].round(6).tolist()
+    ([0.0], [2.0])
+    """
+    setting_positive(depth_um, "depth_um")
+    setting_positive(depth_sigma_um, "depth_sigma_um", allow_zero=True)
+    setting_positive(step_um, "step_um")
+    check_section_phases(surface_grains, deeper_grains, laue_by_phase, path=path, pointer=pointer)
+    if registration is None:
+        registration = register_sections(
+            surface_grains,
+            deeper_grains,
+            step_um=step_um,
+            laue_by_phase=laue_by_phase,
+            fiducials_um=fiducials_um,
+            fit_rotation=fit_rotation,
+            threshold_deg=threshold_deg,
+            grid=grid,
+        )
+    if max_offset_um is None:
+        max_offset_um = depth_um / math.tan(math.radians(5.0)) + 2.0 * step_um
+    grain_pairs = match_grains(
+        surface_grains,
+        deeper_grains,
+        registration,
+        step_um=step_um,
+        laue_by_phase=laue_by_phase,
+        threshold_deg=threshold_deg,
+        grid=grid,
+    )
+    paired = match_segments(
+        surface_segments,
+        deeper_segments,
+        grain_pairs,
+        registration,
+        step_um=step_um,
+        max_angle_deg=max_angle_deg,
+        max_offset_um=max_offset_um,
+    )
+    match, delta, t_mean, ambiguous = (
+        paired.deeper_row,
+        paired.offset_um,
+        paired.direction_sample,
+        paired.ambiguous,
+    )
+    n = len(match)
+    seg_id = np.asarray(surface_segments["segment_id"])
+    deeper_id = np.asarray(deeper_segments["segment_id"])
+    found = match >= 0
+    sigma_line_s = trace_position_sigma_um(surface_segments, step_um=step_um)
+    sigma_line_d = trace_position_sigma_um(deeper_segments, step_um=step_um)
+    sigma_reg = registration.shift_sigma_um
+    if registration.method == "grain structure" and found.sum() >= 2:
+        # A registration on the grain structure rests on the boundaries themselves, and
+        # each has moved with depth: its error is of the order of a median of N such
+        # movements, √(π/2)·RMS(Δ)/√N, which the centroid spread can understate.
+        spread = math.sqrt(math.pi / 2) * float(np.sqrt(np.mean(delta[found] ** 2)))
+        sigma_reg = max(sigma_reg, spread / math.sqrt(found.sum()))
+    offset_sigma = np.full(n, np.nan)
+    offset_sigma[found] = np.sqrt(
+        sigma_line_s[found] ** 2 + sigma_line_d[match[found]] ** 2 + sigma_reg**2
+    )
+    t3 = np.concatenate([t_mean, np.zeros((n, 1))], axis=1)
+    u3 = np.cross(_Z, t3)
+    normal = np.cross(t3, delta[:, None] * u3 + depth_um * _Z)
+    normal_out = np.full((n, 3), np.nan)
+    dip = np.full(n, np.nan)
+    azimuth = np.full(n, np.nan)
+    if found.any():
+        # Dip and dip direction are §5 quantities of the normal, so they come from the one
+        # §5 function; its dip is tan δ = h / |Δ| (serial_dip_deg, §8) to round-off, which
+        # tests/test_sections.py checks on this path.
+        planes = surface_geometry(normal[found])
+        normal_out[found], dip[found] = planes.normal_sample, planes.dip_deg
+        azimuth[found] = planes.dip_azimuth_deg
+    dip_sigma = serial_dip_sigma_deg(depth_um, np.abs(delta), depth_sigma_um, offset_sigma)
+    trace_sigma_s = np.asarray(surface_segments["trace_sigma_deg"], float)
+    trace_sigma_d = np.asarray(deeper_segments["trace_sigma_deg"], float)
+    az_sigma = np.full(n, np.nan)
+    az_sigma[found] = np.hypot(trace_sigma_s[found], trace_sigma_d[match[found]]) / 2.0
+
+    status = np.full(n, "unmatched", dtype=object)
+    status[found] = np.where(dip_sigma[found] > max_sigma_deg, "ill_conditioned", "measured")
+    status[found & ambiguous] = "ambiguous"
+    n_thin = int(np.sum(found & (dip_sigma > max_sigma_deg)))
+    if n_thin:
+        warnings.warn(
+            f"{n_thin} of {int(found.sum())} matched boundaries have a dip σ above "
+            f"{max_sigma_deg:g}°: a layer of {depth_um:g} µm is too thin for a useful dip "
+            "on them.",
+            stacklevel=2,
+        )
+    boundaries = {
+        "segment_id": seg_id,
+        "deeper_segment_id": _take_or(deeper_id, match, -1).astype(np.int64),
+        "offset_um": np.abs(delta),
+        "offset_sigma_um": offset_sigma,
+        "normal_x": normal_out[:, 0],
+        "normal_y": normal_out[:, 1],
+        "normal_z": normal_out[:, 2],
+        "measured_dip_deg": dip,
+        "measured_dip_sigma_deg": np.where(found, dip_sigma, np.nan),
+        "dip_direction_azimuth_deg": azimuth,
+        "dip_direction_sigma_deg": az_sigma,
+        "dip_source": np.where(found, "serial-section", "").astype(object),
+        "status": status.astype(str),
+    }
+    return SerialSection(
+        boundaries, registration, grain_pairs, float(depth_um), float(depth_sigma_um)
+    )
