@@ -390,7 +390,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     if stage_i < 2:
         return analysis
     # Imported here: a grains- or traces-only run should not pay for scipy.stats at start-up.
-    from .planes import candidates, identify, twin_test_summary
+    from .planes import match_planes, twin_test_summary
 
     p = job.planes
     options = {
@@ -399,8 +399,8 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         "max_tolerance_deg": p["max_tolerance_deg"],
         "sigma_criterion": p["sigma_criterion"],
     }
-    identification = identify(segments, grain_map.grains, job.phases, **options)
-    cands = candidates(segments, grain_map.grains, job.phases, **options)
+    matched = match_planes(segments, grain_map, job.phases, **options)
+    identification, cands = matched.identification, matched.candidates
     twin = twin_test_summary(identification, segments)
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:

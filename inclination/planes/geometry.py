@@ -8,6 +8,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from .._validation import as_float_array, check_last_axis
 
@@ -48,7 +49,7 @@ class PlanePrediction:
     has_trace: np.ndarray
 
 
-def surface_geometry(normal_sample) -> PlanePrediction:
+def surface_geometry(normal_sample: ArrayLike) -> PlanePrediction:
     """Trace, dip and dip direction of planes from their normals in S (conventions §5).
 
     The one implementation of §5 in the package: every stage that turns a normal into a

@@ -1,248 +1,43 @@
-"""Candidate boundary planes: predicted traces and dips, and identification.
+"""Identification of boundary planes from their traces: the segment and candidate tables.
 
-Implements conventions §5 (plane normal, trace, dip and dip direction in the
-sample frame S) and notes §6 (the 180° ambiguity): a surface trace never
-decides the sign of the dip direction, so every azimuth here is for the frame
-as declared. Every vector and angle is in S (X right, Y down, Z into the
-material); the report converts to the user's declared axes.
+Owns the matching of each straight boundary segment against the candidate planes of its two
+grains, the classes of a segment (:data:`IDENTIFICATION_CLASSES`), the misorientation and Σ
+columns of the identification table, and the long table of every candidate
+(:func:`match_planes`, :func:`identify`, :func:`candidates`). Every formula it applies comes
+from :mod:`inclination.planes.predict` (prediction, tolerance, deviation, fit, chance) and
+:mod:`inclination.planes.twins` (the Σ3 twin test); nothing is computed here that they own.
 
-Sign of a plane normal
-    A plane is the same plane under n → −n. Every normal returned here is
-    signed so that n_z >= 0 (it points into the material). The dip direction
-    d = −sign(n_z)·(n_x, n_y)/|(n_x, n_y)| (§5) does not depend on that choice.
+Traces never decide the sign of the dip direction (conventions §6): every azimuth is for the
+frame as declared, in S (conventions §2, §5); the report converts to the user's axes.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
-from .._validation import (
-    as_float_array,
-    check_finite,
-    check_last_axis,
-    check_one_of,
-    check_positive,
+from .._validation import as_float_array, check_finite
+from ..crystal.lattice import Phase
+from ..errors import InputError, SettingError
+from ..grains import GrainMap
+from ._tables import column
+from .geometry import PlanePrediction
+from .predict import (
+    ToleranceSettings,
+    chance_fit,
+    pair_spread_deg,
+    predict_planes,
+    shared_plane,
+    trace_fit,
+    trace_tolerance_deg,
 )
-from ..crystal.rotations import quat_as_matrix
-from .geometry import PlanePrediction, surface_geometry
+from .twins import coherent_twin_test
 
-__all__ = [
-    "predict_planes",
-    "trace_sigma_predicted_deg",
-    "trace_tolerance_deg",
-    "trace_deviation_deg",
-    "chance_fit",
-    "IDENTIFICATION_CLASSES",
-    "identify",
-    "candidates",
-    "TwinTestSummary",
-    "twin_test_summary",
-]
-
-# A first-order trace uncertainty cannot usefully exceed a right angle: the
-# trace of a plane within a degree of the surface is unknown anyway.
-_MAX_TRACE_SIGMA_DEG = 90.0
-
-
-def predict_planes(quat, normals_crystal) -> PlanePrediction:
-    """Predict the surface trace, dip and dip direction of crystal planes (§5).
-
-    Parameters
-    ----------
-    quat : array_like, shape (N, 4) or (4,)
-        Orientations ``g`` (sample to crystal, ``v_crystal = g @ v_sample``),
-        unit quaternions, scalar first.
-    normals_crystal : array_like, shape (M, 3)
-        Plane normals in the crystal Cartesian frame C (any length, not zero);
-        a normal and its negative give the same plane.
-
-    Returns
-    -------
-    PlanePrediction
-        Arrays of shape (N, M) (or (M,) for a single orientation); normals
-        n_S = gᵀ n_C, signed n_z >= 0. Empty inputs give empty arrays.
-
-    Examples
-    --------
-    >>> p = predict_planes([1.0, 0.0, 0.0, 0.0], [[1, 1, 1]])  # cube orientation, (111)
-    >>> p.trace_angle_deg.round(6).tolist(), p.dip_deg.round(4).tolist()
-    ([135.0], [54.7356])
-    >>> p.dip_azimuth_deg.round(6).tolist(), p.has_trace.tolist()
-    ([225.0], [True])
-    """
-    q = as_float_array(quat, "quat")
-    check_last_axis(q, "quat", 4)
-    if q.ndim > 2:
-        raise ValueError(f"Expected `quat` to have shape (N, 4) or (4,), got {q.shape}.")
-    check_finite(q, "quat")
-    nc = as_float_array(normals_crystal, "normals_crystal")
-    if nc.ndim != 2 or nc.shape[-1] != 3:
-        raise ValueError(f"Expected `normals_crystal` to have shape (M, 3), got {nc.shape}.")
-    check_finite(nc, "normals_crystal")
-    length = np.linalg.norm(nc, axis=-1)
-    if np.any(length == 0):
-        row = int(np.flatnonzero(length == 0)[0])
-        raise ValueError(
-            f"Expected `normals_crystal` to be non-zero, got a zero vector at index ({row},)."
-        )
-    nc = nc / length[:, None]
-    if q.size == 0:
-        g = np.zeros(q.shape[:-1] + (3, 3))
-    else:
-        g = quat_as_matrix(q)
-    # n_S = gᵀ n_C: the rows of g are the crystal axes written in S (§3).
-    normal_sample = np.einsum("...ji,mj->...mi", g, nc)
-    return surface_geometry(normal_sample)
-
-
-def trace_sigma_predicted_deg(spread_deg, dip_deg) -> np.ndarray:
-    """Standard uncertainty of a predicted trace angle from orientation scatter.
-
-    First order: a small rotation ε about an axis perpendicular to the normal
-    tilts the normal by ε; its component across the vertical plane through the
-    normal turns the normal's horizontal projection, of length sin δ, by
-    ε / sin δ. With σ_g the standard deviation of the orientation about one
-    axis this gives σ_trace ≈ σ_g / sin δ, capped at 90° (a plane within a
-    degree of the surface has no usable trace, §5). If ``spread_deg`` is the
-    mean disorientation of a grain's points to its mean (which is about 1.6 σ_g
-    for isotropic scatter), the result is conservative by that factor.
-
-    Parameters
-    ----------
-    spread_deg : array_like
-        Orientation scatter σ_g, degrees, >= 0.
-    dip_deg : array_like
-        Plane dip δ in [0, 90] degrees; broadcast against ``spread_deg``.
-
-    Returns
-    -------
-    ndarray
-        σ_trace in degrees, in [0, 90].
-
-    Examples
-    --------
-    >>> trace_sigma_predicted_deg(0.5, [90.0, 30.0, 0.0]).round(6).tolist()
-    [0.5, 1.0, 90.0]
-    """
-    s = as_float_array(spread_deg, "spread_deg")
-    d = as_float_array(dip_deg, "dip_deg")
-    check_finite(np.atleast_1d(s), "spread_deg")
-    check_finite(np.atleast_1d(d), "dip_deg")
-    if np.any(s < 0):
-        raise ValueError(f"Expected `spread_deg` to be >= 0, got {float(np.min(s))!r}.")
-    outside = (d < 0) | (d > 90)
-    if np.any(outside):
-        raise ValueError(f"Expected `dip_deg` to lie in [0, 90], got {float(d[outside][0])!r}.")
-    sin_dip = np.sin(np.deg2rad(d))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        sigma = np.where(sin_dip > 0, s / np.where(sin_dip > 0, sin_dip, 1.0), np.inf)
-    sigma = np.where(s == 0, 0.0, sigma)
-    return np.minimum(sigma, _MAX_TRACE_SIGMA_DEG)
-
-
-def _check_settings(k: float, floor_deg: float, max_tolerance_deg: float) -> None:
-    check_positive(k, "k")
-    check_positive(floor_deg, "floor_deg")
-    check_positive(max_tolerance_deg, "max_tolerance_deg")
-    if floor_deg > max_tolerance_deg:
-        raise ValueError(
-            f"Expected `floor_deg` to be <= `max_tolerance_deg` ({max_tolerance_deg!r}), "
-            f"got {floor_deg!r}."
-        )
-
-
-def trace_tolerance_deg(
-    sigma_measured_deg, sigma_predicted_deg, *, k=2.0, floor_deg=1.0, max_tolerance_deg=5.0
-) -> np.ndarray:
-    """Trace tolerance k·√(σ_measured² + σ_predicted²), floored and capped.
-
-    Parameters
-    ----------
-    sigma_measured_deg, sigma_predicted_deg : array_like
-        Standard uncertainties of the measured and predicted trace angles,
-        degrees, >= 0; broadcast together.
-    k : float
-        Coverage factor, > 0.
-    floor_deg, max_tolerance_deg : float
-        Smallest and largest tolerance, degrees, 0 < floor_deg <= max_tolerance_deg.
-
-    Returns
-    -------
-    ndarray
-        Tolerance in degrees, in [floor_deg, max_tolerance_deg].
-
-    Examples
-    --------
-    >>> trace_tolerance_deg([0.1, 0.6, 3.0], 0.8).round(6).tolist()
-    [1.612452, 2.0, 5.0]
-    """
-    _check_settings(k, floor_deg, max_tolerance_deg)
-    sm = as_float_array(sigma_measured_deg, "sigma_measured_deg")
-    sp = as_float_array(sigma_predicted_deg, "sigma_predicted_deg")
-    for arr, name in ((sm, "sigma_measured_deg"), (sp, "sigma_predicted_deg")):
-        check_finite(np.atleast_1d(arr), name)
-        if np.any(arr < 0):
-            raise ValueError(f"Expected `{name}` to be >= 0, got {float(np.min(arr))!r}.")
-    return np.clip(k * np.hypot(sm, sp), floor_deg, max_tolerance_deg)
-
-
-def trace_deviation_deg(measured_deg, predicted_deg) -> np.ndarray:
-    """Absolute angle between two trace directions (lines, period 180°), in [0, 90].
-
-    NaN in either input gives NaN (a plane with no trace has no deviation).
-
-    Examples
-    --------
-    >>> trace_deviation_deg([1.0, 10.0, 170.0], [179.0, 100.0, np.nan]).round(6).tolist()
-    [2.0, 90.0, nan]
-    """
-    m = as_float_array(measured_deg, "measured_deg")
-    p = as_float_array(predicted_deg, "predicted_deg")
-    return np.abs(np.mod(m - p + 90.0, 180.0) - 90.0)
-
-
-def chance_fit(tolerance_deg) -> float | np.ndarray:
-    """Chance that a trace at a uniformly random angle fits at least one candidate.
-
-    For candidates with tolerances τ_i the chance is 1 − Π (1 − 2τ_i/180°);
-    with k candidates at one tolerance τ this is 1 − (1 − 2τ/180°)^k. The
-    candidates are treated as independent, which slightly overstates the
-    chance when their traces lie closer than 2τ. NaN entries (planes with no
-    trace) are not candidates. The product runs over the last axis.
-
-    Parameters
-    ----------
-    tolerance_deg : array_like, shape (..., K)
-        Tolerances of the K candidates, degrees, in [0, 90].
-
-    Returns
-    -------
-    float or ndarray, shape (...)
-        Probability in [0, 1]; 0 when there are no candidates.
-
-    Examples
-    --------
-    >>> round(float(chance_fit([2.0, 2.0, 2.0])), 6)  # 1 − (1 − 4/180)³
-    0.065196
-    >>> round(float(chance_fit([])), 6)
-    0.0
-    """
-    t = as_float_array(tolerance_deg, "tolerance_deg")
-    if t.ndim == 0:
-        raise ValueError(f"Expected `tolerance_deg` to have shape (..., K), got {t.shape}.")
-    if np.any((t < 0) | (t > 90)):
-        raise ValueError("Expected `tolerance_deg` to lie in [0, 90], got a value outside.")
-    miss = np.where(np.isnan(t), 1.0, 1.0 - 2.0 * t / 180.0)
-    out = 1.0 - np.prod(miss, axis=-1)
-    return float(out) if out.ndim == 0 else out
-
-
-# --------------------------------------------------------------------------- identification
+__all__ = ["IDENTIFICATION_CLASSES", "PlaneMatch", "candidates", "identify", "match_planes"]
 
 IDENTIFICATION_CLASSES = ("coherent_twin", "identified", "ambiguous", "none")
-SIDES = ("a", "b")
 _SEGMENT_KEYS = (
     "segment_id",
     "grain_a",
@@ -252,7 +47,6 @@ _SEGMENT_KEYS = (
     "trace_angle_deg",
     "trace_sigma_deg",
 )
-_GRAIN_KEYS = ("grain_id", "phase", "quat", "spread_mean_deg")
 # Segments are matched in blocks so that the (n, M_a, M_b) pair arrays stay small.
 _BLOCK = 2048
 # The misorientation axis is named by the nearest direction with indices up to this size.
@@ -264,29 +58,35 @@ _MISORIENTATION_KEYS = (
     "sigma",
     "sigma_deviation_deg",
 )
-_CUBIC_111 = np.array([[1, 1, 1], [-1, 1, 1], [1, -1, 1], [1, 1, -1]], dtype=float)
+
+#: What ``phases`` may be until :mod:`inclination.crystal` has its own collection of phases.
+PhasesLike = Mapping[int, Phase] | Sequence[Phase]
 
 
-def _column(table, key: str, name: str) -> np.ndarray:
-    if key not in table:
-        raise ValueError(
-            f"Expected `{name}` to have the column {key!r}, got columns {tuple(table)}."
-        )
-    return np.asarray(table[key])
+def _phases_by_id(phases: PhasesLike) -> dict[int, Phase]:
+    """The one entry point of ``phases`` into this module: phase id → Phase.
 
-
-def _phase_lookup(phases) -> dict:
-    items = phases.values() if isinstance(phases, dict) else phases
-    try:
-        items = list(items)
-    except TypeError:
+    When :mod:`inclination.crystal` has its typed collection of phases, this becomes a
+    call to it.
+    """
+    if isinstance(phases, Mapping):
+        items = list(phases.items())
+    elif isinstance(phases, Sequence) and not isinstance(phases, str):
+        items = [(None, phase) for phase in phases]
+    else:
         raise TypeError(
-            f"Expected `phases` to be a sequence of Phase records, got {type(phases).__name__}."
-        ) from None
+            "Expected `phases` to be a sequence of Phase records or a mapping id → Phase, "
+            f"got {type(phases).__name__}."
+        )
     out = {}
-    for phase in items:
-        if not all(hasattr(phase, a) for a in ("id", "laue", "lattice", "candidate_planes")):
+    for key, phase in items:
+        if not isinstance(phase, Phase):
             raise TypeError(f"Expected `phases` to hold Phase records, got {type(phase).__name__}.")
+        if key is not None and key != phase.id:
+            raise ValueError(
+                f"Expected `phases` keys to be the phases' ids, got key {key!r} for phase "
+                f"{phase.id}."
+            )
         out[int(phase.id)] = phase
     return out
 
@@ -308,15 +108,6 @@ def _grain_rows(grain_ids: np.ndarray, wanted: np.ndarray, name: str) -> np.ndar
             f"got {int(wanted[row])} at row {row}."
         )
     return order[pos]
-
-
-def _clip_tolerance(sigma_deg, settings) -> np.ndarray:
-    k, floor_deg, cap_deg = settings
-    return np.clip(k * sigma_deg, floor_deg, cap_deg)
-
-
-def _unit(v: np.ndarray) -> np.ndarray:
-    return v / np.linalg.norm(v, axis=-1, keepdims=True)
 
 
 def _low_index_directions(lattice) -> tuple[np.ndarray, list[str]]:
@@ -400,47 +191,44 @@ def _empty_row_table(n: int) -> dict:
     return out
 
 
-def _side_fit(pred: PlanePrediction, theta, sigma_m, spread, settings):
-    """Deviation, tolerance and fit of every plane of one grain, shapes (n, M)."""
-    dev = trace_deviation_deg(theta[:, None], pred.trace_angle_deg)
-    sigma_p = trace_sigma_predicted_deg(spread[:, None], pred.dip_deg)
-    tol = _clip_tolerance(np.hypot(sigma_m[:, None], sigma_p), settings)
-    return dev, tol, pred.has_trace & (dev <= tol)
+def _side_fit(pred: PlanePrediction, theta, sigma_m, spread, settings: ToleranceSettings):
+    """Fit of every plane of one grain to the segments' traces, shapes (n, M)."""
+    return trace_fit(theta[:, None], sigma_m[:, None], pred, spread[:, None], **_options(settings))
 
 
-def _pair_geometry(na, nb, sign):
-    """The shared plane of two normals that agree: their mean, signed n_z >= 0."""
-    return surface_geometry(_unit(na + sign[..., None] * nb))
+def _options(settings: ToleranceSettings) -> dict:
+    return {
+        "k": settings.k,
+        "floor_deg": settings.floor_deg,
+        "max_tolerance_deg": settings.max_tolerance_deg,
+    }
 
 
-def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
+def _match_block(blk, planes_a, planes_b, phase, settings, want_table, want_long):
     """Candidates and identification of one block of segments of one phase pair."""
     theta, sigma_m, qa, qb, sa, sb = (
         blk[key] for key in ("theta", "sigma_m", "qa", "qb", "sa", "sb")
     )
     n = len(theta)
+    options = _options(settings)
     out = _empty_row_table(n)
     pred_a = predict_planes(qa, planes_a.normal_crystal)
     pred_b = predict_planes(qb, planes_b.normal_crystal)
-    dev_a, tol_a, fit_a = _side_fit(pred_a, theta, sigma_m, sa, settings)
-    dev_b, tol_b, fit_b = _side_fit(pred_b, theta, sigma_m, sb, settings)
+    side_a = _side_fit(pred_a, theta, sigma_m, sa, settings)
+    side_b = _side_fit(pred_b, theta, sigma_m, sb, settings)
+    dev_a, tol_a, fit_a = side_a.trace_deviation_deg, side_a.tolerance_deg, side_a.fits
+    dev_b, tol_b, fit_b = side_b.trace_deviation_deg, side_b.tolerance_deg, side_b.fits
 
     # Common planes: a plane of A and one of B whose normals in S agree within the
-    # tolerance that the two grains' orientation scatter allows.
+    # tolerance that the two grains' orientation scatter allows (the trace tolerance rule
+    # applied to the two spreads).
     cos = np.einsum("nai,nbi->nab", pred_a.normal_sample, pred_b.normal_sample)
     angle = np.rad2deg(np.arccos(np.clip(np.abs(cos), 0.0, 1.0)))
-    tol_normal = _clip_tolerance(np.hypot(sa, sb), settings)
+    tol_normal = trace_tolerance_deg(sa, sb, **options)
     s, i, j = np.nonzero(angle <= tol_normal[:, None, None])
-    sign = np.where(cos[s, i, j] < 0, -1.0, 1.0)
-    pair = _pair_geometry(pred_a.normal_sample[s, i], pred_b.normal_sample[s, j], sign)
-    dev_p = trace_deviation_deg(theta[s], pair.trace_angle_deg)
-    # The mean of two independent estimates is known better than either; the RMS of the
-    # two spreads is used, which keeps the tolerance on the safe side.
-    spread_p = np.sqrt(0.5 * (sa[s] ** 2 + sb[s] ** 2))
-    tol_p = _clip_tolerance(
-        np.hypot(sigma_m[s], trace_sigma_predicted_deg(spread_p, pair.dip_deg)), settings
-    )
-    fit_p = pair.has_trace & (dev_p <= tol_p)
+    pair = shared_plane(pred_a.normal_sample[s, i], pred_b.normal_sample[s, j])
+    pair_fit = trace_fit(theta[s], sigma_m[s], pair, pair_spread_deg(sa[s], sb[s]), **options)
+    dev_p, tol_p, fit_p = pair_fit.trace_deviation_deg, pair_fit.tolerance_deg, pair_fit.fits
     n_common = np.bincount(s[fit_p], minlength=n)
     fitting = np.flatnonzero(fit_p)
     order = fitting[np.lexsort((angle[s, i, j][fitting], dev_p[fitting], s[fitting]))]
@@ -451,7 +239,8 @@ def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
     out["common_planes_within_tolerance"] = n_common
     has_trace = np.concatenate([pred_a.has_trace, pred_b.has_trace], axis=1)
     tol_all = np.concatenate([tol_a, tol_b], axis=1)
-    out["chance_fit"] = 1.0 - np.prod(np.where(has_trace, 1.0 - tol_all / 90.0, 1.0), axis=1)
+    # A plane without a trace is no candidate: chance_fit skips NaN.
+    out["chance_fit"] = chance_fit(np.where(has_trace, tol_all, np.nan))
 
     def put(rows, geometry, index, dev, tol):
         out["trace_deviation_deg"][rows] = dev
@@ -487,11 +276,11 @@ def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
     identification[(fit_a.any(axis=1) | fit_b.any(axis=1)) | (n_common >= 2)] = "ambiguous"
     identification[n_common == 1] = "identified"
 
-    # Σ is known only for identify (the long table carries no misorientation columns).
-    if phase is not None and not want_long:
+    # Σ is known only when the segment table is built (it carries the misorientation).
+    if phase is not None and want_table:
         twins = np.flatnonzero(blk["sigma"] == "3")
         if len(twins):
-            _twin_test(out, twins, blk, tol_normal, phase, settings)
+            _coherent_twins(out, twins, blk, tol_normal, phase, settings)
 
     if not want_long:
         return out, []
@@ -535,51 +324,62 @@ def _match_block(blk, planes_a, planes_b, phase, settings, want_long):
     return out, long
 
 
-def _twin_test(out, rows, blk, tol_normal, phase, settings):
-    """Coherent-twin trace test of Σ3 rows, and the coherent_twin class.
-
-    The common <111> of the two grains is the pair of <111> normals (one per grain)
-    closest in S. The trace passes when it lies within the tolerance of that plane's
-    trace, which is the condition "trace ⟂ common <111>" carried over to trace angles:
-    the angle of t from the perpendicular is asin(sin δ · sin Δ) for a trace deviation Δ.
-    """
-    from ..crystal.lattice import plane_normals_crystal
-
-    normals = plane_normals_crystal(phase.lattice, _CUBIC_111.astype(int))
-    na = predict_planes(blk["qa"][rows], normals).normal_sample
-    nb = predict_planes(blk["qb"][rows], normals).normal_sample
-    cos = np.einsum("nai,nbi->nab", na, nb)
-    flat = np.argmax(np.abs(cos).reshape(len(rows), -1), axis=1)
-    i, j = np.divmod(flat, 4)
-    r = np.arange(len(rows))
-    sign = np.where(cos[r, i, j] < 0, -1.0, 1.0)
-    common = _pair_geometry(na[r, i], nb[r, j], sign)
-    dev = trace_deviation_deg(blk["theta"][rows], common.trace_angle_deg)
-    sa, sb = blk["sa"][rows], blk["sb"][rows]
-    sigma_p = trace_sigma_predicted_deg(np.sqrt(0.5 * (sa**2 + sb**2)), common.dip_deg)
-    tol = _clip_tolerance(np.hypot(blk["sigma_m"][rows], sigma_p), settings)
-    passed = common.has_trace & (dev <= tol)
+def _coherent_twins(out, rows, blk, tol_normal, phase, settings):
+    """The twin test of Σ3 rows (:func:`coherent_twin_test`), and the coherent_twin class."""
+    test = coherent_twin_test(
+        blk["theta"][rows],
+        blk["sigma_m"][rows],
+        blk["qa"][rows],
+        blk["qb"][rows],
+        blk["sa"][rows],
+        blk["sb"][rows],
+        phase.lattice,
+        **_options(settings),
+    )
+    passed = test.passed
     out["twin_test"][rows] = np.where(passed, "pass", "fail")
     best = np.stack([out[f"predicted_normal_{a}"][rows] for a in "xyz"], axis=-1)
     with np.errstate(invalid="ignore"):
         to_best = np.rad2deg(
-            np.arccos(np.clip(np.abs(np.einsum("ni,ni->n", best, common.normal_sample)), 0, 1))
+            np.arccos(
+                np.clip(np.abs(np.einsum("ni,ni->n", best, test.common_111.normal_sample)), 0, 1)
+            )
         )
     on_111 = (out["common_planes_within_tolerance"][rows] > 0) & (to_best <= tol_normal[rows])
     out["identification"][rows[passed & on_111]] = "coherent_twin"
 
 
-def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion, want_long):
-    """Shared work of :func:`identify` and :func:`candidates`."""
-    _check_settings(k, floor_deg, max_tolerance_deg)
-    _check_criterion(sigma_criterion)
-    settings = (float(k), float(floor_deg), float(max_tolerance_deg))
-    if not isinstance(segments, dict) or not isinstance(grains, dict):
-        raise TypeError(
-            "Expected `segments` and `grains` to be tables (dicts of 1-D arrays), "
-            f"got {type(segments).__name__} and {type(grains).__name__}."
+def _check_criterion(sigma_criterion: str) -> None:
+    from ..crystal.csl import CRITERIA
+
+    if sigma_criterion not in CRITERIA:
+        raise SettingError(
+            f"Expected `sigma_criterion` to be one of {tuple(CRITERIA)}, got {sigma_criterion!r}."
         )
-    seg = {key: _column(segments, key, "segments") for key in _SEGMENT_KEYS}
+
+
+def _grain_table(grains: GrainMap) -> Mapping:
+    if not isinstance(grains, GrainMap):
+        raise TypeError(
+            "Expected `grains` to be a GrainMap (inclination.grains.segment_grains), "
+            f"got {type(grains).__name__}."
+        )
+    return grains.grains
+
+
+def _match(segments, grains, phases, options, *, want_table, want_long):
+    """Shared work of :func:`match_planes`, :func:`identify` and :func:`candidates`."""
+    k, floor_deg, max_tolerance_deg, sigma_criterion = options
+    settings = ToleranceSettings(k, floor_deg, max_tolerance_deg)
+    _check_criterion(sigma_criterion)
+    if not isinstance(segments, Mapping):
+        raise TypeError(
+            "Expected `segments` to be a table (a dict of 1-D arrays), "
+            f"got {type(segments).__name__}."
+        )
+    grain_table = _grain_table(grains)
+    by_phase = _phases_by_id(phases)
+    seg = {key: column(segments, key, "segments") for key in _SEGMENT_KEYS}
     n = len(seg["segment_id"])
     for key, col in seg.items():
         if col.shape != (n,):
@@ -587,14 +387,13 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
                 f"Expected `segments` column {key!r} to have shape ({n},), got {col.shape}."
             )
     too_short = np.asarray(segments.get("too_short", np.zeros(n, dtype=bool)), dtype=bool)
-    gid = _column(grains, "grain_id", "grains").astype(np.int64)
-    quat = as_float_array(_column(grains, "quat", "grains"), "grains['quat']")
-    spread = as_float_array(_column(grains, "spread_mean_deg", "grains"), "spread_mean_deg")
+    gid = column(grain_table, "grain_id", "grains").astype(np.int64)
+    quat = as_float_array(column(grain_table, "quat", "grains"), "grains['quat']")
+    spread = as_float_array(column(grain_table, "spread_mean_deg", "grains"), "spread_mean_deg")
     if quat.shape != (len(gid), 4):
         raise ValueError(
             f"Expected `grains` column 'quat' to have shape ({len(gid)}, 4), got {quat.shape}."
         )
-    by_phase = _phase_lookup(phases)
     grain_a = seg["grain_a"].astype(np.int64)
     grain_b = seg["grain_b"].astype(np.int64)
     ia = _grain_rows(gid, grain_a, "grain_a")
@@ -624,13 +423,14 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
         missing = active & ~np.isin(ids, list(by_phase))
         if missing.any():
             row = int(np.flatnonzero(missing)[0])
-            raise ValueError(
+            # The map holds a phase the job does not declare.
+            raise InputError(
                 f"Expected every `segments` {name} to be the id of a phase in `phases` "
                 f"{tuple(sorted(by_phase))}, got {int(ids[row])} at row {row}."
             )
 
     table = _empty_row_table(n)
-    if not want_long:
+    if want_table:
         # Σ and the misorientation belong to the grain pair, so too_short rows get them too.
         for pid in np.unique(phase_a[phase_a == phase_b]).tolist():
             rows = np.flatnonzero((phase_a == pid) & (phase_b == pid))
@@ -661,7 +461,9 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
                 "sb": spread[ib[r]],
                 "sigma": table["sigma"][r],
             }
-            out, long = _match_block(blk, planes_of[pa], planes_of[pb], same, settings, want_long)
+            out, long = _match_block(
+                blk, planes_of[pa], planes_of[pb], same, settings, want_table, want_long
+            )
             for key, values in out.items():
                 if key not in _MISORIENTATION_KEYS:
                     table[key][r] = values
@@ -671,21 +473,23 @@ def _match(segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_crit
                 part["phase"] = np.full(len(part["row"]), phase_id)
                 long_parts.append(part)
 
-    head = {
-        "segment_id": seg["segment_id"].copy(),
-        "grain_a": grain_a,
-        "grain_b": grain_b,
-        "phase_a": phase_a,
-        "phase_b": phase_b,
-        "trace_angle_deg": theta.copy(),
-        "trace_sigma_deg": sigma_m.copy(),
-    }
-    if "length_um" in segments:
-        head["length_um"] = as_float_array(segments["length_um"], "length_um").copy()
-    rows_table = head | {
-        key: (values.astype(str) if values.dtype == object else values)
-        for key, values in table.items()
-    }
+    rows_table = None
+    if want_table:
+        head = {
+            "segment_id": seg["segment_id"].copy(),
+            "grain_a": grain_a,
+            "grain_b": grain_b,
+            "phase_a": phase_a,
+            "phase_b": phase_b,
+            "trace_angle_deg": theta.copy(),
+            "trace_sigma_deg": sigma_m.copy(),
+        }
+        if "length_um" in segments:
+            head["length_um"] = as_float_array(segments["length_um"], "length_um").copy()
+        rows_table = head | {
+            key: (values.astype(str) if values.dtype == object else values)
+            for key, values in table.items()
+        }
     return rows_table, (_long_table(long_parts, seg["segment_id"]) if want_long else None)
 
 
@@ -729,21 +533,77 @@ def _long_table(parts, segment_id) -> dict:
     return out
 
 
-def _check_criterion(sigma_criterion) -> None:
-    from ..crystal.csl import CRITERIA
+@dataclass(frozen=True)
+class PlaneMatch:
+    """The two tables of one matching pass (:func:`match_planes`).
 
-    check_one_of(sigma_criterion, "sigma_criterion", CRITERIA)
+    Attributes
+    ----------
+    identification : dict of 1-D arrays
+        One row per segment: the table of :func:`identify`.
+    candidates : dict of 1-D arrays
+        One row per (segment, grain side, plane): the table of :func:`candidates`.
+    """
+
+    identification: dict
+    candidates: dict
+
+
+def match_planes(
+    segments: Mapping,
+    grains: GrainMap,
+    phases: PhasesLike,
+    *,
+    k: float = 2.0,
+    floor_deg: float = 1.0,
+    max_tolerance_deg: float = 5.0,
+    sigma_criterion: str = "brandon",
+) -> PlaneMatch:
+    """Identification and candidate tables from one matching pass.
+
+    The same tables as :func:`identify` and :func:`candidates` called with the same
+    arguments, at the cost of one of them: the pipeline's call.
+
+    Parameters
+    ----------
+    segments, grains, phases, k, floor_deg, max_tolerance_deg, sigma_criterion
+        As for :func:`identify`.
+
+    Returns
+    -------
+    PlaneMatch
+
+    Examples
+    --------
+    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.grains import GrainMap
+    >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
+    ...            ("{1 1 1}",))
+    >>> table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...          "quat": np.array([[1.0, 0, 0, 0], [0.0, 0, 0, 1]]),
+    ...          "spread_mean_deg": np.array([0.2, 0.2])}
+    >>> grains = GrainMap(np.array([[1, 2]], np.int32), table, {}, 5.0, 4)
+    >>> segments = {"segment_id": np.array([7]), "grain_a": np.array([1]),
+    ...             "grain_b": np.array([2]), "phase_a": np.array([1]), "phase_b": np.array([1]),
+    ...             "trace_angle_deg": np.array([135.0]), "trace_sigma_deg": np.array([0.3])}
+    >>> m = match_planes(segments, grains, [cu])
+    >>> m.identification["identification"].tolist(), int(m.candidates["fits"].sum())
+    (['ambiguous'], 4)
+    """
+    options = (k, floor_deg, max_tolerance_deg, sigma_criterion)
+    table, long = _match(segments, grains, phases, options, want_table=True, want_long=True)
+    return PlaneMatch(table, long)
 
 
 def identify(
-    segments,
-    grains,
-    phases,
+    segments: Mapping,
+    grains: GrainMap,
+    phases: PhasesLike,
     *,
-    k=2.0,
-    floor_deg=1.0,
-    max_tolerance_deg=5.0,
-    sigma_criterion="brandon",
+    k: float = 2.0,
+    floor_deg: float = 1.0,
+    max_tolerance_deg: float = 5.0,
+    sigma_criterion: str = "brandon",
 ) -> dict:
     """Identify the crystal plane of each straight boundary segment from its trace.
 
@@ -786,10 +646,12 @@ def identify(
         (S, [0, 180)), ``trace_sigma_deg``; optional ``too_short`` (such rows
         are not matched to planes, but get their misorientation and Σ) and
         ``length_um`` (copied).
-    grains : dict of 1-D arrays
-        The grains table: ``grain_id``, ``phase``, ``quat`` (G, 4) mean
-        orientations (sample to crystal), ``spread_mean_deg``.
-    phases : sequence of Phase, or dict id → Phase
+    grains : GrainMap
+        The grains (:func:`inclination.grains.segment_grains`); its table gives
+        ``grain_id``, ``quat`` (G, 4) mean orientations (sample to crystal) and
+        ``spread_mean_deg``.
+    phases : sequence of Phase, or mapping id → Phase
+        The job's phases; every phase id of a matched segment must be among them.
     k : float, default 2.0
         Coverage factor of the tolerance, > 0.
     floor_deg, max_tolerance_deg : float, default 1.0, 5.0
@@ -821,6 +683,13 @@ def identify(
         ``identification``; ``twin_test`` (``"pass"``/``"fail"`` for Σ3,
         ``""`` otherwise). Absent values are NaN or ``""``.
 
+    Raises
+    ------
+    SettingError
+        If a tolerance setting or ``sigma_criterion`` is out of its range.
+    InputError
+        If a segment's phase is not among ``phases``.
+
     Examples
     --------
     >>> from inclination.crystal.lattice import Lattice, Phase
@@ -830,8 +699,10 @@ def identify(
     >>> from inclination.crystal.rotations import quat_from_euler_deg
     >>> qa = quat_from_euler_deg([30.0, 50.0, 10.0])  # its (1 1 1) traces at 118.489°
     >>> qb = quat_multiply(quat_from_axis_angle_deg([1, 1, 1], 180.0), qa)  # the Σ3 twin
-    >>> grains = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
-    ...           "quat": np.stack([qa, qb]), "spread_mean_deg": np.array([0.2, 0.2])}
+    >>> from inclination.grains import GrainMap
+    >>> table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...          "quat": np.stack([qa, qb]), "spread_mean_deg": np.array([0.2, 0.2])}
+    >>> grains = GrainMap(np.array([[1, 2]], np.int32), table, {}, 5.0, 4)
     >>> segments = {"segment_id": np.array([1]), "grain_a": np.array([1]),
     ...             "grain_b": np.array([2]), "phase_a": np.array([1]), "phase_b": np.array([1]),
     ...             "trace_angle_deg": np.array([118.8]), "trace_sigma_deg": np.array([0.3])}
@@ -841,19 +712,19 @@ def identify(
     >>> t["predicted_dip_deg"].round(3).tolist(), t["twin_test"].tolist()
     ([27.936], ['pass'])
     """
-    args = (k, floor_deg, max_tolerance_deg, sigma_criterion)
-    return _match(segments, grains, phases, *args, want_long=False)[0]
+    options = (k, floor_deg, max_tolerance_deg, sigma_criterion)
+    return _match(segments, grains, phases, options, want_table=True, want_long=False)[0]
 
 
 def candidates(
-    segments,
-    grains,
-    phases,
+    segments: Mapping,
+    grains: GrainMap,
+    phases: PhasesLike,
     *,
-    k=2.0,
-    floor_deg=1.0,
-    max_tolerance_deg=5.0,
-    sigma_criterion="brandon",
+    k: float = 2.0,
+    floor_deg: float = 1.0,
+    max_tolerance_deg: float = 5.0,
+    sigma_criterion: str = "brandon",
 ) -> dict:
     """Every candidate plane of both grains of every segment, as a long table.
 
@@ -877,9 +748,11 @@ def candidates(
     >>> from inclination.crystal.lattice import Lattice, Phase
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
-    >>> grains = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
-    ...           "quat": np.array([[1.0, 0, 0, 0], [0.0, 0, 0, 1]]),
-    ...           "spread_mean_deg": np.array([0.2, 0.2])}
+    >>> from inclination.grains import GrainMap
+    >>> table = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),
+    ...          "quat": np.array([[1.0, 0, 0, 0], [0.0, 0, 0, 1]]),
+    ...          "spread_mean_deg": np.array([0.2, 0.2])}
+    >>> grains = GrainMap(np.array([[1, 2]], np.int32), table, {}, 5.0, 4)
     >>> segments = {"segment_id": np.array([7]), "grain_a": np.array([1]),
     ...             "grain_b": np.array([2]), "phase_a": np.array([1]), "phase_b": np.array([1]),
     ...             "trace_angle_deg": np.array([135.0]), "trace_sigma_deg": np.array([0.3])}
@@ -887,99 +760,5 @@ def candidates(
     >>> c["plane"][:4].tolist(), c["fits"][:4].tolist()
     (['(1 1 1)', '(1 1 -1)', '(1 -1 1)', '(1 -1 -1)'], [True, True, False, False])
     """
-    args = (k, floor_deg, max_tolerance_deg, sigma_criterion)
-    return _match(segments, grains, phases, *args, want_long=True)[1]
-
-
-@dataclass(frozen=True)
-class TwinTestSummary:
-    """How much of the Σ3 boundary passes the coherent-twin trace test.
-
-    Failing proves a boundary is not a coherent twin; passing does not prove
-    it is one (any plane whose trace happens to lie along the {111} trace
-    passes too).
-
-    Attributes
-    ----------
-    n_sigma3, n_pass : int
-        Σ3 segments tested, and those that pass.
-    fraction_by_count : float
-        n_pass / n_sigma3 (NaN when there are none).
-    ci_low, ci_high : float
-        95 % Wilson score interval of that fraction (scipy.stats.binomtest).
-    length_sigma3_um, length_pass_um : float
-        Total length of the Σ3 segments and of those that pass.
-    fraction_by_length : float
-        length_pass_um / length_sigma3_um (NaN when there are none).
-    interval_method : str
-        ``"wilson"``.
-    """
-
-    n_sigma3: int
-    n_pass: int
-    fraction_by_count: float
-    ci_low: float
-    ci_high: float
-    length_sigma3_um: float
-    length_pass_um: float
-    fraction_by_length: float
-    interval_method: str = "wilson"
-
-
-def twin_test_summary(table, segments) -> TwinTestSummary:
-    """Fraction of Σ3 boundaries that pass the twin test, by count and by length.
-
-    Parameters
-    ----------
-    table : dict of 1-D arrays
-        The table of :func:`identify` (``segment_id``, ``twin_test``).
-    segments : dict of 1-D arrays
-        The segments table (``segment_id``, ``length_um``), joined by ``segment_id``.
-
-    Returns
-    -------
-    TwinTestSummary
-
-    Examples
-    --------
-    >>> table = {"segment_id": np.array([1, 2, 3]), "twin_test": np.array(["pass", "fail", ""])}
-    >>> segments = {"segment_id": np.array([3, 2, 1]), "length_um": np.array([5.0, 1.0, 3.0])}
-    >>> s = twin_test_summary(table, segments)
-    >>> s.n_sigma3, s.n_pass, s.fraction_by_count, s.fraction_by_length
-    (2, 1, 0.5, 0.75)
-    >>> round(s.ci_low, 4), round(s.ci_high, 4)
-    (0.0945, 0.9055)
-    """
-    from scipy.stats import binomtest
-
-    test = _column(table, "twin_test", "table").astype(str)
-    ids = _column(table, "segment_id", "table")
-    seg_ids = _column(segments, "segment_id", "segments")
-    length = as_float_array(_column(segments, "length_um", "segments"), "length_um")
-    order = np.argsort(seg_ids, kind="stable")
-    pos = np.minimum(np.searchsorted(seg_ids[order], ids), max(len(order) - 1, 0))
-    tested = np.isin(test, ("pass", "fail"))
-    if tested.any() and not np.all(seg_ids[order][pos][tested] == ids[tested]):
-        row = int(np.flatnonzero(tested & (seg_ids[order][pos] != ids))[0])
-        raise ValueError(
-            f"Expected every tested `table` segment_id to be in `segments`, "
-            f"got {ids[row].item()!r} at row {row}."
-        )
-    passed = test == "pass"
-    n_sigma3, n_pass = int(tested.sum()), int(passed.sum())
-    seg_length = length[order][pos] if len(order) else np.zeros(len(ids))
-    total = float(seg_length[tested].sum())
-    passing = float(seg_length[passed].sum())
-    if n_sigma3 == 0:
-        return TwinTestSummary(0, 0, np.nan, np.nan, np.nan, 0.0, 0.0, np.nan)
-    ci = binomtest(n_pass, n_sigma3).proportion_ci(confidence_level=0.95, method="wilson")
-    return TwinTestSummary(
-        n_sigma3,
-        n_pass,
-        n_pass / n_sigma3,
-        float(ci.low),
-        float(ci.high),
-        total,
-        passing,
-        passing / total if total > 0 else np.nan,
-    )
+    options = (k, floor_deg, max_tolerance_deg, sigma_criterion)
+    return _match(segments, grains, phases, options, want_table=False, want_long=True)[1]

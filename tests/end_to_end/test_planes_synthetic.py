@@ -17,7 +17,14 @@ from inclination.crystal.lattice import Lattice, Phase
 from inclination.crystal.symmetry import disorientation
 from inclination.grains import segment_grains
 from inclination.network import boundary_network
-from inclination.planes import candidates, identify
+from inclination.planes import (
+    chance_fit,
+    identify,
+    match_planes,
+    trace_deviation_deg,
+    trace_sigma_predicted_deg,
+    trace_tolerance_deg,
+)
 from inclination.traces import fit_segments
 
 STEP_UM = 0.5
@@ -104,8 +111,9 @@ def _run(seed, grid):
     grain_map = segment_grains(omap, [CU])
     net = boundary_network(omap, grain_map, [CU])
     segments = fit_segments(net, step_um=STEP_UM, grid=grid)
-    table = identify(segments, grain_map.grains, [CU])
-    cands = candidates(segments, grain_map.grains, [CU])
+    # The pipeline's call: one pass gives both tables.
+    matched = match_planes(segments, grain_map, [CU])
+    table, cands = matched.identification, matched.candidates
     region_of, purity = _region_of_labels(grain_map.labels, sm.grain_id, micro.n_regions)
     pure = (purity[segments["grain_a"]] >= 0.95) & (purity[segments["grain_b"]] >= 0.95)
     ra = np.where(pure, region_of[segments["grain_a"]], -1)
@@ -126,6 +134,7 @@ def _run(seed, grid):
         "micro": micro,
         "sm": sm,
         "segments": segments,
+        "grains": grain_map.grains,
         "table": table,
         "candidates": cands,
         "ra": ra,
@@ -253,7 +262,7 @@ def test_hexagonal_10_12_twin_planes_are_the_one_common_plane(seed):
     omap = synthetic.as_orientation_map(sm)
     grain_map = segment_grains(omap, [TI])
     segments = fit_segments(boundary_network(omap, grain_map, [TI]), step_um=STEP_UM)
-    table = identify(segments, grain_map.grains, [TI])
+    table = identify(segments, grain_map, [TI])
     region_of, purity = _region_of_labels(grain_map.labels, sm.grain_id, micro.n_regions)
     ra, rb = region_of[segments["grain_a"]], region_of[segments["grain_b"]]
     pure = (purity[segments["grain_a"]] >= 0.95) & (purity[segments["grain_b"]] >= 0.95)
@@ -269,3 +278,54 @@ def test_hexagonal_10_12_twin_planes_are_the_one_common_plane(seed):
             assert table["identification"][row] == "identified"
             checked += 1
     assert checked >= 10
+
+
+def _formulas_hold(table, cands, grains, segments):
+    """The tables of the real path against the public formulas, row by row."""
+    n_checked = 0
+    row_of = {int(sid): r for r, sid in enumerate(segments["segment_id"])}
+    for row, sid in enumerate(table["segment_id"]):
+        mine = cands["segment_id"] == sid
+        if not mine.any():
+            continue
+        tol = np.where(cands["has_trace"][mine], cands["tolerance_deg"][mine], np.nan)
+        # The identification's chance is the public chance_fit (Monte-Carlo checked in
+        # tests/test_planes_predict.py) of the candidates' tolerances, bit for bit.
+        assert table["chance_fit"][row] == chance_fit(tol)
+        seg_row = row_of[int(sid)]
+        spread = grains["spread_mean_deg"][cands["grain_id"][mine] - 1]
+        expected = trace_tolerance_deg(
+            segments["trace_sigma_deg"][seg_row],
+            trace_sigma_predicted_deg(spread, cands["dip_deg"][mine]),
+        )
+        assert np.array_equal(cands["tolerance_deg"][mine], expected)
+        deviation = trace_deviation_deg(
+            segments["trace_angle_deg"][seg_row], cands["trace_angle_deg"][mine]
+        )
+        assert np.array_equal(cands["trace_deviation_deg"][mine], deviation, equal_nan=True)
+        n_checked += 1
+    return n_checked
+
+
+def test_identification_path_runs_the_public_formulas(runs):
+    # Synthetic oracle sample, the pipeline's matching call (match_planes).
+    run = runs[(1, "square")]
+    grains = run["grains"]
+    assert np.array_equal(grains["grain_id"], np.arange(1, len(grains["grain_id"]) + 1))
+    assert _formulas_hold(run["table"], run["candidates"], grains, run["segments"]) > 50
+
+
+def test_pipeline_chance_fit_is_the_public_chance_fit(tmp_path):
+    # The whole pipeline (job → planes) on the synthetic demo sample, coupon LK-7.
+    from inclination.demo import write_demo_scenario
+    from inclination.io.job import load_job
+    from inclination.pipeline import run
+
+    scenario = write_demo_scenario(tmp_path)
+    analysis = run(load_job(scenario["job"]), stage="planes")
+    grains = analysis.grain_map.grains
+    assert np.array_equal(grains["grain_id"], np.arange(1, len(grains["grain_id"]) + 1))
+    checked = _formulas_hold(
+        analysis.identification, analysis.candidates, grains, analysis.segments
+    )
+    assert checked > 20

@@ -46,7 +46,7 @@ def _chain(sampled):
     omap = synthetic.as_orientation_map(sampled)
     grains = segment_grains(omap, [CU])
     segments = fit_segments(boundary_network(omap, grains, [CU]), step_um=STEP_UM)
-    return grains, segments, identify(segments, grains.grains, [CU])
+    return grains, segments, identify(segments, grains, [CU])
 
 
 def _region_of(labels, truth, n_regions):
