@@ -125,8 +125,7 @@ def _phase_infos(phases) -> list[_PhaseInfo]:
                 f"Expected `phases[{n}]` to be a Phase (with id, laue, lattice), "
                 f"got {type(ph).__name__}."
             )
-        setting = getattr(ph.lattice, "setting", None) or "x_parallel_a"
-        infos.append(_PhaseInfo(int(ph.id), str(ph.laue), str(setting), n + 1))
+        infos.append(_PhaseInfo(int(ph.id), str(ph.laue), ph.setting, n + 1))
     if not infos:
         raise ValueError("Expected `phases` to hold at least one Phase, got none.")
     if len(infos) > 250:

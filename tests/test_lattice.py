@@ -10,7 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import (
+from inclination.crystal import (
     LAUE_CRYSTAL_SYSTEMS,
     SETTINGS,
     Indices,
@@ -26,7 +26,7 @@ from inclination.crystal.lattice import (
     parse_indices,
     plane_normals_crystal,
 )
-from inclination.errors import InputError
+from inclination.errors import InputError, SettingError
 
 # One cell of each crystal system, with the Laue class the cell is tested under.
 CELLS = {
@@ -168,9 +168,9 @@ def test_impossible_cells_are_refused(params, match):
 
 
 def test_non_numbers_are_refused():
-    with pytest.raises(TypeError, match=r"Expected `a` to be a number, got str"):
+    with pytest.raises(SettingError, match=r"Expected `a` to be a number, got str"):
         Lattice.from_parameters("3", 3, 3, 90, 90, 90)
-    with pytest.raises(TypeError, match=r"Expected `gamma_deg` to be a number, got bool"):
+    with pytest.raises(SettingError, match=r"Expected `gamma_deg` to be a number, got bool"):
         Lattice.from_parameters(3, 3, 3, 90, 90, True)
 
 
@@ -308,7 +308,7 @@ def test_parse_refuses_anything_else(text, match):
 
 
 def test_parse_refuses_non_strings():
-    with pytest.raises(TypeError, match=r"Expected `text` to be a string, got tuple"):
+    with pytest.raises(SettingError, match=r"Expected `text` to be a string, got tuple"):
         parse_indices((1, 1, 1))
 
 
@@ -453,12 +453,12 @@ def test_vector_functions_refuse_bad_indices(func, arg, match):
 
 def test_vector_functions_refuse_a_non_lattice():
     for func in (plane_normals_crystal, direction_crystal, d_spacing):
-        with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice, got dict"):
+        with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice, got dict"):
             func({"a": 1}, [1, 0, 0])
-    with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice"):
+    with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice"):
         interplanar_angle_deg(None, [1, 0, 0], [0, 1, 0])
     with pytest.raises(
-        TypeError,
+        SettingError,
         match=r"Expected `hkl` to be an array of indices or an Indices, got the string '111'",
     ):
         plane_normals_crystal(CU, "111")
@@ -605,7 +605,7 @@ def test_expand_family_refuses_bad_options():
         expand_family(CU, [1, 1, 1], "m-3m", setting="x_along_c")
     with pytest.raises(ValueError, match=r"Expected `hkl` to hold integers"):
         expand_family(CU, [0.5, 1, 1], "m-3m")
-    with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice"):
+    with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice"):
         expand_family("Cu", [1, 1, 1], "m-3m")
 
 
@@ -774,11 +774,11 @@ def test_phase_from_dict_refuses_bad_fields(entry, pointer, match):
 @pytest.mark.parametrize(
     ("kwargs", "error", "match"),
     [
-        ({"id": "1"}, TypeError, r"Expected `id` to be an integer, got str"),
+        ({"id": "1"}, SettingError, r"Expected `id` to be an integer, got str"),
         ({"id": 0}, ValueError, r"Expected `id` to be an integer >= 1 \(0 marks non-indexed"),
         ({"name": " "}, ValueError, r"Expected `name` to be a non-empty string"),
         ({"laue": "cubic"}, ValueError, r"Expected `laue` to be one of"),
-        ({"lattice": CU_CELL}, TypeError, r"Expected `lattice` to be a Lattice, got dict"),
+        ({"lattice": CU_CELL}, SettingError, r"Expected `lattice` to be a Lattice, got dict"),
         (
             {"lattice": Lattice.from_parameters(3, 3, 3, 90, 90, 90, laue="m-3")},
             ValueError,
@@ -787,7 +787,7 @@ def test_phase_from_dict_refuses_bad_fields(entry, pointer, match):
         ({"laue": "6/mmm"}, ValueError, r"hexagonal phase"),
         (
             {"families": "{111}"},
-            TypeError,
+            SettingError,
             r"Expected `families` to be a tuple of strings, got str",
         ),
         ({"families": ()}, ValueError, r"at least one plane family"),

@@ -17,13 +17,13 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from itertools import product
 
 import numpy as np
 from scipy.stats import binom
 
 from .._validation import as_float_array, check_positive
-from ..crystal.lattice import format_indices, plane_normals_crystal
+from ..crystal.indices import format_indices, low_indices
+from ..crystal.lattice import plane_normals_crystal
 from ..crystal.rotations import quat_apply, quat_as_matrix
 
 __all__ = [
@@ -430,14 +430,7 @@ def low_index_planes(lattice, *, max_index: int = 3):
     >>> len(hkl)
     13
     """
-    if not isinstance(max_index, int | np.integer) or max_index < 1:
-        raise ValueError(f"Expected `max_index` to be an integer >= 1, got {max_index!r}.")
-    r = range(-max_index, max_index + 1)
-    rows = np.array([v for v in product(r, r, r) if any(v)], dtype=np.int64)
-    g = np.gcd.reduce(np.abs(rows), axis=1)
-    rows = rows[g == 1]
-    first = rows[np.arange(len(rows)), np.argmax(rows != 0, axis=1)]
-    rows = rows[first > 0]
+    rows = low_indices(max_index, kind="plane")
     return rows, plane_normals_crystal(lattice, rows)
 
 

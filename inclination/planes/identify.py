@@ -14,6 +14,7 @@ Sign of a plane normal
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -276,7 +277,7 @@ def _column(table, key: str, name: str) -> np.ndarray:
 
 
 def _phase_lookup(phases) -> dict:
-    items = phases.values() if isinstance(phases, dict) else phases
+    items = phases.values() if isinstance(phases, Mapping) else phases
     try:
         items = list(items)
     except TypeError:
@@ -321,22 +322,10 @@ def _unit(v: np.ndarray) -> np.ndarray:
 
 def _low_index_directions(lattice) -> tuple[np.ndarray, list[str]]:
     """Directions [uvw] with no common factor and indices up to 3, low indices first."""
-    from math import gcd
+    from ..crystal.indices import format_indices, low_indices
+    from ..crystal.lattice import direction_crystal
 
-    from ..crystal.lattice import direction_crystal, format_indices
-
-    n = _MAX_AXIS_INDEX
-    grid = np.array(
-        [
-            (u, v, w)
-            for u in range(-n, n + 1)
-            for v in range(-n, n + 1)
-            for w in range(-n, n + 1)
-            if (u, v, w) != (0, 0, 0) and gcd(gcd(u, v), w) == 1
-        ]
-    )
-    # Lower indices win ties (argmax keeps the first maximum).
-    grid = grid[np.lexsort((np.abs(grid).sum(axis=1), np.abs(grid).max(axis=1)))]
+    grid = low_indices(_MAX_AXIS_INDEX, kind="direction")
     return direction_crystal(lattice, grid), [format_indices(g, "direction") for g in grid]
 
 
@@ -366,7 +355,7 @@ def _misorientation_columns(qa, qb, phase, criterion):
     sigma_dev = np.full(n, np.nan)
     if n == 0:
         return np.zeros(0), np.zeros(0, str), np.zeros(0), sigma.astype(str), sigma_dev
-    dis = disorientation(qa, qb, phase.laue, setting=phase.lattice.setting or "x_parallel_a")
+    dis = disorientation(qa, qb, phase.laue, setting=phase.setting)
     axis, axis_dev = _nearest_direction(np.asarray(dis.axis_crystal), phase.lattice)
     if phase.laue == "m-3m":
         labels, deviation = _classify_sigma(dis.angle_deg, dis.axis_crystal, criterion)
