@@ -28,7 +28,7 @@ import numpy as np
 
 from ._validation import check_one_of
 from .crystal.rotations import quat_as_euler_deg, quat_from_euler_deg
-from .errors import InputError
+from .errors import InputError, SettingError
 from .frames import DeclaredAxes, data_frame_quat, orientations_to_declared, orientations_to_sample
 from .io.readers import (
     TABLE_DELIMITERS,
@@ -89,10 +89,13 @@ class OrientationMap:
 
     Parameters
     ----------
-    quat : array_like, shape (4, H, W)
-        Unit quaternions (scalar first) of the orientations ``g_S`` (S to
-        crystal), stored as C-contiguous float32 planes. Points that are not
-        valid hold the identity.
+    quat : array_like, shape (H, W, 4)
+        Unit quaternions (scalar first, on the last axis as everywhere in the
+        package) of the orientations ``g_S`` (S to crystal). Points that are not
+        valid hold the identity. Stored as C-contiguous float32 planes (4, H, W):
+        ``quat`` is the (H, W, 4) view of them, and ``np.moveaxis(omap.quat, -1, 0)``
+        gives the contiguous planes back without a copy, for kernels that run
+        component by component.
     phase : array_like of int, shape (H, W)
         Phase ids; 0 where not indexed. Stored as int32.
     valid : array_like of bool, shape (H, W), optional
@@ -116,11 +119,13 @@ class OrientationMap:
 
     Examples
     --------
-    >>> q = np.zeros((4, 2, 3)); q[0] = 1.0
+    >>> q = np.zeros((2, 3, 4)); q[..., 0] = 1.0
     >>> omap = OrientationMap(q, np.ones((2, 3), int), grid="square", step_x_um=0.5,
     ...                       step_y_um=0.5)
-    >>> omap.shape, omap.n_points, omap.quat.dtype.name, omap.quat.flags.writeable
-    ((2, 3), 6, 'float32', False)
+    >>> omap.shape, omap.n_points, omap.quat.shape, omap.quat.flags.writeable
+    ((2, 3), 6, (2, 3, 4), False)
+    >>> np.moveaxis(omap.quat, -1, 0).flags.c_contiguous
+    True
     >>> omap.positions_sample_um()[1, 2].tolist()
     [1.0, 0.5]
     """
@@ -137,19 +142,17 @@ class OrientationMap:
     provenance: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        # An array that owns its memory, is float32, C-ordered and already read-only (as
-        # the readers hand over) cannot change under the record: it is kept, not copied,
-        # which spares a fresh 16-bytes-per-point allocation on every map read.
-        q_in = self.quat
-        adopted = (
-            isinstance(q_in, np.ndarray)
-            and q_in.dtype == np.float32
-            and q_in.flags.c_contiguous
-            and _sealed(q_in)
-        )
-        quat = q_in if adopted else np.array(q_in, dtype=np.float32, order="C", copy=True)
-        if quat.ndim != 3 or quat.shape[0] != 4:
-            raise ValueError(f"Expected `quat` to have shape (4, H, W), got {quat.shape}.")
+        # Planes (4, H, W) that own their memory, are float32, C-ordered and already
+        # read-only (as the readers hand over, seen through the (H, W, 4) view) cannot
+        # change under the record: they are kept, not copied, which spares a fresh
+        # 16-bytes-per-point allocation on every map read.
+        q_in = self.quat if isinstance(self.quat, np.ndarray) else np.asarray(self.quat)
+        if q_in.ndim != 3 or q_in.shape[-1] != 4:
+            raise SettingError(f"Expected `quat` to have shape (H, W, 4), got {q_in.shape}.")
+        quat = np.moveaxis(q_in, -1, 0)
+        adopted = quat.dtype == np.float32 and quat.flags.c_contiguous and _sealed(quat)
+        if not adopted:
+            quat = np.array(quat, dtype=np.float32, order="C", copy=True)
         shape = quat.shape[1:]
         phase = np.asarray(self.phase)
         if phase.ndim != 2 or phase.shape != shape:
@@ -221,7 +224,7 @@ class OrientationMap:
             raise ValueError(
                 f"Expected `data_frame_rotation` to be a unit quaternion (4,), got {dfr!r}."
             )
-        object.__setattr__(self, "quat", _read_only(quat))
+        object.__setattr__(self, "quat", np.moveaxis(_read_only(quat), 0, -1))
         object.__setattr__(self, "phase", _read_only(phase))
         object.__setattr__(self, "valid", _read_only(valid))
         object.__setattr__(self, "quality", MappingProxyType(quality))
@@ -279,7 +282,7 @@ class OrientationMap:
         valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
         quat = _quat_planes_sample(e, valid, axes, dfr)
         return cls(
-            quat,
+            np.moveaxis(quat, 0, -1),
             np.where(valid, ph, 0).astype(np.int32),
             valid,
             quality={} if quality is None else quality,
@@ -319,10 +322,6 @@ class OrientationMap:
         y = np.broadcast_to((np.arange(h) * self.row_pitch_um)[:, None], (h, w))
         return np.stack([x, y], axis=-1)
 
-    def quat_nhw(self) -> np.ndarray:
-        """The quaternions as a read-only (H, W, 4) view (not contiguous)."""
-        return np.moveaxis(self.quat, 0, -1)
-
     def euler_deg_declared(self) -> np.ndarray:
         """Bunge angles (H, W, 3) of the orientations in the data frame, as read; NaN if invalid.
 
@@ -335,7 +334,7 @@ class OrientationMap:
         [[[30.0, 40.0, 50.0]]]
         """
         out = np.full(self.shape + (3,), np.nan)
-        q = np.moveaxis(self.quat, 0, -1)[self.valid].astype(np.float64)
+        q = self.quat[self.valid].astype(np.float64)
         q_data = orientations_to_declared(q, self.axes, self.data_frame_rotation)
         out[self.valid] = quat_as_euler_deg(q_data)
         return out
@@ -742,7 +741,7 @@ def _assemble(
             plane[linear] = rows
             quality[name] = plane.reshape(shape)
     args = dict(
-        quat=_read_only(quat.reshape((4, *shape))),
+        quat=np.moveaxis(_read_only(quat.reshape((4, *shape))), 0, -1),
         phase=phase.reshape(shape),
         valid=valid.reshape(shape),
         quality=quality,
