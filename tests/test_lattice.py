@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -16,6 +17,7 @@ from inclination.crystal import (
     Indices,
     Lattice,
     Phase,
+    Phases,
     d_spacing,
     default_families,
     direction_crystal,
@@ -23,6 +25,7 @@ from inclination.crystal import (
     format_indices,
     format_indices_latex,
     interplanar_angle_deg,
+    low_indices,
     parse_indices,
     plane_normals_crystal,
 )
@@ -816,3 +819,49 @@ def test_inputs_are_not_modified_by_from_dict():
     before = repr(entry)
     Phase.from_dict(entry)
     assert repr(entry) == before
+
+
+@pytest.mark.parametrize("n", [1, 2, 3])
+def test_low_indices_are_every_primitive_triple_once(n):
+    # Brute force with math.gcd over the cube [-n, n]³ (an independent enumeration).
+    every = {
+        t for t in itertools.product(range(-n, n + 1), repeat=3) if any(t) and math.gcd(*t) == 1
+    }
+    directions = low_indices(n, kind="direction")
+    assert {tuple(r) for r in directions.tolist()} == every and len(directions) == len(every)
+    planes = {tuple(r) for r in low_indices(n).tolist()}
+    # n and -n are one plane: exactly one of each pair is listed.
+    assert all((t in planes) != (tuple(-x for x in t) in planes) for t in every)
+    size = np.abs(directions)
+    key = size.max(axis=1) * 100 + size.sum(axis=1)
+    assert np.all(np.diff(key) >= 0), "low indices come first"
+    with pytest.raises(SettingError, match=r"Expected `max_index` to be an integer >= 1"):
+        low_indices(0)
+
+
+def test_phases_is_an_immutable_mapping_by_id():
+    cu = Phase.from_dict({"id": 3, "name": "Cu", "laue": "m-3m", "lattice": CU_CELL})
+    ti = Phase.from_dict(
+        {
+            "id": 1,
+            "name": "Ti",
+            "laue": "6/mmm",
+            "setting": "x_parallel_a_star",
+            "lattice": {"a": 2.951, "b": 2.951, "c": 4.684, "alpha": 90, "beta": 90, "gamma": 120},
+        }
+    )
+    phases = Phases([cu, ti])
+    assert list(phases) == [3, 1] and phases.ids == (3, 1) and phases[1] is ti
+    assert Phases.from_records({3: cu, 1: ti}) == phases
+    assert Phases.from_records(phases) is phases
+    assert (cu.setting, ti.setting) == ("x_parallel_a", "x_parallel_a_star")
+    with pytest.raises(AttributeError):
+        phases.extra = 1
+    with pytest.raises(SettingError, match="Expected distinct phase ids, got 3 twice"):
+        Phases([cu, cu])
+    with pytest.raises(SettingError, match="Expected `phases` to hold at least one Phase"):
+        Phases([])
+    with pytest.raises(SettingError, match="Expected each key of `phases` to be its phase's id"):
+        Phases.from_records({2: cu})
+    with pytest.raises(InputError, match=r"/phases/1/id: Expected distinct phase ids"):
+        Phases.from_dicts([{"id": 3, "name": "a", "laue": "m-3m", "lattice": CU_CELL}] * 2)

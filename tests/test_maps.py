@@ -18,17 +18,11 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
 from inclination.crystal.rotations import quat_inverse, quat_multiply, random_quat
-from inclination.errors import InputError
+from inclination.errors import InputError, SettingError
 from inclination.frames import DeclaredAxes
-from inclination.io.readers import place_on_grid, read_table
-from inclination.maps import (
-    OrientationMap,
-    read_map,
-    read_map_file,
-    write_csv,
-    write_npz,
-    write_tiff,
-)
+from inclination.io.text import place_on_grid, read_table
+from inclination.io.writers import write_csv, write_npz, write_tiff
+from inclination.maps import OrientationMap, read_map, read_map_file, row_pitch_um
 
 SCREEN = {"right": (1, 0), "left": (-1, 0), "down": (0, 1), "up": (0, -1)}
 EIGHT = [
@@ -136,6 +130,14 @@ def test_positions_square_and_hexagonal():
     assert_allclose(pos[1, 0], [1.0, np.sqrt(3)], rtol=0, atol=1e-12)
     assert_allclose(pos[2, 1], [2.0, 2 * np.sqrt(3)], rtol=0, atol=1e-12)
     assert_allclose(hx.row_pitch_um, np.sqrt(3), rtol=0, atol=1e-12)
+
+
+def test_row_pitch_is_the_hexagon_height():
+    # Equilateral triangles of side s have height s·√3/2 (plane geometry), conventions §1.
+    assert_allclose(row_pitch_um("hexagonal", 3.0), 3.0 * np.sin(np.pi / 3), rtol=0, atol=1e-12)
+    assert row_pitch_um("square", 0.25) == 0.25
+    with pytest.raises(ValueError, match="Expected `grid` to be one of"):
+        row_pitch_um("triangular", 1.0)
 
 
 def test_record_refuses_bad_arrays():
@@ -417,7 +419,7 @@ def test_writer_failure_removes_temporary(tmp_path):
 
 
 def test_writers_refuse_bad_arguments(tmp_path):
-    with pytest.raises(TypeError, match="Expected `omap` to be an OrientationMap"):
+    with pytest.raises(SettingError, match="Expected `omap` to be an OrientationMap"):
         write_csv(tmp_path / "a.csv", {"quat": 1})
     with pytest.raises(ValueError, match="Expected `delimiter` to be one separator character"):
         write_csv(tmp_path / "a.csv", sample_map(), delimiter="--")
@@ -853,7 +855,7 @@ def test_array_maps_need_a_step(tmp_path):
 
 
 def test_tiff_reader_direct_errors(tmp_path):
-    from inclination.io.readers import read_tiff_arrays
+    from inclination.io.arrays import read_tiff_arrays
 
     side = tmp_path / "c.tif.json"
     side.write_text(json.dumps({"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase"]}))

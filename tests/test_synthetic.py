@@ -718,7 +718,7 @@ def test_demo_scenario_files(tmp_path):
     import jsonschema
 
     from inclination.demo import write_demo_scenario
-    from inclination.io.readers import read_npz_arrays
+    from inclination.io.arrays import read_npz_arrays
     from inclination.io.schemas import load_schema
 
     paths = write_demo_scenario(tmp_path, seed=3)
@@ -770,7 +770,8 @@ def test_recorded_frame_reads_back_with_the_same_declared_rotation(micro, tmp_pa
     # The map module's reader is an independent implementation of §3's data-frame
     # rotation: a map recorded in the frame turned by Q and read back declaring Q gives
     # the orientations in S again (float32 storage: 1e-6).
-    from inclination.maps import OrientationMap, read_map, write_npz
+    from inclination.io.writers import write_npz
+    from inclination.maps import OrientationMap, read_map
 
     if declared is None:
         q_turn = turn.as_quat(scalar_first=True)
