@@ -171,28 +171,28 @@ class OrientationMap:
         shape = quat.shape[1:]
         phase = np.asarray(self.phase)
         if phase.ndim != 2 or phase.shape != shape:
-            raise ValueError(f"Expected `phase` to have shape {shape}, got {phase.shape}.")
+            raise SettingError(f"Expected `phase` to have shape {shape}, got {phase.shape}.")
         if phase.dtype.kind not in "iu":
             raise TypeError(f"Expected `phase` to be integers, got dtype {phase.dtype}.")
         if phase.size and (phase.min() < 0 or phase.max() > np.iinfo(np.int32).max):
-            raise ValueError("Expected `phase` to hold ids >= 0, got a negative id.")
+            raise SettingError("Expected `phase` to hold ids >= 0, got a negative id.")
         phase = np.array(phase, dtype=np.int32, order="C", copy=True)
         if self.valid is None:
             valid = phase != 0
         else:
             valid = np.array(self.valid, order="C", copy=True)
             if valid.dtype != bool or valid.shape != shape:
-                raise ValueError(
+                raise SettingError(
                     f"Expected `valid` to be bool of shape {shape}, "
                     f"got {valid.dtype} {valid.shape}."
                 )
             if np.any(valid & (phase == 0)):
-                raise ValueError("Expected `valid` to be False wherever `phase` is 0, got True.")
+                raise SettingError("Expected `valid` to be False wherever `phase` is 0, got True.")
         # Identity at the points that are not valid first, then the checks run over the
         # whole array in blocks: no gather of the valid points, no full-size temporaries.
         if adopted:
             if not np.all(quat[:, ~valid] == np.asarray(_IDENTITY, dtype=np.float32)[:, None]):
-                raise ValueError("Expected `quat` to hold the identity where not valid.")
+                raise SettingError("Expected `quat` to hold the identity where not valid.")
         else:
             quat[:, ~valid] = np.asarray(_IDENTITY, dtype=np.float32)[:, None]
         flat = quat.reshape(4, -1)
@@ -201,21 +201,21 @@ class OrientationMap:
             block = flat[:, start : start + (1 << 20)]
             norm2 = np.einsum("kn,kn->n", block, block, dtype=np.float64)
             if not np.all(np.isfinite(norm2)):
-                raise ValueError("Expected `quat` to be finite at valid points, got NaN or inf.")
+                raise SettingError("Expected `quat` to be finite at valid points, got NaN or inf.")
             if norm2.size:
                 worst = max(worst, float(np.max(np.abs(np.sqrt(norm2) - 1.0))))
         if worst > 1e-3:
-            raise ValueError(
+            raise SettingError(
                 f"Expected `quat` to be unit at valid points, got a norm off by {worst:.6g}."
             )
         check_one_of(self.grid, "grid", GRIDS)
         for name in ("step_x_um", "step_y_um"):
             value = getattr(self, name)
             if not (np.isfinite(value) and value > 0):
-                raise ValueError(f"Expected `{name}` to be a finite number > 0, got {value!r}.")
+                raise SettingError(f"Expected `{name}` to be a finite number > 0, got {value!r}.")
             object.__setattr__(self, name, float(value))
         if self.grid == "hexagonal" and self.step_x_um != self.step_y_um:
-            raise ValueError(
+            raise SettingError(
                 "Expected `step_x_um` == `step_y_um` on a hexagonal grid, "
                 f"got {self.step_x_um} and {self.step_y_um}."
             )
@@ -224,19 +224,19 @@ class OrientationMap:
         quality = {}
         for name, arr in dict(self.quality).items():
             if not isinstance(name, str) or not name or name in _RESERVED:
-                raise ValueError(
+                raise SettingError(
                     f"Expected quality names to be non-empty and not one of "
                     f"{tuple(sorted(_RESERVED))}, got {name!r}."
                 )
             arr = np.array(arr, dtype=np.float32, order="C", copy=True)
             if arr.shape != shape:
-                raise ValueError(
+                raise SettingError(
                     f"Expected quality channel {name!r} to have shape {shape}, got {arr.shape}."
                 )
             quality[name] = _read_only(arr)
         dfr = np.array(self.data_frame_rotation, dtype=np.float64, copy=True)
         if dfr.shape != (4,) or abs(np.linalg.norm(dfr) - 1.0) > 1e-6:
-            raise ValueError(
+            raise SettingError(
                 f"Expected `data_frame_rotation` to be a unit quaternion (4,), got {dfr!r}."
             )
         object.__setattr__(self, "quat", np.moveaxis(_read_only(quat), 0, -1))
@@ -288,10 +288,10 @@ class OrientationMap:
         """
         e = np.asarray(euler_deg, dtype=np.float64)
         if e.ndim != 3 or e.shape[-1] != 3:
-            raise ValueError(f"Expected `euler_deg` to have shape (H, W, 3), got {e.shape}.")
+            raise SettingError(f"Expected `euler_deg` to have shape (H, W, 3), got {e.shape}.")
         ph = np.asarray(phase)
         if ph.shape != e.shape[:2]:
-            raise ValueError(f"Expected `phase` to have shape {e.shape[:2]}, got {ph.shape}.")
+            raise SettingError(f"Expected `phase` to have shape {e.shape[:2]}, got {ph.shape}.")
         axes = DeclaredAxes() if axes is None else axes
         dfr = _as_dfr_quat(data_frame_rotation)
         valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
@@ -364,7 +364,7 @@ def _as_dfr_quat(spec) -> np.ndarray:
         return data_frame_quat(spec)
     q = np.asarray(spec, dtype=np.float64)
     if q.shape != (4,):
-        raise ValueError(f"Expected `data_frame_rotation` to have shape (4,), got {q.shape}.")
+        raise SettingError(f"Expected `data_frame_rotation` to have shape (4,), got {q.shape}.")
     return q / np.linalg.norm(q)
 
 
