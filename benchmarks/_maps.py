@@ -43,7 +43,8 @@ def make_benchmark_map(
     """A ``size`` × ``size`` single-phase map (phase id 1) of Voronoi grains.
 
     ``n_grains`` defaults to size² / 4200 (about 4000 grains at 4096², mean diameter ~70
-    points). ``quat`` is float32 (4, H, W), C-contiguous; ``truth_grain`` int32 (H, W)
+    points). ``quat`` is float32 (H, W, 4), the view of C-contiguous (4, H, W) planes
+    as in OrientationMap; ``truth_grain`` int32 (H, W)
     holds the seed index + 1 of each point.
     """
     rng = np.random.default_rng(rng)
@@ -82,7 +83,7 @@ def make_benchmark_map(
     # A hexagonal map keeps step_y = step_x (the in-row step), as maps.OrientationMap does.
     step_y = step_um
     return BenchmarkMap(
-        quat=quat,
+        quat=np.moveaxis(quat, 0, -1),
         phase=np.ones((size, size), dtype=np.int32),
         valid=np.ones((size, size), dtype=bool),
         grid=grid,

@@ -42,7 +42,8 @@ print(json.dumps({"seconds": elapsed, "cpu_seconds": cpu, "peak_kib": high_water
 
 
 def make_table(path: Path, side: int, *, rng=0) -> None:
-    from inclination.maps import OrientationMap, write_csv
+    from inclination.io.writers import write_csv
+    from inclination.maps import OrientationMap
 
     gen = np.random.default_rng(rng)
     euler = np.stack(

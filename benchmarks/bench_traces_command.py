@@ -55,7 +55,7 @@ JOB = {
 
 def _write_map(folder: Path, size: int) -> None:
     m = make_benchmark_map(size)
-    q = np.moveaxis(m.quat, 0, -1).reshape(-1, 4)
+    q = m.quat.reshape(-1, 4)
     euler = np.empty((q.shape[0], 3), np.float32)
     block = 1 << 20
     for s in range(0, len(q), block):
@@ -108,7 +108,7 @@ def main() -> None:
         with tempfile.TemporaryDirectory() as tmp:
             folder = Path(tmp)
             m = _write_map(folder, size)
-            copy_s = _plain_copy_s(m.quat)
+            copy_s = _plain_copy_s(np.moveaxis(m.quat, -1, 0))
             del m
             times = []
             peak = 0

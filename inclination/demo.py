@@ -28,7 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .maps import write_npz
+from .io.writers import write_npz
 from .report._io import write_json_atomic
 from .synthetic import (
     as_orientation_map,

@@ -125,8 +125,7 @@ def _phase_infos(phases) -> list[_PhaseInfo]:
                 f"Expected `phases[{n}]` to be a Phase (with id, laue, lattice), "
                 f"got {type(ph).__name__}."
             )
-        setting = getattr(ph.lattice, "setting", None) or "x_parallel_a"
-        infos.append(_PhaseInfo(int(ph.id), str(ph.laue), str(setting), n + 1))
+        infos.append(_PhaseInfo(int(ph.id), str(ph.laue), ph.setting, n + 1))
     if not infos:
         raise ValueError("Expected `phases` to hold at least one Phase, got none.")
     if len(infos) > 250:
@@ -169,16 +168,17 @@ def _check_map(omap) -> tuple[np.ndarray, int, int, str]:
                 f"got {type(omap).__name__}."
             )
     quat = np.asarray(omap.quat)
-    if quat.ndim != 3 or quat.shape[0] != 4:
-        raise ValueError(f"Expected `omap.quat` to have shape (4, H, W), got {quat.shape}.")
-    h, w = quat.shape[1:]
+    if quat.ndim != 3 or quat.shape[-1] != 4:
+        raise ValueError(f"Expected `omap.quat` to have shape (H, W, 4), got {quat.shape}.")
+    h, w = quat.shape[:2]
     for field in ("phase", "valid"):
         shape = np.shape(getattr(omap, field))
         if shape != (h, w):
             raise ValueError(f"Expected `omap.{field}` to have shape {(h, w)}, got {shape}.")
     check_one_of(omap.grid, "omap.grid", ("square", "hexagonal"))
-    # Converted once, only if the reader did not already store contiguous float32 planes.
-    quat = np.ascontiguousarray(quat, dtype=np.float32)
+    # The kernels run on (4, H, W) planes: a view for an OrientationMap, converted once
+    # only if the caller did not hand over contiguous float32 planes behind the view.
+    quat = np.ascontiguousarray(np.moveaxis(quat, -1, 0), dtype=np.float32)
     return quat.reshape(4, h * w), h, w, omap.grid
 
 
@@ -206,11 +206,11 @@ def point_xy_um(omap, flat_index) -> tuple[np.ndarray, np.ndarray]:
     --------
     >>> from types import SimpleNamespace
     >>> m = SimpleNamespace(grid="hexagonal", step_x_um=1.0, step_y_um=1.0,
-    ...                     quat=np.zeros((4, 2, 3), np.float32))
+    ...                     quat=np.zeros((2, 3, 4), np.float32))
     >>> [v.round(6).tolist() for v in point_xy_um(m, [0, 4])]
     [[0.0, 1.5], [0.0, 0.866025]]
     """
-    w = np.shape(omap.quat)[-1]
+    w = np.shape(omap.quat)[1]
     k = np.asarray(flat_index, dtype=np.int64)
     i, j = np.divmod(k, w)
     x = j * float(omap.step_x_um)
@@ -733,12 +733,12 @@ def segment_grains(
     >>> from inclination.maps import OrientationMap
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
     >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))
-    >>> quat = np.zeros((4, 2, 4)); quat[0] = 1.0
-    >>> quat[:, :, 2:] = np.array([0.0, 0.0, 0.0, 1.0])[:, None, None]  # 180° about Z
+    >>> quat = np.zeros((2, 4, 4)); quat[..., 0] = 1.0
+    >>> quat[:, 2:] = [0.0, 0.0, 0.0, 1.0]  # 180° about Z
     >>> omap = OrientationMap(quat, np.ones((2, 4), int), step_x_um=0.5, step_y_um=0.5)
     >>> segment_grains(omap, [cu], min_pixels=1).labels.tolist()  # a symmetry operation
     [[1, 1, 1, 1], [1, 1, 1, 1]]
-    >>> quat[:, :, 2:] = np.array([0.92388, 0.0, 0.0, 0.382683])[:, None, None]  # 45°
+    >>> quat[:, 2:] = [0.92388, 0.0, 0.0, 0.382683]  # 45°
     >>> omap = OrientationMap(quat, np.ones((2, 4), int), step_x_um=0.5, step_y_um=0.5)
     >>> gm = segment_grains(omap, [cu], min_pixels=1)
     >>> gm.labels.tolist(), gm.grains["area_um2"].tolist()

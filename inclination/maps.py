@@ -1,10 +1,11 @@
-"""The orientation map record, the map reader behind the job file, and map writers.
+"""The orientation map record, its grid geometry, and the map reader behind the job file.
 
 An :class:`OrientationMap` holds orientations already converted into the sample
-frame S (conventions §2–§3) on a square or hexagonal grid (§1). Conversion from
-the user's declared axes and data-frame rotation happens once, in
-:func:`read_map`; the writers convert back, so a written file carries Euler
-angles and coordinates in the declared frame, as it was read.
+frame S (conventions §2–§3) on a square or hexagonal grid (§1); :func:`row_pitch_um`
+is the one formula for the distance between its rows. Conversion from the user's
+declared axes and data-frame rotation happens once, in :func:`read_map`; the
+writers (:mod:`inclination.io.writers`) convert back, so a written file carries
+Euler angles and coordinates in the declared frame, as it was read.
 
 Float32 storage. Quaternion components are stored as float32 (relative error
 ≤ 6e-8), so an orientation read back differs from the float64 one by at most
@@ -15,9 +16,7 @@ angles to 1e-5°.
 from __future__ import annotations
 
 import hashlib
-import io
 import os
-import secrets
 from collections.abc import Mapping
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -28,15 +27,10 @@ import numpy as np
 
 from ._validation import check_one_of
 from .crystal.rotations import quat_as_euler_deg, quat_from_euler_deg
-from .errors import InputError
+from .errors import InputError, SettingError
 from .frames import DeclaredAxes, data_frame_quat, orientations_to_declared, orientations_to_sample
-from .io.readers import (
-    TABLE_DELIMITERS,
-    place_on_grid,
-    read_npz_arrays,
-    read_table,
-    read_tiff_arrays,
-)
+from .io.arrays import read_npz_arrays, read_tiff_arrays
+from .io.text import TABLE_DELIMITERS, place_on_grid, read_table
 
 __all__ = [
     "GRIDS",
@@ -44,9 +38,7 @@ __all__ = [
     "OrientationMap",
     "read_map",
     "read_map_file",
-    "write_npz",
-    "write_tiff",
-    "write_csv",
+    "row_pitch_um",
 ]
 
 GRIDS = ("square", "hexagonal")
@@ -64,6 +56,29 @@ _SQRT3_2 = np.sqrt(3.0) / 2.0
 _UNIT_CHECK_MIN_POINTS = 100
 # Points converted per block (float64 temporaries of a block stay near 10 MB).
 _BLOCK = 1 << 18
+
+
+def row_pitch_um(grid: str, step_um: float) -> float:
+    """Distance between neighbouring map rows (µm), the one grid-geometry formula (conventions §1).
+
+    Parameters
+    ----------
+    grid : {'square', 'hexagonal'}
+    step_um : float
+        The step along Y_S on a square grid; the in-row neighbour distance on a
+        hexagonal grid, whose rows are ``step·√3/2`` apart.
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> row_pitch_um("square", 0.5), round(row_pitch_um("hexagonal", 2.0), 6)
+    (0.5, 1.732051)
+    """
+    check_one_of(grid, "grid", GRIDS)
+    return float(step_um * (_SQRT3_2 if grid == "hexagonal" else 1.0))
 
 
 def _read_only(arr: np.ndarray) -> np.ndarray:
@@ -89,10 +104,13 @@ class OrientationMap:
 
     Parameters
     ----------
-    quat : array_like, shape (4, H, W)
-        Unit quaternions (scalar first) of the orientations ``g_S`` (S to
-        crystal), stored as C-contiguous float32 planes. Points that are not
-        valid hold the identity.
+    quat : array_like, shape (H, W, 4)
+        Unit quaternions (scalar first, on the last axis as everywhere in the
+        package) of the orientations ``g_S`` (S to crystal). Points that are not
+        valid hold the identity. Stored as C-contiguous float32 planes (4, H, W):
+        ``quat`` is the (H, W, 4) view of them, and ``np.moveaxis(omap.quat, -1, 0)``
+        gives the contiguous planes back without a copy, for kernels that run
+        component by component.
     phase : array_like of int, shape (H, W)
         Phase ids; 0 where not indexed. Stored as int32.
     valid : array_like of bool, shape (H, W), optional
@@ -116,11 +134,13 @@ class OrientationMap:
 
     Examples
     --------
-    >>> q = np.zeros((4, 2, 3)); q[0] = 1.0
+    >>> q = np.zeros((2, 3, 4)); q[..., 0] = 1.0
     >>> omap = OrientationMap(q, np.ones((2, 3), int), grid="square", step_x_um=0.5,
     ...                       step_y_um=0.5)
-    >>> omap.shape, omap.n_points, omap.quat.dtype.name, omap.quat.flags.writeable
-    ((2, 3), 6, 'float32', False)
+    >>> omap.shape, omap.n_points, omap.quat.shape, omap.quat.flags.writeable
+    ((2, 3), 6, (2, 3, 4), False)
+    >>> np.moveaxis(omap.quat, -1, 0).flags.c_contiguous
+    True
     >>> omap.positions_sample_um()[1, 2].tolist()
     [1.0, 0.5]
     """
@@ -137,44 +157,42 @@ class OrientationMap:
     provenance: Mapping = field(default_factory=dict)
 
     def __post_init__(self):
-        # An array that owns its memory, is float32, C-ordered and already read-only (as
-        # the readers hand over) cannot change under the record: it is kept, not copied,
-        # which spares a fresh 16-bytes-per-point allocation on every map read.
-        q_in = self.quat
-        adopted = (
-            isinstance(q_in, np.ndarray)
-            and q_in.dtype == np.float32
-            and q_in.flags.c_contiguous
-            and _sealed(q_in)
-        )
-        quat = q_in if adopted else np.array(q_in, dtype=np.float32, order="C", copy=True)
-        if quat.ndim != 3 or quat.shape[0] != 4:
-            raise ValueError(f"Expected `quat` to have shape (4, H, W), got {quat.shape}.")
+        # Planes (4, H, W) that own their memory, are float32, C-ordered and already
+        # read-only (as the readers hand over, seen through the (H, W, 4) view) cannot
+        # change under the record: they are kept, not copied, which spares a fresh
+        # 16-bytes-per-point allocation on every map read.
+        q_in = self.quat if isinstance(self.quat, np.ndarray) else np.asarray(self.quat)
+        if q_in.ndim != 3 or q_in.shape[-1] != 4:
+            raise SettingError(f"Expected `quat` to have shape (H, W, 4), got {q_in.shape}.")
+        quat = np.moveaxis(q_in, -1, 0)
+        adopted = quat.dtype == np.float32 and quat.flags.c_contiguous and _sealed(quat)
+        if not adopted:
+            quat = np.array(quat, dtype=np.float32, order="C", copy=True)
         shape = quat.shape[1:]
         phase = np.asarray(self.phase)
         if phase.ndim != 2 or phase.shape != shape:
-            raise ValueError(f"Expected `phase` to have shape {shape}, got {phase.shape}.")
+            raise SettingError(f"Expected `phase` to have shape {shape}, got {phase.shape}.")
         if phase.dtype.kind not in "iu":
             raise TypeError(f"Expected `phase` to be integers, got dtype {phase.dtype}.")
         if phase.size and (phase.min() < 0 or phase.max() > np.iinfo(np.int32).max):
-            raise ValueError("Expected `phase` to hold ids >= 0, got a negative id.")
+            raise SettingError("Expected `phase` to hold ids >= 0, got a negative id.")
         phase = np.array(phase, dtype=np.int32, order="C", copy=True)
         if self.valid is None:
             valid = phase != 0
         else:
             valid = np.array(self.valid, order="C", copy=True)
             if valid.dtype != bool or valid.shape != shape:
-                raise ValueError(
+                raise SettingError(
                     f"Expected `valid` to be bool of shape {shape}, "
                     f"got {valid.dtype} {valid.shape}."
                 )
             if np.any(valid & (phase == 0)):
-                raise ValueError("Expected `valid` to be False wherever `phase` is 0, got True.")
+                raise SettingError("Expected `valid` to be False wherever `phase` is 0, got True.")
         # Identity at the points that are not valid first, then the checks run over the
         # whole array in blocks: no gather of the valid points, no full-size temporaries.
         if adopted:
             if not np.all(quat[:, ~valid] == np.asarray(_IDENTITY, dtype=np.float32)[:, None]):
-                raise ValueError("Expected `quat` to hold the identity where not valid.")
+                raise SettingError("Expected `quat` to hold the identity where not valid.")
         else:
             quat[:, ~valid] = np.asarray(_IDENTITY, dtype=np.float32)[:, None]
         flat = quat.reshape(4, -1)
@@ -183,21 +201,21 @@ class OrientationMap:
             block = flat[:, start : start + (1 << 20)]
             norm2 = np.einsum("kn,kn->n", block, block, dtype=np.float64)
             if not np.all(np.isfinite(norm2)):
-                raise ValueError("Expected `quat` to be finite at valid points, got NaN or inf.")
+                raise SettingError("Expected `quat` to be finite at valid points, got NaN or inf.")
             if norm2.size:
                 worst = max(worst, float(np.max(np.abs(np.sqrt(norm2) - 1.0))))
         if worst > 1e-3:
-            raise ValueError(
+            raise SettingError(
                 f"Expected `quat` to be unit at valid points, got a norm off by {worst:.6g}."
             )
         check_one_of(self.grid, "grid", GRIDS)
         for name in ("step_x_um", "step_y_um"):
             value = getattr(self, name)
             if not (np.isfinite(value) and value > 0):
-                raise ValueError(f"Expected `{name}` to be a finite number > 0, got {value!r}.")
+                raise SettingError(f"Expected `{name}` to be a finite number > 0, got {value!r}.")
             object.__setattr__(self, name, float(value))
         if self.grid == "hexagonal" and self.step_x_um != self.step_y_um:
-            raise ValueError(
+            raise SettingError(
                 "Expected `step_x_um` == `step_y_um` on a hexagonal grid, "
                 f"got {self.step_x_um} and {self.step_y_um}."
             )
@@ -206,22 +224,22 @@ class OrientationMap:
         quality = {}
         for name, arr in dict(self.quality).items():
             if not isinstance(name, str) or not name or name in _RESERVED:
-                raise ValueError(
+                raise SettingError(
                     f"Expected quality names to be non-empty and not one of "
                     f"{tuple(sorted(_RESERVED))}, got {name!r}."
                 )
             arr = np.array(arr, dtype=np.float32, order="C", copy=True)
             if arr.shape != shape:
-                raise ValueError(
+                raise SettingError(
                     f"Expected quality channel {name!r} to have shape {shape}, got {arr.shape}."
                 )
             quality[name] = _read_only(arr)
         dfr = np.array(self.data_frame_rotation, dtype=np.float64, copy=True)
         if dfr.shape != (4,) or abs(np.linalg.norm(dfr) - 1.0) > 1e-6:
-            raise ValueError(
+            raise SettingError(
                 f"Expected `data_frame_rotation` to be a unit quaternion (4,), got {dfr!r}."
             )
-        object.__setattr__(self, "quat", _read_only(quat))
+        object.__setattr__(self, "quat", np.moveaxis(_read_only(quat), 0, -1))
         object.__setattr__(self, "phase", _read_only(phase))
         object.__setattr__(self, "valid", _read_only(valid))
         object.__setattr__(self, "quality", MappingProxyType(quality))
@@ -270,16 +288,16 @@ class OrientationMap:
         """
         e = np.asarray(euler_deg, dtype=np.float64)
         if e.ndim != 3 or e.shape[-1] != 3:
-            raise ValueError(f"Expected `euler_deg` to have shape (H, W, 3), got {e.shape}.")
+            raise SettingError(f"Expected `euler_deg` to have shape (H, W, 3), got {e.shape}.")
         ph = np.asarray(phase)
         if ph.shape != e.shape[:2]:
-            raise ValueError(f"Expected `phase` to have shape {e.shape[:2]}, got {ph.shape}.")
+            raise SettingError(f"Expected `phase` to have shape {e.shape[:2]}, got {ph.shape}.")
         axes = DeclaredAxes() if axes is None else axes
         dfr = _as_dfr_quat(data_frame_rotation)
         valid = (ph != 0) & np.all(np.isfinite(e), axis=-1)
         quat = _quat_planes_sample(e, valid, axes, dfr)
         return cls(
-            quat,
+            np.moveaxis(quat, 0, -1),
             np.where(valid, ph, 0).astype(np.int32),
             valid,
             quality={} if quality is None else quality,
@@ -304,7 +322,7 @@ class OrientationMap:
     @property
     def row_pitch_um(self) -> float:
         """Distance between rows (µm): ``step_y_um``, or ``step·√3/2`` on a hexagonal grid."""
-        return self.step_y_um * (_SQRT3_2 if self.grid == "hexagonal" else 1.0)
+        return row_pitch_um(self.grid, self.step_y_um)
 
     def positions_sample_um(self) -> np.ndarray:
         """Positions of every grid point in S, shape (H, W, 2), µm (conventions §1).
@@ -319,10 +337,6 @@ class OrientationMap:
         y = np.broadcast_to((np.arange(h) * self.row_pitch_um)[:, None], (h, w))
         return np.stack([x, y], axis=-1)
 
-    def quat_nhw(self) -> np.ndarray:
-        """The quaternions as a read-only (H, W, 4) view (not contiguous)."""
-        return np.moveaxis(self.quat, 0, -1)
-
     def euler_deg_declared(self) -> np.ndarray:
         """Bunge angles (H, W, 3) of the orientations in the data frame, as read; NaN if invalid.
 
@@ -335,7 +349,7 @@ class OrientationMap:
         [[[30.0, 40.0, 50.0]]]
         """
         out = np.full(self.shape + (3,), np.nan)
-        q = np.moveaxis(self.quat, 0, -1)[self.valid].astype(np.float64)
+        q = self.quat[self.valid].astype(np.float64)
         q_data = orientations_to_declared(q, self.axes, self.data_frame_rotation)
         out[self.valid] = quat_as_euler_deg(q_data)
         return out
@@ -350,7 +364,7 @@ def _as_dfr_quat(spec) -> np.ndarray:
         return data_frame_quat(spec)
     q = np.asarray(spec, dtype=np.float64)
     if q.shape != (4,):
-        raise ValueError(f"Expected `data_frame_rotation` to have shape (4,), got {q.shape}.")
+        raise SettingError(f"Expected `data_frame_rotation` to have shape (4,), got {q.shape}.")
     return q / np.linalg.norm(q)
 
 
@@ -742,7 +756,7 @@ def _assemble(
             plane[linear] = rows
             quality[name] = plane.reshape(shape)
     args = dict(
-        quat=_read_only(quat.reshape((4, *shape))),
+        quat=np.moveaxis(_read_only(quat.reshape((4, *shape))), 0, -1),
         phase=phase.reshape(shape),
         valid=valid.reshape(shape),
         quality=quality,
@@ -778,7 +792,7 @@ def _arrays_to_map_args(
         progress=progress,
     )
     # Declared coordinates start at 0 on both axes over the map's bounding box.
-    pitch = sy * (_SQRT3_2 if grid == "hexagonal" else 1.0)
+    pitch = row_pitch_um(grid, sy)
     x_max = (w - 1) * sx + (0.5 * sx if grid == "hexagonal" and h > 1 else 0.0)
     corners = np.array([[0.0, 0.0], [x_max, 0.0], [0.0, (h - 1) * pitch], [x_max, (h - 1) * pitch]])
     declared = DeclaredAxes(axes.x, axes.y).points_to_declared(corners)
@@ -966,150 +980,14 @@ def read_map_file(path, *, format: str, angles: str, axes=None, **options) -> Or
     return read_map(spec, pointer="")
 
 
-# ----------------------------------------------------------------------------- writing
+# Written maps moved to inclination.io.writers; still importable from here so that code
+# written against the earlier layout keeps working.
+_MOVED = ("write_npz", "write_tiff", "write_csv")
 
 
-def _atomic(path, write) -> Path:
-    """Write through a temporary file in the same folder, then rename over ``path``.
+def __getattr__(name: str) -> object:
+    if name in _MOVED:
+        from .io import writers
 
-    The temporary is created with mode 0o666 less the umask, as an ordinary file
-    would be (mkstemp's 0o600 would survive the rename).
-    """
-    path = Path(path)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp")
-    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return path
-
-
-def _check_map(omap):
-    if not isinstance(omap, OrientationMap):
-        raise TypeError(f"Expected `omap` to be an OrientationMap, got {type(omap).__name__}.")
-
-
-def write_npz(path, omap: OrientationMap, *, compress: bool = True) -> Path:
-    """Write a map as ``.npz``: ``euler_deg`` (H, W, 3) in the data frame, ``phase``, quality.
-
-    Angles are converted back from S into the map's declared axes and data
-    frame, so that :func:`read_map` with the same declarations reads the same
-    map. Non-indexed points have NaN angles and phase 0. Written atomically.
-
-    Returns
-    -------
-    Path
-
-    Examples
-    --------
-    >>> import tempfile
-    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
-    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
-    >>> p = write_npz(Path(tempfile.mkdtemp()) / "m.npz", omap)
-    >>> back = read_map({"path": str(p), "format": "npz", "angles": "deg", "step_um": 0.5,
-    ...                  "grid": "square", "axes": {"x": "right", "y": "down"}})
-    >>> bool(np.allclose(back.quat, omap.quat, rtol=0, atol=1e-6))
-    True
-    """
-    _check_map(omap)
-    arrays = {"euler_deg": omap.euler_deg_declared(), "phase": np.asarray(omap.phase)}
-    arrays.update({k: np.asarray(v) for k, v in omap.quality.items()})
-    saver = np.savez_compressed if compress else np.savez
-    return _atomic(path, lambda fh: saver(fh, **arrays))
-
-
-def write_tiff(path, omap: OrientationMap, *, sidecar_path=None) -> tuple[Path, Path]:
-    """Write a map as a float32 TIFF stack (φ1, Φ, φ2, phase, quality...) and its JSON sidecar.
-
-    One page per channel; the sidecar (schemas/tiff-sidecar.schema.json) names
-    the channels in order. Angles in degrees in the map's data frame. Both
-    files are written atomically; the sidecar defaults to ``path + '.json'``.
-
-    Returns
-    -------
-    (Path, Path)
-        The TIFF and the sidecar.
-
-    Examples
-    --------
-    >>> import tempfile
-    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
-    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
-    >>> tif, side = write_tiff(Path(tempfile.mkdtemp()) / "m.tif", omap)
-    >>> back = read_map({"path": str(tif), "format": "tiff", "angles": "deg", "step_um": 0.5,
-    ...                  "grid": "square", "axes": {"x": "right", "y": "down"}})
-    >>> bool(np.allclose(back.quat, omap.quat, rtol=0, atol=1e-5))
-    True
-    """
-    import json
-
-    import tifffile
-
-    _check_map(omap)
-    path = Path(path)
-    side = Path(str(path) + ".json") if sidecar_path is None else Path(sidecar_path)
-    euler = omap.euler_deg_declared()
-    names = ["phi1", "Phi", "phi2", "phase", *omap.quality]
-    planes = [euler[..., 0], euler[..., 1], euler[..., 2], omap.phase, *omap.quality.values()]
-    stack = np.stack([np.asarray(p, dtype=np.float32) for p in planes])
-    buffer = io.BytesIO()
-    tifffile.imwrite(buffer, stack, photometric="minisblack")
-    _atomic(path, lambda fh: fh.write(buffer.getbuffer()))
-    doc = {"schema_version": 1, "channels": names, "angles": "deg"}
-    text = (json.dumps(doc, indent=2) + "\n").encode("utf-8")
-    _atomic(side, lambda fh: fh.write(text))
-    return path, side
-
-
-def write_csv(path, omap: OrientationMap, *, delimiter: str = ",") -> Path:
-    """Write a map as a text table in the declared frame (the reader's default columns).
-
-    Columns ``x_um, y_um, phi1_deg, Phi_deg, phi2_deg, phase`` and then the
-    quality channels. Coordinates are the declared coordinates of each grid
-    point (``omap.axes``, with its origin), to 1e-6 µm; angles are Bunge, in
-    degrees, in the map's data frame, to 1e-5° (the float32 storage's own
-    precision). Every grid point is written;
-    non-indexed points have ``nan`` angles and phase 0. Written atomically.
-
-    Returns
-    -------
-    Path
-
-    Examples
-    --------
-    >>> import tempfile
-    >>> e = np.array([[[10.0, 20.0, 30.0], [40.0, 50.0, 60.0]]])
-    >>> omap = OrientationMap.from_euler_deg(e, [[1, 1]], grid="square", step_x_um=0.5)
-    >>> p = write_csv(Path(tempfile.mkdtemp()) / "m.csv", omap)
-    >>> p.read_text().splitlines()[2]
-    '0.500000,0.000000,40.00000,50.00000,60.00000,1'
-    """
-    _check_map(omap)
-    if len(delimiter) != 1 or delimiter in "\n\r\"'.-+0123456789en":
-        raise ValueError(f"Expected `delimiter` to be one separator character, got {delimiter!r}.")
-    xy = omap.positions_declared_um().reshape(-1, 2)
-    euler = omap.euler_deg_declared().reshape(-1, 3)
-    columns = [xy[:, 0], xy[:, 1], euler[:, 0], euler[:, 1], euler[:, 2]]
-    columns += [np.asarray(q, dtype=np.float64).ravel() for q in omap.quality.values()]
-    header = ["x_um", "y_um", "phi1_deg", "Phi_deg", "phi2_deg", "phase", *omap.quality]
-    phase = np.asarray(omap.phase).ravel()
-    n_float = len(columns)
-    fmt_row = delimiter.join(["%.6f"] * 2 + ["%.5f"] * 3 + ["%d"] + ["%.7g"] * (n_float - 5))
-    fmt_row += "\n"
-    table = np.column_stack(columns)
-
-    def write(fh):
-        fh.write((delimiter.join(header) + "\n").encode("utf-8"))
-        block = 65536
-        for start in range(0, len(table), block):
-            rows = table[start : start + block].tolist()
-            ids = phase[start : start + block].tolist()
-            text = "".join(fmt_row % (*r[:5], p, *r[5:]) for r, p in zip(rows, ids, strict=True))
-            fh.write(text.encode("utf-8"))
-
-    return _atomic(path, write)
+        return getattr(writers, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

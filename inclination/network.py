@@ -445,8 +445,8 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
     >>> from inclination.grains import segment_grains
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
     >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))
-    >>> quat = np.zeros((4, 3, 4)); quat[0] = 1.0
-    >>> quat[:, :, 2:] = np.array([0.92388, 0.0, 0.0, 0.382683])[:, None, None]  # 45°
+    >>> quat = np.zeros((3, 4, 4)); quat[..., 0] = 1.0
+    >>> quat[:, 2:] = [0.92388, 0.0, 0.0, 0.382683]  # 45°
     >>> omap = OrientationMap(quat, np.ones((3, 4), int))
     >>> net = boundary_network(omap, segment_grains(omap, [cu], min_pixels=1), [cu])
     >>> net.offsets.tolist(), net.points_um.round(6).tolist()

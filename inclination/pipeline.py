@@ -138,7 +138,7 @@ def _progress_callback(progress, desc):
 
 
 def _phases_by_id(job):
-    return {p.id: p for p in job.phases}
+    return job.phases
 
 
 def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):

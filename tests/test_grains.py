@@ -39,8 +39,8 @@ IDENTITY = np.array([1.0, 0.0, 0.0, 0.0])
 
 def make_map(quat_hw4, *, phase=None, valid=None, grid="square", step_um=1.0):
     """An OrientationMap from an (H, W, 4) array of quaternions."""
-    q = np.moveaxis(np.asarray(quat_hw4, dtype=np.float64), -1, 0)
-    h, w = q.shape[1:]
+    q = np.asarray(quat_hw4, dtype=np.float64)
+    h, w = q.shape[:2]
     phase = np.ones((h, w), int) if phase is None else np.asarray(phase)
     if valid is not None:
         phase = np.where(valid, phase, 0)

@@ -94,7 +94,7 @@ def test_design_example_loads_with_defaults(folder):
     path = write_job(folder, DESIGN_EXAMPLE)
     job = load_job(path)
     assert job.source_path == str(path)
-    assert job.phase_ids == (1,) and job.phases[0].name == "matrix"
+    assert job.phase_ids == (1,) and job.phases[1].name == "matrix"
     assert job.map["path"] == str((folder / "surface.csv").resolve())
     assert job.map["data_frame_rotation"] == "identity" and job.map["columns"] == {}
     assert job.grains == {

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -10,12 +11,13 @@ from hypothesis import given
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import (
+from inclination.crystal import (
     LAUE_CRYSTAL_SYSTEMS,
     SETTINGS,
     Indices,
     Lattice,
     Phase,
+    Phases,
     d_spacing,
     default_families,
     direction_crystal,
@@ -23,10 +25,11 @@ from inclination.crystal.lattice import (
     format_indices,
     format_indices_latex,
     interplanar_angle_deg,
+    low_indices,
     parse_indices,
     plane_normals_crystal,
 )
-from inclination.errors import InputError
+from inclination.errors import InputError, SettingError
 
 # One cell of each crystal system, with the Laue class the cell is tested under.
 CELLS = {
@@ -168,9 +171,9 @@ def test_impossible_cells_are_refused(params, match):
 
 
 def test_non_numbers_are_refused():
-    with pytest.raises(TypeError, match=r"Expected `a` to be a number, got str"):
+    with pytest.raises(SettingError, match=r"Expected `a` to be a number, got str"):
         Lattice.from_parameters("3", 3, 3, 90, 90, 90)
-    with pytest.raises(TypeError, match=r"Expected `gamma_deg` to be a number, got bool"):
+    with pytest.raises(SettingError, match=r"Expected `gamma_deg` to be a number, got bool"):
         Lattice.from_parameters(3, 3, 3, 90, 90, True)
 
 
@@ -308,7 +311,7 @@ def test_parse_refuses_anything_else(text, match):
 
 
 def test_parse_refuses_non_strings():
-    with pytest.raises(TypeError, match=r"Expected `text` to be a string, got tuple"):
+    with pytest.raises(SettingError, match=r"Expected `text` to be a string, got tuple"):
         parse_indices((1, 1, 1))
 
 
@@ -453,12 +456,12 @@ def test_vector_functions_refuse_bad_indices(func, arg, match):
 
 def test_vector_functions_refuse_a_non_lattice():
     for func in (plane_normals_crystal, direction_crystal, d_spacing):
-        with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice, got dict"):
+        with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice, got dict"):
             func({"a": 1}, [1, 0, 0])
-    with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice"):
+    with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice"):
         interplanar_angle_deg(None, [1, 0, 0], [0, 1, 0])
     with pytest.raises(
-        TypeError,
+        SettingError,
         match=r"Expected `hkl` to be an array of indices or an Indices, got the string '111'",
     ):
         plane_normals_crystal(CU, "111")
@@ -605,7 +608,7 @@ def test_expand_family_refuses_bad_options():
         expand_family(CU, [1, 1, 1], "m-3m", setting="x_along_c")
     with pytest.raises(ValueError, match=r"Expected `hkl` to hold integers"):
         expand_family(CU, [0.5, 1, 1], "m-3m")
-    with pytest.raises(TypeError, match=r"Expected `lattice` to be a Lattice"):
+    with pytest.raises(SettingError, match=r"Expected `lattice` to be a Lattice"):
         expand_family("Cu", [1, 1, 1], "m-3m")
 
 
@@ -774,11 +777,11 @@ def test_phase_from_dict_refuses_bad_fields(entry, pointer, match):
 @pytest.mark.parametrize(
     ("kwargs", "error", "match"),
     [
-        ({"id": "1"}, TypeError, r"Expected `id` to be an integer, got str"),
+        ({"id": "1"}, SettingError, r"Expected `id` to be an integer, got str"),
         ({"id": 0}, ValueError, r"Expected `id` to be an integer >= 1 \(0 marks non-indexed"),
         ({"name": " "}, ValueError, r"Expected `name` to be a non-empty string"),
         ({"laue": "cubic"}, ValueError, r"Expected `laue` to be one of"),
-        ({"lattice": CU_CELL}, TypeError, r"Expected `lattice` to be a Lattice, got dict"),
+        ({"lattice": CU_CELL}, SettingError, r"Expected `lattice` to be a Lattice, got dict"),
         (
             {"lattice": Lattice.from_parameters(3, 3, 3, 90, 90, 90, laue="m-3")},
             ValueError,
@@ -787,7 +790,7 @@ def test_phase_from_dict_refuses_bad_fields(entry, pointer, match):
         ({"laue": "6/mmm"}, ValueError, r"hexagonal phase"),
         (
             {"families": "{111}"},
-            TypeError,
+            SettingError,
             r"Expected `families` to be a tuple of strings, got str",
         ),
         ({"families": ()}, ValueError, r"at least one plane family"),
@@ -816,3 +819,49 @@ def test_inputs_are_not_modified_by_from_dict():
     before = repr(entry)
     Phase.from_dict(entry)
     assert repr(entry) == before
+
+
+@pytest.mark.parametrize("n", [1, 2, 3])
+def test_low_indices_are_every_primitive_triple_once(n):
+    # Brute force with math.gcd over the cube [-n, n]³ (an independent enumeration).
+    every = {
+        t for t in itertools.product(range(-n, n + 1), repeat=3) if any(t) and math.gcd(*t) == 1
+    }
+    directions = low_indices(n, kind="direction")
+    assert {tuple(r) for r in directions.tolist()} == every and len(directions) == len(every)
+    planes = {tuple(r) for r in low_indices(n).tolist()}
+    # n and -n are one plane: exactly one of each pair is listed.
+    assert all((t in planes) != (tuple(-x for x in t) in planes) for t in every)
+    size = np.abs(directions)
+    key = size.max(axis=1) * 100 + size.sum(axis=1)
+    assert np.all(np.diff(key) >= 0), "low indices come first"
+    with pytest.raises(SettingError, match=r"Expected `max_index` to be an integer >= 1"):
+        low_indices(0)
+
+
+def test_phases_is_an_immutable_mapping_by_id():
+    cu = Phase.from_dict({"id": 3, "name": "Cu", "laue": "m-3m", "lattice": CU_CELL})
+    ti = Phase.from_dict(
+        {
+            "id": 1,
+            "name": "Ti",
+            "laue": "6/mmm",
+            "setting": "x_parallel_a_star",
+            "lattice": {"a": 2.951, "b": 2.951, "c": 4.684, "alpha": 90, "beta": 90, "gamma": 120},
+        }
+    )
+    phases = Phases([cu, ti])
+    assert list(phases) == [3, 1] and phases.ids == (3, 1) and phases[1] is ti
+    assert Phases.from_records({3: cu, 1: ti}) == phases
+    assert Phases.from_records(phases) is phases
+    assert (cu.setting, ti.setting) == ("x_parallel_a", "x_parallel_a_star")
+    with pytest.raises(AttributeError):
+        phases.extra = 1
+    with pytest.raises(SettingError, match="Expected distinct phase ids, got 3 twice"):
+        Phases([cu, cu])
+    with pytest.raises(SettingError, match="Expected `phases` to hold at least one Phase"):
+        Phases([])
+    with pytest.raises(SettingError, match="Expected each key of `phases` to be its phase's id"):
+        Phases.from_records({2: cu})
+    with pytest.raises(InputError, match=r"/phases/1/id: Expected distinct phase ids"):
+        Phases.from_dicts([{"id": 3, "name": "a", "laue": "m-3m", "lattice": CU_CELL}] * 2)

@@ -18,17 +18,11 @@ from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
 from inclination.crystal.rotations import quat_inverse, quat_multiply, random_quat
-from inclination.errors import InputError
+from inclination.errors import InputError, SettingError
 from inclination.frames import DeclaredAxes
-from inclination.io.readers import place_on_grid, read_table
-from inclination.maps import (
-    OrientationMap,
-    read_map,
-    read_map_file,
-    write_csv,
-    write_npz,
-    write_tiff,
-)
+from inclination.io.text import place_on_grid, read_table
+from inclination.io.writers import write_csv, write_npz, write_tiff
+from inclination.maps import OrientationMap, read_map, read_map_file, row_pitch_um
 
 SCREEN = {"right": (1, 0), "left": (-1, 0), "down": (0, 1), "up": (0, -1)}
 EIGHT = [
@@ -96,12 +90,14 @@ def small_csv(tmp_path, rows, header=HEADER, name="m.csv"):
 
 
 def test_record_is_immutable_and_copies_inputs():
-    q = np.zeros((4, 2, 3))
-    q[0] = 1.0
+    q = np.zeros((2, 3, 4))
+    q[..., 0] = 1.0
     phase = np.array([[1, 1, 0], [1, 2, 1]])
     ci = np.ones((2, 3))
     omap = OrientationMap(q, phase, quality={"ci": ci}, grid="square", step_x_um=1, step_y_um=2)
-    assert omap.quat.dtype == np.float32 and omap.quat.flags.c_contiguous
+    # Quaternion on the last axis, over contiguous (4, H, W) planes.
+    assert omap.quat.dtype == np.float32 and omap.quat.shape == (2, 3, 4)
+    assert np.moveaxis(omap.quat, -1, 0).flags.c_contiguous
     assert omap.phase.dtype == np.int32
     for arr in (omap.quat, omap.phase, omap.valid, omap.quality["ci"], omap.data_frame_rotation):
         assert not arr.flags.writeable
@@ -113,19 +109,18 @@ def test_record_is_immutable_and_copies_inputs():
     assert omap.quat[0, 0, 0] == 1.0
     assert_array_equal(omap.valid, phase != 0)
     assert omap.shape == (2, 3) and omap.n_points == 6
-    assert omap.quat_nhw().shape == (2, 3, 4)
 
 
 def test_invalid_points_hold_identity():
-    q = np.full((4, 1, 2), np.nan)
-    q[:, 0, 0] = [0.0, 1.0, 0.0, 0.0]
+    q = np.full((1, 2, 4), np.nan)
+    q[0, 0] = [0.0, 1.0, 0.0, 0.0]
     omap = OrientationMap(q, [[1, 0]], grid="square", step_x_um=1, step_y_um=1)
-    assert_array_equal(omap.quat[:, 0, 1], [1, 0, 0, 0])
+    assert_array_equal(omap.quat[0, 1], [1, 0, 0, 0])
 
 
 def test_positions_square_and_hexagonal():
-    q = np.zeros((4, 3, 2))
-    q[0] = 1
+    q = np.zeros((3, 2, 4))
+    q[..., 0] = 1
     sq = OrientationMap(q, np.ones((3, 2), int), grid="square", step_x_um=0.5, step_y_um=0.25)
     # conventions §1: point (i, j) at (j·s_x, i·s_y).
     assert_allclose(sq.positions_sample_um()[2, 1], [0.5, 0.5], rtol=0, atol=1e-12)
@@ -137,12 +132,20 @@ def test_positions_square_and_hexagonal():
     assert_allclose(hx.row_pitch_um, np.sqrt(3), rtol=0, atol=1e-12)
 
 
+def test_row_pitch_is_the_hexagon_height():
+    # Equilateral triangles of side s have height s·√3/2 (plane geometry), conventions §1.
+    assert_allclose(row_pitch_um("hexagonal", 3.0), 3.0 * np.sin(np.pi / 3), rtol=0, atol=1e-12)
+    assert row_pitch_um("square", 0.25) == 0.25
+    with pytest.raises(ValueError, match="Expected `grid` to be one of"):
+        row_pitch_um("triangular", 1.0)
+
+
 def test_record_refuses_bad_arrays():
-    q = np.zeros((4, 2, 2))
-    q[0] = 1
+    q = np.zeros((2, 2, 4))
+    q[..., 0] = 1
     ok = dict(grid="square", step_x_um=1.0, step_y_um=1.0)
-    with pytest.raises(ValueError, match=r"Expected `quat` to have shape \(4, H, W\)"):
-        OrientationMap(np.zeros((3, 2, 2)), np.ones((2, 2), int), **ok)
+    with pytest.raises(ValueError, match=r"Expected `quat` to have shape \(H, W, 4\)"):
+        OrientationMap(np.zeros((2, 2, 3)), np.ones((2, 2), int), **ok)
     with pytest.raises(ValueError, match="Expected `phase` to have shape"):
         OrientationMap(q, np.ones((2, 3), int), **ok)
     with pytest.raises(TypeError, match="Expected `phase` to be integers"):
@@ -253,7 +256,7 @@ def test_eight_declarations_read_back_identical_sample(tmp_path, x, y, turn):
     assert_array_equal(omap.valid.ravel(), phase != 0)
     assert_array_equal(omap.phase.ravel(), phase)
     # Same orientations in S to float32 precision: within 1e-4° (components ~6e-8).
-    q_read = omap.quat.reshape(4, -1)[:, phase != 0]
+    q_read = omap.quat.reshape(-1, 4)[phase != 0].T
     assert_allclose(angle_between_deg(q_read, q_s[phase != 0].T), 0.0, rtol=0, atol=1e-4)
     # Same positions: grid point (0, 0) is the reference sample's point (0, 0).
     expected_pos = np.stack(np.meshgrid(np.arange(w) * step, np.arange(h) * step), axis=-1)
@@ -280,7 +283,7 @@ def test_eight_declarations_npz_arrays(tmp_path, x, y):
         "data_frame_rotation": "z180",
     }
     omap = read_map(spec)
-    q_read = omap.quat.reshape(4, -1)[:, phase != 0]
+    q_read = omap.quat.reshape(-1, 4)[phase != 0].T
     assert_allclose(angle_between_deg(q_read, q_s[phase != 0].T), 0.0, rtol=0, atol=1e-4)
     # Arrays are screen-laid (row 0 on top); declared coordinates start at 0 on both axes.
     corners = omap.positions_declared_um()[[0, 0, -1, -1], [0, -1, 0, -1]]
@@ -295,7 +298,7 @@ def test_undeclared_turn_differs_by_half_turn_about_z(tmp_path):
     rows, _ = declared_table(q_s, phase, h, w, 1.0, "right", "down", np.diag([-1.0, -1, 1]), (0, 0))
     omap = read_map(spec_for(small_csv(tmp_path, rows)))
     expected = quat_multiply(q_s, np.array([0.0, 0, 0, 1]))
-    q_read = omap.quat.reshape(4, -1)[:, phase != 0]
+    q_read = omap.quat.reshape(-1, 4)[phase != 0].T
     assert_allclose(angle_between_deg(q_read, expected[phase != 0].T), 0.0, rtol=0, atol=1e-4)
     assert np.all(angle_between_deg(q_read, q_s[phase != 0].T) > 1.0)
 
@@ -330,7 +333,7 @@ def assert_same_map(a, b, atol_deg=1e-4):
     assert_array_equal(a.valid, b.valid)
     assert_array_equal(a.phase, b.phase)
     dq = angle_between_deg(
-        a.quat.reshape(4, -1)[:, a.valid.ravel()], b.quat.reshape(4, -1)[:, b.valid.ravel()]
+        a.quat.reshape(-1, 4)[a.valid.ravel()].T, b.quat.reshape(-1, 4)[b.valid.ravel()].T
     )
     assert_allclose(dq, 0.0, rtol=0, atol=atol_deg)
     assert_allclose(a.positions_sample_um(), b.positions_sample_um(), rtol=0, atol=1e-6)
@@ -416,7 +419,7 @@ def test_writer_failure_removes_temporary(tmp_path):
 
 
 def test_writers_refuse_bad_arguments(tmp_path):
-    with pytest.raises(TypeError, match="Expected `omap` to be an OrientationMap"):
+    with pytest.raises(SettingError, match="Expected `omap` to be an OrientationMap"):
         write_csv(tmp_path / "a.csv", {"quat": 1})
     with pytest.raises(ValueError, match="Expected `delimiter` to be one separator character"):
         write_csv(tmp_path / "a.csv", sample_map(), delimiter="--")
@@ -465,7 +468,7 @@ def test_column_mapping_quality_and_whitespace(tmp_path):
     )
     ref = read_map(spec_for(deg, step_um=1.5))
     assert_allclose(
-        angle_between_deg(ref.quat[:, 0, 0:1], omap.quat[:, 0, 0:1]), 0, rtol=0, atol=1e-4
+        angle_between_deg(ref.quat[0, 0:1].T, omap.quat[0, 0:1].T), 0, rtol=0, atol=1e-4
     )
 
 
@@ -852,7 +855,7 @@ def test_array_maps_need_a_step(tmp_path):
 
 
 def test_tiff_reader_direct_errors(tmp_path):
-    from inclination.io.readers import read_tiff_arrays
+    from inclination.io.arrays import read_tiff_arrays
 
     side = tmp_path / "c.tif.json"
     side.write_text(json.dumps({"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase"]}))

@@ -300,7 +300,7 @@ def test_hexagonal_network_on_voronoi_grains():
     # here from conventions §1 (odd rows shifted right: below an even row the neighbours
     # are columns j-1 and j, below an odd row j and j+1).
     square_map, region = voronoi_map((24, 30), 8, 13)
-    quats = np.moveaxis(np.asarray(square_map.quat, dtype=np.float64), 0, -1)
+    quats = np.asarray(square_map.quat, dtype=np.float64)
     omap = make_map(quats, grid="hexagonal")
     gm = segment_grains(omap, [CUBIC], min_pixels=1)
     net = boundary_network(omap, gm, [CUBIC])

@@ -718,7 +718,7 @@ def test_demo_scenario_files(tmp_path):
     import jsonschema
 
     from inclination.demo import write_demo_scenario
-    from inclination.io.readers import read_npz_arrays
+    from inclination.io.arrays import read_npz_arrays
     from inclination.io.schemas import load_schema
 
     paths = write_demo_scenario(tmp_path, seed=3)
@@ -770,7 +770,8 @@ def test_recorded_frame_reads_back_with_the_same_declared_rotation(micro, tmp_pa
     # The map module's reader is an independent implementation of §3's data-frame
     # rotation: a map recorded in the frame turned by Q and read back declaring Q gives
     # the orientations in S again (float32 storage: 1e-6).
-    from inclination.maps import OrientationMap, read_map, write_npz
+    from inclination.io.writers import write_npz
+    from inclination.maps import OrientationMap, read_map
 
     if declared is None:
         q_turn = turn.as_quat(scalar_first=True)
@@ -785,7 +786,7 @@ def test_recorded_frame_reads_back_with_the_same_declared_rotation(micro, tmp_pa
     spec |= {"grid": "square", "axes": {"x": "right", "y": "down"}}
     back = read_map(spec | {"data_frame_rotation": declared})
     ok = m.phase != 0
-    q_back = np.moveaxis(np.asarray(back.quat, dtype=float), 0, -1)[ok]
+    q_back = np.asarray(back.quat, dtype=float)[ok]
     assert_allclose(np.abs(np.sum(q_back * m.quat[ok], -1)), 1.0, rtol=0, atol=1e-6)
     assert_array_equal(back.phase, m.phase)
 
@@ -795,7 +796,7 @@ def test_as_orientation_map(micro, surface):
 
     omap = as_orientation_map(recorded_in_frame(surface, rotation="z180"))
     assert omap.shape == surface.shape and omap.grid == "square"
-    q = np.moveaxis(np.asarray(omap.quat, dtype=float), 0, -1)
+    q = np.asarray(omap.quat, dtype=float)
     expected = quat_multiply(surface.quat, [0.0, 0.0, 0.0, 1.0])
     assert_allclose(np.abs(np.sum(q * expected, -1)), 1.0, rtol=0, atol=1e-6)
     with pytest.raises(TypeError, match="Expected `sample` to be a SampledMap, got dict"):

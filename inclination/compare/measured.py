@@ -10,12 +10,13 @@ Normals are in the sample frame S (conventions §2).
 from __future__ import annotations
 
 from collections.abc import Mapping
-from itertools import product
 
 import numpy as np
 from numpy.typing import ArrayLike
 
-from ..crystal.lattice import Lattice, Phase, format_indices, plane_normals_crystal
+from ..crystal.indices import format_indices, low_indices
+from ..crystal.lattice import Lattice, plane_normals_crystal
+from ..crystal.phases import Phase
 from ..crystal.rotations import quat_apply, quat_as_matrix
 from ..errors import SettingError
 
@@ -105,12 +106,7 @@ def low_index_planes(lattice: Lattice, *, max_index: int = 3) -> tuple[np.ndarra
     """
     if not isinstance(max_index, int | np.integer) or max_index < 1:
         raise SettingError(f"Expected `max_index` to be an integer >= 1, got {max_index!r}.")
-    r = range(-max_index, max_index + 1)
-    rows = np.array([v for v in product(r, r, r) if any(v)], dtype=np.int64)
-    g = np.gcd.reduce(np.abs(rows), axis=1)
-    rows = rows[g == 1]
-    first = rows[np.arange(len(rows)), np.argmax(rows != 0, axis=1)]
-    rows = rows[first > 0]
+    rows = low_indices(max_index, kind="plane")
     return rows, plane_normals_crystal(lattice, rows)
 
 

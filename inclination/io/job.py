@@ -15,6 +15,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
+from ..crystal.phases import Phases
 from ..errors import InputError
 from .schemas import load_schema
 
@@ -35,7 +36,8 @@ class Job:
 
     Attributes
     ----------
-    phases : tuple of inclination.crystal.lattice.Phase
+    phases : inclination.crystal.Phases
+        The phases, an immutable mapping id -> Phase in file order.
     map : dict
         The surface map entry, defaults filled, ``path`` (and ``sidecar``)
         absolute. Pass it to :func:`inclination.maps.read_map`.
@@ -53,7 +55,7 @@ class Job:
     Treat the dicts as read-only: they are the job as loaded.
     """
 
-    phases: tuple
+    phases: Phases
     map: dict
     grains: dict
     traces: dict
@@ -70,7 +72,7 @@ class Job:
     @property
     def phase_ids(self) -> tuple:
         """The phases' ids, in file order."""
-        return tuple(p.id for p in self.phases)
+        return self.phases.ids
 
     def read_surface_map(self, *, progress=None):
         """Read the surface map (``inclination.maps.read_map`` with this job's context)."""
@@ -207,7 +209,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
             if section["kind"] == "cross-section" and section["match_tolerance_um"] is None:
                 section["match_tolerance_um"] = _MATCH_TOLERANCE_STEPS * steps
 
-    phases = _build_phases(doc["phases"], path_for_errors)
+    phases = Phases.from_dicts(doc["phases"], path=path_for_errors)
     base = Path(".") if base_dir is None else Path(base_dir)
     surface = _resolve_map(doc["map"], base, path_for_errors, "/map")
     sections = []
@@ -219,7 +221,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
             resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
         sections.append(resolved)
     return Job(
-        phases=tuple(phases),
+        phases=phases,
         map=surface,
         grains=copy.deepcopy(doc["grains"]),
         traces=copy.deepcopy(doc["traces"]),
@@ -239,25 +241,6 @@ def _declared_step(map_spec) -> float | None:
     if "step_x_um" in map_spec:
         return float(min(map_spec["step_x_um"], map_spec["step_y_um"]))
     return None
-
-
-def _build_phases(entries, path):
-    from ..crystal.lattice import Phase
-
-    seen = {}
-    phases = []
-    for i, entry in enumerate(entries):
-        pointer = f"/phases/{i}"
-        if entry["id"] in seen:
-            raise InputError(
-                f"Expected distinct phase ids, got {entry['id']} again "
-                f"(first at /phases/{seen[entry['id']]}).",
-                path=path,
-                pointer=f"{pointer}/id",
-            )
-        seen[entry["id"]] = i
-        phases.append(Phase.from_dict(entry, path=path, pointer=pointer))
-    return phases
 
 
 def _resolve_map(spec, base: Path, path, pointer) -> dict:

@@ -112,22 +112,10 @@ def _grain_rows(grain_ids: np.ndarray, wanted: np.ndarray, name: str) -> np.ndar
 
 def _low_index_directions(lattice) -> tuple[np.ndarray, list[str]]:
     """Directions [uvw] with no common factor and indices up to 3, low indices first."""
-    from math import gcd
+    from ..crystal.indices import format_indices, low_indices
+    from ..crystal.lattice import direction_crystal
 
-    from ..crystal.lattice import direction_crystal, format_indices
-
-    n = _MAX_AXIS_INDEX
-    grid = np.array(
-        [
-            (u, v, w)
-            for u in range(-n, n + 1)
-            for v in range(-n, n + 1)
-            for w in range(-n, n + 1)
-            if (u, v, w) != (0, 0, 0) and gcd(gcd(u, v), w) == 1
-        ]
-    )
-    # Lower indices win ties (argmax keeps the first maximum).
-    grid = grid[np.lexsort((np.abs(grid).sum(axis=1), np.abs(grid).max(axis=1)))]
+    grid = low_indices(_MAX_AXIS_INDEX, kind="direction")
     return direction_crystal(lattice, grid), [format_indices(g, "direction") for g in grid]
 
 
@@ -157,7 +145,7 @@ def _misorientation_columns(qa, qb, phase, criterion):
     sigma_dev = np.full(n, np.nan)
     if n == 0:
         return np.zeros(0), np.zeros(0, str), np.zeros(0), sigma.astype(str), sigma_dev
-    dis = disorientation(qa, qb, phase.laue, setting=phase.lattice.setting or "x_parallel_a")
+    dis = disorientation(qa, qb, phase.laue, setting=phase.setting)
     axis, axis_dev = _nearest_direction(np.asarray(dis.axis_crystal), phase.lattice)
     if phase.laue == "m-3m":
         labels, deviation = _classify_sigma(dis.angle_deg, dis.axis_crystal, criterion)

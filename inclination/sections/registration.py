@@ -111,8 +111,7 @@ def _disorientation_deg(qa, qb, phase):
     """Disorientation of one phase; ``phase`` is a Laue symbol or a Phase record."""
     if isinstance(phase, str):
         return disorientation_angle_deg(qa, qb, phase)
-    setting = getattr(phase.lattice, "setting", None) or "x_parallel_a"
-    return disorientation_angle_deg(qa, qb, phase.laue, setting=setting)
+    return disorientation_angle_deg(qa, qb, phase.laue, setting=phase.setting)
 
 
 def match_grains(

@@ -879,14 +879,14 @@ def as_orientation_map(sample: SampledMap):
     Returns
     -------
     inclination.maps.OrientationMap
-        ``quat`` (4, H, W) float32, ``phase``, ``valid = phase != 0``, the grid and step.
+        ``quat`` (H, W, 4) float32, ``phase``, ``valid = phase != 0``, the grid and step.
 
     Examples
     --------
     >>> micro = make_microstructure(box_um=(20, 20, 10), n_grains=3, rng=1)
     >>> omap = as_orientation_map(sample_map(micro, step_um=0.5, rng=0))
     >>> omap.shape, omap.quat.shape, omap.step_x_um
-    ((40, 40), (4, 40, 40), 0.5)
+    ((40, 40), (40, 40, 4), 0.5)
     """
     from ..maps import OrientationMap
 
@@ -895,7 +895,7 @@ def as_orientation_map(sample: SampledMap):
     indexed = sample.phase != 0
     quat = np.where(indexed[..., None], sample.quat, np.array([1.0, 0.0, 0.0, 0.0]))
     return OrientationMap(
-        np.moveaxis(quat, -1, 0),
+        quat,
         sample.phase,
         grid=sample.grid,
         step_x_um=sample.step_um,

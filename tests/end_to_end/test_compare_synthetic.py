@@ -38,7 +38,7 @@ def _truth_and_predictions(seed):
     omap = synthetic.as_orientation_map(sampled)
     grains = segment_grains(omap, [CU])
     segments = fit_segments(boundary_network(omap, grains, [CU]), step_um=STEP_UM)
-    identification = identify(segments, grains.grains, [CU])
+    identification = identify(segments, grains, [CU])
     # Each detected grain's true region: the one holding most of its points.
     counts = np.zeros((int(grains.labels.max()) + 1, micro.n_regions + 1), dtype=np.int64)
     np.add.at(counts, (grains.labels.ravel(), sampled.grain_id.ravel()), 1)

@@ -210,11 +210,11 @@ def test_grain_inside_a_grain_gives_its_four_sides(grid):
     # the identity orientation. The network hands over one closed chain; its sides are
     # 30 steps wide and 20 row pitches high (s, or s·√3/2 on hexagons, conventions §1),
     # their corners where the fitted sides cross.
-    quat = np.zeros((4, 60, 60), np.float32)
-    quat[0] = 1.0
+    quat = np.zeros((60, 60, 4), np.float32)
+    quat[..., 0] = 1.0
     block = np.zeros((60, 60), bool)
     block[20:40, 15:45] = True
-    quat[:, block] = np.array([np.cos(np.pi / 8), 0, 0, np.sin(np.pi / 8)], np.float32)[:, None]
+    quat[block] = np.array([np.cos(np.pi / 8), 0, 0, np.sin(np.pi / 8)], np.float32)
     pitch = STEP_UM if grid == "square" else STEP_UM * np.sqrt(3) / 2
     omap = SimpleNamespace(
         quat=quat,

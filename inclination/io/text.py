@@ -1,5 +1,7 @@
-"""Low-level map readers: text tables, grid placement from coordinates, npz and TIFF arrays.
+"""Text tables and grid placement: the reading of coordinate-and-angle tables.
 
+Owns the text parser (:func:`read_table`) and the placement of table rows on a square
+or hexagonal grid from their coordinates (:func:`place_on_grid`, conventions §1).
 These functions return plain arrays; :func:`inclination.maps.read_map` turns them
 into an :class:`~inclination.maps.OrientationMap` and converts frames. Every
 failure is an :class:`~inclination.errors.InputError` naming the file and, for a
@@ -23,33 +25,25 @@ from __future__ import annotations
 
 import hashlib
 import io
-import json
 import warnings
+from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from os import PathLike
 from pathlib import Path
 
 import numpy as np
+from numpy.typing import ArrayLike
 
-from ..errors import InputError
-from .schemas import load_schema
+from ..errors import InputError, SettingError
 
-__all__ = [
-    "Table",
-    "GridPlacement",
-    "read_table",
-    "place_on_grid",
-    "read_npz_arrays",
-    "read_tiff_arrays",
-    "TABLE_DELIMITERS",
-]
+__all__ = ["Table", "GridPlacement", "read_table", "place_on_grid", "TABLE_DELIMITERS"]
 
 #: Default delimiter of each table format (None: any run of spaces or tabs).
 TABLE_DELIMITERS = {"csv": ",", "tsv": "\t", "text": None}
 
-# Coordinates may sit off their grid point by this fraction of a step (issue 3, §2).
+# Coordinates may sit off their grid point by this fraction of a step (conventions §1).
 _OFF_GRID_FRACTION = 0.01
-_SQRT3_2 = np.sqrt(3.0) / 2.0
 
 
 @dataclass(frozen=True)
@@ -154,7 +148,9 @@ def _locate_bad_cell(body: bytes, delimiter, header, first_line, path):
     )
 
 
-def read_table(path, *, delimiter=None, whitespace=False) -> Table:
+def read_table(
+    path: str | PathLike, *, delimiter: str | None = None, whitespace: bool = False
+) -> Table:
     """Read a delimited text table with a header row into a float array.
 
     Parameters
@@ -201,7 +197,7 @@ def read_table(path, *, delimiter=None, whitespace=False) -> Table:
     hasher.shutdown(wait=False)
     delim = None if whitespace or delimiter in (None, " ") else delimiter
     if delim is not None and (len(delim) != 1 or delim in "\n\r\"'."):
-        raise ValueError(f"Expected `delimiter` to be one character, got {delimiter!r}.")
+        raise SettingError(f"Expected `delimiter` to be one character, got {delimiter!r}.")
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
     if b"\r" in raw:
@@ -373,7 +369,14 @@ def _first_off(residual: np.ndarray) -> int:
 
 
 def place_on_grid(
-    x_um, y_um, *, step_x_um=None, step_y_um=None, grid=None, path=None, line_of=None
+    x_um: ArrayLike,
+    y_um: ArrayLike,
+    *,
+    step_x_um: float | None = None,
+    step_y_um: float | None = None,
+    grid: str | None = None,
+    path: str | PathLike | None = None,
+    line_of: Callable[[int], int] | None = None,
 ) -> GridPlacement:
     """Place points on a square or hexagonal grid from their coordinates (conventions §1).
 
@@ -411,6 +414,8 @@ def place_on_grid(
     >>> p.grid, p.shape, p.row.tolist(), p.col.tolist()
     ('hexagonal', (2, 2), [0, 0, 1, 1], [0, 1, 0, 1])
     """
+    from ..maps import row_pitch_um  # the one row-pitch formula; maps imports this module
+
     x = np.asarray(x_um, dtype=np.float64)
     y = np.asarray(y_um, dtype=np.float64)
     line_of = line_of or (lambda r: int(r) + 1)
@@ -436,7 +441,10 @@ def place_on_grid(
         k = np.rint((x - x0) / sx_all).astype(np.int64)
         parity = (k + i) % 2
         ratio = sy / (2.0 * sx_all)
-        hex_like = bool(np.all(parity == parity[0])) and abs(ratio / _SQRT3_2 - 1.0) < 0.01
+        hex_like = (
+            bool(np.all(parity == parity[0]))
+            and abs(ratio / row_pitch_um("hexagonal", 1.0) - 1.0) < 0.01
+        )
     detected = "hexagonal" if hex_like else "square"
     if grid is not None and grid != detected:
         refuse(
@@ -453,7 +461,7 @@ def place_on_grid(
                     f"hexagonal grid with neighbours {step:.6g} µm apart (inconsistent step)."
                 )
             step = float(declared)
-        pitch = step * _SQRT3_2
+        pitch = row_pitch_um("hexagonal", step)
         # Even rows must hold the unshifted points (conventions §1); when the top row
         # is a shifted one, the grid origin moves half a step left.
         shift = 0.5 * step if parity[0] == 1 else 0.0
@@ -533,181 +541,3 @@ def place_on_grid(
         step_y_um=float(sy_out),
         grid=detected,
     )
-
-
-def _load_npz(path):
-    try:
-        with np.load(path, allow_pickle=False) as npz:
-            return {k: npz[k] for k in npz.files}
-    except FileNotFoundError:
-        raise InputError("Expected an existing file, got none at this path.", path=path) from None
-    except (OSError, ValueError, EOFError) as exc:
-        raise InputError(
-            f"Expected a NumPy .npz archive, got an unreadable file ({exc}).", path=path
-        ) from None
-
-
-def read_npz_arrays(path, *, angles: str):
-    """Arrays of an ``.npz`` map: ``euler_deg`` (or ``euler_rad``), ``phase``, quality.
-
-    Parameters
-    ----------
-    path : str or Path
-    angles : {'deg', 'rad'}
-        Which Euler array is expected: ``euler_deg`` or ``euler_rad``.
-
-    Returns
-    -------
-    euler : ndarray, shape (H, W, 3) float32 or float64, in the declared unit
-    phase : ndarray, shape (H, W), integer as stored, or float64 (NaN allowed; checked
-        by the caller)
-    quality : dict of name -> ndarray (H, W) float64
-        Every other array of shape (H, W).
-
-    Examples
-    --------
-    >>> import tempfile, os
-    >>> p = os.path.join(tempfile.mkdtemp(), "m.npz")
-    >>> np.savez(p, euler_deg=np.zeros((2, 3, 3)), phase=np.ones((2, 3)), ci=np.ones((2, 3)))
-    >>> e, ph, q = read_npz_arrays(p, angles="deg")
-    >>> e.shape, ph.shape, sorted(q)
-    ((2, 3, 3), (2, 3), ['ci'])
-    """
-    arrays = _load_npz(path)
-    key = f"euler_{angles}"
-    for needed in (key, "phase"):
-        if needed not in arrays:
-            raise InputError(
-                f"Expected an array named {needed!r} (angles declared {angles!r}), "
-                f"got arrays {sorted(arrays)}.",
-                path=path,
-                pointer=needed,
-            )
-    euler = arrays.pop(key)
-    phase = arrays.pop("phase")
-    if euler.ndim != 3 or euler.shape[-1] != 3:
-        raise InputError(
-            f"Expected {key!r} to have shape (H, W, 3), got {euler.shape}.", path=path, pointer=key
-        )
-    if phase.shape != euler.shape[:2]:
-        raise InputError(
-            f"Expected 'phase' to have shape {euler.shape[:2]}, got {phase.shape}.",
-            path=path,
-            pointer="phase",
-        )
-    quality = {}
-    for name, arr in arrays.items():
-        if name in ("euler_deg", "euler_rad"):
-            raise InputError(
-                f"Expected only {key!r} (angles declared {angles!r}), got {name!r} too.",
-                path=path,
-                pointer=name,
-            )
-        if arr.shape != phase.shape or arr.dtype.kind not in "biuf":
-            raise InputError(
-                f"Expected quality array {name!r} to be numbers of shape {phase.shape}, "
-                f"got {arr.dtype} {arr.shape}.",
-                path=path,
-                pointer=name,
-            )
-        quality[name] = arr.astype(np.float64)
-    for name, arr in (("euler", euler), ("phase", phase)):
-        if arr.dtype.kind not in "biuf":
-            raise InputError(f"Expected numbers, got dtype {arr.dtype}.", path=path, pointer=name)
-    # Floating angles and integer phase ids are handed over as stored: a float64 copy of a
-    # 16-million-point map costs more than the whole grain stage, and the conversion
-    # works in float64 block by block anyway.
-    if euler.dtype.kind != "f":
-        euler = euler.astype(np.float64)
-    if phase.dtype.kind not in "iuf" or phase.dtype.kind == "b":
-        phase = phase.astype(np.float64)
-    return euler, phase, quality
-
-
-def read_sidecar(path) -> dict:
-    """Read and validate a TIFF sidecar (schemas/tiff-sidecar.schema.json)."""
-    from jsonschema import Draft202012Validator
-
-    try:
-        doc = json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(
-            "Expected the TIFF's JSON sidecar naming its channels, got no file at this path.",
-            path=path,
-        ) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(
-            f"Expected a JSON sidecar, got unreadable JSON ({exc}).", path=path
-        ) from None
-    validator = Draft202012Validator(load_schema("tiff-sidecar.schema.json"))
-    errors = sorted(validator.iter_errors(doc), key=lambda e: list(e.absolute_path))
-    if errors:
-        err = errors[0]
-        pointer = "/" + "/".join(str(p) for p in err.absolute_path)
-        raise InputError(f"Expected a valid sidecar: {err.message}.", path=path, pointer=pointer)
-    return doc
-
-
-def read_tiff_arrays(path, *, sidecar_path, angles: str):
-    """Channels of a TIFF stack named by its sidecar.
-
-    Parameters
-    ----------
-    path : str or Path
-        TIFF with C pages (or one (C, H, W) page series) of H × W float images.
-    sidecar_path : str or Path
-        JSON naming the channels in page order.
-    angles : {'deg', 'rad'}
-        The job's unit; must agree with the sidecar's ``angles`` when present.
-
-    Returns
-    -------
-    euler : ndarray, shape (H, W, 3) float64
-    phase : ndarray, shape (H, W) float64
-    quality : dict of name -> ndarray (H, W) float64
-
-    Examples
-    --------
-    >>> import tempfile, os, json, tifffile
-    >>> d = tempfile.mkdtemp(); p = os.path.join(d, "m.tif")
-    >>> tifffile.imwrite(p, np.zeros((5, 2, 3), np.float32), photometric="minisblack")
-    >>> _ = Path(p + ".json").write_text(json.dumps(
-    ...     {"schema_version": 1, "channels": ["phi1", "Phi", "phi2", "phase", "ci"]}))
-    >>> e, ph, q = read_tiff_arrays(p, sidecar_path=p + ".json", angles="deg")
-    >>> e.shape, sorted(q)
-    ((2, 3, 3), ['ci'])
-    """
-    import tifffile
-
-    side = read_sidecar(sidecar_path)
-    if "angles" in side and side["angles"] != angles:
-        raise InputError(
-            f"Expected the sidecar's angles to agree with the job's {angles!r}, "
-            f"got {side['angles']!r}.",
-            path=sidecar_path,
-            pointer="/angles",
-        )
-    try:
-        stack = tifffile.imread(path)
-    except FileNotFoundError:
-        raise InputError("Expected an existing file, got none at this path.", path=path) from None
-    except Exception as exc:  # tifffile raises several types for a bad file
-        raise InputError(
-            f"Expected a TIFF file, got an unreadable one ({exc}).", path=path
-        ) from None
-    channels = side["channels"]
-    if stack.ndim == 2:
-        stack = stack[None]
-    if stack.ndim != 3 or stack.shape[0] != len(channels):
-        found = stack.shape[0] if stack.ndim == 3 else stack.ndim
-        raise InputError(
-            f"Expected {len(channels)} channels as the sidecar names ({', '.join(channels)}), "
-            f"got {found} (stack shape {stack.shape}).",
-            path=path,
-        )
-    if stack.dtype.kind not in "biuf":
-        raise InputError(f"Expected numeric channels, got dtype {stack.dtype}.", path=path)
-    planes = {name: stack[c].astype(np.float64) for c, name in enumerate(channels)}
-    euler = np.stack([planes.pop("phi1"), planes.pop("Phi"), planes.pop("phi2")], axis=-1)
-    phase = planes.pop("phase")
-    return euler, phase, planes
