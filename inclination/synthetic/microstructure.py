@@ -367,6 +367,13 @@ def make_microstructure(
     -------
     Microstructure
 
+    Raises
+    ------
+    SettingError
+        A setting out of range (box, counts, fractions, twin specs, texture).
+    TypeError
+        ``twins`` neither an int nor a sequence of :class:`TwinSpec`.
+
     Examples
     --------
     >>> micro = make_microstructure(box_um=(50, 40, 20), n_grains=12, rng=1,
@@ -517,6 +524,11 @@ def region_at(micro: Microstructure, points_um: ArrayLike) -> np.ndarray:
     -------
     ndarray of int, shape (N,)
         Region ids (1..R).
+
+    Raises
+    ------
+    InputError
+        ``points_um`` not of shape (N, 3), or not finite.
 
     Examples
     --------

@@ -190,6 +190,13 @@ def sample_map(
     -------
     SampledMap
 
+    Raises
+    ------
+    SettingError
+        A setting out of range, or a sampled area that leaves the box.
+    TypeError
+        ``misindexed_clusters`` not a whole number.
+
     Examples
     --------
     >>> from inclination.synthetic import make_microstructure

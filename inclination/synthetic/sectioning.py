@@ -126,13 +126,27 @@ def cross_section_crossings(
         face), ``image_angle_deg`` (as imaged, no noise), ``descends``
         ('left'/'right').
 
+    Raises
+    ------
+    SettingError
+        A line, viewer point, tilt, face inclination, depth or resolution out of range.
+
     Examples
     --------
     >>> from inclination.synthetic import make_microstructure
     >>> micro = make_microstructure(box_um=(60, 40, 20), n_grains=10, rng=3)
     >>> c = cross_section_crossings(micro, line_um=((5, 20), (55, 20)), viewer_at_um=(30, 25),
     ...                             imaging_tilt_deg=52, max_depth_um=2)
-    >>> sorted(set(c["descends"].tolist())) <= ["left", "right"]
+    >>> c["along_um"].round(2).tolist(), c["descends"].tolist()
+    ([14.07, 23.75, 43.99], ['left', 'right', 'left'])
+
+    On a vertical face the angle on the face is the apparent dip of the plane,
+    ``tan α = tan δ |sin β|``:
+
+    >>> import numpy as np
+    >>> delta, beta = np.deg2rad(c["dip_deg"]), np.deg2rad(c["beta_deg"])
+    >>> alpha = np.rad2deg(np.arctan(np.tan(delta) * np.abs(np.sin(beta))))
+    >>> bool(np.allclose(alpha, c["face_angle_deg"], rtol=0, atol=1e-9))
     True
     """
     p0, u, length, view = _section_line(micro, line_um, viewer_at_um)
@@ -259,6 +273,11 @@ def simulate_cross_section(
     list of dict
         ``{"along_um": float, "image_angle_deg": float, "descends": "left" | "right"}``,
         in order along the line.
+
+    Raises
+    ------
+    SettingError
+        As :func:`cross_section_crossings`, or a negative ``angle_noise_deg``.
 
     Examples
     --------

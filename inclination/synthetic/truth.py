@@ -60,6 +60,13 @@ def boundary_normals_sample(
     ndarray, shape (N, 3)
         Unit normals in S.
 
+    Raises
+    ------
+    InputError
+        An id that names no region, or ``region_a`` and ``region_b`` of different shapes.
+    TypeError
+        Ids that are not integers.
+
     Examples
     --------
     >>> from inclination.synthetic import make_microstructure
