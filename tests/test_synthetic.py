@@ -594,6 +594,39 @@ def test_cross_section_sign_rules_hand_worked():
     ]
 
 
+@pytest.mark.parametrize(("tilt_deg", "listed"), [(0.5, False), (1.5, True)])
+def test_cross_section_leaves_out_planes_without_a_trace(tilt_deg, listed):
+    # §5: a plane within 1° of the surface has no trace, so no angle β to the section line;
+    # one tilted 1.5° has both. Two seeds chosen by hand: the bisector plane has normal
+    # (sin t, 0, cos t) and meets the line y = 10 on the surface (hand derivation).
+    base = make_microstructure(
+        box_um=(40, 20, 30), n_grains=2, rng=0, phases=[FCC], texture=[[1, 0, 0, 0], [0, 1, 0, 0]]
+    )
+    t = np.deg2rad(tilt_deg)
+    sa = np.array([10.0, 10.0, -0.9])
+    micro = type(base)(
+        box_um=base.box_um,
+        seeds_um=np.array([sa, sa + 2 * np.array([np.sin(t), 0.0, np.cos(t)])]),
+        region_quat=base.region_quat,
+        region_phase=base.region_phase,
+        region_parent=base.region_parent,
+        lamellae=(),
+        phases=base.phases,
+        grain_pairs=np.array([[1, 2]]),
+    )
+    table = cross_section_crossings(
+        micro,
+        line_um=((1, 10), (39, 10)),
+        viewer_at_um=(20, 15),
+        imaging_tilt_deg=52,
+        max_depth_um=0.05,
+    )
+    assert len(table["along_um"]) == int(listed)
+    if listed:
+        assert_allclose(table["dip_deg"], [tilt_deg], rtol=0, atol=1e-9)
+        assert_allclose(table["beta_deg"], [90.0], rtol=0, atol=1e-9)
+
+
 @pytest.fixture(scope="module")
 def crossings(micro):
     lines = [((1, 12), (59, 12)), ((30, 1), (30, 49)), ((2, 3), (57, 46))]
