@@ -16,10 +16,10 @@ import json
 import sys
 from pathlib import Path
 
+from inclination.planes import surface_geometry
 from inclination.synthetic import (
     ground_truth,
     make_microstructure,
-    plane_geometry,
     recorded_in_frame,
     sample_map,
     simulate_cross_section,
@@ -48,11 +48,11 @@ def main(out_dir=None) -> dict:
     print(f"{micro.n_grains} grains, {len(micro.lamellae)} twin lamellae")
     print(f"surface map {surface.shape}, {int((surface.phase == 0).sum())} points not indexed")
     for lam in micro.lamellae:
-        geo = plane_geometry([lam.normal_sample])
+        geo = surface_geometry(lam.normal_sample)  # trace, dip, dip direction (§5)
         print(
             f"  twin in grain {lam.parent:3d} on {lam.indices}: trace "
-            f"{geo['trace_angle_deg'][0]:6.1f}°, dip {geo['dip_deg'][0]:5.1f}° toward "
-            f"{geo['dip_azimuth_deg'][0]:6.1f}°"
+            f"{geo.trace_angle_deg:6.1f}°, dip {geo.dip_deg:5.1f}° toward "
+            f"{geo.dip_azimuth_deg:6.1f}°"
         )
     print(f"cross-section: {len(trench)} boundaries, e.g. {trench[0]}")
     print(f"wrong-frame copy recorded with frame turn {turned.frame_rotation}")

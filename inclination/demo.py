@@ -24,13 +24,17 @@ sample frame S of conventions §2):
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import numpy as np
 
+from .crystal.phases import Phase
 from .io.writers import write_npz
 from .report._io import write_json_atomic
 from .synthetic import (
+    Microstructure,
+    SampledMap,
     as_orientation_map,
     cross_section_crossings,
     ground_truth,
@@ -59,7 +63,7 @@ _SERIAL_DEPTH_UM = 5.0
 _TILT_DEG = 52.0
 
 
-def _trench_lines(micro, surface) -> tuple[dict, dict]:
+def _trench_lines(micro: Microstructure, surface: SampledMap) -> tuple[dict, dict]:
     """Two section lines placed, as an experimenter would, across twinned grains.
 
     One runs along x and is viewed from +y, the other along y viewed from -x, so both
@@ -102,9 +106,9 @@ def _map_entry(path: str) -> dict:
     }
 
 
-def _write_npz(path: Path, sample) -> Path:
-    # The npz form of design.md "Map files" (euler_deg (H, W, 3), phase (H, W), 0 = not
-    # indexed), written by the map module's writer; the declared axes are S itself.
+def _write_npz(path: Path, sample: SampledMap) -> Path:
+    # The map module's own writer (euler_deg (H, W, 3), phase (H, W), 0 = not indexed),
+    # so the demo's maps are exactly what its reader takes; the declared axes are S itself.
     return write_npz(path, as_orientation_map(sample))
 
 
@@ -128,7 +132,7 @@ def _job(surface: str, serial: str, cross_sections: list[dict], description: str
     }
 
 
-def write_demo_scenario(out_dir, *, seed: int = DEMO_SEED) -> dict[str, Path]:
+def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) -> dict[str, Path]:
     """Build the demo sample and write its maps, job files and truth into ``out_dir``.
 
     Each file is written whole or not at all (temporary name, then rename); existing
@@ -154,8 +158,6 @@ def write_demo_scenario(out_dir, *, seed: int = DEMO_SEED) -> dict[str, Path]:
     >>> sorted(paths)
     ['job', 'job_z180', 'serial', 'serial_z180', 'surface', 'surface_z180', 'truth']
     """
-    from .crystal.lattice import Phase
-
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
         raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")
     out = Path(out_dir)

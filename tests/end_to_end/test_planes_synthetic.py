@@ -21,6 +21,7 @@ from inclination.planes import (
     chance_fit,
     identify,
     match_planes,
+    surface_geometry,
     trace_deviation_deg,
     trace_sigma_predicted_deg,
     trace_tolerance_deg,
@@ -160,8 +161,8 @@ def _twin_segments(run):
         lam = pairs.get((int(run["ra"][row]), int(run["rb"][row])))
         if lam is None:
             continue
-        truth = synthetic.plane_geometry(np.array([lam.normal_sample]))
-        err = abs((seg["trace_angle_deg"][row] - truth["trace_angle_deg"][0] + 90) % 180 - 90)
+        truth = surface_geometry(lam.normal_sample)
+        err = abs((seg["trace_angle_deg"][row] - truth.trace_angle_deg + 90) % 180 - 90)
         n_true = np.asarray(lam.normal_sample)
         best = np.array([table[f"predicted_normal_{a}"][row] for a in "xyz"])
         mine = (cands["segment_id"] == seg["segment_id"][row]) & cands["fits"]
@@ -172,7 +173,7 @@ def _twin_segments(run):
                 "trace_error_deg": err,
                 "first": bool(np.abs(best @ n_true) > np.cos(np.deg2rad(1.5))),
                 "among": among,
-                "dip_error_deg": abs(table["predicted_dip_deg"][row] - truth["dip_deg"][0]),
+                "dip_error_deg": abs(table["predicted_dip_deg"][row] - truth.dip_deg),
                 "sigma": table["sigma"][row],
                 "identification": table["identification"][row],
                 "twin_test": table["twin_test"][row],

@@ -21,11 +21,11 @@ import pytest
 
 from inclination import grains, network
 from inclination.crystal.lattice import Lattice, Phase
+from inclination.planes import surface_geometry
 from inclination.synthetic import (
     as_orientation_map,
     boundary_normals_sample,
     make_microstructure,
-    plane_geometry,
     sample_map,
 )
 from inclination.traces import fit_segments, group_collinear
@@ -89,7 +89,7 @@ def true_boundaries(micro, smap):
     for a, b in sorted(set(zip(low.tolist(), high.tolist(), strict=True))):
         pts = mids[(low == a) & (high == b)]
         normal = boundary_normals_sample(micro, [a], [b])
-        angle = float(plane_geometry(normal)["trace_angle_deg"][0])
+        angle = float(surface_geometry(normal).trace_angle_deg[0])
         if np.isnan(angle):
             continue
         t = np.array([np.cos(np.radians(angle)), np.sin(np.radians(angle))])
