@@ -30,6 +30,8 @@ from .errors import InputError
 __all__ = [
     "FEATURE_IDENTIFICATION",
     "FRAME_STATES",
+    "features_of_analysis",
+    "frame_state",
     "feature_candidate_planes",
     "feature_segments",
     "identify_features",
@@ -729,3 +731,107 @@ def identify_features(
     tail = {key: (v.astype(str) if v.dtype == object else v) for key, v in out.items()}
     tail["frame"] = np.full(n, frame).astype(str)
     return head | {"grain_id": grain_ids, "phase": np.asarray(phase_of, dtype=np.int64)} | tail
+
+
+# ----------------------------------------------------------------------------- the run
+
+
+def frame_state(verdict) -> str:
+    """The frame state for dip directions from a frame verdict (or None): one of FRAME_STATES.
+
+    Examples
+    --------
+    >>> frame_state(None)
+    'unsettled'
+    """
+    name = getattr(verdict, "verdict", None)
+    return name if name in FRAME_STATES[1:] else "unsettled"
+
+
+def features_of_analysis(analysis) -> dict:
+    """The features table of one run (S): read, located, identified, measured on sections.
+
+    Takes what the run computed (:class:`inclination.pipeline.Analysis`: the job, the map,
+    the grains, the segments, the sections' frame verdict) and returns the table of
+    :func:`identify_features` with the measured columns of
+    :func:`measure_features_on_cross_sections` (``measured_dip_deg``,
+    ``measured_dip_sigma_deg``, ``measured_dip_azimuth_deg``, NaN where no section
+    crosses the trace) and ``sense`` (:func:`inclination.compare.boundary_sense` of an
+    identified trace with a measured dip direction, else ``""``).
+    """
+    job, omap, grain_map = analysis.job, analysis.omap, analysis.grain_map
+    path = job.source_path
+    spec = job.raw["features"]
+    traces = read_feature_traces(spec, axes=omap.axes, path=path)
+    load = read_loading_direction(spec, axes=omap.axes, path=path)
+    slip = read_slip_systems(job.raw["phases"], job.phases, path=path)
+    grain_ids = locate_features(traces, grain_map, omap, path=path)
+    p = job.planes
+    table = identify_features(
+        traces,
+        grain_ids,
+        grain_map.grains,
+        job.phases,
+        slip=slip,
+        families=spec.get("families"),
+        loading_direction_sample=load,
+        frame=frame_state(analysis.verdict),
+        k=p["k"],
+        floor_deg=p["floor_deg"],
+        max_tolerance_deg=p["max_tolerance_deg"],
+    )
+    n = len(traces["feature_id"])
+    measured = {"feature_id": np.zeros(0, dtype=np.int64)}
+    if analysis.stage == "sections" and job.sections:
+        xy = omap.positions_sample_um()
+        bounds = (
+            float(xy[..., 0].min()),
+            float(xy[..., 1].min()),
+            float(xy[..., 0].max()),
+            float(xy[..., 1].max()),
+        )
+        measured = measure_features_on_cross_sections(
+            job.sections,
+            feature_segments(traces, grain_ids, grain_map, omap),
+            analysis.segments,
+            axes=omap.axes,
+            step_um=float(min(omap.step_x_um, omap.step_y_um)),
+            bounds_um=bounds,
+            path=path,
+        )
+    row = {int(f): i for i, f in enumerate(np.asarray(measured["feature_id"]).tolist())}
+    take = np.array([row.get(int(f), -1) for f in traces["feature_id"]], dtype=np.int64)
+    found = take >= 0
+    for name, source in (
+        ("measured_dip_deg", "measured_dip_deg"),
+        ("measured_dip_sigma_deg", "measured_dip_sigma_deg"),
+        ("measured_dip_azimuth_deg", "dip_direction_azimuth_deg"),
+        ("measured_dip_azimuth_sigma_deg", "dip_direction_sigma_deg"),
+    ):
+        column = np.full(n, np.nan)
+        if found.any():
+            column[found] = np.asarray(measured[source], float)[take[found]]
+        table[name] = column
+    table["sense"] = np.full(n, "", dtype=object)
+    decided = found & (table["identification"] == "identified")
+    decided &= np.isfinite(table["measured_dip_azimuth_deg"])
+    if decided.any():
+        from .compare import boundary_sense
+
+        # The sense is judged against the frame as declared, as for boundaries (§6).
+        azimuth = table["predicted_dip_azimuth_deg"][decided]
+        if table["frame"][0] == "turned_180_about_normal":
+            azimuth = np.mod(azimuth + 180.0, 360.0)
+        senses = boundary_sense(
+            azimuth,
+            table["predicted_dip_deg"][decided],
+            table["measured_dip_azimuth_deg"][decided],
+            table["measured_dip_azimuth_sigma_deg"][decided],
+            measured_dip_deg=table["measured_dip_deg"][decided],
+            measured_dip_sigma_deg=table["measured_dip_sigma_deg"][decided],
+            predicted_azimuth_sigma_deg=table["tolerance_deg"][decided] / 2.0,
+            predicted_dip_sigma_deg=table["tolerance_deg"][decided] / 2.0,
+        )
+        table["sense"][decided] = np.asarray(senses["sense"], dtype=object)
+    table["sense"] = table["sense"].astype(str)
+    return table

@@ -52,6 +52,7 @@ class Analysis:
     senses: dict | None = None
     verdict: object = None
     planes_full: dict | None = None
+    features: dict | None = None
 
 
 @dataclass(frozen=True)
@@ -372,13 +373,13 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
     twin = twin_test_summary(identification, segments)
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
-        return analysis
+        return _with_features(analysis)
     from .compare import best_measurements
 
     tables, notes = _sections(job, omap, grain_map, segments, progress)
     measured = best_measurements(*tables)
     measured, senses, verdict, planes_full = _compare(job, grain_map, identification, measured)
-    return replace(
+    analysis = replace(
         analysis,
         section_tables=tables,
         section_notes=notes,
@@ -387,6 +388,16 @@ def run(job, *, stage: str = "sections", progress=None) -> Analysis:
         verdict=verdict,
         planes_full=planes_full,
     )
+    return _with_features(analysis)
+
+
+def _with_features(analysis: Analysis) -> Analysis:
+    """The job's traces inside grains (inclination.features), when it lists any."""
+    from .features import features_of_analysis
+
+    if analysis.job.raw.get("features") is None:
+        return analysis
+    return replace(analysis, features=features_of_analysis(analysis))
 
 
 def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = False, progress=None):

@@ -220,6 +220,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         if section["kind"] == "serial":
             resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
         sections.append(resolved)
+    _check_features(doc, phases, path_for_errors)
     return Job(
         phases=tuple(phases),
         map=surface,
@@ -258,7 +259,9 @@ def _build_phases(entries, path):
                 pointer=f"{pointer}/id",
             )
         seen[entry["id"]] = i
-        phases.append(Phase.from_dict(entry, path=path, pointer=pointer))
+        # Slip systems belong to the features stage (inclination.features), not to Phase.
+        phase_entry = {k: v for k, v in entry.items() if k != "slip_systems"}
+        phases.append(Phase.from_dict(phase_entry, path=path, pointer=pointer))
     return phases
 
 
@@ -474,3 +477,14 @@ def _schema_error(err, path) -> InputError:
     else:
         message = f"Expected a valid value, got {_shown(inst)} ({err.message})."
     return InputError(message, path=path, pointer=_pointer(where))
+
+
+def _check_features(doc, phases, path):
+    """Slip-system strings and the loading direction, checked on loading (inclination.features)."""
+    from ..features import read_loading_direction, read_slip_systems
+    from ..frames import DeclaredAxes
+
+    read_slip_systems(doc["phases"], phases, path=path)
+    if "features" in doc:
+        # Only its length is checked here; the map's own axes convert it in the run.
+        read_loading_direction(doc["features"], axes=DeclaredAxes(), path=path)
