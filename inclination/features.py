@@ -438,8 +438,10 @@ def feature_segments(traces, grain_ids, grain_map, omap) -> dict:
             for k in range(1, len(lab)):
                 run[k] = run[k - 1] + 1 if unindexed[k] else 0
             stop = (lab != grain_ids[i]) & ~unindexed | (run > _MAX_UNINDEXED_RUN)
-            last = (int(np.argmax(stop)) if stop.any() else len(s)) - 1
-            ends[i, end] = pts[max(last, 0)]
+            first_stop = int(np.argmax(stop)) if stop.any() else len(s)
+            # The chord ends on the last sample still in the grain, not in a gap after it.
+            inside = np.flatnonzero(lab[:first_stop] == grain_ids[i])
+            ends[i, end] = pts[inside[-1] if len(inside) else 0]
     return {
         "feature_id": np.asarray(traces["feature_id"]),
         "x0_um": ends[:, 0, 0],

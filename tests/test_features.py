@@ -216,3 +216,74 @@ def test_committed_schema_is_the_rendering():
         "grain_id",
         "trace_angle_deg",
     ]
+
+
+def test_cross_section_through_a_slip_band_gives_its_dip():
+    # The measure_cross_section worked case (a vertical trace at x = 50, the face along
+    # y = 40 seen from +y, image angle 60°, descending to the right: dip 60°, azimuth 0°),
+    # with the trace a feature beside an unrelated boundary segment.
+    from inclination.features import measure_features_on_cross_sections
+
+    feature = {
+        "feature_id": np.array([1]),
+        "x0_um": np.array([50.0]),
+        "y0_um": np.array([10.0]),
+        "x1_um": np.array([50.0]),
+        "y1_um": np.array([90.0]),
+        "trace_angle_deg": np.array([90.0]),
+        "trace_sigma_deg": np.array([0.5]),
+    }
+    boundary = {
+        "segment_id": np.array([0]),
+        "x0_um": np.array([20.0]),
+        "y0_um": np.array([0.0]),
+        "x1_um": np.array([20.0]),
+        "y1_um": np.array([100.0]),
+        "trace_angle_deg": np.array([90.0]),
+        "trace_sigma_deg": np.array([0.5]),
+        "too_short": np.array([False]),
+    }
+    section = {
+        "kind": "cross-section",
+        "line_um": [[0, 40], [100, 40]],
+        "viewer_at_um": [50, 60],
+        "imaging_tilt_deg": 90.0,
+        "boundaries": [
+            {"along_um": 50.0, "image_angle_deg": 60.0, "descends": "right"},
+            {"along_um": 20.0, "image_angle_deg": 45.0, "descends": "left"},
+        ],
+    }
+    got = measure_features_on_cross_sections(
+        [section], feature, boundary, axes=DeclaredAxes(), step_um=1.0, bounds_um=(0, 0, 100, 100)
+    )
+    assert got["feature_id"].tolist() == [1]
+    assert_allclose(got["measured_dip_deg"], [60.0], rtol=0, atol=1e-9)
+    assert_allclose(got["dip_direction_azimuth_deg"], [0.0], rtol=0, atol=1e-9)
+
+
+def test_point_trace_extends_across_its_grain_for_sections():
+    from types import SimpleNamespace
+
+    from inclination.features import feature_segments
+
+    labels = np.zeros((10, 20), np.int32)
+    labels[:, 5:15] = 3
+    omap = SimpleNamespace(
+        shape=labels.shape, step_x_um=1.0, row_pitch_um=1.0, grid="square", step_y_um=1.0
+    )
+    traces = {
+        "feature_id": np.array([1]),
+        "given": np.array(["point"]),
+        "x_um": np.array([8.0]),
+        "y_um": np.array([4.0]),
+        "x0_um": np.array([np.nan]),
+        "y0_um": np.array([np.nan]),
+        "x1_um": np.array([np.nan]),
+        "y1_um": np.array([np.nan]),
+        "trace_angle_deg": np.array([0.0]),
+        "trace_sigma_deg": np.array([0.5]),
+    }
+    seg = feature_segments(traces, np.array([3]), SimpleNamespace(labels=labels), omap)
+    # Grain 3 holds columns 5..14: the chord runs from x ≈ 4.5 to x ≈ 14.5 (nearest points).
+    assert 4.4 <= seg["x0_um"][0] <= 5.0 and 14.0 <= seg["x1_um"][0] <= 14.6
+    assert_allclose([seg["y0_um"][0], seg["y1_um"][0]], [4.0, 4.0], rtol=0, atol=1e-12)
