@@ -67,10 +67,17 @@ def _scenario(folder: Path, seed: int, *, n_traces=25, nonindexed=0.0):
 
 @pytest.mark.parametrize("seed", [1, 2, 3])
 def test_random_111_slip_traces_are_identified(tmp_path, seed):
-    _, truth, _ = _scenario(tmp_path, seed)
-    f = run(load_job(tmp_path / "job.json"), stage="planes").features
+    _, truth, sm = _scenario(tmp_path, seed)
+    analysis = run(load_job(tmp_path / "job.json"), stage="planes")
+    f = analysis.features
+    labels = analysis.grain_map.labels
     n_only, n_identified = 0, 0
     for i, t in enumerate(truth):
+        # Two true grains a few degrees apart can merge into one detected grain, whose mean
+        # orientation is then neither's (a segmentation matter, as in the planes checks);
+        # traces in such impure grains are not judged.
+        if np.mean(sm.grain_id[labels == f["grain_id"][i]] == t["region"]) < 0.95:
+            continue
         candidates = f["candidates"][i].split(";") if f["candidates"][i] else []
         # 0.3° noise against a tolerance of at least 1°: the true plane is a candidate.
         assert t["plane"] in candidates
@@ -82,8 +89,9 @@ def test_random_111_slip_traces_are_identified(tmp_path, seed):
             assert f["plane"][i] == t["plane"]
             assert abs(f["predicted_dip_deg"][i] - t["dip_deg"]) < 0.5
             assert abs(f["schmid_factor"][i] - t["plane_schmid_factor"]) < 0.01
-    # Most random {111} traces stand alone within tolerance (measured: 53 of 56 over the
-    # three seeds); a regression that made tolerances balloon would fail here.
+    # Most random {111} traces stand alone within tolerance (measured: 53 of 56 over these
+    # three seeds, 185 of 189 over seeds 1-10); a regression that made tolerances balloon
+    # would fail here.
     assert n_only == n_identified
     assert n_identified >= 0.8 * len(truth)
 
