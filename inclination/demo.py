@@ -18,6 +18,9 @@ sample frame S of conventions §2):
 - ``surface_z180.npz``, ``serial_5um_z180.npz``, ``job_z180.json``: the same
   sample recorded by an instrument whose data frame is turned 180° about Z_S (§6),
   the job unaware of it: traces agree, every predicted dip direction is reversed;
+- both job files also carry a ``features`` block: slip traces drawn in grains of a strained
+  region (the right half of the map, invented: a tensile load along x), each on the {111}
+  plane with the highest Schmid factor (:mod:`inclination.synthetic.slip_traces`);
 - ``truth.json``: every grain and boundary plane, the boundaries each map shows,
   each cross-section's true crossings, and what each job should find.
 """
@@ -236,17 +239,24 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
         "Coupon LK-7, annealed austenitic steel (invented; synthetic sample, seed "
         f"{seed}): which straight boundaries are coherent {{111}} twins, which way do they dip"
     )
+    features, feature_truth = _slip_features(micro, surface, seed)
     paths["job"] = write_json_atomic(
         out / "job.json",
-        _job("surface.npz", "serial_5um.npz", sections, story + ", and is the frame right?"),
+        _with_features(
+            _job("surface.npz", "serial_5um.npz", sections, story + ", and is the frame right?"),
+            features,
+        ),
     )
     paths["job_z180"] = write_json_atomic(
         out / "job_z180.json",
-        _job(
-            "surface_z180.npz",
-            "serial_5um_z180.npz",
-            sections,
-            story + "; maps exported in a frame turned 180° about the surface normal.",
+        _with_features(
+            _job(
+                "surface_z180.npz",
+                "serial_5um_z180.npz",
+                sections,
+                story + "; maps exported in a frame turned 180° about the surface normal.",
+            ),
+            features,
         ),
     )
     truth = ground_truth(micro, maps={"surface": surface, "serial_5um": serial})
@@ -261,5 +271,41 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
             },
         },
     }
+    truth["scenario"]["features"] = feature_truth
     paths["truth"] = write_json_atomic(out / "truth.json", truth)
     return paths
+
+
+# The strained region of the demo (invented): the right half of the coupon, pulled along x.
+_STRAINED_REGION_UM = (100.0, 0.0, 200.0, 150.0)
+_LOAD = [1.0, 0.0, 0.0]
+
+
+def _slip_features(micro, surface, seed):
+    """Slip traces in the strained region, on each grain's most favoured {111} plane.
+
+    Their own random stream (seeded from ``seed``), so the rest of the scenario is
+    unchanged by them.
+    """
+    from .crystal.lattice import Phase
+    from .crystal.slip import slip_systems
+    from .synthetic.slip_traces import slip_traces
+
+    systems = slip_systems(Phase.from_dict(_AUSTENITE), ["fcc"])
+    entries, truth = slip_traces(
+        micro,
+        surface,
+        systems,
+        rng=np.random.default_rng([seed, 19]),
+        n_traces=8,
+        noise_deg=0.3,
+        load_sample=_LOAD,
+        choice="highest_schmid",
+        region_um=_STRAINED_REGION_UM,
+    )
+    features = {"loading_direction": _LOAD, "traces": entries}
+    return features, {"strained_region_um": list(_STRAINED_REGION_UM), "traces": truth}
+
+
+def _with_features(job: dict, features: dict) -> dict:
+    return {**job, "phases": [{**_AUSTENITE, "slip_systems": ["fcc"]}], "features": features}

@@ -92,6 +92,7 @@ class Analysis:
     senses: Table | None = None
     verdict: FrameVerdict | None = None
     planes_full: Table | None = None
+    features: Table | None = None
 
 
 @dataclass(frozen=True)
@@ -404,7 +405,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     twin = twin_test_summary(identification, segments)
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
-        return analysis
+        return _with_features(analysis)
     from .compare import best_measurements, compare_map
 
     tables, notes = _sections(job, omap, grain_map, segments, progress)
@@ -415,7 +416,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         _phases_by_id(job),
         coherent_tolerance_deg=job.planes["max_tolerance_deg"],
     )
-    return replace(
+    analysis = replace(
         analysis,
         section_tables=tables,
         section_notes=notes,
@@ -424,6 +425,16 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         verdict=comparison.verdict,
         planes_full=comparison.planes_full,
     )
+    return _with_features(analysis)
+
+
+def _with_features(analysis: Analysis) -> Analysis:
+    """The job's traces inside grains (inclination.features), when it lists any."""
+    from .features import features_of_analysis
+
+    if analysis.job.raw.get("features") is None:
+        return analysis
+    return replace(analysis, features=features_of_analysis(analysis))
 
 
 def analyse(

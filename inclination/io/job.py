@@ -209,7 +209,11 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
             if section["kind"] == "cross-section" and section["match_tolerance_um"] is None:
                 section["match_tolerance_um"] = _MATCH_TOLERANCE_STEPS * steps
 
-    phases = Phases.from_dicts(doc["phases"], path=path_for_errors)
+    # Slip systems belong to the features stage (inclination.features), not to Phase.
+    phase_entries = [
+        {k: v for k, v in entry.items() if k != "slip_systems"} for entry in doc["phases"]
+    ]
+    phases = Phases.from_dicts(phase_entries, path=path_for_errors)
     base = Path(".") if base_dir is None else Path(base_dir)
     surface = _resolve_map(doc["map"], base, path_for_errors, "/map")
     sections = []
@@ -220,6 +224,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         if section["kind"] == "serial":
             resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
         sections.append(resolved)
+    _check_features(doc, phases, path_for_errors)
     return Job(
         phases=phases,
         map=surface,
@@ -433,3 +438,14 @@ def _schema_error(err, path) -> InputError:
     else:
         message = f"Expected a valid value, got {_shown(inst)} ({err.message})."
     return InputError(message, path=path, pointer=_pointer(where))
+
+
+def _check_features(doc, phases, path):
+    """Slip-system strings and the loading direction, checked on loading (inclination.features)."""
+    from ..features import read_loading_direction, read_slip_systems
+    from ..frames import DeclaredAxes
+
+    read_slip_systems(doc["phases"], phases, path=path)
+    if "features" in doc:
+        # Only its length is checked here; the map's own axes convert it in the run.
+        read_loading_direction(doc["features"], axes=DeclaredAxes(), path=path)

@@ -11,6 +11,7 @@ import base64
 import html
 
 from ._io import write_text_atomic
+from .features import features_section_html, features_section_markdown
 from .tables import format_cell
 
 __all__ = ["render_html", "render_markdown", "write_report"]
@@ -87,6 +88,7 @@ def render_markdown(summary: dict, table: dict, columns) -> str:
     ]
     lines += [f"- {k}: {v}" for k, v in _facts(summary)]
     lines += ["", "![boundaries](boundaries.png)", ""]
+    lines += features_section_markdown(summary)
     lines.append("| " + " | ".join(c.name for c in shown) + " |")
     lines.append("|" + "|".join("---" for _ in shown) + "|")
     n = len(next(iter(table.values()))) if table else 0
@@ -122,6 +124,7 @@ def render_html(summary: dict, table: dict, columns, *, figure_png: bytes | None
             '<p><img alt="map with fitted boundary segments" style="max-width:100%" '
             f'src="data:image/png;base64,{data}"></p>'
         )
+    parts += features_section_html(summary)
     parts.append(
         "<table><thead><tr>"
         + "".join(f"<th>{esc(c.name)}</th>" for c in shown)

@@ -222,6 +222,10 @@ def _figure(analysis, out_dir, table_declared):
             ax=ax,
             title="Fitted boundary segments by identification class",
         )
+        if getattr(analysis, "features", None) is not None:
+            from .features import plot_features
+
+            plot_features(ax, analysis.features)
         paths = save_figure(fig, out_dir / "boundaries")
         buf = io.BytesIO()
         fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
@@ -395,6 +399,12 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
                 },
             )
         )
+    features = None
+    if getattr(analysis, "features", None) is not None:
+        from .features import write_features
+
+        feature_files, features = write_features(analysis, out_dir, meta)
+        files += feature_files
     figure_png = None
     # The figure belongs to the planes stage: it colours segments by identification class,
     # and drawing a 16-million-point map would dominate a traces-only run.
@@ -402,6 +412,10 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
         paths, figure_png = _figure(analysis, out_dir, boundaries)
         files += paths
     summary = _summary(analysis, summary_base, boundaries)
+    if features is not None:
+        from .features import feature_summary
+
+        summary["features"] = feature_summary(analysis, features)
     files.append(write_json_atomic(out_dir / "summary.json", summary))
     if boundaries is not None:
         from .document import write_report
