@@ -49,18 +49,21 @@ def main() -> None:
     parser.add_argument("--bootstrap", type=int, default=200)
     args = parser.parse_args()
     segments, grains = make_tables(args.traces)
-    best = np.inf
+    best = cpu = np.inf
     for _ in range(args.repeat):
+        c0 = time.process_time()
         t0 = time.perf_counter()
         result = plane_distribution(
             segments, grains, [CUBIC], classes=("all", "sigma3"),
             n_bootstrap=args.bootstrap, min_traces=1, rng=1,
         )
         best = min(best, time.perf_counter() - t0)
+        cpu = min(cpu, time.process_time() - c0)
     for d in result:
         print(f"{d.misorientation}: {d.n_traces} traces, {d.n_boundaries} boundaries, "
               f"peak {d.peak_mrd:.2f} ± {d.peak_mrd_sigma:.2f} MRD")
-    print(f"{args.traces} traces: {best:.2f} s (best of {args.repeat})")
+    # CPU time is what one quiet core would take; wall time includes waiting for the core.
+    print(f"{args.traces} traces: {best:.2f} s wall, {cpu:.2f} s CPU (best of {args.repeat})")
 
 
 if __name__ == "__main__":

@@ -229,7 +229,6 @@ def zone_accumulation(
     t = np.asarray(directions_crystal, dtype=float).reshape(-1, 3)
     w = np.asarray(weights, dtype=float).reshape(-1)
     mats = quat_as_matrix(np.asarray(rotations_quat, dtype=float).reshape(-1, 4))
-    mats32 = mats.astype(np.float32)
     k = len(mats)
     m = int(np.ceil(180.0 * _POINTS_PER_BIN / grid.resolution_deg))
     psi = np.arange(m) * (np.pi / m)
@@ -253,26 +252,23 @@ def zone_accumulation(
         if rep_w is not None and stop < len(t):
             # Blocks end at a boundary's last side, so each boundary's histogram is whole.
             stop = int(np.searchsorted(g, g[stop - 1], side="right"))
-        tb = t[start:stop]
-        e1, e2 = _perpendicular_basis(tb)
+        # Every symmetric copy R_s t gets its own basis, built from the copy itself: the
+        # points then depend only on the set {R_s t}, which relabelling a grain's
+        # orientation by a symmetry operator leaves unchanged (the invariance is exact).
+        copies = np.einsum("kij,nj->kni", mats, t[start:stop]).reshape(-1, 3)
+        e1, e2 = _perpendicular_basis(copies)
         # Each circle's points start at its own phase, spread evenly over one spacing
         # (golden-ratio sequence): a common start would tie the points to the basis, which
         # is tied to the crystal axes, and bias whole rings by ±10 % (measured).
         phase = (np.arange(start, stop) * _GOLDEN % 1.0)[:, None] * (np.pi / m)
-        ang = psi[None, :] + phase
+        ang = np.tile(psi[None, :] + phase, (k, 1))
         cos_a, sin_a = np.cos(ang), np.sin(ang)
-        # Component-major float32 arrays: contiguous and half the bytes for the binning,
-        # whose bins are degrees wide against a rounding of 1e-7.
-        comps = [
+        # float32 for the binning (half the bytes; bins are degrees wide, rounding 1e-7).
+        x, y, z = (
             (e1[:, c, None] * cos_a + e2[:, c, None] * sin_a).astype(np.float32).ravel()
             for c in range(3)
-        ]
-        bins = np.empty((k, comps[0].size), dtype=np.int64)
-        for s, r in enumerate(mats32):
-            x = r[0, 0] * comps[0] + r[0, 1] * comps[1] + r[0, 2] * comps[2]
-            y = r[1, 0] * comps[0] + r[1, 1] * comps[1] + r[1, 2] * comps[2]
-            z = r[2, 0] * comps[0] + r[2, 1] * comps[1] + r[2, 2] * comps[2]
-            bins[s] = grid.bin_of_components(x, y, z)
+        )
+        bins = grid.bin_of_components(x, y, z).reshape(k, -1)
         share = np.repeat(w[start:stop] / (k * m), m)
         if rep_w is None:
             total += np.bincount(bins.ravel(), np.tile(share, k), minlength=n_bins)
