@@ -24,7 +24,8 @@ from inclination.stereology import (
     HemisphereGrid,
     MisorientationClass,
     plane_distribution,
-    self_fraction,
+    accumulation_kernel,
+    remove_background,
     zone_accumulation,
 )
 from inclination.stereology.outputs import distribution_document, write_stereology
@@ -86,12 +87,28 @@ def test_self_fraction_matches_the_arc_of_a_ring_bin():
     # Derived from the geometry: a circle through the pole runs along a meridian, so for a
     # normal in the polar ring it keeps at least the arc from the normal to the ring's edge.
     grid = HemisphereGrid.from_resolution_deg(10.0)
-    a = self_fraction(grid)
+    kernel = accumulation_kernel(grid)
+    a = np.diag(kernel)
     assert a.shape == (grid.n_bins,)
+    # Uniform planes accumulate to uniform (module docstring): rows sum to 1 as columns do.
+    assert_allclose(kernel.sum(axis=0), 1.0, rtol=0, atol=1e-12)
+    assert_allclose(kernel.sum(axis=1), 1.0, rtol=0, atol=0.01)
     assert np.all((a > 0.02) & (a < 0.08))
     # A 10° bin crossed along a random chord keeps roughly (π/4)·10°/180° of a half circle:
     # the mean chord of a convex cell is π·area/perimeter (Cauchy), about 0.8 bin widths.
     assert_allclose(a.mean(), np.pi / 4 * 10 / 180, rtol=0.3, atol=0)
+
+
+def test_background_removal_reduces_to_the_subtraction_for_a_flat_background():
+    # With F = a I + (1 - a) J / n (self share plus a random rest, Saylor et al. 2004) the
+    # inverse is the subtraction 1 + (A - 1) / a, for any A of mean 1.
+    n, a = 324, 0.045
+    f = a * np.eye(n) + (1 - a) / n
+    acc = 1.0 + np.random.default_rng(0).normal(0, 0.1, n)
+    acc += 1.0 - acc.mean()
+    assert_allclose(remove_background(acc, f), 1.0 + (acc - 1.0) / a, rtol=0, atol=1e-9)
+    kernel = accumulation_kernel(HemisphereGrid.from_resolution_deg(15.0))
+    assert_allclose(remove_background(np.ones(len(kernel)), kernel), 1.0, rtol=0, atol=1e-12)
 
 
 def test_uniform_planes_give_one_mrd_within_the_bootstrap_band():

@@ -12,8 +12,9 @@ from .estimate import (
     WEIGHTINGS,
     MisorientationClass,
     PlaneDistribution,
+    accumulation_kernel,
     plane_distribution,
-    self_fraction,
+    remove_background,
     zone_accumulation,
 )
 from .grid import HemisphereGrid
@@ -23,7 +24,8 @@ __all__ = [
     "HemisphereGrid",
     "MisorientationClass",
     "PlaneDistribution",
+    "accumulation_kernel",
     "plane_distribution",
-    "self_fraction",
+    "remove_background",
     "zone_accumulation",
 ]

@@ -16,19 +16,24 @@ are uniform on the circle perpendicular to n (whatever the sin ψ weight of the 
 length, it does not depend on the azimuth about n). The circles of its traces are then
 the great circles through n, uniform in azimuth: the accumulated density at an angle α
 from n is ``1 / (2π² sin α)`` per steradian, i.e. ``2 / (π sin α)`` MRD over the sphere,
-and a uniform plane distribution accumulates to exactly 1 MRD everywhere. A bin i keeps
-the fraction ``a_i`` of a circle through a normal inside it (computed by quadrature in
-:func:`self_fraction`, about 0.045 for 10° bins); the rest of the circle lands elsewhere.
-Taking that rest to be distributed as for a random set of planes, as Saylor et al. do,
-the accumulated MRD is ``A_i = a_i λ_i + (1 − a_i)`` and the estimate is
+and a uniform plane distribution accumulates to exactly 1 MRD everywhere. Binned, this
+is a linear map ``A = F λ`` from the true distribution λ (MRD per bin) to the accumulated
+one A, with ``F[i, j]`` the share of bin i in the circles of bin j's planes
+(:func:`accumulation_kernel`, by quadrature; ``a_i = F[i, i]`` is about 0.045 for 10°
+bins).
 
-    λ_i = 1 + (A_i − 1) / a_i,
-
-the excess over random divided by the fraction that stays home. It is linear, maps a
-uniform distribution onto itself, and is a single step: no iterative deconvolution. It
-does not undo the 1/sin α tail next to a peak (neighbouring bins stay a little raised),
-which is why a peak is broader than the true one. λ can dip below zero where noise
-dominates; it is reported as computed.
+Which background removal, and why: :func:`remove_background` solves it,
+``λ = 1 + F⁻¹ (A − 1)``, a direct (not iterative) deconvolution. Saylor et al. take the
+part of every circle outside its plane's bin to spread like that of random planes, i.e.
+``F ≈ a I + (1 − a) J / n``; with that F the same formula is exactly their subtraction
+``λ = 1 + (A − 1) / a`` (the subtraction as read from the method; the paper's own
+constants were not at hand to compare, so ``a`` here comes from the grid's geometry). The full F also knows the 1/sin α tail next to each plane, which
+the subtraction leaves in the neighbouring bins: on the 3D oracle's twinned sample the
+correlation with the true distribution rose from 0.83 (subtraction) to 0.90 (full F),
+tests/end_to_end/test_stereology_synthetic.py. The price is noise: the smallest
+eigenvalues of F (about 0.007 at 10°) amplify some patterns more than 1/a does; the
+bootstrap σ shows it. λ can dip below zero where noise dominates; it is reported as
+computed.
 
 Uncertainty: boundaries (grain pairs), not traces, are resampled with replacement,
 because the traces of one boundary are not independent; the σ of each bin is the
@@ -57,14 +62,14 @@ __all__ = [
     "MisorientationClass",
     "PlaneDistribution",
     "plane_distribution",
-    "self_fraction",
+    "accumulation_kernel",
+    "remove_background",
     "zone_accumulation",
 ]
 
 WEIGHTINGS = ("length", "count")
 # Points per half great circle: two per bin width. One trace's share of a bin is then
-# coarse, but the points fall at every offset over many traces, so the sum is unbiased;
-# self_fraction samples the circles the same way.
+# coarse, but the points fall at every offset over many traces, so the sum is unbiased.
 _POINTS_PER_BIN = 2
 # Sides of traces per block: bounds the temporaries (K·M·3 doubles each) to tens of MB.
 _BLOCK_ELEMENTS = 2_500_000
@@ -138,7 +143,7 @@ class PlaneDistribution:
     accumulated_mrd : ndarray, shape (n_bins,) or None
         The summed circles before the background removal, MRD.
     self_fraction : ndarray, shape (n_bins,)
-        ``a_i`` of the background model.
+        ``a_i = F[i, i]``: the share of a circle that stays in its plane's bin.
     peak_normal_crystal : tuple of 3 floats or None
         Centre of the highest bin, reduced to the Laue class's standard triangle.
     peak_indices : str
@@ -285,31 +290,34 @@ def zone_accumulation(
     return total, replicates
 
 
-def self_fraction(grid: HemisphereGrid) -> np.ndarray:
-    """Mean share ``a_i`` of a great circle through a normal of bin i that stays in bin i.
+def accumulation_kernel(grid: HemisphereGrid) -> np.ndarray:
+    """The binned forward model F: ``F[i, j]`` = share of bin i in the circles of bin j's planes.
 
-    Quadrature over 6 × 6 normals spread over the bin, 24 circle directions about each
-    and 8 points per bin width along the circle (deterministic, no random numbers). All
-    sectors of a ring are alike (a turn about Z_C), so one is computed per ring.
+    For planes spread evenly over bin j and traces in every direction of each plane, the
+    mean share of their great circles (half circles, n ≡ −n) that lands in bin i. By
+    quadrature: 6 × 6 normals over the bin, 24 trace directions about each, 8 points per
+    bin width along each circle (deterministic, no random numbers). A turn about Z_C by
+    one sector maps the grid onto itself, so one bin per ring is computed and the others
+    are its cyclic shifts. No symmetry copies are needed: the distributions it acts on
+    are symmetric, and the kernel commutes with rotations.
 
     Returns
     -------
-    ndarray, shape (n_bins,)
+    ndarray, shape (n_bins, n_bins)
+        Columns sum to 1.
 
     Examples
     --------
-    >>> a = self_fraction(HemisphereGrid.from_resolution_deg(10.0))
-    >>> bool(0.03 < a.mean() < 0.06)
-    True
+    >>> f = accumulation_kernel(HemisphereGrid.from_resolution_deg(10.0))
+    >>> f.shape, bool(np.allclose(f.sum(axis=0), 1.0)), bool(0.03 < np.diag(f).mean() < 0.06)
+    ((324, 324), True, True)
     """
     p = (np.arange(6) + 0.5) / 6
     d_phi = 2.0 * np.pi / grid.n_azimuth
-    # Eight points per bin width approximate the arc length itself: the accumulation's
-    # coarser points fall at every offset along the circles, so their mean is the arc.
     m = int(np.ceil(180.0 * 8 / grid.resolution_deg))
     psi = (np.arange(m) + 0.5) * (np.pi / m) - 0.5 * np.pi
     beta = (np.arange(24) + 0.5) * (np.pi / 24)
-    out = np.empty(grid.n_polar)
+    kernel = np.empty((grid.n_bins, grid.n_bins))
     for ring in range(grid.n_polar):
         u = (ring + p) / grid.n_polar
         uu, pp = np.meshgrid(u, p * d_phi, indexing="ij")
@@ -321,8 +329,42 @@ def self_fraction(grid: HemisphereGrid) -> np.ndarray:
             np.cos(psi)[None, None, :, None] * n[:, None, None, :]
             + np.sin(psi)[None, None, :, None] * d[:, :, None, :]
         )
-        out[ring] = np.mean(grid.bin_of(pts) == ring * grid.n_azimuth)
-    return np.repeat(out, grid.n_azimuth)
+        column = np.bincount(grid.bin_of(pts).ravel(), minlength=grid.n_bins) / pts[..., 0].size
+        column = column.reshape(grid.n_polar, grid.n_azimuth)
+        for sector in range(grid.n_azimuth):
+            kernel[:, ring * grid.n_azimuth + sector] = np.roll(column, sector, axis=1).ravel()
+    return kernel
+
+
+def remove_background(accumulated_mrd, kernel: np.ndarray) -> np.ndarray:
+    """The plane distribution λ from the accumulated one: ``λ = 1 + F⁻¹ (A − 1)``.
+
+    With F approximated by its diagonal plus a uniform rest, ``F ≈ a I + (1 − a) J / n``
+    (J the all-ones matrix), the inverse is ``λ = 1 + (A − 1) / a``: the background
+    subtraction of Saylor et al. (2004). The full F also holds the 1/sin α tail next to
+    each plane, which the subtraction leaves in the neighbouring bins.
+
+    Parameters
+    ----------
+    accumulated_mrd : array_like, shape (..., n_bins)
+    kernel : ndarray, shape (n_bins, n_bins)
+        :func:`accumulation_kernel`.
+
+    Returns
+    -------
+    ndarray, shape (..., n_bins)
+
+    Examples
+    --------
+    >>> n, a = 4, 0.25
+    >>> f = a * np.eye(n) + (1 - a) / n
+    >>> remove_background([1.75, 0.75, 0.75, 0.75], f).round(6).tolist()
+    [4.0, 0.0, 0.0, 0.0]
+    """
+    excess = np.asarray(accumulated_mrd, dtype=float) - 1.0
+    return 1.0 + np.linalg.solve(kernel, excess.reshape(-1, kernel.shape[0]).T).T.reshape(
+        excess.shape
+    )
 
 
 def _setting(phase) -> str:
@@ -443,7 +485,8 @@ def plane_distribution(
     grid = HemisphereGrid.from_resolution_deg(resolution_deg)
     specs = [MisorientationClass.from_spec(c) for c in classes]
     gen = np.random.default_rng(rng)
-    a_frac = self_fraction(grid)
+    kernel = accumulation_kernel(grid)
+    a_frac = np.diag(kernel).copy()
 
     grain_id = np.asarray(grains["grain_id"], dtype=np.int64)
     row_of = np.full(int(grain_id.max(initial=0)) + 1, -1, dtype=np.int64)
@@ -513,9 +556,9 @@ def plane_distribution(
                 dirs, w, grid, rotations, groups=boundary, replicate_weights=rep_w
             )
             accumulated = total * grid.n_bins / total.sum()
-            mrd = 1.0 + (accumulated - 1.0) / a_frac
+            mrd = remove_background(accumulated, kernel)
             rep_acc = reps * grid.n_bins / reps.sum(axis=1, keepdims=True)
-            rep_mrd = 1.0 + (rep_acc - 1.0) / a_frac
+            rep_mrd = remove_background(rep_acc, kernel)
             sigma = rep_mrd.std(axis=0, ddof=1)
             peak = int(np.argmax(mrd))
             centres = grid.centres_crystal()

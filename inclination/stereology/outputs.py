@@ -87,8 +87,9 @@ def distribution_document(results, *, settings: dict) -> dict:
             "name": "stereology of planar sections (Saylor, El-Dasher, Adams & Rohrer 2004)",
             "accumulation": "great circle perpendicular to each trace direction in each "
             "grain's crystal frame, every proper rotation of the Laue class applied, n ≡ -n",
-            "background": "MRD = 1 + (accumulated - 1) / a, a = share of a great circle "
-            "staying in the bin of its plane (computed from the grid)",
+            "background": "MRD = 1 + F^-1 (accumulated - 1), F the binned accumulation "
+            "kernel (share of bin i in the circles of bin j's planes); with F approximated by "
+            "self-share a plus a uniform rest it is Saylor's 1 + (accumulated - 1) / a",
             "uncertainty": "bootstrap over boundaries (grain pairs)",
             "caveats": list(CAVEATS),
         },
