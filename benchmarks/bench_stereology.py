@@ -54,14 +54,21 @@ def main() -> None:
         c0 = time.process_time()
         t0 = time.perf_counter()
         result = plane_distribution(
-            segments, grains, [CUBIC], classes=("all", "sigma3"),
-            n_bootstrap=args.bootstrap, min_traces=1, rng=1,
+            segments,
+            grains,
+            [CUBIC],
+            classes=("all", "sigma3"),
+            n_bootstrap=args.bootstrap,
+            min_traces=1,
+            rng=1,
         )
         best = min(best, time.perf_counter() - t0)
         cpu = min(cpu, time.process_time() - c0)
     for d in result:
-        print(f"{d.misorientation}: {d.n_traces} traces, {d.n_boundaries} boundaries, "
-              f"peak {d.peak_mrd:.2f} ± {d.peak_mrd_sigma:.2f} MRD")
+        print(
+            f"{d.misorientation}: {d.n_traces} traces, {d.n_boundaries} boundaries, "
+            f"peak {d.peak_mrd:.2f} ± {d.peak_mrd_sigma:.2f} MRD"
+        )
     # CPU time is what one quiet core would take; wall time includes waiting for the core.
     print(f"{args.traces} traces: {best:.2f} s wall, {cpu:.2f} s CPU (best of {args.repeat})")
 

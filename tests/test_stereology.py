@@ -23,16 +23,21 @@ from inclination.io.schemas import load_schema
 from inclination.stereology import (
     HemisphereGrid,
     MisorientationClass,
-    plane_distribution,
     accumulation_kernel,
+    plane_distribution,
     remove_background,
     zone_accumulation,
 )
 from inclination.stereology.outputs import distribution_document, write_stereology
 from inclination.stereology.stereogram import project, unproject
 
-CU = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90),
-           ("{1 1 1}", "{1 0 0}", "{1 1 0}"))
+CU = Phase(
+    1,
+    "Cu",
+    "m-3m",
+    Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90),
+    ("{1 1 1}", "{1 0 0}", "{1 1 0}"),
+)
 
 
 def _uniform_tables(n_boundaries, *, per_boundary=2, rng, n_grains=400):
@@ -42,15 +47,22 @@ def _uniform_tables(n_boundaries, *, per_boundary=2, rng, n_grains=400):
     are uniform on the sphere, the traces of a random set of planes.
     """
     gen = np.random.default_rng(rng)
-    grains = {"grain_id": np.arange(1, n_grains + 1), "phase": np.ones(n_grains, int),
-              "quat": random_quat(n_grains, rng=gen)}
+    grains = {
+        "grain_id": np.arange(1, n_grains + 1),
+        "phase": np.ones(n_grains, int),
+        "quat": random_quat(n_grains, rng=gen),
+    }
     pairs = gen.choice(n_grains, size=(n_boundaries, 2), replace=True)
     pairs = pairs[pairs[:, 0] != pairs[:, 1]]
     rows = np.repeat(pairs, per_boundary, axis=0)
     n = len(rows)
-    segments = {"grain_a": rows[:, 0] + 1, "grain_b": rows[:, 1] + 1,
-                "trace_angle_deg": gen.uniform(0, 180, n), "length_um": gen.uniform(2, 20, n),
-                "is_phase_boundary": np.zeros(n, bool)}
+    segments = {
+        "grain_a": rows[:, 0] + 1,
+        "grain_b": rows[:, 1] + 1,
+        "trace_angle_deg": gen.uniform(0, 180, n),
+        "length_um": gen.uniform(2, 20, n),
+        "is_phase_boundary": np.zeros(n, bool),
+    }
     return segments, grains
 
 
@@ -124,8 +136,14 @@ def test_bootstrap_sigma_matches_the_scatter_over_independent_sections():
     # Calibration by simulation: 12 independent samples of uniform planes; the bootstrap σ
     # of each bin against the spread of λ between samples.
     runs = [
-        plane_distribution(*_uniform_tables(500, rng=100 + i), [CU], min_traces=100,
-                           n_bootstrap=60, rng=i, resolution_deg=15.0)[0]
+        plane_distribution(
+            *_uniform_tables(500, rng=100 + i),
+            [CU],
+            min_traces=100,
+            n_bootstrap=60,
+            rng=i,
+            resolution_deg=15.0,
+        )[0]
         for i in range(12)
     ]
     mrd = np.array([r.mrd for r in runs])
@@ -142,8 +160,11 @@ def test_relabelling_grains_by_symmetry_changes_nothing():
     ops = proper_rotations("m-3m")[gen.integers(0, 24, len(grains["quat"]))]
     relabelled = {**grains, "quat": quat_multiply(ops, grains["quat"])}
     kw = {"classes": ("all", "sigma3"), "min_traces": 1, "n_bootstrap": 20, "rng": 4}
-    for a, b in zip(plane_distribution(segments, grains, [CU], **kw),
-                    plane_distribution(segments, relabelled, [CU], **kw), strict=True):
+    for a, b in zip(
+        plane_distribution(segments, grains, [CU], **kw),
+        plane_distribution(segments, relabelled, [CU], **kw),
+        strict=True,
+    ):
         assert a.n_traces == b.n_traces
         assert_allclose(a.mrd, b.mrd, rtol=0, atol=1e-9)
         assert_allclose(a.mrd_sigma, b.mrd_sigma, rtol=0, atol=1e-6)
@@ -161,13 +182,21 @@ def test_single_twin_plane_peaks_at_111():
     keep = np.abs(n_s[:, 2]) < 0.95
     t = np.cross([0.0, 0.0, 1.0], n_s[keep])  # §5: t = Z_S × n_S
     m = int(keep.sum())
-    grains = {"grain_id": np.arange(1, 2 * m + 1), "phase": np.ones(2 * m, int),
-              "quat": np.concatenate([parent[keep], twin[keep]])}
-    segments = {"grain_a": np.arange(1, m + 1), "grain_b": np.arange(m + 1, 2 * m + 1),
-                "trace_angle_deg": np.rad2deg(np.arctan2(t[:, 1], t[:, 0])) % 180,
-                "length_um": np.ones(m), "is_phase_boundary": np.zeros(m, bool)}
-    (d,) = plane_distribution(segments, grains, [CU], classes=("sigma3",), min_traces=100,
-                              n_bootstrap=20, rng=0)
+    grains = {
+        "grain_id": np.arange(1, 2 * m + 1),
+        "phase": np.ones(2 * m, int),
+        "quat": np.concatenate([parent[keep], twin[keep]]),
+    }
+    segments = {
+        "grain_a": np.arange(1, m + 1),
+        "grain_b": np.arange(m + 1, 2 * m + 1),
+        "trace_angle_deg": np.rad2deg(np.arctan2(t[:, 1], t[:, 0])) % 180,
+        "length_um": np.ones(m),
+        "is_phase_boundary": np.zeros(m, bool),
+    }
+    (d,) = plane_distribution(
+        segments, grains, [CU], classes=("sigma3",), min_traces=100, n_bootstrap=20, rng=0
+    )
     assert d.n_traces == m
     assert d.peak_indices == "(1 1 1)"
     assert d.peak_offset_deg <= d.grid.resolution_deg
@@ -198,8 +227,9 @@ def test_too_few_traces_give_a_note_and_no_distribution():
 def test_axis_angle_class_selects_twins_like_sigma3():
     segments, grains = _uniform_tables(60, rng=7)
     spec = {"axis": [1, 1, 1], "angle_deg": 60.0, "tolerance_deg": 8.66}
-    a, b = plane_distribution(segments, grains, [CU], classes=("sigma3", spec), min_traces=1,
-                              n_bootstrap=5, rng=0)
+    a, b = plane_distribution(
+        segments, grains, [CU], classes=("sigma3", spec), min_traces=1, n_bootstrap=5, rng=0
+    )
     # Brandon's limit for Σ3 is 15°/√3 = 8.66° (Brandon 1966): the two classes coincide.
     assert a.n_traces == b.n_traces
 
@@ -218,8 +248,9 @@ def test_projections_round_trip_and_put_the_equator_on_the_unit_circle():
 
 def test_written_document_follows_its_schema(tmp_path):
     segments, grains = _uniform_tables(300, rng=2)
-    results = plane_distribution(segments, grains, [CU], classes=("all", "sigma3"),
-                                 min_traces=50, n_bootstrap=10, rng=0)
+    results = plane_distribution(
+        segments, grains, [CU], classes=("all", "sigma3"), min_traces=50, n_bootstrap=10, rng=0
+    )
     settings = {"projection": "equal-area", "weighting": "length", "both_sides": True}
     files = write_stereology(results, [CU], tmp_path, settings=settings, standalone=True)
     doc = json.loads((tmp_path / "plane_distribution.json").read_text())

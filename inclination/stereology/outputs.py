@@ -128,7 +128,10 @@ def _write_figures(d, phase, out_dir: Path, projection: str):
 def _lines(results) -> list[str]:
     lines = []
     for d in results:
-        head = f"phase {d.phase}, {d.misorientation}: {d.n_traces} traces on {d.n_boundaries} boundaries"
+        head = (
+            f"phase {d.phase}, {d.misorientation}: {d.n_traces} traces on "
+            f"{d.n_boundaries} boundaries"
+        )
         if d.mrd is None:
             lines.append(f"{head}. {d.note}")
         else:
@@ -244,4 +247,3 @@ def write_stereology(results, phases, out_dir, *, settings: dict, standalone: bo
         cut = cut if cut >= 0 else text.rfind("</body>")
         write_text_atomic(report_html, text[:cut] + page + "\n" + text[cut:])
     return files
-

@@ -71,12 +71,18 @@ def _smoothed_field(dist, normals: np.ndarray) -> np.ndarray:
 
 
 def _poles(phase):
-    from ..crystal.lattice import expand_family, format_indices, parse_indices, plane_normals_crystal
+    from ..crystal.lattice import (
+        expand_family,
+        format_indices,
+        parse_indices,
+        plane_normals_crystal,
+    )
 
     out = []
     for family in phase.families:
-        members = expand_family(phase.lattice, parse_indices(family).values, phase.laue,
-                                kind="plane")
+        members = expand_family(
+            phase.lattice, parse_indices(family).values, phase.laue, kind="plane"
+        )
         normals = plane_normals_crystal(phase.lattice, members)
         for row, n in zip(members, normals, strict=True):
             # The upper-hemisphere image of each plane; one on the equator shows at ±n.
@@ -86,7 +92,9 @@ def _poles(phase):
     return out
 
 
-def plot_stereogram(dist, phase, *, projection: str = "stereographic", ax=None, n_pixels: int = 201):
+def plot_stereogram(
+    dist, phase, *, projection: str = "stereographic", ax=None, n_pixels: int = 201
+):
     """Draw one distribution: filled MRD contours, contour lines and the phase's poles.
 
     Parameters
@@ -129,22 +137,30 @@ def plot_stereogram(dist, phase, *, projection: str = "stereographic", ax=None, 
     if projection not in PROJECTIONS:
         raise ValueError(f"Expected `projection` to be one of {PROJECTIONS}, got {projection!r}.")
     if dist.mrd is None:
-        raise ValueError("Expected a distribution with MRD values, got one without (too few traces).")
+        raise ValueError(
+            "Expected a distribution with MRD values, got one without (too few traces)."
+        )
     if ax is None:
         _, ax = plt.subplots(figsize=(5.2, 4.6))
     u = np.linspace(-1.0, 1.0, n_pixels)
     xx, yy = np.meshgrid(u, u)
     inside = xx**2 + yy**2 <= 1.0
     field = np.full(xx.shape, np.nan)
-    field[inside] = _smoothed_field(dist, unproject(np.stack([xx[inside], yy[inside]], 1), projection))
+    field[inside] = _smoothed_field(
+        dist, unproject(np.stack([xx[inside], yy[inside]], 1), projection)
+    )
     top = max(float(np.nanmax(field)), 1.5)
-    levels = np.unique(np.r_[np.linspace(min(0.0, float(np.nanmin(field))), 1.0, 3), np.geomspace(1.0, top, 8)])
+    levels = np.unique(
+        np.r_[np.linspace(min(0.0, float(np.nanmin(field))), 1.0, 3), np.geomspace(1.0, top, 8)]
+    )
     filled = ax.contourf(xx, yy, field, levels=levels, cmap="cividis", extend="neither")
     lines = ax.contour(xx, yy, field, levels=levels, colors="k", linewidths=0.4)
     ax.add_patch(plt.Circle((0, 0), 1.0, fill=False, color="k", linewidth=1.0))
     poles = _poles(phase)
     xy = project(np.array([v for _, v in poles]), projection) if poles else np.zeros((0, 2))
-    scatter = ax.scatter(xy[:, 0], xy[:, 1], s=14, marker="s", facecolor="white", edgecolor="k", zorder=3)
+    scatter = ax.scatter(
+        xy[:, 0], xy[:, 1], s=14, marker="s", facecolor="white", edgecolor="k", zorder=3
+    )
     labels = [
         ax.annotate(label, (x, y), xytext=(4, 4), textcoords="offset points", fontsize=6, zorder=4)
         for (label, _), (x, y) in zip(poles, xy, strict=True)
@@ -160,4 +176,10 @@ def plot_stereogram(dist, phase, *, projection: str = "stereographic", ax=None, 
         "(X_C right, Y_C up)",
         fontsize=8,
     )
-    return {"filled": filled, "lines": lines, "poles": scatter, "labels": labels, "colorbar": colorbar}
+    return {
+        "filled": filled,
+        "lines": lines,
+        "poles": scatter,
+        "labels": labels,
+        "colorbar": colorbar,
+    }
