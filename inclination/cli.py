@@ -54,6 +54,11 @@ def _build_parser() -> argparse.ArgumentParser:
         "report", help="write report.html and report.md again from a finished run's folder"
     )
     report.add_argument("run", help="output folder of an earlier analyse run")
+    stereology = sub.add_parser(
+        "stereology", help="grains and traces, then the plane distribution by stereology"
+    )
+    stereology.add_argument("job", help="job file (JSON)")
+    _add_common(stereology, default_out="inclination-stereology")
     return parser
 
 
@@ -82,6 +87,10 @@ def _dispatch(args) -> int:
         )
     elif args.command == "report":
         result = pipeline.rebuild_report(args.run)
+    elif args.command == "stereology":
+        result = pipeline.stereology(
+            args.job, args.out, overwrite=args.overwrite, progress=progress
+        )
     else:
         stage = "sections" if args.command == "analyse" else args.command
         result = pipeline.analyse(

@@ -496,6 +496,7 @@ def analyse(
     with staged_output_dir(out, overwrite=overwrite) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
         files, summary = write_outputs(analysis, stage_dir)
+        files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
     return RunResult(out, files, tuple(_messages(summary, out)), summary)
 
@@ -692,3 +693,42 @@ def _summary_base(analysis: Analysis) -> dict:
         },
         "stage": analysis.stage,
     }
+
+
+# ----------------------------------------------------------------------------- stereology
+
+
+def _stereology_outputs(analysis: Analysis, out_dir, *, standalone: bool) -> list:
+    """The job's stereology block on the surface traces: files written (none without it)."""
+    if "stereology" not in analysis.job.raw or analysis.segments is None:
+        return []
+    from .stereology.outputs import run_from_job, write_stereology
+
+    results, settings = run_from_job(analysis.job, analysis.segments, analysis.grain_map.grains)
+    return write_stereology(
+        results, analysis.job.phases, Path(out_dir), settings=settings, standalone=standalone
+    )
+
+
+def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> RunResult:
+    """Grains and traces of the job's surface map, then only the plane distribution.
+
+    Writes ``plane_distribution.json``, the stereograms and ``stereology.md``/``.html``;
+    the job's ``stereology`` block may be absent (its defaults are then used).
+    """
+    from .io.job import load_job
+    from .report._io import staged_output_dir
+
+    job = load_job(job_path)
+    if "stereology" not in job.raw:
+        from .io.job import job_from_dict
+
+        job = job_from_dict(
+            {**job.raw, "stereology": {}}, base_dir=job.base_dir, path_for_errors=job.source_path
+        )
+    out = Path(out_dir)
+    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+        analysis = run(job, stage="traces", progress=progress)
+        files = _stereology_outputs(analysis, stage_dir, standalone=True)
+    lines = [f"{out}: plane_distribution.json and {len(files) - 3} stereogram files"]
+    return RunResult(out, tuple(out / Path(f).name for f in files), tuple(lines))
