@@ -235,10 +235,16 @@ def neighbour_shifts(grid: str, w: int) -> tuple[tuple[int, int], ...]:
     return ((1, -1), (w, -1), (w - 1, 0), (w + 1, 1))
 
 
-def _pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndarray:
-    """Which flat indices ``k`` have an in-map forward neighbour ``k + shift``."""
+def _pair_mask(
+    k: np.ndarray, shift: int, parity: int, h: int, w: int, *, horizontal: bool
+) -> np.ndarray:
+    """Which flat indices ``k`` have an in-map forward neighbour ``k + shift``.
+
+    ``horizontal`` says the shift is the (0, +1) one: in a map one point wide the
+    down shift is also 1, so the value alone cannot tell them apart.
+    """
     i, j = np.divmod(k, w)
-    ok = i < h - 1 if shift != 1 else j < w - 1
+    ok = j < w - 1 if horizontal else i < h - 1
     if shift == w - 1 and parity == 0:
         ok &= (j > 0) & (i % 2 == 0)
     elif shift == w + 1 and parity == 1:
@@ -282,8 +288,13 @@ def _disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -
     return symmetry.max_scalar_part(dq, info.laue, setting=info.setting)
 
 
-def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, progress):
-    """Fill ``out[k]`` (bool, N) with the link between k and its neighbour k + shift."""
+def _link_kernel(
+    q, code, usable, infos, cos_half, shift, parity, h, w, out, progress, *, horizontal
+):
+    """Fill ``out[k]`` (bool, N) with the link between k and its neighbour k + shift.
+
+    ``horizontal`` marks the (0, +1) shift (see :func:`_pair_mask`).
+    """
     n_points = q.shape[1]
     stop_all = max(n_points - shift, 0)
     out[stop_all:] = False
@@ -329,7 +340,7 @@ def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, pro
             progress(e / n_points)
     # Pairs that wrap round a row end, or hexagonal diagonals of the wrong row parity.
     grid2 = out.reshape(h, w)
-    if shift == 1:
+    if horizontal:
         grid2[:, w - 1] = False
     elif parity == 0:
         grid2[1::2] = False
@@ -770,7 +781,9 @@ def segment_grains(
             def prog(f, m=m):
                 progress(0.6 * (m + f) / len(shifts))
 
-        _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, prog)
+        _link_kernel(
+            q, code, usable, infos, cos_half, shift, parity, h, w, out, prog, horizontal=m == 0
+        )
         links.append(out)
     h_link = links[0]
     run_id, run_pos, run_len, _ = _runs(usable, h_link)

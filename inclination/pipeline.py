@@ -493,12 +493,25 @@ def analyse(
 
     job = load_job(job_path)
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    notes: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+    ) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
         files, summary = write_outputs(analysis, stage_dir)
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
-    return RunResult(out, files, tuple(_messages(summary, out)), summary)
+    return RunResult(out, files, tuple(notes + _messages(summary, out)), summary)
+
+
+def _input_files(job) -> list:
+    """Every file the job reads: the output folder must not be or hold their folders."""
+    files = [job.source_path, job.map.get("path"), job.map.get("sidecar")]
+    for section in job.sections:
+        spec = section.get("map")
+        if isinstance(spec, dict):
+            files += [spec.get("path"), spec.get("sidecar")]
+    return [f for f in files if f]
 
 
 def _messages(summary, out):
@@ -541,8 +554,8 @@ def demo(
     from .report._io import staged_output_dir
 
     out = Path(out_dir)
-    messages = []
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    messages: list = []
+    with staged_output_dir(out, overwrite=overwrite, notes=messages) as stage_dir:
         paths = write_demo_scenario(stage_dir / "scenario", seed=seed)
         summaries = {}
         for key, folder in (("job", "results"), ("job_z180", "results-turned-frame")):
@@ -727,8 +740,11 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
             {**job.raw, "stereology": {}}, base_dir=job.base_dir, path_for_errors=job.source_path
         )
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    lines: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=lines
+    ) as stage_dir:
         analysis = run(job, stage="traces", progress=progress)
         files = _stereology_outputs(analysis, stage_dir, standalone=True)
-    lines = [f"{out}: plane_distribution.json and {len(files) - 3} stereogram files"]
+    lines.append(f"{out}: plane_distribution.json and {len(files) - 3} stereogram files")
     return RunResult(out, tuple(out / Path(f).name for f in files), tuple(lines))
