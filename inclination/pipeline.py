@@ -162,6 +162,19 @@ def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
         )
     finally:
         close()
+    if grain_map.n_grains == 0:
+        # Nothing downstream means anything without grains; the settings are the usual
+        # cause (a serial section's phases check would otherwise take the blame).
+        c = grain_map.cleanup
+        raise InputError(
+            f"Expected the {label} map to give at least one grain, got none with "
+            f"threshold_deg = {g['threshold_deg']} and min_pixels = {g['min_pixels']} "
+            f"({int(np.count_nonzero(np.asarray(omap.valid)))} indexed points, "
+            f"{c.get('grains_dissolved', 0)} grains dissolved as too small); lower "
+            "min_pixels or raise threshold_deg.",
+            path=job.source_path,
+            pointer="/grains",
+        )
     if stage_i < 1:
         return grain_map, None, None, None
     low_angle = g["low_angle_deg"] if subgrains and g.get("subgrain_network") else None

@@ -335,7 +335,10 @@ def staged_output_dir(out_dir, *, overwrite: bool = False, inputs=(), notes=None
     """
     notes = [] if notes is None else notes
     out = Path(os.path.abspath(out_dir))
-    _check_out_path(out, inputs)
+    try:
+        _check_out_path(out, inputs)
+    except OSError as exc:
+        raise _os_error(exc, out) from None
     created = stage = lock = None
     try:
         try:
