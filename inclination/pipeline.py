@@ -614,43 +614,80 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     >>> [p.name for p in rebuild_report(folder / "out").files]
     ['report.html', 'report.md']
     """
-    import json
 
+    from .io.limits import check_regular_file, read_json
     from .report.columns import BOUNDARY_COLUMNS
     from .report.document import write_report
 
     folder = Path(run_dir)
+    if not folder.is_dir():
+        raise InputError(
+            "Expected the output folder of an earlier run, got no folder.", path=folder
+        )
     docs = {}
     for name in ("summary.json", "boundaries.json"):
         path = folder / name
-        try:
-            docs[name] = json.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
+        if not os.path.lexists(path):
             raise InputError(
                 "Expected the output folder of an analyse or planes run, got a folder "
                 f"without {name}.",
                 path=path,
-            ) from None
-        except (OSError, ValueError) as exc:
-            raise InputError(f"Expected a readable JSON file, got {exc}.", path=path) from None
+            )
+        docs[name] = read_json(path, kind="run")
+        if not isinstance(docs[name], dict):
+            raise InputError(f"Expected a JSON object, got {type(docs[name]).__name__}.", path=path)
     rows = docs["boundaries.json"].get("rows")
-    if not isinstance(rows, list):
+    if not isinstance(rows, list) or not all(isinstance(r, dict) for r in rows):
         raise InputError(
-            "Expected a list of rows, got none.", path=folder / "boundaries.json", pointer="/rows"
+            "Expected a list of rows (objects), got none.",
+            path=folder / "boundaries.json",
+            pointer="/rows",
         )
     table = {}
     for c in BOUNDARY_COLUMNS:
         values = [r.get(c.name) for r in rows]
-        if c.kind == "float":
-            table[c.name] = np.array([np.nan if v is None else v for v in values], float)
-        elif c.kind == "int":
-            table[c.name] = np.array([-1 if v is None else v for v in values], int)
-        else:
-            table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
+        table[c.name] = _run_column(values, c, folder / "boundaries.json")
     png = folder / "boundaries.png"
-    figure = png.read_bytes() if png.exists() else None
-    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure)
+    figure = None
+    if os.path.lexists(png):
+        check_regular_file(png, kind="run")
+        figure = png.read_bytes()
+    try:
+        files = write_report(
+            folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure
+        )
+    except (TypeError, KeyError, AttributeError, ValueError, IndexError) as exc:
+        # An edited summary.json: its parts have the wrong types for the report.
+        raise InputError(
+            f"Expected summary.json as a run wrote it, got a part of the wrong type "
+            f"({type(exc).__name__}).",
+            path=folder / "summary.json",
+        ) from None
     return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
+
+
+def _run_column(values: list, column, path) -> np.ndarray:
+    """One column of an earlier run's boundaries.json, its types checked."""
+    kinds = {"float": (int, float), "int": (int,), "str": (str,)}.get(column.kind, (str,))
+    for i, v in enumerate(values):
+        if v is not None and (not isinstance(v, kinds) or isinstance(v, bool)):
+            raise InputError(
+                f"Expected {column.name!r} to be {column.kind} or null, got {type(v).__name__}.",
+                path=path,
+                pointer=f"/rows/{i}/{column.name}",
+            )
+    if column.kind == "float":
+        return np.array([np.nan if v is None else v for v in values], float)
+    if column.kind == "int":
+        ints = [-1 if v is None else v for v in values]
+        if any(abs(v) > np.iinfo(np.int64).max for v in ints):
+            raise InputError(
+                f"Expected {column.name!r} to fit 64-bit integers, got a larger one.",
+                path=path,
+                pointer=f"/rows/*/{column.name}",
+            )
+        return np.array(ints, np.int64)
+    return np.array(["" if v is None else v for v in values], dtype=object)
 
 
 # ----------------------------------------------------------------------------- outputs

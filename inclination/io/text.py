@@ -183,13 +183,10 @@ def read_table(
     >>> t.header, t.values.tolist(), t.first_line
     (('a', 'b'), [[1.0, 2.0], [3.0, nan]], 2)
     """
+    from .limits import read_bytes
+
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("Expected an existing file, got none at this path.", path=path) from None
-    except OSError as exc:
-        raise InputError(f"Expected a readable file, got {exc.strerror}.", path=path) from None
+    raw = read_bytes(path, kind="map")
     # hashlib releases the GIL on large buffers: the digest is computed while
     # numpy parses the same bytes.
     hasher = ThreadPoolExecutor(max_workers=1)
