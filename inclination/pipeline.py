@@ -564,7 +564,7 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report._io import staged_output_dir, write_json_atomic
 
     out = Path(out_dir)
     messages: list = []
@@ -576,11 +576,25 @@ def demo(
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
             _, summary = write_outputs(analysis, stage_dir / folder)
+            summary = _relocated(summary, stage_dir, out)
+            write_json_atomic(stage_dir / folder / "summary.json", summary)
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
     messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
     messages.append(f"open {out / 'results' / 'report.html'} for the report")
     return RunResult(out, (), tuple(messages), summaries)
+
+
+def _relocated(doc, stage_dir: Path, out: Path):
+    """``doc`` with paths inside the staging folder named at their final place."""
+    stage, final = str(Path(stage_dir).resolve()), str(Path(out).resolve())
+    if isinstance(doc, dict):
+        return {k: _relocated(v, stage_dir, out) for k, v in doc.items()}
+    if isinstance(doc, list):
+        return [_relocated(v, stage_dir, out) for v in doc]
+    if isinstance(doc, str) and doc.startswith(stage):
+        return final + doc[len(stage) :]
+    return doc
 
 
 def rebuild_report(run_dir: str | os.PathLike) -> RunResult:

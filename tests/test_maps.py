@@ -673,7 +673,9 @@ def test_phase_id_not_in_the_job(tmp_path):
     ):
         read_map(spec_for(path), phase_ids=[1, 2])
     bad = small_csv(tmp_path, ["0,0,1,2,3,1.5"], name="b.csv")
-    with pytest.raises(InputError, match="Expected phase ids to be whole numbers >= 0"):
+    with pytest.raises(
+        InputError, match=r"Expected phase ids to be whole numbers >= 0 and < 2\^31"
+    ):
         read_map(spec_for(bad, step_um=1))
 
 

@@ -168,9 +168,7 @@ def read_npz_arrays(
 
 def read_sidecar(path: str | PathLike) -> dict:
     """Read and validate a TIFF sidecar (schemas/tiff-sidecar.schema.json)."""
-    from jsonschema import Draft202012Validator
-
-    from .limits import read_json
+    from .limits import read_json, schema_validator
 
     if not Path(path).exists():
         raise InputError(
@@ -178,7 +176,7 @@ def read_sidecar(path: str | PathLike) -> dict:
             path=path,
         )
     doc = read_json(path, kind="sidecar")
-    validator = Draft202012Validator(load_schema("tiff-sidecar.schema.json"))
+    validator = schema_validator(load_schema("tiff-sidecar.schema.json"))
     errors = sorted(validator.iter_errors(doc), key=lambda e: list(e.absolute_path))
     if errors:
         err = errors[0]

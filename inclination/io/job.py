@@ -169,7 +169,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
     >>> job.phase_ids, job.planes["sigma_criterion"], job.sections
     ((1,), 'brandon', ())
     """
-    from jsonschema import Draft202012Validator
+    from .limits import schema_validator
 
     if not isinstance(d, Mapping):
         raise InputError(
@@ -179,7 +179,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         )
     doc = copy.deepcopy(dict(d))
     schema = load_schema("job.schema.json")
-    validator = Draft202012Validator(schema)
+    validator = schema_validator(schema)
     errors = list(validator.iter_errors(doc))
     if errors:
         raise _schema_error(_pick(errors), path_for_errors)

@@ -24,6 +24,7 @@ __all__ = [
     "loads_json",
     "read_bytes",
     "read_json",
+    "schema_validator",
 ]
 
 # Bytes allowed per kind of file. A job or sidecar is a hand-written page; a run folder's
@@ -149,7 +150,11 @@ def _parse_int(text):
     digits = len(text.lstrip("-"))
     if digits > _MAX_INT_DIGITS:
         raise _Refused(f"Expected a number a float can hold, got an integer of {digits} digits")
-    return int(text)
+    value = int(text)
+    if abs(value) >= 2**63:
+        # Counts, ids and seeds end up in 64-bit integers; beyond, they overflow there.
+        raise _Refused(f"Expected an integer within ±2^63, got one of {digits} digits")
+    return value
 
 
 def _parse_float(text):
@@ -214,6 +219,28 @@ def loads_json(text: str, *, path=None):
             f"Expected JSON nested at most {MAX_JSON_DEPTH} levels deep, got deeper.", path=path
         )
     return doc
+
+
+def _strict_integer(_checker, value) -> bool:
+    # JSON Schema counts 1e308 (a float with no fraction) as an integer; the code that
+    # uses an integer field cannot, so only integer literals are integers here.
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+def schema_validator(schema: dict):
+    """A JSON Schema (2020-12) validator whose ``integer`` means an integer literal.
+
+    Examples
+    --------
+    >>> v = schema_validator({"type": "integer"})
+    >>> v.is_valid(3), v.is_valid(3.0), v.is_valid(1e308)
+    (True, False, False)
+    """
+    from jsonschema import Draft202012Validator, validators
+
+    checker = Draft202012Validator.TYPE_CHECKER.redefine("integer", _strict_integer)
+    cls = validators.extend(Draft202012Validator, type_checker=checker)
+    return cls(schema)
 
 
 def read_json(path, *, kind: str):
