@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from .maps import write_npz
-from .report._io import write_json_atomic
+from .report.atomic import write_json_atomic
 from .synthetic import (
     as_orientation_map,
     cross_section_crossings,

@@ -397,7 +397,7 @@ def analyse(job_path, out_dir, *, stage: str = "sections", overwrite: bool = Fal
     RunResult
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     out = Path(out_dir)
@@ -431,7 +431,7 @@ def demo(out_dir, *, seed: int = 7, overwrite: bool = False, progress=None) -> R
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     out = Path(out_dir)
     messages = []

@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from inclination.errors import InputError
-from inclination.report._io import staged_output_dir, write_json_atomic
+from inclination.report.atomic import staged_output_dir, write_json_atomic
 from inclination.report.columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, Column
 from inclination.report.schemas import SCHEMAS, render
 from inclination.report.tables import (

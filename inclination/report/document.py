@@ -10,7 +10,7 @@ from __future__ import annotations
 import base64
 import html
 
-from ._io import write_text_atomic
+from .atomic import write_text_atomic
 from .tables import format_cell
 
 __all__ = ["render_html", "render_markdown", "write_report"]

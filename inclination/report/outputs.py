@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._io import write_json_atomic
+from .atomic import write_json_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
 from .tables import write_csv, write_latex, write_markdown, write_table_json

@@ -17,7 +17,7 @@ import re
 
 import numpy as np
 
-from ._io import _clean_json, write_text_atomic
+from .atomic import json_ready, write_text_atomic
 
 __all__ = [
     "format_cell",
@@ -129,7 +129,7 @@ def write_csv(path, table, columns):
 
 def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
     """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
-    head = _clean_json(
+    head = json_ready(
         {
             "schema_version": schema_version,
             "meta": meta,

@@ -17,7 +17,13 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["write_text_atomic", "write_bytes_atomic", "write_json_atomic", "staged_output_dir"]
+__all__ = [
+    "json_ready",
+    "staged_output_dir",
+    "write_bytes_atomic",
+    "write_json_atomic",
+    "write_text_atomic",
+]
 
 
 def _umask() -> int:
@@ -58,14 +64,22 @@ def _json_default(value):
     raise TypeError(f"Expected a JSON-serialisable value, got {type(value).__name__}.")
 
 
-def _clean_json(value):
-    """Replace NaN and infinities by None: JSON has no NaN, and absent is not a number."""
+def json_ready(value):
+    """Replace NaN and infinities by None: JSON has no NaN, and absent is not a number.
+
+    Dicts, lists, tuples and arrays are converted all the way down; keys become strings.
+
+    Examples
+    --------
+    >>> json_ready({"a": np.array([1.5, np.nan]), 2: (np.float32(np.inf), "x")})
+    {'a': [1.5, None], '2': [None, 'x']}
+    """
     if isinstance(value, dict):
-        return {str(k): _clean_json(v) for k, v in value.items()}
+        return {str(k): json_ready(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_clean_json(v) for v in value]
+        return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
-        return _clean_json(value.tolist())
+        return json_ready(value.tolist())
     if isinstance(value, np.generic):
         value = value.item()
     if isinstance(value, float) and not np.isfinite(value):
@@ -75,7 +89,7 @@ def _clean_json(value):
 
 def write_json_atomic(path, document) -> Path:
     """Write a JSON document atomically; NaN becomes null."""
-    text = json.dumps(_clean_json(document), indent=2, default=_json_default, allow_nan=False)
+    text = json.dumps(json_ready(document), indent=2, default=_json_default, allow_nan=False)
     return write_text_atomic(path, text + "\n")
 
 
