@@ -9,6 +9,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 
 import numpy as np
+from numpy.typing import ArrayLike, DTypeLike
 
 __all__ = [
     "as_float_array",
@@ -19,7 +20,7 @@ __all__ = [
 ]
 
 
-def as_float_array(value, name: str, *, dtype=np.float64) -> np.ndarray:
+def as_float_array(value: ArrayLike, name: str, *, dtype: DTypeLike = np.float64) -> np.ndarray:
     """Return ``value`` as a float array (a copy only when needed); TypeError for non-numbers."""
     try:
         arr = np.asarray(value, dtype=dtype)
@@ -36,7 +37,7 @@ def check_last_axis(arr: np.ndarray, name: str, size: int) -> None:
         raise ValueError(f"Expected `{name}` to have shape (..., {size}), got {arr.shape}.")
 
 
-def check_one_of(value, name: str, allowed: Iterable) -> None:
+def check_one_of(value: object, name: str, allowed: Iterable) -> None:
     """Raise ValueError unless ``value`` is one of a closed set of options."""
     allowed = tuple(allowed)
     if value not in allowed:

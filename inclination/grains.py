@@ -21,8 +21,9 @@ Work arrays are flat views of the (4, H, W) float32 planes taken in blocks of
 from __future__ import annotations
 
 import numbers
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy.sparse import coo_matrix
@@ -43,6 +44,10 @@ from .links import (
     point_xy_um,
     take_columns,
 )
+
+if TYPE_CHECKING:
+    from .crystal.lattice import Phase
+    from .maps import OrientationMap
 
 __all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
 
@@ -556,8 +561,8 @@ def _check_threshold(threshold_deg, infos):
 
 
 def segment_grains(
-    omap,
-    phases,
+    omap: OrientationMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
     *,
     threshold_deg: float = 5.0,
     min_pixels: int = 8,

@@ -14,12 +14,17 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 
 from ._validation import check_one_of
 from .crystal import symmetry
 from .errors import SettingError
+
+if TYPE_CHECKING:
+    from .maps import OrientationMap
 
 __all__ = [
     "BLOCK",
@@ -141,7 +146,7 @@ def phase_infos(phases: Iterable | Mapping) -> tuple[PhaseInfo, ...]:
     return tuple(infos)
 
 
-def map_planes(omap) -> MapPlanes:
+def map_planes(omap: OrientationMap) -> MapPlanes:
     """The map's quaternions as contiguous float32 (4, N) planes, with its grid.
 
     The one place the kernels read ``omap.quat``: converted once, and only when the
@@ -190,7 +195,7 @@ def map_planes(omap) -> MapPlanes:
     return MapPlanes(quat.reshape(4, h * w), int(h), int(w), str(omap.grid))
 
 
-def point_xy_um(omap, flat_index) -> tuple[np.ndarray, np.ndarray]:
+def point_xy_um(omap: OrientationMap, flat_index: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     """Positions in S (µm) of points given by flat index ``row·W + col`` (§1).
 
     Square: (col·step_x, row·step_y); hexagonal: rows step·√3/2 apart, odd rows shifted

@@ -17,7 +17,9 @@ and the order along each chain comes from pointer jumping (list ranking in
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -33,6 +35,11 @@ from .links import (
     phase_infos,
     take_columns,
 )
+
+if TYPE_CHECKING:
+    from .crystal.lattice import Phase
+    from .grains import GrainMap
+    from .maps import OrientationMap
 
 __all__ = ["BoundaryNetwork", "CHAIN_COLUMNS", "boundary_network"]
 
@@ -450,7 +457,13 @@ def _finish(parts, grain_phase, kind, low_angle=None):
 # ----------------------------------------------------------------------------- public
 
 
-def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> BoundaryNetwork:
+def boundary_network(
+    omap: OrientationMap,
+    grain_map: GrainMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
+    *,
+    low_angle_deg: float | None = None,
+) -> BoundaryNetwork:
     """Chains of boundary-edge midpoints between grains, broken at junctions (§1–§2).
 
     Parameters

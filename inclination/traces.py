@@ -50,9 +50,12 @@ The reported standard uncertainty is ``σ = sqrt(σ_grid² + σ_r²)``, in degre
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
@@ -63,6 +66,9 @@ from ._validation import (
     check_one_of,
     check_positive,
 )
+
+if TYPE_CHECKING:
+    from .network import BoundaryNetwork
 
 __all__ = [
     "GRIDS",
@@ -180,7 +186,7 @@ def _check_points(points, name: str) -> np.ndarray:
     return pts
 
 
-def fit_line_tls(points) -> LineFit:
+def fit_line_tls(points: ArrayLike) -> LineFit:
     """Fit a straight line by total least squares (orthogonal regression).
 
     Parameters
@@ -242,7 +248,15 @@ def _principal_axis(sxx, syy, sxy):
     return theta, np.maximum(half_trace - radius, 0.0), half_trace + radius
 
 
-def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None, grid="square"):
+def trace_sigma_model_deg(
+    length_um: ArrayLike,
+    step_um: float,
+    residual_um: ArrayLike,
+    n: ArrayLike,
+    *,
+    angle_deg: ArrayLike | None = None,
+    grid: str = "square",
+) -> np.ndarray:
     """Standard uncertainty of a fitted trace angle: grid quantisation plus roughness.
 
     ``σ² = σ_q² + [near a row]·σ_h² + σ_r²`` (module docstring): ``σ_q =
@@ -363,7 +377,7 @@ def _ramer_douglas_peucker(points, starts, ends, tolerance):
     return np.unique(np.concatenate(kept))
 
 
-def split_polyline(points, tolerance_um, *, closed=False):
+def split_polyline(points: ArrayLike, tolerance_um: float, *, closed: bool = False) -> np.ndarray:
     """Indices where a polyline bends by more than a tolerance (Ramer–Douglas–Peucker).
 
     The polyline is split at the point farthest from the chord between its ends
@@ -612,7 +626,14 @@ def _fit_pieces(pts, piece_start, piece_end, at_chain_end, next_piece, reach):
     }
 
 
-def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, grid="square"):
+def fit_segments(
+    network: BoundaryNetwork,
+    *,
+    step_um: float,
+    tolerance_um: float | None = None,
+    min_length_um: float | None = None,
+    grid: str = "square",
+) -> dict[str, np.ndarray]:
     """Split every boundary chain into straight segments and fit each one.
 
     Parameters
@@ -734,7 +755,9 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     return table
 
 
-def group_collinear(segments, *, max_offset_um, n_sigma=3.0):
+def group_collinear(
+    segments: Mapping[str, np.ndarray], *, max_offset_um: float, n_sigma: float = 3.0
+) -> np.ndarray:
     """Label segments that are collinear pieces of one straight boundary.
 
     A junction artefact (a stray pixel, a tiny grain) can break one straight

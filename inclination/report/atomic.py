@@ -11,6 +11,7 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -32,7 +33,7 @@ def _umask() -> int:
     return current
 
 
-def write_bytes_atomic(path, data: bytes) -> Path:
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
@@ -49,7 +50,7 @@ def write_bytes_atomic(path, data: bytes) -> Path:
     return path
 
 
-def write_text_atomic(path, text: str) -> Path:
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
     """Write UTF-8 text atomically (see :func:`write_bytes_atomic`)."""
     return write_bytes_atomic(path, text.encode("utf-8"))
 
@@ -64,7 +65,7 @@ def _json_default(value):
     raise TypeError(f"Expected a JSON-serialisable value, got {type(value).__name__}.")
 
 
-def json_ready(value):
+def json_ready(value: object) -> object:
     """Replace NaN and infinities by None: JSON has no NaN, and absent is not a number.
 
     Dicts, lists, tuples and arrays are converted all the way down; keys become strings.
@@ -87,14 +88,14 @@ def json_ready(value):
     return value
 
 
-def write_json_atomic(path, document) -> Path:
+def write_json_atomic(path: str | os.PathLike, document: object) -> Path:
     """Write a JSON document atomically; NaN becomes null."""
     text = json.dumps(json_ready(document), indent=2, default=_json_default, allow_nan=False)
     return write_text_atomic(path, text + "\n")
 
 
 @contextlib.contextmanager
-def staged_output_dir(out_dir, *, overwrite: bool = False):
+def staged_output_dir(out_dir: str | os.PathLike, *, overwrite: bool = False) -> Iterator[Path]:
     """Yield a fresh staging folder that replaces ``out_dir`` only when the block succeeds.
 
     An existing, non-empty ``out_dir`` is refused unless ``overwrite`` is true;
