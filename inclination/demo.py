@@ -103,8 +103,8 @@ def _map_entry(path: str) -> dict:
 
 
 def _write_npz(path: Path, sample) -> Path:
-    # The npz form of design.md "Map files" (euler_deg (H, W, 3), phase (H, W), 0 = not
-    # indexed), written by the map module's writer; the declared axes are S itself.
+    # The npz map form inclination.maps.read_map reads (euler_deg (H, W, 3), phase (H, W),
+    # 0 = not indexed), written by the map module's writer; the declared axes are S itself.
     return write_npz(path, as_orientation_map(sample))
 
 

@@ -12,7 +12,7 @@ A boundary drawn on a grid of step ``s`` is a staircase: its edge midpoints sit
 off the true line by a deterministic, grid-locked amount. Treating those
 offsets as uniform noise of variance s²/12 on ``n ≈ L/s`` points spread over a
 length ``L`` gives the TLS slope variance ``12·(s²/12)/(n·L²)``, that is the
-quantisation term quoted in issue 4,
+quantisation term
 
     σ_q = c · (s / L)^1.5   rad.
 

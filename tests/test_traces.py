@@ -288,7 +288,7 @@ def test_bicrystal_one_segment_at_its_angle(angle_deg, grid):
     assert len(seg["segment_id"]) == 1
     err = abs(angle_error_deg(seg["trace_angle_deg"][0], angle_deg))
     # The quantisation bound: within 3σ of the model, and never worse than the
-    # (s/L)^1.5-rad scale quoted in issue 4 times 3.
+    # (s/L)^1.5-rad quantisation scale (inclination.traces, module docstring) times 3.
     assert err <= 3 * seg["trace_sigma_deg"][0] + 1e-9
     assert err <= 3 * np.degrees((0.5 / seg["length_um"][0]) ** 1.5) + 1e-9
     assert not seg["too_short"][0]
@@ -477,7 +477,7 @@ def test_sigma_model_matches_rms_error_on_random_boundaries(grid):
 
 
 def test_rms_error_against_published_simulation_square():
-    # Published simulation quoted in issue 4 (publication not named there): RMS angle
+    # A published simulation whose source was not recorded (so: from memory): RMS angle
     # error of straight boundaries on square grids 1.6° at L/s = 10, 0.60° at 20, 0.15°
     # at 50. Computed here with the TLS fit on edge midpoints: 1.59°, 0.53°, 0.150° (this
     # test, 400 boundaries each); 1.62°, 0.57°, 0.148° with 1000 each (benchmarks/).

@@ -47,7 +47,7 @@ __all__ = [
 #: Default delimiter of each table format (None: any run of spaces or tabs).
 TABLE_DELIMITERS = {"csv": ",", "tsv": "\t", "text": None}
 
-# Coordinates may sit off their grid point by this fraction of a step (issue 3, §2).
+# Coordinates may sit off their grid point (conventions §1) by this fraction of a step.
 _OFF_GRID_FRACTION = 0.01
 _SQRT3_2 = np.sqrt(3.0) / 2.0
 
