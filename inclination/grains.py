@@ -606,11 +606,13 @@ def segment_grains(
     Raises
     ------
     SettingError
-        If ``threshold_deg`` is <= 0 or >= the largest disorientation of a phase.
+        If ``threshold_deg`` is <= 0 or >= the largest disorientation of a phase,
+        ``min_pixels`` < 1, ``small_grains`` not one of its options, or ``phases``
+        empty or with repeated ids.
     InputError
         If the map has no valid point, or a valid point has an undeclared phase id.
-    ValueError, TypeError
-        For options out of range or of the wrong type.
+    TypeError
+        For options of the wrong type.
 
     Examples
     --------

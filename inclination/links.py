@@ -21,7 +21,7 @@ from numpy.typing import ArrayLike
 
 from ._validation import check_one_of
 from .crystal import symmetry
-from .errors import SettingError
+from .errors import InputError, SettingError
 
 if TYPE_CHECKING:
     from .maps import OrientationMap
@@ -165,8 +165,10 @@ def map_planes(omap: OrientationMap) -> MapPlanes:
     ------
     TypeError
         If ``omap`` lacks a field of an OrientationMap.
-    ValueError
-        If the arrays do not have the shapes above, or the grid is unknown.
+    InputError
+        If the arrays do not have the shapes above.
+    SettingError
+        If the grid is not 'square' or 'hexagonal'.
 
     Examples
     --------
@@ -184,12 +186,12 @@ def map_planes(omap: OrientationMap) -> MapPlanes:
             )
     quat = np.asarray(omap.quat)
     if quat.ndim != 3 or quat.shape[0] != 4:
-        raise ValueError(f"Expected `omap.quat` to have shape (4, H, W), got {quat.shape}.")
+        raise InputError(f"Expected `omap.quat` to have shape (4, H, W), got {quat.shape}.")
     h, w = quat.shape[1:]
     for field in ("phase", "valid"):
         shape = np.shape(getattr(omap, field))
         if shape != (h, w):
-            raise ValueError(f"Expected `omap.{field}` to have shape {(h, w)}, got {shape}.")
+            raise InputError(f"Expected `omap.{field}` to have shape {(h, w)}, got {shape}.")
     check_one_of(omap.grid, "omap.grid", ("square", "hexagonal"))
     quat = np.ascontiguousarray(quat, dtype=np.float32)
     return MapPlanes(quat.reshape(4, h * w), int(h), int(w), str(omap.grid))

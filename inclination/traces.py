@@ -66,6 +66,7 @@ from ._validation import (
     check_one_of,
     check_positive,
 )
+from .errors import InputError
 
 if TYPE_CHECKING:
     from .network import BoundaryNetwork
@@ -180,7 +181,7 @@ def _wrap_angle_deg(angle_deg: np.ndarray) -> np.ndarray:
 def _check_points(points, name: str) -> np.ndarray:
     pts = as_float_array(points, name)
     if pts.ndim != 2:
-        raise ValueError(f"Expected `{name}` to have shape (N, 2), got {pts.shape}.")
+        raise InputError(f"Expected `{name}` to have shape (N, 2), got {pts.shape}.")
     check_last_axis(pts, name, 2)
     check_finite(pts, name)
     return pts
@@ -202,7 +203,7 @@ def fit_line_tls(points: ArrayLike) -> LineFit:
 
     Raises
     ------
-    ValueError
+    InputError
         If ``points`` is not (N, 2) with N >= 2, holds a non-finite value, or all
         points coincide (no direction).
 
@@ -216,13 +217,13 @@ def fit_line_tls(points: ArrayLike) -> LineFit:
     """
     pts = _check_points(points, "points")
     if pts.shape[0] < 2:
-        raise ValueError(f"Expected `points` to hold at least 2 points, got {pts.shape[0]}.")
+        raise InputError(f"Expected `points` to hold at least 2 points, got {pts.shape[0]}.")
     centre = pts.mean(axis=0)
     d = pts - centre
     sxx, syy, sxy = (d[:, 0] ** 2).sum(), (d[:, 1] ** 2).sum(), (d[:, 0] * d[:, 1]).sum()
     theta, lam_min, lam_max = _principal_axis(sxx, syy, sxy)
     if not lam_max > 0:
-        raise ValueError("Expected `points` to hold at least 2 distinct points, got all equal.")
+        raise InputError("Expected `points` to hold at least 2 distinct points, got all equal.")
     angle_deg = float(_wrap_angle_deg(np.degrees(theta)))
     direction = np.array([np.cos(np.radians(angle_deg)), np.sin(np.radians(angle_deg))])
     t = d @ direction
@@ -434,13 +435,13 @@ def _check_network(network):
         )
     offsets = np.asarray(network.offsets)
     if offsets.ndim != 1 or offsets.size < 1 or not np.issubdtype(offsets.dtype, np.integer):
-        raise ValueError(
+        raise InputError(
             f"Expected `network.offsets` to be a 1-D integer array, got dtype {offsets.dtype} "
             f"and shape {offsets.shape}."
         )
     points = _check_points(network.points_um, "network.points_um")
     if offsets[0] != 0 or offsets[-1] != points.shape[0] or np.any(np.diff(offsets) < 0):
-        raise ValueError(
+        raise InputError(
             "Expected `network.offsets` to rise from 0 to the number of points "
             f"({points.shape[0]}), got {offsets[0]}..{offsets[-1]}."
         )
@@ -448,7 +449,7 @@ def _check_network(network):
     for name in _NETWORK_FIELDS[2:]:
         column = np.asarray(getattr(network, name))
         if column.shape != (n_chains,):
-            raise ValueError(
+            raise InputError(
                 f"Expected `network.{name}` to have shape ({n_chains},), got {column.shape}."
             )
     return offsets.astype(np.int64), points
@@ -677,9 +678,11 @@ def fit_segments(
     ------
     TypeError
         If ``network`` lacks a field of the contract.
-    ValueError
-        If a setting is out of range, the offsets do not fit the points, a
-        per-chain column has the wrong length, or a point is not finite.
+    SettingError
+        If a setting is out of range or not one of its options.
+    InputError
+        If the offsets do not fit the points, a per-chain column has the wrong
+        length, or a point is not finite.
 
     Examples
     --------
@@ -786,8 +789,10 @@ def group_collinear(
 
     Raises
     ------
-    ValueError
-        If a setting is out of range or a needed column is missing.
+    SettingError
+        If a setting is out of range.
+    InputError
+        If a needed column is missing.
 
     Examples
     --------
@@ -813,7 +818,7 @@ def group_collinear(
     )
     missing = [c for c in needed if c not in segments]
     if missing:
-        raise ValueError(
+        raise InputError(
             f"Expected `segments` to have columns {needed}, got one without {missing}."
         )
     ga, gb = np.asarray(segments["grain_a"]), np.asarray(segments["grain_b"])

@@ -311,9 +311,9 @@ def test_undeclared_phase_raises():
 @pytest.mark.parametrize(
     ("kwargs", "error", "match"),
     [
-        ({"min_pixels": 0}, ValueError, "Expected `min_pixels` to be an integer >= 1"),
+        ({"min_pixels": 0}, SettingError, "Expected `min_pixels` to be an integer >= 1"),
         ({"min_pixels": 2.5}, TypeError, "Expected `min_pixels` to be an integer"),
-        ({"small_grains": "drop"}, ValueError, r"Expected `small_grains` to be one of \('merge'"),
+        ({"small_grains": "drop"}, SettingError, r"Expected `small_grains` to be one of \('merge'"),
         ({"progress": 3}, TypeError, "Expected `progress` to be callable"),
     ],
 )
@@ -324,13 +324,13 @@ def test_bad_options_raise(kwargs, error, match):
 
 def test_bad_phases_raise():
     omap = make_map(np.tile(IDENTITY, (2, 2, 1)))
-    with pytest.raises(ValueError, match="Expected `phases` to hold at least one Phase"):
+    with pytest.raises(SettingError, match="Expected `phases` to hold at least one Phase"):
         segment_grains(omap, [])
     with pytest.raises(TypeError, match=r"Expected `phases\[0\]` to be a Phase"):
         segment_grains(omap, ["copper"])
     with pytest.raises(TypeError, match="Expected `phases` to be a sequence or mapping"):
         segment_grains(omap, 5)
-    with pytest.raises(ValueError, match="Expected the phase ids in `phases` to be unique"):
+    with pytest.raises(SettingError, match="Expected the phase ids in `phases` to be unique"):
         segment_grains(omap, [CUBIC, CUBIC])
 
 

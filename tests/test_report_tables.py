@@ -128,7 +128,7 @@ def test_markdown_empty_table(tmp_path):
 
 
 def test_unequal_columns_refused(tmp_path):
-    with pytest.raises(ValueError, match="equal length"):
+    with pytest.raises(InputError, match="equal length"):
         write_csv(
             tmp_path / "x.csv",
             {"a": np.zeros(2), "b": np.zeros(3)},

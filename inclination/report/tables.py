@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import ArrayLike
 
+from ..errors import InputError
 from .atomic import json_ready, write_text_atomic
 from .columns import Column
 
@@ -72,10 +73,10 @@ def format_cell(value: object, column: Column) -> str:
 def _check_table(table, columns) -> int:
     missing = [c.name for c in columns if c.name not in table]
     if missing:
-        raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
+        raise InputError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
     lengths = {c.name: len(table[c.name]) for c in columns}
     if len(set(lengths.values())) > 1:
-        raise ValueError(f"Expected columns of equal length, got {lengths}.")
+        raise InputError(f"Expected columns of equal length, got {lengths}.")
     return next(iter(lengths.values()), 0)
 
 
