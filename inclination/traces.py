@@ -552,7 +552,7 @@ def _chain_pieces(offsets, points, closed, tolerance):
     return order, piece_start, piece_end, piece_chain, at_chain_end, next_piece
 
 
-def _fit_pieces(pts, piece_start, piece_end, at_chain_end, next_piece, reach):
+def _fit_pieces(pts, piece_start, piece_end, *, at_chain_end, next_piece, reach):
     """TLS fit of many pieces at once: the columns of the segments table that are geometry.
 
     ``at_chain_end`` (K, 2) says whether each end of a piece is an end of its chain
@@ -719,11 +719,25 @@ def fit_segments(
         order, p_start, p_end, p_chain, at_chain_end, next_piece = _chain_pieces(
             local, block_points, closed[c0:c1], tolerance
         )
-        geo = _fit_pieces(block_points[order], p_start, p_end, at_chain_end, next_piece, tolerance)
+        geo = _fit_pieces(
+            block_points[order],
+            p_start,
+            p_end,
+            at_chain_end=at_chain_end,
+            next_piece=next_piece,
+            reach=tolerance,
+        )
         parts.append((geo, p_chain + c0))
     if not parts:
         none = np.zeros(0, dtype=np.int64)
-        empty = _fit_pieces(points, none, none, np.zeros((0, 2), bool), none, tolerance)
+        empty = _fit_pieces(
+            points,
+            none,
+            none,
+            at_chain_end=np.zeros((0, 2), bool),
+            next_piece=none,
+            reach=tolerance,
+        )
         parts.append((empty, none))
     geo = {k: np.concatenate([g[k] for g, _ in parts]) for k in parts[0][0]}
     p_chain = np.concatenate([c for _, c in parts])
