@@ -9,6 +9,7 @@ schema or the ``py.typed`` marker missing from the wheel fails here.
 from __future__ import annotations
 
 import os
+import sysconfig
 from importlib import resources
 from pathlib import Path
 
@@ -25,8 +26,11 @@ needs_wheel = pytest.mark.skipif(
 
 @needs_wheel
 def test_tests_import_the_installed_package_not_the_source_tree():
+    # In site-packages of the running interpreter (CI keeps its venvs inside the checkout,
+    # so "outside the checkout" would not do), and not the source folder.
     package_dir = Path(inclination.__file__).resolve().parent
-    assert not package_dir.is_relative_to(ROOT), package_dir
+    assert package_dir != (ROOT / "inclination").resolve(), package_dir
+    assert package_dir.parent == Path(sysconfig.get_paths()["purelib"]).resolve(), package_dir
 
 
 @needs_wheel
