@@ -10,6 +10,7 @@ import argparse
 import contextlib
 import sys
 import traceback
+from collections.abc import Sequence
 
 from . import __version__
 from .errors import InclinationError
@@ -144,7 +145,7 @@ def _held_diagnostics():
         logger.propagate = propagate
 
 
-def main(argv=None) -> int:
+def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit status (0 ok, 2 bad input, 1 internal fault)."""
     parser = _build_parser()
     try:

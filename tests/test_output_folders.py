@@ -1,4 +1,4 @@
-"""The output-folder protocol (report/_io.py) through the command line.
+"""The output-folder protocol (report/atomic.py) through the command line.
 
 Every case here once lost data or failed with an internal error: two runs into
 one folder, a file put into the folder during a run, ``--out`` holding the
@@ -55,7 +55,7 @@ _CHILD = textwrap.dedent(
     from pathlib import Path
     mode, flag = sys.argv[1], Path(sys.argv[2])
     import inclination.pipeline as pipeline
-    import inclination.report._io as io_
+    import inclination.report.atomic as io_
     real_write = pipeline.write_outputs
 
     def write(analysis, out_dir):
