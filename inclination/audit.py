@@ -47,6 +47,7 @@ __all__ = [
     "relation_quat",
     "turn_fit",
     "audit_frame",
+    "apply_job_patch",
 ]
 
 #: Version of the audit.json layout (schemas/audit.schema.json).
@@ -644,3 +645,31 @@ def _rotation_spec(q) -> object:
         "axis": [round(float(v), 9) + 0.0 for v in axis],
         "angle_deg": round(float(np.asarray(angle).ravel()[0]), 6),
     }
+
+
+def apply_job_patch(job: Mapping, patch: Mapping) -> dict:
+    """A new job dict with an audit's ``job_patch`` applied (the input is not modified).
+
+    ``patch["map"]`` is set on every map entry its ``targets`` point to, and
+    ``patch["phases"]`` on the phases of those ids.
+
+    Examples
+    --------
+    >>> job = {"map": {"path": "m.npz"}, "phases": [{"id": 1, "name": "Ti"}]}
+    >>> patch = {"map": {"rotation_sense": "active"}, "phases": {"1": {"setting": "x_parallel_a"}},
+    ...          "targets": ["/map"]}
+    >>> new = apply_job_patch(job, patch)
+    >>> new["map"], new["phases"][0]["setting"], "rotation_sense" in job["map"]
+    ({'path': 'm.npz', 'rotation_sense': 'active'}, 'x_parallel_a', False)
+    """
+    import copy
+
+    out = copy.deepcopy(dict(job))
+    for pointer in patch.get("targets", ["/map"]):
+        entry = out
+        for key in pointer.strip("/").split("/"):
+            entry = entry[int(key)] if isinstance(entry, list) else entry[key]
+        entry.update(copy.deepcopy(patch.get("map", {})))
+    for phase in out.get("phases", []):
+        phase.update(copy.deepcopy(patch.get("phases", {}).get(str(phase.get("id")), {})))
+    return out
