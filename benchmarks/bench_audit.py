@@ -19,16 +19,18 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
-import numpy as np
-
 from inclination import pipeline, synthetic
 from inclination.crystal.phases import Phase
 from inclination.demo import write_demo_scenario
 from inclination.io.job import job_from_dict
 from inclination.io.writers import write_npz
 
-_CU = {"id": 1, "name": "Cu", "laue": "m-3m",
-       "lattice": {"a": 3.615, "b": 3.615, "c": 3.615, "alpha": 90, "beta": 90, "gamma": 90}}
+_CU = {
+    "id": 1,
+    "name": "Cu",
+    "laue": "m-3m",
+    "lattice": {"a": 3.615, "b": 3.615, "c": 3.615, "alpha": 90, "beta": 90, "gamma": 90},
+}
 
 
 def _time(job, stage):
@@ -45,13 +47,25 @@ def _synthetic_job(folder: Path, size: int, seed: int = 1):
     side = size * 0.5
     n = max(int(side * side / 60.0), 10)
     micro = synthetic.make_microstructure(
-        box_um=(side, side, 20.0), n_grains=n, rng=seed, phases=[Phase.from_dict(_CU)],
+        box_um=(side, side, 20.0),
+        n_grains=n,
+        rng=seed,
+        phases=[Phase.from_dict(_CU)],
         twins=max(n // 5, 1),
     )
     sample = synthetic.sample_map(micro, step_um=0.5, rng=seed + 1, noise_deg=0.5)
     write_npz(folder / "m.npz", synthetic.as_orientation_map(sample))
-    raw = {"phases": [_CU], "map": {"path": "m.npz", "format": "npz", "step_um": 0.5,
-           "grid": "square", "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    raw = {
+        "phases": [_CU],
+        "map": {
+            "path": "m.npz",
+            "format": "npz",
+            "step_um": 0.5,
+            "grid": "square",
+            "angles": "deg",
+            "axes": {"x": "right", "y": "down"},
+        },
+    }
     return job_from_dict(raw, base_dir=folder)
 
 
@@ -65,18 +79,30 @@ def main(argv=None) -> int:
         raw = json.loads(paths["job"].read_text())
         job = job_from_dict(raw, base_dir=paths["job"].parent)
         total, audit, a = _time(job, "sections")
-        rows.append(("demo (sections)", a.omap.shape, total, audit, a.audit.best_hypothesis.fit.n_voters))
+        rows.append(
+            ("demo (sections)", a.omap.shape, total, audit, a.audit.best_hypothesis.fit.n_voters)
+        )
         for size in args.sizes:
             folder = Path(tmp) / f"s{size}"
             folder.mkdir()
             job = _synthetic_job(folder, size)
             total, audit, a = _time(job, "planes")
-            rows.append((f"{size}² (planes)", a.omap.shape, total, audit, a.audit.best_hypothesis.fit.n_voters))
+            rows.append(
+                (
+                    f"{size}² (planes)",
+                    a.omap.shape,
+                    total,
+                    audit,
+                    a.audit.best_hypothesis.fit.n_voters,
+                )
+            )
     print("| case | map | run s (with audit) | audit s | audit / rest of run | voters |")
     print("|---|---|---|---|---|---|")
     for name, shape, total, audit, voters in rows:
         share = audit / max(total - audit, 1e-9)
-        print(f"| {name} | {shape[0]}×{shape[1]} | {total:.2f} | {audit:.3f} | {100 * share:.1f} % | {voters} |")
+        cells = [name, f"{shape[0]}×{shape[1]}", f"{total:.2f}", f"{audit:.3f}"]
+        cells += [f"{100 * share:.1f} %", str(voters)]
+        print("| " + " | ".join(cells) + " |")
     return 0
 
 

@@ -175,8 +175,9 @@ def turn_fit(
     values = _terms(d[None, thin] - grid[:, None], s[None, thin], outlier_fraction).sum(axis=1)
     start = float(grid[int(np.argmax(values))])
     lo, hi = max(start - 0.5, -max_turn_deg), min(start + 0.5, max_turn_deg)
-    best = minimize_scalar(lambda x: -total(x), bounds=(lo, hi), method="bounded",
-                           options={"xatol": 1e-5})
+    best = minimize_scalar(
+        lambda x: -total(x), bounds=(lo, hi), method="bounded", options={"xatol": 1e-5}
+    )
     delta = float(best.x)
     h = 1e-3
     plus = _terms(d - delta - h, s, outlier_fraction)
@@ -281,7 +282,9 @@ class FrameAudit:
             return f"Frame audit undecided: {self.reason}"
         if self.declared_is_best:
             return f"Frame audit: the declared frame is the best hypothesis ({self.reason})."
-        text = f"Frame audit: the declared frame is NOT the best hypothesis; best is {best.describe()}"
+        text = (
+            f"Frame audit: the declared frame is NOT the best hypothesis; best is {best.describe()}"
+        )
         if self.turn_applied:
             text += f", turned {self.turn_deg:.2f}° ± {self.turn_sigma_deg:.2f}° about z"
         text += f" ({self.reason}). Job patch: {self.patch_line()}"
@@ -346,7 +349,9 @@ def _twin_relations(phase: Phase, criterion: str) -> list[_Relation]:
     """Σ3 for cubic phases, the twins the families imply for hexagonal ones (else none)."""
     if phase.laue == "m-3m":
         sigma3 = next(r for r in cubic_csl_relations(3) if r.sigma == 3)
-        normals = plane_normals_crystal(phase.lattice, expand_family(phase.lattice, (1, 1, 1), "m-3m"))
+        normals = plane_normals_crystal(
+            phase.lattice, expand_family(phase.lattice, (1, 1, 1), "m-3m")
+        )
         limit = float(max_deviation_deg(3, criterion=criterion))
         return [_Relation(np.asarray(sigma3.quat, float), limit, normals)]
     if phase.laue == "6/mmm":
@@ -484,8 +489,14 @@ def audit_frame(
     """
     sense0 = rotation_sense
     if sense0 not in ROTATION_SENSES:
-        raise SettingError(f"Expected `rotation_sense` to be one of {ROTATION_SENSES}, got {sense0!r}.")
-    dfr0 = np.array([1.0, 0, 0, 0]) if data_frame_rotation is None else np.asarray(data_frame_rotation, float)
+        raise SettingError(
+            f"Expected `rotation_sense` to be one of {ROTATION_SENSES}, got {sense0!r}."
+        )
+    dfr0 = (
+        np.array([1.0, 0, 0, 0])
+        if data_frame_rotation is None
+        else np.asarray(data_frame_rotation, float)
+    )
     gid = np.asarray(grains["grain_id"], dtype=np.int64)
     quat = np.asarray(grains["quat"], dtype=float).reshape(-1, 4)
     spread = np.nan_to_num(np.asarray(grains["spread_mean_deg"], dtype=float), nan=0.0)
@@ -504,7 +515,13 @@ def audit_frame(
     phase_ids, theta_m, sigma_m = pa[keep], theta_m[keep], sigma_m[keep]
     ok_quat = np.all(np.isfinite(quat), axis=1)
     good = ok_quat[ia] & ok_quat[ib]
-    ia, ib, phase_ids, theta_m, sigma_m = ia[good], ib[good], phase_ids[good], theta_m[good], sigma_m[good]
+    ia, ib, phase_ids, theta_m, sigma_m = (
+        ia[good],
+        ib[good],
+        phase_ids[good],
+        theta_m[good],
+        sigma_m[good],
+    )
     quat = np.where(ok_quat[:, None], quat, np.array([1.0, 0, 0, 0]))
     # The rotations as stored in the file, recovered from the grain means (§3).
     stored = orientations_to_declared(quat, axes, dfr0, rotation_sense=sense0)
@@ -513,14 +530,19 @@ def audit_frame(
     setting_choices = [()]
     for pid in switchable:
         here = phases[pid].setting
-        setting_choices = [c + ((pid, s),) for c in setting_choices for s in (here, _OTHER_SETTING[here])]
+        setting_choices = [
+            c + ((pid, s),) for c in setting_choices for s in (here, _OTHER_SETTING[here])
+        ]
     declared_settings = tuple((pid, phases[pid].setting) for pid in switchable)
     turn_1deg = quat_from_axis_angle_deg([0.0, 0.0, 1.0], 1.0)
 
     hypotheses = []
     for sense in ROTATION_SENSES:
         for settings in setting_choices:
-            phases_h = {pid: _with_setting(p, dict(settings).get(pid, p.setting)) for pid, p in phases.items()}
+            phases_h = {
+                pid: _with_setting(p, dict(settings).get(pid, p.setting))
+                for pid, p in phases.items()
+            }
             g_data = stored if sense == "passive" else stored * np.array([1.0, -1, -1, -1])
             groups = _voters(g_data, ia, ib, phase_ids, phases_h, sigma_criterion)
             r0 = _frame_matrix(axes, dfr0)
@@ -601,18 +623,24 @@ def audit_frame(
         decision = "decided"
         reason = (
             f"{n} twin segments voted; log-likelihood {top.fit.log_likelihood:.1f} against "
-            f"{rival.fit.log_likelihood:.1f} for the next hypothesis" if rival else f"{n} twin segments voted"
+            f"{rival.fit.log_likelihood:.1f} for the next hypothesis"
+            if rival
+            else f"{n} twin segments voted"
         )
     # Choose between the top relation and its 180° partner.
     partner_i = next(
         i
         for i, h in enumerate(ranked)
-        if h.relation == top.partner and h.rotation_sense == top.rotation_sense and h.settings == top.settings
+        if h.relation == top.partner
+        and h.rotation_sense == top.rotation_sense
+        and h.settings == top.settings
     )
     pick = 0
     if decision == "decided" and settle is not None:
         h = ranked[0]
-        phases_h = {pid: _with_setting(p, dict(h.settings).get(pid, p.setting)) for pid, p in phases.items()}
+        phases_h = {
+            pid: _with_setting(p, dict(h.settings).get(pid, p.setting)) for pid, p in phases.items()
+        }
         g_data = stored if h.rotation_sense == "passive" else stored * np.array([1.0, -1, -1, -1])
         q_rel = quat_multiply(dfr0, relation_quat(h.relation))
         turn = h.fit.turn_deg if np.isfinite(h.fit.turn_deg) else 0.0

@@ -443,7 +443,6 @@ def _frame_audit(analysis: Analysis):
     settle = None
     if analysis.section_tables:
         from .compare import best_measurements, compare_map
-        from .grains import GrainMap
         from .planes import match_planes
 
         measured = best_measurements(*analysis.section_tables)
@@ -455,7 +454,8 @@ def _frame_audit(analysis: Analysis):
             # 0.2° of the declared orientations the run's own verdict is that comparison.
             declared = np.asarray(analysis.grain_map.grains["quat"], float)
             same = np.abs(np.einsum("ni,ni->n", np.nan_to_num(declared), quat_sample))
-            if analysis.verdict is not None and np.all(same[np.isfinite(declared[:, 0])] > 1 - 1e-6):
+            close = same[np.isfinite(declared[:, 0])] > 1 - 1.5e-6
+            if analysis.verdict is not None and np.all(close):
                 return analysis.verdict.verdict
             grains = dict(analysis.grain_map.grains, quat=quat_sample)
             grain_map = replace(analysis.grain_map, grains=grains)
@@ -781,7 +781,8 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     """
     from .report import outputs
 
-    files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=_summary_base(analysis))
+    base = _summary_base(analysis)
+    files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=base)
     if analysis.audit is not None:
         from .report._io import write_json_atomic
 

@@ -95,7 +95,9 @@ def test_inverse_rotations_are_found(cubic_sample):
     omap = synthetic.as_orientation_map(cubic_sample)
     stored = np.array(omap.quat, dtype=float)
     stored[..., 1:] *= -1.0  # the crystal-to-sample rotation: the inverse
-    inverse = OrientationMap(stored, omap.phase, grid="square", step_x_um=STEP_UM, step_y_um=STEP_UM)
+    inverse = OrientationMap(
+        stored, omap.phase, grid="square", step_x_um=STEP_UM, step_y_um=STEP_UM
+    )
     audit = _audit(inverse, CU)
     assert audit.declared_is_best is False
     assert audit.job_patch["map"] == {"rotation_sense": "active"}

@@ -931,8 +931,15 @@ def test_rotation_sense_active_reads_the_inverse(tmp_path):
     q = random_quat(6, rng=3).reshape(2, 3, 4)
     omap = OrientationMap(q, np.ones((2, 3), int), grid="square", step_x_um=1.0, step_y_um=1.0)
     write_npz(tmp_path / "m.npz", omap)
-    spec = {"path": "m.npz", "format": "npz", "angles": "deg", "step_um": 1, "grid": "square",
-            "axes": {"x": "right", "y": "down"}, "rotation_sense": "active"}
+    spec = {
+        "path": "m.npz",
+        "format": "npz",
+        "angles": "deg",
+        "step_um": 1,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+        "rotation_sense": "active",
+    }
     active = read_map(spec, base_dir=tmp_path)
     expected = Rotation.from_quat(q.reshape(-1, 4)[:, [1, 2, 3, 0]]).inv().as_matrix()
     got = Rotation.from_quat(np.asarray(active.quat, float).reshape(-1, 4)[:, [1, 2, 3, 0]])
@@ -946,8 +953,15 @@ def test_rotation_sense_bad_value(tmp_path):
     q = np.zeros((1, 2, 4))
     q[..., 0] = 1.0
     write_npz(tmp_path / "m.npz", OrientationMap(q, np.ones((1, 2), int), step_x_um=1.0))
-    spec = {"path": "m.npz", "format": "npz", "angles": "deg", "step_um": 1, "grid": "square",
-            "axes": {"x": "right", "y": "down"}, "rotation_sense": "inverse"}
+    spec = {
+        "path": "m.npz",
+        "format": "npz",
+        "angles": "deg",
+        "step_um": 1,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+        "rotation_sense": "inverse",
+    }
     with pytest.raises(InputError, match="rotation_sense"):
         read_map(spec, base_dir=tmp_path)
     with pytest.raises(SettingError, match="rotation_sense"):
