@@ -696,9 +696,10 @@ def _rotation_spec(q) -> object:
     from .frames import NAMED_TURNS, data_frame_quat
 
     q = np.asarray(q, float)
-    for name in NAMED_TURNS:
-        if abs(abs(float(np.dot(data_frame_quat(name), q))) - 1.0) < 1e-9:
-            return name
+    named = [*NAMED_TURNS, *(spec for spec, _ in RELATIONS.values() if not isinstance(spec, str))]
+    for spec in named:
+        if abs(abs(float(np.dot(data_frame_quat(spec), q))) - 1.0) < 1e-9:
+            return spec if isinstance(spec, str) else {**spec, "axis": list(spec["axis"])}
     axis, angle = quat_as_axis_angle_deg(q)
     axis = np.asarray(axis, float).ravel()
     return {
