@@ -665,7 +665,6 @@ def read_map(
             phase_ids,
             job_path,
             pointer,
-            settings,
             progress,
         )
     else:
@@ -864,7 +863,6 @@ def _read_table_map(
     phase_ids,
     job_path,
     pointer,
-    settings,
     progress=None,
 ):
     delimiter = spec.get("delimiter", TABLE_DELIMITERS[fmt])

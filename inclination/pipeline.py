@@ -566,7 +566,7 @@ def analyse(
     1
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     out = Path(out_dir)
@@ -593,7 +593,7 @@ def audit(
     when it has any) and writes the ranked hypotheses and the job patch.
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir, write_json_atomic
+    from .report.atomic import staged_output_dir, write_json_atomic
 
     job = load_job(job_path)
     out = Path(out_dir)
@@ -651,7 +651,7 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     out = Path(out_dir)
     messages = []
@@ -784,7 +784,7 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     base = _summary_base(analysis)
     files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=base)
     if analysis.audit is not None:
-        from .report._io import write_json_atomic
+        from .report.atomic import write_json_atomic
 
         files = [*files, write_json_atomic(Path(out_dir) / "audit.json", analysis.audit.as_dict())]
     return files, summary
@@ -863,7 +863,7 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
     the job's ``stereology`` block may be absent (its defaults are then used).
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     if "stereology" not in job.raw:
