@@ -52,6 +52,11 @@ def _build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=text)
         p.add_argument("job", help="job file (JSON)")
         _add_common(p, default_out=f"inclination-{name}")
+    audit = sub.add_parser(
+        "audit", help="the frame audit alone: which frame the twin traces support (audit.json)"
+    )
+    audit.add_argument("job", help="job file (JSON)")
+    _add_common(audit, default_out="inclination-audit")
     report = sub.add_parser(
         "report", help="write report.html and report.md again from a finished run's folder"
     )
@@ -89,6 +94,8 @@ def _dispatch(args) -> int:
         )
     elif args.command == "report":
         result = pipeline.rebuild_report(args.run)
+    elif args.command == "audit":
+        result = pipeline.audit(args.job, args.out, overwrite=args.overwrite, progress=progress)
     elif args.command == "stereology":
         result = pipeline.stereology(
             args.job, args.out, overwrite=args.overwrite, progress=progress
@@ -101,6 +108,8 @@ def _dispatch(args) -> int:
     if not getattr(args, "quiet", False):
         for line in result.messages:
             print(line)
+    for line in result.warnings:
+        print(line, file=sys.stderr)
     return 0
 
 
