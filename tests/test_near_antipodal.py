@@ -19,9 +19,9 @@ from scipy.spatial.transform import Rotation
 from inclination.crystal.csl import classify_misorientation_quat, relation_deviation_deg
 from inclination.crystal.lattice import Lattice, Phase, interplanar_angle_deg
 from inclination.crystal.rotations import (
+    matrix_from_euler_deg,
     quat_angle_deg,
     quat_as_axis_angle_deg,
-    matrix_from_euler_deg,
     quat_as_euler_deg,
     quat_as_matrix,
     quat_from_axis_angle_deg,
