@@ -17,7 +17,13 @@ import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["write_text_atomic", "write_bytes_atomic", "write_json_atomic", "staged_output_dir"]
+__all__ = [
+    "write_text_atomic",
+    "write_bytes_atomic",
+    "write_chunks_atomic",
+    "write_json_atomic",
+    "staged_output_dir",
+]
 
 
 def _umask() -> int:
@@ -116,3 +122,20 @@ def staged_output_dir(out_dir, *, overwrite: bool = False):
     os.replace(stage, out)
     if backup is not None:
         shutil.rmtree(backup, ignore_errors=True)
+
+
+def write_chunks_atomic(path, chunks) -> Path:
+    """Write an iterable of byte blocks to ``path`` atomically, one block in memory at a time."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            for chunk in chunks:
+                fh.write(chunk)
+        os.chmod(tmp, 0o666 & ~_umask())
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+    return path
