@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._io import write_chunks_atomic
+from .atomic import write_chunks_atomic
 from .columns import Column
 from .schemas import SCHEMA_VERSION, column_schema
 from .streams import encode_rows
