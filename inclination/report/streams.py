@@ -73,7 +73,7 @@ def _fixed(x: np.ndarray, decimals: int) -> np.ndarray:
     return out
 
 
-def _from_strings(cells: Sequence[str], n: int, inverse: np.ndarray | None = None) -> np.ndarray:
+def _from_strings(cells: Sequence[str], inverse: np.ndarray | None = None) -> np.ndarray:
     encoded = [c.encode("utf-8") for c in cells]
     width = max((len(e) for e in encoded), default=0)
     mat = np.zeros((len(encoded), max(width, 1)), np.uint8)
@@ -93,12 +93,12 @@ def _column_bytes(values: np.ndarray, kind: str, decimals: int, style: str) -> n
     null = "null" if style == "jsonl" else ""
     if kind == "bool":
         cells = ["false", "true"]
-        return _from_strings(cells, n, np.asarray(values, bool).astype(np.intp))
+        return _from_strings(cells, np.asarray(values, bool).astype(np.intp))
     if kind == "str":
         uniq, inverse = np.unique(np.asarray(values).astype(str), return_inverse=True)
         quote = json.dumps if style == "jsonl" else _csv_text
         cells = [quote(u) if u != "" else null for u in uniq.tolist()]
-        return _from_strings(cells, n, inverse.reshape(-1))
+        return _from_strings(cells, inverse.reshape(-1))
     x = np.asarray(values, float if kind == "float" else np.int64)
     absent = ~np.isfinite(x) if kind == "float" else x < 0
     big = ~absent & (np.abs(x) >= _FIXED_LIMIT)
@@ -107,7 +107,7 @@ def _column_bytes(values: np.ndarray, kind: str, decimals: int, style: str) -> n
     if ok.all():
         return body
     extra = [null] + [repr(float(v)) for v in x[big]]
-    special = _from_strings(extra, n)
+    special = _from_strings(extra)
     width = max(body.shape[1], special.shape[1])
     out = np.zeros((n, width), np.uint8)
     out[:, : body.shape[1]] = body
