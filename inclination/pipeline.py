@@ -534,6 +534,7 @@ def analyse(
     stage: str = "sections",
     overwrite: bool = False,
     progress: ProgressFactory | None = None,
+    all_candidates: bool = False,
 ) -> RunResult:
     """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
 
@@ -552,6 +553,9 @@ def analyse(
         Replace an existing ``out_dir``.
     progress : callable, optional
         As for :func:`run`.
+    all_candidates : bool, optional
+        Write every candidate plane to ``candidates.jsonl``, as the job setting
+        ``planes.candidate_rows = "all"`` does.
 
     Returns
     -------
@@ -582,6 +586,8 @@ def analyse(
     from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
+    if all_candidates:
+        job = replace(job, planes={**job.planes, "candidate_rows": "all"})
     out = Path(out_dir)
     notes: list = []
     with staged_output_dir(

@@ -377,17 +377,10 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
         )
         cand = analysis.candidates
         if cand is not None:
-            files.append(
-                write_json_atomic(
-                    out_dir / "candidates.json",
-                    {
-                        "schema_version": SCHEMA_VERSION,
-                        "meta": meta,
-                        "frame": "sample frame S (conventions §2)",
-                        "table": {k: np.asarray(v).tolist() for k, v in cand.items()},
-                    },
-                )
-            )
+            from .candidates import write_candidates
+
+            rows = analysis.job.planes.get("candidate_rows", "fit_or_shared")
+            files.append(write_candidates(out_dir / "candidates.jsonl", cand, meta=meta, rows=rows))
     if analysis.section_tables:
         files.append(
             write_json_atomic(
