@@ -13,31 +13,12 @@ from pathlib import Path
 
 import numpy as np
 
-from ._io import write_json_atomic
+from ._io import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
-from .tables import write_csv, write_latex, write_markdown, write_table_json
+from .tables import write_csv, write_table_json
 
 __all__ = ["write_all", "grains_table", "segments_table", "boundaries_table"]
-
-_TEX_COLUMNS = (
-    "boundary_id",
-    "grain_a",
-    "grain_b",
-    "length_um",
-    "trace_angle_deg",
-    "trace_sigma_deg",
-    "misorientation_deg",
-    "sigma",
-    "plane_a",
-    "plane_b",
-    "trace_deviation_deg",
-    "candidates_within_tolerance",
-    "predicted_dip_deg",
-    "measured_dip_deg",
-    "measured_dip_sigma_deg",
-    "sense",
-)
 
 
 def _frame_meta(axes) -> dict:
@@ -194,6 +175,32 @@ def boundaries_table(analysis) -> dict:
     return out
 
 
+def paper_caption(axes, paper) -> str:
+    """Caption of the paper table: frame, conventions and the selection rule."""
+    return (
+        f"Boundary planes, in the declared axes (x {axes.x}, y {axes.y} on the screen). "
+        "Trace angles from +x toward +y in [0, 180); dip 0 parallel to the surface, 90 "
+        "vertical; dip direction: the azimuth the plane dips toward, from +x toward +y in "
+        "[0, 360) (conventions in docs/conventions.md). Shown: "
+        f"{paper.n_rows} of {paper.n_total} boundaries ({paper.rule}); the full table at full "
+        "precision is boundaries.csv and boundaries.json."
+    )
+
+
+def _paper_files(analysis, out_dir, boundaries) -> list:
+    from .tables import paper_latex, paper_legend, paper_markdown, paper_table
+
+    paper = paper_table(boundaries)
+    caption = paper_caption(analysis.omap.axes, paper)
+    md = ["# Boundaries", "", caption, ""] + paper_markdown(paper) + ["", paper_legend(), ""]
+    return [
+        write_text_atomic(out_dir / "boundaries.md", "\n".join(md)),
+        write_text_atomic(
+            out_dir / "boundaries.tex", paper_latex(paper, caption=caption, label="tab:boundaries")
+        ),
+    ]
+
+
 def _figure(analysis, out_dir, table_declared):
     import matplotlib
 
@@ -339,34 +346,7 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
                 meta=meta,
             )
         )
-        files.append(
-            write_markdown(
-                out_dir / "boundaries.md",
-                boundaries,
-                [c for c in BOUNDARY_COLUMNS if c.name in _TEX_COLUMNS],
-                title="Boundaries",
-                notes=f"Declared axes x {analysis.omap.axes.x}, y {analysis.omap.axes.y}; "
-                "lengths in µm, angles in degrees. Empty cells: not available.",
-            )
-        )
-        files.append(
-            write_latex(
-                out_dir / "boundaries.tex",
-                boundaries,
-                [c for c in BOUNDARY_COLUMNS if c.name in _TEX_COLUMNS],
-                caption=(
-                    f"Straight boundary segments and their planes. Positions and angles in the "
-                    f"declared axes (x {analysis.omap.axes.x}, y {analysis.omap.axes.y}); trace "
-                    "angles from +x toward +y; dip 0 parallel to the surface, 90 vertical; "
-                    "Bunge Euler angles, passive."
-                ),
-                label="tab:boundaries",
-                sigma_of={
-                    "trace_angle_deg": "trace_sigma_deg",
-                    "measured_dip_deg": "measured_dip_sigma_deg",
-                },
-            )
-        )
+        files += _paper_files(analysis, out_dir, boundaries)
         cand = analysis.candidates
         if cand is not None:
             files.append(
