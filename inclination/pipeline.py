@@ -495,7 +495,9 @@ def analyse(
     out = Path(out_dir)
     with staged_output_dir(out, overwrite=overwrite) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
-        files, summary = write_outputs(analysis, stage_dir)
+        files, summary = write_outputs(
+            analysis, stage_dir, relocate=(stage_dir, out), progress=progress
+        )
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
     return RunResult(out, files, tuple(_messages(summary, out)), summary)
@@ -549,7 +551,9 @@ def demo(
             job = load_job(paths[key])
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
-            _, summary = write_outputs(analysis, stage_dir / folder)
+            _, summary = write_outputs(
+                analysis, stage_dir / folder, relocate=(stage_dir, out), progress=progress
+            )
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
     messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
@@ -560,8 +564,8 @@ def demo(
 def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     """Write ``report.html`` and ``report.md`` again from a finished run's own files.
 
-    Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
-    folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
+    Reads ``summary.json``, ``boundaries.json`` and the figures ``summary.json``
+    lists of the folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
 
     Raises
     ------
@@ -621,20 +625,25 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
             table[c.name] = np.array([-1 if v is None else v for v in values], int)
         else:
             table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
-    png = folder / "boundaries.png"
-    figure = png.read_bytes() if png.exists() else None
-    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure)
+    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS)
     return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
 
 
 # ----------------------------------------------------------------------------- outputs
 
 
-def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[Path], dict]:
+def write_outputs(
+    analysis: Analysis,
+    out_dir: str | os.PathLike,
+    *,
+    relocate: tuple[os.PathLike, os.PathLike] | None = None,
+    progress: ProgressFactory | None = None,
+) -> tuple[list[Path], dict]:
     """Write every table, figure and the report of ``analysis`` into ``out_dir``.
 
     Values are written in the map's declared axes (conventions §2); ``out_dir`` must
-    exist (:func:`analyse` stages it).
+    exist (:func:`analyse` stages it). ``relocate = (staging, final)`` writes paths
+    under the staging folder as they will be once it is moved into place.
 
     Returns
     -------
@@ -662,7 +671,13 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     """
     from .report import outputs
 
-    return outputs.write_all(analysis, Path(out_dir), summary_base=_summary_base(analysis))
+    return outputs.write_all(
+        analysis,
+        Path(out_dir),
+        summary_base=_summary_base(analysis),
+        relocate=relocate,
+        progress=progress,
+    )
 
 
 def _summary_base(analysis: Analysis) -> dict:
