@@ -396,7 +396,8 @@ PAPER_COLUMNS = (
         "plane",
         "str",
         0,
-        "best candidate plane in grain a; '/ plane in grain b' where its indices differ",
+        "best candidate plane in grain a; '/ plane in grain b' where its indices differ; "
+        "'– / (h k l)': a plane of low index in grain b only",
         "Plane",
     ),
     _c(

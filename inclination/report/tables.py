@@ -464,7 +464,8 @@ def paper_legend() -> str:
     )
     sources = ", ".join(f"{sym} {name}" for name, sym in SOURCE_SYMBOLS.items())
     return (
-        f"Class: {classes}; – no candidate fits. Src.: {sources}. Values ± one standard "
+        f"Class: {classes}; – no candidate fits. Plane a / plane b where the indices "
+        f"differ; – / (h k l): low-index in grain b only. Src.: {sources}. Values ± one standard "
         "uncertainty, rounded to two significant digits of it; predicted dips and dip "
         "directions in whole degrees; empty: not available."
     )
