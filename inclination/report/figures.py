@@ -47,6 +47,8 @@ _SCREEN = {"right": (1.0, 0.0), "left": (-1.0, 0.0), "down": (0.0, 1.0), "up": (
 
 #: Long side of the grain image drawn under the vectors (pixels).
 MAX_IMAGE_PX = 2000
+#: At most this many dip ticks carry their dip value (the longest boundaries).
+MAX_DIP_LABELS = 300
 
 
 def downsample_labels(labels, *, max_px: int = MAX_IMAGE_PX) -> np.ndarray:
@@ -293,7 +295,11 @@ def _dip_symbols(ax, xy0, xy1, dips, width_um, height_um):
     )
     ax.add_patch(lc)
     out = [lc]
-    for (x, y), value in zip(mid + 2.2 * tick * d, dip[keep], strict=True):
+    # Dip values label the longest boundaries only: a label per boundary on a large map
+    # is unreadable and makes drawing slow (one text artist each).
+    length = np.hypot(*(xy1 - xy0)[keep].T)
+    top = np.sort(np.argsort(-length, kind="stable")[:MAX_DIP_LABELS])
+    for (x, y), value in zip((mid + 2.2 * tick * d)[top], dip[keep][top], strict=True):
         out.append(
             ax.text(
                 x, y, f"{value:.0f}", fontsize=5.5, ha="center", va="center", zorder=4, clip_on=True
