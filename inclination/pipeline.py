@@ -489,7 +489,7 @@ def analyse(
     1
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     out = Path(out_dir)
@@ -540,7 +540,7 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     out = Path(out_dir)
     messages = []
@@ -625,7 +625,7 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
             table[c.name] = np.array([-1 if v is None else v for v in values], int)
         else:
             table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
-    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS)
+    files = write_report(folder, docs["summary.json"], table)
     return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
 
 
@@ -732,7 +732,7 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
     the job's ``stereology`` block may be absent (its defaults are then used).
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     if "stereology" not in job.raw:

@@ -36,7 +36,6 @@ __all__ = [
     "SOURCE_SYMBOLS",
     "CLASS_DESCRIPTIONS",
     "ROUNDING_RULES",
-    "column_names",
     "header_text",
 ]
 
@@ -351,17 +350,6 @@ GRAIN_COLUMNS = (
     ),
     _c("touches_edge", "bool", 0, "the grain reaches the map edge", "At edge", ""),
 )
-
-
-def column_names(columns) -> tuple[str, ...]:
-    """Names of a column list, in order.
-
-    Examples
-    --------
-    >>> column_names(GRAIN_COLUMNS)[:3]
-    ('grain_id', 'phase', 'phi1_deg')
-    """
-    return tuple(c.name for c in columns)
 
 
 #: Symbols of the identification classes in the paper table (legend under the table).

@@ -14,7 +14,7 @@ import base64
 import html
 from pathlib import Path
 
-from ._io import write_text_atomic
+from .atomic import write_text_atomic
 from .features import features_section_html, features_section_markdown
 from .glossary import ROUNDING_RULE, glossary_html, glossary_markdown
 from .tables import paper_html, paper_legend, paper_markdown, paper_table
@@ -186,7 +186,7 @@ def _provenance(summary: dict) -> list[tuple[str, str]]:
     return out
 
 
-def render_markdown(summary: dict, table: dict, columns=None) -> str:
+def render_markdown(summary: dict, table: dict) -> str:
     """The report as Markdown text (figures linked as files beside it)."""
     style = verdict_style(summary)
     lines = [f"# {summary.get('title', 'Boundary planes')}", ""]
@@ -222,7 +222,7 @@ def render_markdown(summary: dict, table: dict, columns=None) -> str:
     return "\n".join(lines)
 
 
-def render_html(summary: dict, table: dict, columns=None, *, figures=()) -> str:
+def render_html(summary: dict, table: dict, *, figures=()) -> str:
     """The report as one self-contained HTML page.
 
     ``figures`` is a sequence of ``(title, png_bytes)``, embedded as data.
@@ -285,7 +285,7 @@ def render_html(summary: dict, table: dict, columns=None, *, figures=()) -> str:
     return "\n".join(parts) + "\n"
 
 
-def write_report(out_dir, summary: dict, table: dict, columns=None):
+def write_report(out_dir, summary: dict, table: dict):
     """Write ``report.html`` and ``report.md`` into ``out_dir``; returns their paths.
 
     The figures listed in ``summary["figures"]`` are read from ``out_dir`` and

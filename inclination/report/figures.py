@@ -568,7 +568,7 @@ def save_figure(fig, path_stem, *, dpi: int = 200) -> list:
     import io
     from pathlib import Path
 
-    from ._io import write_bytes_atomic
+    from .atomic import write_bytes_atomic
 
     paths = []
     for ext, kwargs in (("png", {"dpi": dpi}), ("svg", {})):

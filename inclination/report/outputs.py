@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._io import write_json_atomic, write_text_atomic
+from .atomic import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
 from .tables import write_csv, write_table_json
@@ -548,7 +548,7 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, pro
     if boundaries is not None:
         from .document import write_report
 
-        files += write_report(out_dir, summary, boundaries, BOUNDARY_COLUMNS)
+        files += write_report(out_dir, summary, boundaries)
     step()
     if bar is not None:
         bar.update(1)

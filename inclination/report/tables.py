@@ -25,7 +25,8 @@ from decimal import ROUND_HALF_UP, Decimal
 
 import numpy as np
 
-from ._io import _clean_json, write_text_atomic
+from ..errors import InputError
+from .atomic import json_ready, write_text_atomic
 from .columns import CLASS_DESCRIPTIONS, CLASS_SYMBOLS, PAPER_COLUMNS, SOURCE_SYMBOLS, header_text
 
 __all__ = [
@@ -86,10 +87,10 @@ def format_cell(value, column) -> str:
 def _check_table(table, columns) -> int:
     missing = [c.name for c in columns if c.name not in table]
     if missing:
-        raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
+        raise InputError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
     lengths = {c.name: len(table[c.name]) for c in columns}
     if len(set(lengths.values())) > 1:
-        raise ValueError(f"Expected columns of equal length, got {lengths}.")
+        raise InputError(f"Expected columns of equal length, got {lengths}.")
     return next(iter(lengths.values()), 0)
 
 
@@ -148,7 +149,7 @@ def write_csv(path, table, columns):
 
 def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
     """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
-    head = _clean_json(
+    head = json_ready(
         {
             "schema_version": schema_version,
             "meta": meta,
