@@ -2,6 +2,10 @@
 
 Exit status 0 on success, 2 on bad input (one line on stderr naming the file,
 the field and what was expected; no traceback), 1 on an internal fault.
+
+Output levels: by default progress bars (on a terminal, every stage including
+writing) and a few summary lines ending with the results folder; ``--quiet``
+drops the progress bars only; ``--silent`` drops everything but errors.
 """
 
 from __future__ import annotations
@@ -30,7 +34,17 @@ def _add_common(p: argparse.ArgumentParser, *, default_out: str) -> None:
     p.add_argument(
         "--overwrite", action="store_true", help="replace an existing output folder when done"
     )
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    _add_output_level(p)
+
+
+def _add_output_level(p: argparse.ArgumentParser) -> None:
+    level = p.add_mutually_exclusive_group()
+    level.add_argument(
+        "--quiet", action="store_true", help="no progress bars; the summary lines stay"
+    )
+    level.add_argument(
+        "--silent", action="store_true", help="print nothing but errors (no bars, no summary)"
+    )
 
 
 def _add_candidates(p: argparse.ArgumentParser) -> None:
@@ -73,6 +87,7 @@ def _build_parser() -> argparse.ArgumentParser:
         "report", help="write report.html and report.md again from a finished run's folder"
     )
     report.add_argument("run", help="output folder of an earlier analyse run")
+    _add_output_level(report)
     stereology = sub.add_parser(
         "stereology", help="grains and traces, then the plane distribution by stereology"
     )
@@ -91,7 +106,8 @@ def _progress(quiet: bool):
     from tqdm import tqdm
 
     def factory(total, desc):
-        return tqdm(total=total, desc=desc, unit="%", leave=False)
+        # Library stages report fractions on a 0–100 scale; writing counts file groups.
+        return tqdm(total=total, desc=desc, unit="%" if total == 100 else " step", leave=False)
 
     return factory
 
@@ -99,7 +115,8 @@ def _progress(quiet: bool):
 def _dispatch(args) -> int:
     from . import pipeline
 
-    progress = _progress(getattr(args, "quiet", True))
+    silent = getattr(args, "silent", False)
+    progress = _progress(getattr(args, "quiet", False) or silent)
     if args.command == "demo":
         result = pipeline.demo(
             args.out, seed=args.seed, overwrite=args.overwrite, progress=progress
@@ -122,9 +139,11 @@ def _dispatch(args) -> int:
             progress=progress,
             all_candidates=getattr(args, "all_candidates", False),
         )
-    if not getattr(args, "quiet", False):
+    if not silent:
         for line in result.messages:
             print(line)
+        print(f"results: {result.out_dir}")
+    # A frame warning goes to stderr even with --silent: it says the results may be wrong.
     for line in result.warnings:
         print(line, file=sys.stderr)
     return 0

@@ -594,7 +594,9 @@ def analyse(
         out, overwrite=overwrite, inputs=_input_files(job), notes=notes
     ) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
-        files, summary = write_outputs(analysis, stage_dir)
+        files, summary = write_outputs(
+            analysis, stage_dir, relocate=(stage_dir, out), progress=progress
+        )
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
     return RunResult(
@@ -690,7 +692,7 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report.atomic import staged_output_dir, write_json_atomic
+    from .report.atomic import staged_output_dir
 
     out = Path(out_dir)
     messages: list = []
@@ -706,9 +708,9 @@ def demo(
             job = load_job(paths[key])
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
-            _, summary = write_outputs(analysis, stage_dir / folder)
-            summary = _relocated(summary, stage_dir, out)
-            write_json_atomic(stage_dir / folder / "summary.json", summary)
+            _, summary = write_outputs(
+                analysis, stage_dir / folder, relocate=(stage_dir, out), progress=progress
+            )
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
             messages += [f"{out / folder}: {w}" for w in _audit_warnings(analysis)]
@@ -717,23 +719,11 @@ def demo(
     return RunResult(out, (), tuple(messages), summaries)
 
 
-def _relocated(doc, stage_dir: Path, out: Path):
-    """``doc`` with paths inside the staging folder named at their final place."""
-    stage, final = str(Path(stage_dir).resolve()), str(Path(out).resolve())
-    if isinstance(doc, dict):
-        return {k: _relocated(v, stage_dir, out) for k, v in doc.items()}
-    if isinstance(doc, list):
-        return [_relocated(v, stage_dir, out) for v in doc]
-    if isinstance(doc, str) and doc.startswith(stage):
-        return final + doc[len(stage) :]
-    return doc
-
-
 def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     """Write ``report.html`` and ``report.md`` again from a finished run's own files.
 
-    Reads ``summary.json``, ``boundaries.json`` and ``boundaries.png`` of the
-    folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
+    Reads ``summary.json``, ``boundaries.json`` and the figures ``summary.json``
+    lists of the folder (as an ``analyse`` or ``planes`` run wrote them) and nothing else.
 
     Raises
     ------
@@ -761,7 +751,7 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     ['report.html', 'report.md']
     """
 
-    from .io.limits import check_regular_file, read_json
+    from .io.limits import read_json
     from .report.columns import BOUNDARY_COLUMNS
     from .report.document import write_report
 
@@ -793,15 +783,8 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     for c in BOUNDARY_COLUMNS:
         values = [r.get(c.name) for r in rows]
         table[c.name] = _run_column(values, c, folder / "boundaries.json")
-    png = folder / "boundaries.png"
-    figure = None
-    if os.path.lexists(png):
-        check_regular_file(png, kind="run")
-        figure = png.read_bytes()
     try:
-        files = write_report(
-            folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure
-        )
+        files = write_report(folder, docs["summary.json"], table)
     except (TypeError, KeyError, AttributeError, ValueError, IndexError) as exc:
         # An edited summary.json: its parts have the wrong types for the report.
         raise InputError(
@@ -839,11 +822,18 @@ def _run_column(values: list, column, path) -> np.ndarray:
 # ----------------------------------------------------------------------------- outputs
 
 
-def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[Path], dict]:
+def write_outputs(
+    analysis: Analysis,
+    out_dir: str | os.PathLike,
+    *,
+    relocate: tuple[os.PathLike, os.PathLike] | None = None,
+    progress: ProgressFactory | None = None,
+) -> tuple[list[Path], dict]:
     """Write every table, figure and the report of ``analysis`` into ``out_dir``.
 
     Values are written in the map's declared axes (conventions §2); ``out_dir`` must
-    exist (:func:`analyse` stages it).
+    exist (:func:`analyse` stages it). ``relocate = (staging, final)`` writes paths
+    under the staging folder as they will be once it is moved into place.
 
     Returns
     -------
@@ -871,8 +861,13 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     """
     from .report import outputs
 
-    base = _summary_base(analysis)
-    files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=base)
+    files, summary = outputs.write_all(
+        analysis,
+        Path(out_dir),
+        summary_base=_summary_base(analysis),
+        relocate=relocate,
+        progress=progress,
+    )
     if analysis.audit is not None:
         from .report.atomic import write_json_atomic
 

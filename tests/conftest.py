@@ -36,3 +36,13 @@ def require_reference(module_name: str):
 
         return importlib.import_module(module_name)
     return pytest.importorskip(module_name)
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """The demo's output folder, run once per session (the report and paper-table tests)."""
+    from inclination.pipeline import demo
+
+    out = tmp_path_factory.mktemp("demo") / "demo"
+    demo(out)
+    return out

@@ -8,40 +8,16 @@ computes a result: it only reshapes, converts and writes.
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .atomic import write_json_atomic
+from .atomic import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
-from .tables import write_csv, write_latex, write_markdown, write_table_json
-
-if TYPE_CHECKING:
-    from ..pipeline import Analysis
+from .tables import write_csv, write_table_json
 
 __all__ = ["write_all", "grains_table", "segments_table", "boundaries_table"]
-
-_TEX_COLUMNS = (
-    "boundary_id",
-    "grain_a",
-    "grain_b",
-    "length_um",
-    "trace_angle_deg",
-    "trace_sigma_deg",
-    "misorientation_deg",
-    "sigma",
-    "plane_a",
-    "plane_b",
-    "trace_deviation_deg",
-    "candidates_within_tolerance",
-    "predicted_dip_deg",
-    "measured_dip_deg",
-    "measured_dip_sigma_deg",
-    "sense",
-)
 
 
 def _frame_meta(axes) -> dict:
@@ -59,7 +35,7 @@ def _declared_points(axes, x, y):
     return xy[..., 0], xy[..., 1]
 
 
-def grains_table(analysis: Analysis) -> dict:
+def grains_table(analysis) -> dict:
     """The grains table in declared axes (orientations back in the data frame)."""
     from ..crystal.rotations import quat_as_euler_deg
     from ..frames import orientations_to_declared
@@ -92,7 +68,7 @@ def grains_table(analysis: Analysis) -> dict:
     }
 
 
-def segments_table(analysis: Analysis, segments: dict | None = None) -> dict:
+def segments_table(analysis, segments=None) -> dict:
     """A segments table (default: the grain boundaries') in declared axes, with WKT."""
     s = analysis.segments if segments is None else segments
     axes = analysis.omap.axes
@@ -144,7 +120,7 @@ def _aligned(table, segment_ids):
     return column
 
 
-def boundaries_table(analysis: Analysis) -> dict:
+def boundaries_table(analysis) -> dict:
     """The per-boundary table (one row per segment long enough for planes), declared axes."""
     seg = segments_table(analysis)
     keep = ~seg["too_short"]
@@ -202,44 +178,186 @@ def boundaries_table(analysis: Analysis) -> dict:
     return out
 
 
-def _figure(analysis, out_dir, table_declared):
+def paper_caption(axes, paper) -> str:
+    """Caption of the paper table: frame, conventions and the selection rule."""
+    return (
+        f"Boundary planes, in the declared axes (x {axes.x}, y {axes.y} on the screen). "
+        "Trace angles from +x toward +y in [0, 180); dip 0 parallel to the surface, 90 "
+        "vertical; dip direction: the azimuth the plane dips toward, from +x toward +y in "
+        "[0, 360) (conventions in docs/conventions.md). Shown: "
+        f"{paper.n_rows} of {paper.n_total} boundaries ({paper.rule}); the full table at full "
+        "precision is boundaries.csv and boundaries.json."
+    )
+
+
+def _paper_files(analysis, out_dir, boundaries) -> list:
+    from .tables import paper_latex, paper_legend, paper_markdown, paper_table
+
+    paper = paper_table(boundaries)
+    caption = paper_caption(analysis.omap.axes, paper)
+    md = ["# Boundaries", "", caption, ""] + paper_markdown(paper) + ["", paper_legend(), ""]
+    return [
+        write_text_atomic(out_dir / "boundaries.md", "\n".join(md)),
+        write_text_atomic(
+            out_dir / "boundaries.tex", paper_latex(paper, caption=caption, label="tab:boundaries")
+        ),
+    ]
+
+
+def _by_segment(table, ids, name, fill=np.nan):
+    """``table[name]`` aligned to segment ids (fill where absent)."""
+    out = np.full(len(ids), fill, dtype=float)
+    if table is None or not len(table["segment_id"]):
+        return out
+    index = {int(s): k for k, s in enumerate(np.asarray(table["segment_id"]).tolist())}
+    rows = np.array([index.get(int(s), -1) for s in ids], dtype=int)
+    found = rows >= 0
+    out[found] = np.asarray(table[name], float)[rows[found]]
+    return out
+
+
+def _cross_sections(analysis):
+    """(name, CrossSection record, table) of each cross-section of the job, in S."""
+    from ..sections import CrossSection
+
+    out = []
+    for index, (section, table) in enumerate(
+        zip(analysis.job.sections, analysis.section_tables, strict=False)
+    ):
+        if section.get("kind") != "cross-section":
+            continue
+        record = CrossSection.from_job_entry(
+            section,
+            axes=analysis.omap.axes,
+            path=analysis.job.source_path,
+            pointer=f"/sections/{index}",
+        )
+        out.append((section.get("name") or f"section {index + 1}", record, table))
+    return out
+
+
+def _poles(phase):
+    """Labelled low-index plane normals (C) of a phase, upper hemisphere."""
+    from ..crystal.families import default_families, expand_family
+    from ..crystal.indices import format_indices, parse_indices
+    from ..crystal.lattice import plane_normals_crystal
+
+    out = []
+    for family in default_families(phase.laue)[:3]:
+        members = expand_family(phase.lattice, parse_indices(family).values, phase.laue)
+        for row, n in zip(members, plane_normals_crystal(phase.lattice, members), strict=True):
+            sign = -1 if n[2] < -1e-9 else 1
+            out.append((format_indices(tuple(int(x) * sign for x in row), "plane"), sign * n))
+    return out
+
+
+def _figures(analysis, out_dir, boundaries):
+    """Every figure of the planes stage; returns (paths, [{file, title}] for the report)."""
     import matplotlib
 
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
 
-    from .figures import plot_boundaries, save_figure
+    from ..crystal.rotations import quat_apply
+    from ..sections.formulas import apparent_dip_deg
+    from .figures import (
+        plot_boundary_map,
+        plot_dip_comparison,
+        plot_normals_stereogram,
+        plot_section_sketch,
+        save_figure,
+    )
 
     omap = analysis.omap
     s = analysis.segments
     keep = ~np.asarray(s["too_short"], bool)
-    classes = table_declared.get("identification")
-    if classes is None:
-        classes = np.full(int(keep.sum()), "none", dtype=object)
-    classes = np.where(np.asarray(classes, dtype=object) == "", "none", classes)
+    ids = np.asarray(s["segment_id"])[keep]
+    classes = np.asarray(boundaries["identification"], dtype=object)
+    classes = np.where(classes == "", "none", classes)
     seg_s = {k: np.asarray(s[k])[keep] for k in ("x0_um", "y0_um", "x1_um", "y1_um")}
-    fig, ax = plt.subplots(figsize=(8, 8 * omap.shape[0] / max(omap.shape[1], 1) + 1.0))
-    try:
-        plot_boundaries(
-            analysis.grain_map.labels,
-            seg_s,
-            classes,
-            step_x_um=omap.step_x_um,
-            step_y_um=omap.row_pitch_um,
-            axes_declared=(omap.axes.x, omap.axes.y),
-            ax=ax,
-            title="Fitted boundary segments by identification class",
-        )
-        if getattr(analysis, "features", None) is not None:
-            from .features import plot_features
+    seg_s["segment_id"] = ids
+    ident, measured = analysis.identification, analysis.measured
+    # Dip symbols in S (conventions §5): the measured plane where there is one, else the
+    # predicted plane of a uniquely identified boundary.
+    m_dip = _by_segment(measured, ids, "measured_dip_deg")
+    m_az = _by_segment(measured, ids, "dip_direction_azimuth_deg")
+    p_dip = _by_segment(ident, ids, "predicted_dip_deg")
+    p_az = _by_segment(ident, ids, "predicted_dip_azimuth_deg")
+    unique = np.isin(classes, ("coherent_twin", "identified"))
+    use_m = np.isfinite(m_dip) & np.isfinite(m_az)
+    dips = {
+        "dip_deg": np.where(use_m, m_dip, np.where(unique, p_dip, np.nan)),
+        "dip_azimuth_deg": np.where(use_m, m_az, np.where(unique, p_az, np.nan)),
+    }
+    sections = _cross_sections(analysis)
+    paths, shown = [], []
 
-            plot_features(ax, analysis.features)
-        paths = save_figure(fig, out_dir / "boundaries")
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-    finally:
-        plt.close(fig)
-    return paths, buf.getvalue()
+    def save(fig, stem, title):
+        try:
+            paths.extend(save_figure(fig, out_dir / stem))
+        finally:
+            plt.close(fig)
+        shown.append({"file": f"{stem}.png", "vector": f"{stem}.svg", "title": title})
+
+    art = plot_boundary_map(
+        analysis.grain_map.labels,
+        seg_s,
+        classes,
+        step_x_um=omap.step_x_um,
+        step_y_um=omap.row_pitch_um,
+        axes_declared=(omap.axes.x, omap.axes.y),
+        sections=[(name, rec.line_sample) for name, rec, _ in sections],
+        dips=dips,
+        title="Boundaries by identification class, with ids, section lines and dips",
+    )
+    if getattr(analysis, "features", None) is not None:
+        from .features import plot_features
+
+        plot_features(art["map_ax"], analysis.features)
+    save(art["fig"], "boundaries", "Map: boundaries, ids, section lines, dip ticks")
+
+    fig, (ax_s, ax_d) = plt.subplots(1, 2, figsize=(9.2, 4.6))
+    normals_s = np.stack([_by_segment(measured, ids, f"normal_{c}") for c in "xyz"], axis=-1)
+    has = np.all(np.isfinite(normals_s), axis=1)
+    grains = analysis.grain_map.grains
+    row_of = {int(g): k for k, g in enumerate(np.asarray(grains["grain_id"]).tolist())}
+    grain_a = np.asarray(boundaries["grain_a"])[has]
+    quat = np.asarray(grains["quat"], float).reshape(-1, 4)[[row_of[int(g)] for g in grain_a]]
+    normals_c = quat_apply(quat, normals_s[has]) if has.any() else np.zeros((0, 3))
+    phases = list(analysis.job.phases.values())
+    plot_normals_stereogram(normals_c, classes[has], _poles(phases[0]) if phases else (), ax=ax_s)
+    plot_dip_comparison(
+        p_dip, m_dip, _by_segment(measured, ids, "measured_dip_sigma_deg"), classes, ax=ax_d
+    )
+    fig.tight_layout()
+    save(fig, "planes", "Stereogram of measured normals; predicted against measured dip")
+
+    for k, (name, record, table) in enumerate(sections, start=1):
+        ok = np.asarray(table["status"]) == "measured"
+        sid = np.asarray(table["segment_id"])[ok]
+        beta = np.asarray(table["beta_deg"], float)[ok]
+        u = np.diff(np.asarray(record.line_sample, float), axis=0)[0]
+        u = u / np.linalg.norm(u)
+        length = float(np.hypot(*np.diff(np.asarray(record.line_sample, float), axis=0)[0]))
+
+        def signed(dip, az, u=u, beta=beta):
+            # Positive: the plane descends toward the line's end (its dip direction has a
+            # component along the line), as the sketch draws it, left to right.
+            side = np.sign(np.cos(np.deg2rad(az)) * u[0] + np.sin(np.deg2rad(az)) * u[1])
+            return np.where(side == 0, 1.0, side) * apparent_dip_deg(dip, beta)
+
+        m = signed(
+            np.asarray(table["measured_dip_deg"], float)[ok],
+            np.asarray(table["dip_direction_azimuth_deg"], float)[ok],
+        )
+        pdip = _by_segment(ident, sid, "predicted_dip_deg")
+        paz = _by_segment(ident, sid, "predicted_dip_azimuth_deg")
+        pr = np.where(np.isfinite(pdip), signed(np.nan_to_num(pdip), np.nan_to_num(paz)), np.nan)
+        art = plot_section_sketch(
+            np.asarray(table["along_um"], float)[ok], m, pr, sid, length_um=length, name=name
+        )
+        save(art["ax"].figure, f"section-{k}", f"Cross-section {name}: face sketch")
+    return paths, shown
 
 
 def _summary(analysis, base, boundaries) -> dict:
@@ -303,12 +421,36 @@ def _summary(analysis, base, boundaries) -> dict:
     return summary
 
 
-def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple[list[Path], dict]:
-    """Write every file of ``analysis`` into ``out_dir``; returns (paths, summary)."""
+def _relocated(value, staging: str, final: str):
+    """``value`` with every path string under ``staging`` moved under ``final``."""
+    if isinstance(value, dict):
+        return {k: _relocated(v, staging, final) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_relocated(v, staging, final) for v in value]
+    if isinstance(value, str) and value.startswith(staging):
+        return final + value[len(staging) :]
+    return value
+
+
+def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, progress=None):
+    """Write every file of ``analysis`` into ``out_dir``; returns (paths, summary).
+
+    ``relocate = (staging, final)``: paths in the summary that lie under the staging
+    folder are written as they will read once it is moved to ``final``.
+    ``progress(total, desc)`` as for :func:`inclination.pipeline.run`: one step per
+    group of files.
+    """
+    bar = progress(6, "writing") if progress is not None else None
+
+    def step():
+        if bar is not None:
+            bar.update(1)
+
     meta = _frame_meta(analysis.omap.axes)
     files = []
     grains = grains_table(analysis)
     files.append(write_csv(out_dir / "grains.csv", grains, GRAIN_COLUMNS))
+    step()
     boundaries = None
     if analysis.segments is not None:
         segments = segments_table(analysis)
@@ -327,6 +469,7 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
                 out_dir / "segments.meta.json", {"schema_version": SCHEMA_VERSION, **meta}
             )
         )
+    step()
     if analysis.subgrain_segments is not None:
         files.append(
             write_csv(
@@ -347,40 +490,14 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
                 meta=meta,
             )
         )
-        files.append(
-            write_markdown(
-                out_dir / "boundaries.md",
-                boundaries,
-                [c for c in BOUNDARY_COLUMNS if c.name in _TEX_COLUMNS],
-                title="Boundaries",
-                notes=f"Declared axes x {analysis.omap.axes.x}, y {analysis.omap.axes.y}; "
-                "lengths in µm, angles in degrees. Empty cells: not available.",
-            )
-        )
-        files.append(
-            write_latex(
-                out_dir / "boundaries.tex",
-                boundaries,
-                [c for c in BOUNDARY_COLUMNS if c.name in _TEX_COLUMNS],
-                caption=(
-                    f"Straight boundary segments and their planes. Positions and angles in the "
-                    f"declared axes (x {analysis.omap.axes.x}, y {analysis.omap.axes.y}); trace "
-                    "angles from +x toward +y; dip 0 parallel to the surface, 90 vertical; "
-                    "Bunge Euler angles, passive."
-                ),
-                label="tab:boundaries",
-                sigma_of={
-                    "trace_angle_deg": "trace_sigma_deg",
-                    "measured_dip_deg": "measured_dip_sigma_deg",
-                },
-            )
-        )
+        files += _paper_files(analysis, out_dir, boundaries)
         cand = analysis.candidates
         if cand is not None:
             from .candidates import write_candidates
 
             rows = analysis.job.planes.get("candidate_rows", "fit_or_shared")
             files.append(write_candidates(out_dir / "candidates.jsonl", cand, meta=meta, rows=rows))
+    step()
     if analysis.section_tables:
         files.append(
             write_json_atomic(
@@ -406,13 +523,20 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
 
         feature_files, features = write_features(analysis, out_dir, meta)
         files += feature_files
-    figure_png = None
-    # The figure belongs to the planes stage: it colours segments by identification class,
-    # and drawing a 16-million-point map would dominate a traces-only run.
+    figures = []
+    # The figures belong to the planes stage: they colour boundaries by identification
+    # class, and drawing a 16-million-point map would dominate a traces-only run.
     if boundaries is not None:
-        paths, figure_png = _figure(analysis, out_dir, boundaries)
+        paths, figures = _figures(analysis, out_dir, boundaries)
         files += paths
+    step()
     summary = _summary(analysis, summary_base, boundaries)
+    if relocate is not None:
+        staging, final = (str(Path(p)) for p in relocate)
+        summary = _relocated(summary, staging, final)
+        summary["provenance"]["output_folder"] = final + str(out_dir)[len(staging) :]
+    if figures:
+        summary["figures"] = figures
     if features is not None:
         from .features import feature_summary
 
@@ -421,5 +545,9 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
     if boundaries is not None:
         from .document import write_report
 
-        files += write_report(out_dir, summary, boundaries, BOUNDARY_COLUMNS, figure_png=figure_png)
+        files += write_report(out_dir, summary, boundaries)
+    step()
+    if bar is not None:
+        bar.update(1)
+        bar.close()
     return files, summary

@@ -185,32 +185,6 @@ def test_subgrain_network_on_request(scenario, tmp_path):
     assert not (tmp_path / "n" / "subgrain_segments.csv").exists()
 
 
-def test_latex_table_compiles(demo_run, tmp_path):
-    # The booktabs table must compile as part of a document; needs a TeX engine.
-    import subprocess
-
-    engine = shutil.which("pdflatex") or shutil.which("lualatex")
-    if engine is None:
-        pytest.skip("no TeX engine (pdflatex or lualatex) on this machine")
-    shutil.copy(demo_run / "results" / "boundaries.tex", tmp_path / "boundaries.tex")
-    (tmp_path / "doc.tex").write_text(
-        "\\documentclass{article}\n\\usepackage[T1]{fontenc}\n\\usepackage{booktabs}\n"
-        "\\usepackage{longtable}\n"
-        "\\usepackage[landscape,margin=1cm]{geometry}\n\\begin{document}\n"
-        "\\tiny\n\\input{boundaries.tex}\n\\end{document}\n"
-    )
-    result = subprocess.run(
-        [engine, "-interaction=nonstopmode", "-halt-on-error", "doc.tex"],
-        cwd=tmp_path,
-        capture_output=True,
-        text=True,
-        timeout=120,
-        check=False,
-    )
-    assert result.returncode == 0, result.stdout[-3000:]
-    assert (tmp_path / "doc.pdf").exists()
-
-
 def test_progress_reaches_every_long_stage(scenario):
     # The CLI hands a tqdm factory to the pipeline on a terminal; here a recording
     # factory stands in for it: each long stage opens a bar that ends at 100 %.
@@ -233,3 +207,18 @@ def test_progress_reaches_every_long_stage(scenario):
     run(load_job(scenario["job"]), stage="traces", progress=Bar)
     assert {"surface: read map", "surface: grains"} <= set(bars)
     assert all(b.closed and b.n == b.total for b in bars.values())
+
+
+def test_quiet_keeps_the_summary_and_silent_prints_nothing(demo_run, tmp_path, capsys):
+    # --quiet removes progress bars only; --silent everything but errors.
+    from inclination.cli import main as run_cli
+
+    run = demo_run / "results"
+    assert run_cli(["report", str(run), "--quiet"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-1] == f"results: {run}"
+    assert run_cli(["report", str(run), "--silent"]) == 0
+    captured = capsys.readouterr()
+    assert captured.out == "" and captured.err == ""
+    assert run_cli(["report", str(tmp_path / "missing"), "--silent"]) == 2
+    assert "summary.json" in capsys.readouterr().err
