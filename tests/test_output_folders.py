@@ -58,8 +58,8 @@ _CHILD = textwrap.dedent(
     import inclination.report.atomic as io_
     real_write = pipeline.write_outputs
 
-    def write(analysis, out_dir):
-        result = real_write(analysis, out_dir)
+    def write(analysis, out_dir, **options):
+        result = real_write(analysis, out_dir, **options)
         if mode == "pause":
             flag.with_suffix(".started").write_text("")
             while not flag.exists():

@@ -78,7 +78,7 @@ def test_demo_turned_axes_report_leads_with_the_audit(demo_run):
     assert md[2].startswith("> **WARNING — frame audit.**")
     assert any("z90" in line for line in md[:8])
     html = (demo_run / "results-turned-axes" / "report.html").read_text()
-    assert html.index("frame-audit") < html.index('class="verdict"')
+    assert html.index("frame-audit") < html.index('id="verdict"')
     assert "frame_audit" not in json.loads((demo_run / "results" / "summary.json").read_text())
 
 
