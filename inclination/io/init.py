@@ -117,7 +117,7 @@ def _unit_from_values(angles: np.ndarray, named: set, notes: list) -> str:
                 f"The column names say {unit} but the largest angle is {largest:.4g}; "
                 f"kept {unit} (the reader checks it)."
             )
-        notes.append(f"Angles in {unit}: from the column names (largest |angle| {largest:.4g}).")
+        notes.append(f"Angles in {unit}: from the names (largest |angle| {largest:.4g}).")
         return unit
     if finite.shape[0] <= _UNIT_EVIDENCE_POINTS and by_values == "rad":
         notes.append(
