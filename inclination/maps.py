@@ -880,11 +880,14 @@ def _read_table_map(
         if name is None and role == "phase":
             continue
         if name not in table.header:
-            near = difflib.get_close_matches(name, table.header, n=1, cutoff=0.5)
-            hint = f"; did you mean {near[0]!r}?" if near else ""
+            from .io.init import column_role
+
+            near = [h for h in table.header if column_role(h) == role]
+            near = near or difflib.get_close_matches(name, table.header, n=1, cutoff=0.5)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
             raise InputError(
                 f"Expected a column {name!r} for {role!r}, got columns {list(table.header)}"
-                f"{hint} Name the file's columns in the job's map.columns under the keys "
+                f"{hint}. Name the file's columns in the job's map.columns under the keys "
                 f"{_ROLES}, e.g. \"columns\": {{\"{role}\": \"{near[0] if near else 'name'}\"}}.",
                 path=path,
                 pointer="header",

@@ -143,12 +143,13 @@ def read_hdf5_arrays(
         extra = {f"quality/{k}": v for k, v in (datasets.get("quality") or {}).items()}
         extra.update({k: datasets[k] for k in ("x", "y") if k in datasets})
         arrays = {"phase": phase}
+        names = {"phase": datasets["phase"], **extra}
         for key, name in extra.items():
             arrays[key] = _dataset(f, key, name, path, available)
     for key, arr in arrays.items():
         if arr.shape != shape:
             raise InputError(
-                f"Expected dataset {datasets.get(key, key)!r} ({key}) to have shape {shape} "
+                f"Expected dataset {names[key]!r} ({key}) to have shape {shape} "
                 f"like the Euler angles, got {arr.shape}.",
                 path=path,
                 pointer=f"datasets/{key}",

@@ -24,7 +24,7 @@ from ..errors import InputError, SettingError
 from .job import PLACEHOLDER
 from .text import place_on_grid, read_table
 
-__all__ = ["Proposal", "PHASE_PRESETS", "propose_job", "write_job"]
+__all__ = ["Proposal", "PHASE_PRESETS", "column_role", "propose_job", "write_job"]
 
 #: Phase presets for ``--phase ID=NAME``. Lattice parameters are room-temperature handbook
 #: values, from memory: nickel a = 3.524 Å (fcc), alpha-iron a = 2.8665 Å (bcc), alpha-titanium
@@ -96,6 +96,17 @@ def _normalise(name: str) -> tuple[str, str | None]:
         unit = {"d": "deg", "r": "rad"}.get(m.group(1)[0], "um")
         n = n[: m.start()]
     return n, unit
+
+
+def column_role(name: str) -> str | None:
+    """The role a header name is recognised as (a key of the job's map.columns), or None.
+
+    Examples
+    --------
+    >>> [column_role(n) for n in ("X (µm)", "Euler2", "phi1_rad", "Phase", "CI")]
+    ['x_um', 'Phi', 'phi1', 'phase', None]
+    """
+    return _role_of(name)[0]
 
 
 def _role_of(name: str) -> tuple[str | None, str | None]:

@@ -263,7 +263,10 @@ def _refuse_placeholders(doc, path, where=()):
 
 def _nearest(name, allowed) -> str:
     """' (did you mean 'x'?)' for the closest allowed name, or ''."""
-    near = difflib.get_close_matches(str(name), [str(a) for a in allowed], n=1, cutoff=0.5)
+    allowed = [str(a) for a in allowed]
+    # A bare prefix ("x" for "x_um") is the commonest slip and scores low on similarity.
+    near = [a for a in allowed if a.lower().startswith(str(name).lower())]
+    near = near or difflib.get_close_matches(str(name), allowed, n=1, cutoff=0.5)
     return f" (did you mean {near[0]!r}?)" if near else ""
 
 
