@@ -17,7 +17,7 @@ from inclination.cli import main
 from inclination.errors import InputError, SettingError
 from inclination.io.init import PHASE_PRESETS, propose_job, write_job
 from inclination.io.job import PLACEHOLDER, load_job
-from inclination.io.writers import write_csv, write_npz
+from inclination.io.writers import write_csv
 from inclination.synthetic import as_orientation_map, make_microstructure, sample_map
 
 

@@ -246,7 +246,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
 
 
 def _refuse_placeholders(doc, path, where=()):
-    """The first value ``inclination init`` left to fill in, as one InputError (not a schema error)."""
+    """The first value ``inclination init`` left to fill in, as one InputError."""
     if isinstance(doc, str) and doc.startswith(PLACEHOLDER):
         raise InputError(
             f"Expected a value in place of the placeholder that 'inclination init' wrote, "
@@ -254,7 +254,10 @@ def _refuse_placeholders(doc, path, where=()):
             path=path,
             pointer=_pointer(list(where)),
         )
-    items = doc.items() if isinstance(doc, Mapping) else enumerate(doc) if isinstance(doc, list) else ()
+    if isinstance(doc, Mapping):
+        items = doc.items()
+    else:
+        items = enumerate(doc) if isinstance(doc, list) else ()
     for key, value in items:
         if key == "notes" and not where:
             continue
