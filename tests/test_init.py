@@ -214,3 +214,16 @@ def test_init_refuses_unknown_preset_and_unrecognised_columns(tmp_path):
         propose_job(p)
     with pytest.raises(SettingError, match=r"Expected a phase preset among \('fcc'"):
         propose_job(p, phases={1: "fcc-like"})
+
+
+def test_init_on_a_tiff_stack(tmp_path, square_map):
+    from inclination.io.writers import write_tiff
+
+    tif, _ = write_tiff(tmp_path / "m.tif", square_map)
+    prop = propose_job(tif, phases={1: "fcc"})
+    assert prop.job["map"]["format"] == "tiff" and prop.job["map"]["angles"] == "deg"
+    write_job(prop, tmp_path / "job.json")
+    back = load_job(_fill(tmp_path / "job.json", step_um=0.5)).read_surface_map()
+    assert np.array_equal(back.valid, square_map.valid)
+    # float32 channels (inclination.io.writers.write_tiff) and float32 quaternions.
+    assert_allclose(np.abs(np.sum(back.quat * square_map.quat, axis=-1)), 1.0, rtol=0, atol=5e-7)
