@@ -641,7 +641,6 @@ def read_map(
             phase_ids,
             job_path,
             pointer,
-            settings,
             progress,
         )
     else:
@@ -852,7 +851,6 @@ def _read_table_map(
     phase_ids,
     job_path,
     pointer,
-    settings,
     progress=None,
 ):
     delimiter = spec.get("delimiter", TABLE_DELIMITERS[fmt])

@@ -156,7 +156,7 @@ def _sniff_delimiter(path: Path) -> tuple[str, str | None]:
     return "text", None
 
 
-def _table_proposal(path: Path, notes: list, decide: list) -> tuple[dict, list]:
+def _table_proposal(path: Path, notes: list) -> tuple[dict, list]:
     fmt, delim = _sniff_delimiter(path)
     table = read_table(path, delimiter=delim, whitespace=delim is None)
     notes.append(
@@ -428,7 +428,7 @@ def propose_job(
     elif suffix in (".h5", ".hdf5", ".he5", ".nxs"):
         spec, ids = _hdf5_proposal(path, notes, decide)
     else:
-        spec, ids = _table_proposal(path, notes, decide)
+        spec, ids = _table_proposal(path, notes)
     ids = sorted(set(ids) | set(presets))
     if not ids:
         raise InputError("Expected at least one indexed point (phase id > 0), got none.", path=path)
@@ -478,7 +478,7 @@ def write_job(proposal: Proposal, out: str | PathLike, *, force: bool = False) -
     >>> p.read_text()
     '{\\n  "notes": []\\n}\\n'
     """
-    from ..report._io import write_text_atomic
+    from ..report.atomic import write_text_atomic
 
     out = Path(out)
     if out.exists() and not force:
