@@ -94,6 +94,8 @@ class RunTable(Mapping):
 
         Examples
         --------
+        >>> import pytest
+        >>> _ = pytest.importorskip("pandas", reason="needs the optional extra 'pandas'")
         >>> from inclination.report.columns import Column
         >>> t = RunTable({"a": [1, -1], "s": ["x", ""]},
         ...              [Column("a", "int"), Column("s", "str")], name="t")

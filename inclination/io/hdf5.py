@@ -48,7 +48,8 @@ def list_hdf5_datasets(path: str | PathLike) -> dict[str, tuple]:
 
     Examples
     --------
-    >>> import tempfile, os, h5py
+    >>> import tempfile, os, pytest
+    >>> h5py = pytest.importorskip("h5py", reason="needs the optional extra 'hdf5'")
     >>> p = os.path.join(tempfile.mkdtemp(), "m.h5")
     >>> with h5py.File(p, "w") as f:
     ...     _ = f.create_dataset("scan/euler", data=np.zeros((2, 3, 3)))
@@ -119,7 +120,8 @@ def read_hdf5_arrays(
 
     Examples
     --------
-    >>> import tempfile, os, h5py
+    >>> import tempfile, os, pytest
+    >>> h5py = pytest.importorskip("h5py", reason="needs the optional extra 'hdf5'")
     >>> p = os.path.join(tempfile.mkdtemp(), "m.h5")
     >>> with h5py.File(p, "w") as f:
     ...     _ = f.create_dataset("e", data=np.zeros((2, 3, 3)))
