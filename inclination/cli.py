@@ -29,6 +29,10 @@ _STAGES = {
 }
 
 
+#: The field reference (generated from schemas/job.schema.json by scripts/make_job_doc.py).
+_JOB_DOC = "docs/job-file.md"
+
+
 def _add_common(p: argparse.ArgumentParser, *, default_out: str) -> None:
     p.add_argument("--out", default=default_out, help="output folder (default: %(default)s)")
     p.add_argument(
@@ -68,8 +72,29 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     _add_common(demo, default_out="inclination-demo")
     demo.add_argument("--seed", type=int, default=7, help="seed of the synthetic sample")
-    analyse = sub.add_parser("analyse", help="the whole job, driven by a job file")
-    analyse.add_argument("job", help="job file (JSON)")
+    init = sub.add_parser(
+        "init",
+        help="write a first job file from a map: columns, unit, grid, step and phases recognised",
+        description="Read a map's header or arrays and write a job file with every recognised "
+        "field filled, every guess listed in its notes, and placeholders (FILL-IN) for what "
+        f"you must decide: the axes, the data frame and the phases. Fields: {_JOB_DOC}",
+    )
+    init.add_argument("map", help="the map: csv, tsv, text table, .npz, .tif (+ sidecar), .h5")
+    init.add_argument("--out", default="job.json", help="job file to write (default: %(default)s)")
+    init.add_argument(
+        "--phase",
+        action="append",
+        default=[],
+        metavar="ID=PRESET",
+        help="fill phase ID from a preset: fcc, bcc or hcp (lattice parameters from memory)",
+    )
+    init.add_argument("--force", action="store_true", help="replace an existing job file")
+    analyse = sub.add_parser(
+        "analyse",
+        help="the whole job, driven by a job file",
+        description=f"The whole job, driven by a job file. Every field: {_JOB_DOC}",
+    )
+    analyse.add_argument("job", help=f"job file (JSON; fields in {_JOB_DOC})")
     _add_common(analyse, default_out="inclination-out")
     _add_candidates(analyse)
     for name, text in _STAGES.items():
@@ -115,6 +140,8 @@ def _progress(quiet: bool):
 def _dispatch(args) -> int:
     from . import pipeline
 
+    if args.command == "init":
+        return _init(args)
     silent = getattr(args, "silent", False)
     progress = _progress(getattr(args, "quiet", False) or silent)
     if args.command == "demo":
@@ -146,6 +173,32 @@ def _dispatch(args) -> int:
     # A frame warning goes to stderr even with --silent: it says the results may be wrong.
     for line in result.warnings:
         print(line, file=sys.stderr)
+    return 0
+
+
+def _init(args) -> int:
+    from pathlib import Path
+
+    from .errors import SettingError
+    from .io.init import propose_job, write_job
+
+    presets = {}
+    for item in args.phase:
+        pid, sep, name = item.partition("=")
+        if not sep or not pid.strip().isdigit():
+            raise SettingError(f"Expected --phase ID=PRESET such as 1=fcc, got {item!r}.")
+        presets[int(pid)] = name.strip()
+    out = Path(args.out)
+    proposal = propose_job(args.map, job_dir=out.parent, phases=presets)
+    write_job(proposal, out, force=args.force)
+    print(f"wrote {out}")
+    print("recognised (listed in the job's notes; check each):")
+    for line in proposal.recognised:
+        print(f"  - {line}")
+    print("still to decide (replace every FILL-IN value):")
+    for line in proposal.to_decide:
+        print(f"  - {line}")
+    print(f"every field is described in {_JOB_DOC}")
     return 0
 
 

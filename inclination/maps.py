@@ -15,6 +15,7 @@ angles to 1e-5°.
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import os
 from collections.abc import Mapping
@@ -48,7 +49,7 @@ __all__ = [
 ]
 
 GRIDS = ("square", "hexagonal")
-MAP_FORMATS = ("csv", "tsv", "text", "npz", "tiff")
+MAP_FORMATS = ("csv", "tsv", "text", "npz", "tiff", "hdf5")
 _ANGLE_UNITS = ("deg", "rad")
 _ROLES = ("x_um", "y_um", "phi1", "Phi", "phi2", "phase")
 # Names a quality channel may not take: they are the written files' own columns/arrays.
@@ -690,6 +691,21 @@ def read_map(
         if fmt == "npz":
             euler, phase_raw, quality = read_npz_arrays(path, angles=angles)
             reader = "npz arrays"
+        elif fmt == "hdf5":
+            from .io.hdf5 import read_hdf5_arrays
+
+            if not isinstance(spec.get("datasets"), Mapping):
+                raise InputError(
+                    "Expected 'datasets' naming the euler and phase dataset paths for an "
+                    "hdf5 map, got none.",
+                    path=job_path,
+                    pointer=f"{pointer}/datasets",
+                )
+            euler, phase_raw, quality, coords = read_hdf5_arrays(path, datasets=spec["datasets"])
+            if coords:
+                _check_grid_coords(coords, axes, grid, step_x, step_y, path)
+            settings["datasets"] = dict(spec["datasets"])
+            reader = "hdf5 datasets"
         else:
             sidecar = Path(spec.get("sidecar", str(spec["path"]) + ".json"))
             if base_dir is not None and not sidecar.is_absolute():
@@ -742,6 +758,24 @@ def _active_to_sample(quat, valid, axes, dfr):
         stored = orientations_to_declared(flat[r].astype(np.float64), axes, dfr)
         flat[r] = orientations_to_sample(stored, axes, dfr, rotation_sense="active")
     return out
+
+
+def _check_grid_coords(coords, axes, grid, step_x, step_y, path):
+    """Coordinates stored beside arrays must put every point at its own grid index (§1)."""
+    x_s, y_s = _columns_to_sample(coords[0].ravel(), coords[1].ravel(), axes)
+    placement = place_on_grid(x_s, y_s, step_x_um=step_x, step_y_um=step_y, grid=grid, path=path)
+    h, w = coords[0].shape
+    rows, cols = np.indices((h, w)).reshape(2, -1)
+    off = np.flatnonzero((placement.row != rows) | (placement.col != cols))
+    if placement.shape != (h, w) or off.size:
+        k = int(off[0]) if off.size else 0
+        raise InputError(
+            f"Expected the x and y datasets to place each point at its own array index on a "
+            f"{grid} grid in the declared axes, got row {k // w}, column {k % w} elsewhere; "
+            "check 'axes' against the coordinates.",
+            path=path,
+            pointer="datasets/x",
+        )
 
 
 def _no_indexed_point(path):
@@ -902,9 +936,15 @@ def _read_table_map(
         if name is None and role == "phase":
             continue
         if name not in table.header:
+            from .io.init import column_role
+
+            near = [h for h in table.header if column_role(h) == role]
+            near = near or difflib.get_close_matches(name, table.header, n=1, cutoff=0.5)
+            hint = f" (did you mean {near[0]!r}?)" if near else ""
             raise InputError(
-                f"Expected a column {name!r} ({role}), got columns {list(table.header)}; "
-                'map the file\'s names under "columns" in the job.',
+                f"Expected a column {name!r} for {role!r}, got columns {list(table.header)}"
+                f"{hint}. Name the file's columns in the job's map.columns under the keys "
+                f"{_ROLES}, e.g. \"columns\": {{\"{role}\": \"{near[0] if near else 'name'}\"}}.",
                 path=path,
                 pointer="header",
             )

@@ -97,6 +97,21 @@ class Analysis:
     features: Table | None = None
     audit: Any = None
 
+    @property
+    def tables(self) -> dict:
+        """Every table the run writes as CSV, by file stem, each with ``to_pandas()``.
+
+        See :func:`inclination.run_tables.run_tables`; computed on each access.
+        """
+        from .run_tables import run_tables
+
+        return run_tables(self)
+
+    @property
+    def boundaries(self):
+        """The boundaries table as boundaries.csv holds it (a RunTable), or None before planes."""
+        return self.tables.get("boundaries")
+
 
 @dataclass(frozen=True)
 class RunResult:

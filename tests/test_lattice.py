@@ -751,7 +751,7 @@ def _bad(entry_changes, drop=()):
         (_bad({"families": "{111}"}), "/phases/3/families", r"non-empty list of strings"),
         (_bad({"families": []}), "/phases/3/families", r"non-empty list of strings"),
         (_bad({"families": ["{111}", "{11}"]}), "/phases/3/families/1", r"3 or 4 integer indices"),
-        (_bad({"families": [111]}), "/phases/3/families/0", r"Expected `text` to be a string"),
+        (_bad({"families": [111]}), "/phases/3/families/0", r"Expected the family to be a string"),
         (_bad({"families": ["<110>"]}), "/phases/3/families/0", r"got the direction '<110>'"),
         (
             _bad({"families": ["{10-12}"]}),

@@ -571,7 +571,7 @@ def test_place_on_grid_single_row_and_column():
 
 def test_missing_column(tmp_path):
     path = small_csv(tmp_path, ["0,0,1,2,3"], header="x_um,y_um,phi1_deg,Phi_deg,phi2_deg")
-    with pytest.raises(InputError, match=r"m.csv: header: Expected a column 'phase' \(phase\)"):
+    with pytest.raises(InputError, match=r"m.csv: header: Expected a column 'phase' for 'phase', got columns \["):
         read_map(spec_for(path))
 
 

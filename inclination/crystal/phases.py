@@ -75,7 +75,11 @@ class CandidatePlanes:
 
 def _check_family_text(text, system: str) -> str:
     """Parse one family label for a phase; return it in the tables' form."""
-    idx = parse_indices(text)
+    try:
+        idx = parse_indices(text)
+    except SettingError as exc:
+        # The parser names its own parameter; a job-file reader knows the field.
+        raise SettingError(str(exc).replace("`text`", "the family")) from None
     if idx.kind != "plane":
         raise SettingError(
             f"Expected a plane family such as '{{1 1 1}}' or a plane such as '(0 0 0 1)', "

@@ -10,6 +10,7 @@ the file, the JSON pointer of the field, what was expected and what came.
 from __future__ import annotations
 
 import copy
+import difflib
 import json
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -19,10 +20,13 @@ from ..crystal.phases import Phases
 from ..errors import InputError
 from .schemas import load_schema
 
-__all__ = ["Job", "load_job", "job_from_dict", "SCHEMA_VERSION"]
+__all__ = ["Job", "load_job", "job_from_dict", "SCHEMA_VERSION", "PLACEHOLDER"]
 
 #: The job format version this loader reads.
 SCHEMA_VERSION = 1
+
+#: Start of every value ``inclination init`` leaves for the user to fill in.
+PLACEHOLDER = "FILL-IN"
 
 # Defaults given in map steps when the job leaves them null (schema descriptions).
 _MIN_LENGTH_STEPS = 10.0
@@ -178,6 +182,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
             pointer="/",
         )
     doc = copy.deepcopy(dict(d))
+    _refuse_placeholders(doc, path_for_errors)
     schema = load_schema("job.schema.json")
     validator = schema_validator(schema)
     errors = list(validator.iter_errors(doc))
@@ -223,6 +228,34 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
 
 
 # ----------------------------------------------------------------------------- helpers
+
+
+def _refuse_placeholders(doc, path, where=()):
+    """The first value ``inclination init`` left to fill in, as one InputError."""
+    if isinstance(doc, str) and doc.startswith(PLACEHOLDER):
+        raise InputError(
+            f"Expected a value in place of the placeholder that 'inclination init' wrote, "
+            f"got it unchanged: {doc!r}.",
+            path=path,
+            pointer=_pointer(list(where)),
+        )
+    if isinstance(doc, Mapping):
+        items = doc.items()
+    else:
+        items = enumerate(doc) if isinstance(doc, list) else ()
+    for key, value in items:
+        if key == "notes" and not where:
+            continue
+        _refuse_placeholders(value, path, (*where, key))
+
+
+def _nearest(name, allowed) -> str:
+    """' (did you mean 'x'?)' for the closest allowed name, or ''."""
+    allowed = [str(a) for a in allowed]
+    # A bare prefix ("x" for "x_um") is the commonest slip and scores low on similarity.
+    near = [a for a in allowed if a.lower().startswith(str(name).lower())]
+    near = near or difflib.get_close_matches(str(name), allowed, n=1, cutoff=0.5)
+    return f" (did you mean {near[0]!r}?)" if near else ""
 
 
 def _declared_step(map_spec) -> float | None:
@@ -387,12 +420,12 @@ def _schema_error(err, path) -> InputError:
         allowed = tuple(err.schema.get("properties", {}))
         extra = [k for k in inst if k not in allowed]
         return InputError(
-            f"Expected only the fields {allowed}, got {extra[0]!r}.",
+            f"Expected only the fields {allowed}, got {extra[0]!r}{_nearest(extra[0], allowed)}.",
             path=path,
             pointer=_pointer(where + [extra[0]]),
         )
     if kind == "enum":
-        message = f"Expected one of {tuple(value)}, got {_shown(inst)}."
+        message = f"Expected one of {tuple(value)}, got {_shown(inst)}{_nearest(inst, value)}."
     elif kind == "const":
         message = f"Expected {_shown(value)}, got {_shown(inst)}."
     elif kind == "type":

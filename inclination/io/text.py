@@ -103,6 +103,24 @@ def _decode_header(line: bytes, delimiter, path) -> tuple:
     return names
 
 
+_DELIMITER_WORDS = {",": "comma", "\t": "tab", ";": "semicolon", None: "spaces or tabs"}
+
+
+def _refuse_other_delimiter(name: str, delimiter, path):
+    """A one-column header that another delimiter would split: the wrong delimiter."""
+    for other, word in _DELIMITER_WORDS.items():
+        cells = name.split() if other is None else name.split(other)
+        if other != delimiter and len(cells) > 1:
+            raise InputError(
+                f"Expected columns separated by {_DELIMITER_WORDS.get(delimiter, repr(delimiter))}"
+                f", got a single column {name[:40]!r} that splits at {word} into {len(cells)}: "
+                "the file looks delimited otherwise; set the map's format (csv, tsv, text) "
+                "or delimiter to match.",
+                path=path,
+                pointer="header",
+            )
+
+
 def _fields_per_line(body: bytes, delimiter) -> np.ndarray:
     """Number of fields on each line of ``body`` (lines split at b'\\n')."""
     arr = np.frombuffer(body, dtype=np.uint8)
@@ -211,6 +229,8 @@ def read_table(
     if not raw[start:header_end].strip() and not raw[start:].strip():
         raise InputError("Expected a header row and data rows, got an empty file.", path=path)
     header = _decode_header(raw[start:header_end], delim, path)
+    if len(header) == 1:
+        _refuse_other_delimiter(header[0], delim, path)
     first_line = line_no + 1
     body_start = header_end + 1
 
