@@ -221,4 +221,4 @@ def test_quiet_keeps_the_summary_and_silent_prints_nothing(demo_run, tmp_path, c
     captured = capsys.readouterr()
     assert captured.out == "" and captured.err == ""
     assert run_cli(["report", str(tmp_path / "missing"), "--silent"]) == 2
-    assert "summary.json" in capsys.readouterr().err
+    assert "output folder of an earlier run" in capsys.readouterr().err
