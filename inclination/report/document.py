@@ -11,6 +11,7 @@ import base64
 import html
 
 from ._io import write_text_atomic
+from .faces import face_images_section_html, face_images_section_markdown
 from .features import features_section_html, features_section_markdown
 from .tables import format_cell
 
@@ -89,6 +90,7 @@ def render_markdown(summary: dict, table: dict, columns) -> str:
     lines += [f"- {k}: {v}" for k, v in _facts(summary)]
     lines += ["", "![boundaries](boundaries.png)", ""]
     lines += features_section_markdown(summary)
+    lines += face_images_section_markdown(summary)
     lines.append("| " + " | ".join(c.name for c in shown) + " |")
     lines.append("|" + "|".join("---" for _ in shown) + "|")
     n = len(next(iter(table.values()))) if table else 0
@@ -125,6 +127,7 @@ def render_html(summary: dict, table: dict, columns, *, figure_png: bytes | None
             f'src="data:image/png;base64,{data}"></p>'
         )
     parts += features_section_html(summary)
+    parts += face_images_section_html(summary)
     parts.append(
         "<table><thead><tr>"
         + "".join(f"<th>{esc(c.name)}</th>" for c in shown)

@@ -412,6 +412,11 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict):
         paths, figure_png = _figure(analysis, out_dir, boundaries)
         files += paths
     summary = _summary(analysis, summary_base, boundaries)
+    if getattr(analysis, "faces", ()):
+        from .faces import write_face_outputs
+
+        face_files, summary["face_images"] = write_face_outputs(analysis, out_dir)
+        files += face_files
     if features is not None:
         from .features import feature_summary
 

@@ -21,9 +21,10 @@ Segmentation method: a watershed of the gradient of the Gaussian-smoothed image
 steepest) over-segments the noisy face into small basins; adjacent basins are then
 merged, least different first, while their mean grey levels (of the raw image,
 whose noise is independent pixel to pixel) differ by less than ``merge_z`` standard
-errors — a statistical region merging. Noise decides what is merged, not a fixed
-grey step, so a weak but real contrast between two large grains survives (and is
-then reported as low contrast) while noise inside one grain never does.
+errors — a statistical region merging — or by less than a quarter of the noise SD.
+Noise decides what is merged, not a fixed grey step, so a weak but real contrast
+between two large grains survives (and is then reported as low contrast) while
+noise inside one grain never does.
 """
 
 from __future__ import annotations
@@ -268,6 +269,19 @@ def _noise_sd(image, mask):
     return float(1.4826 * np.median(np.abs(r)) / 6.0)
 
 
+def _joined_to_top(points):
+    """Mask of the boundary points connected (steps <= 1 px) to the topmost one."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+    from scipy.spatial import cKDTree
+
+    pairs = cKDTree(points).query_pairs(r=1.01, output_type="ndarray")
+    n = len(points)
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    _, comp = connected_components(graph, directed=False)
+    return comp == comp[int(np.argmin(points[:, 1]))]
+
+
 def _merge_regions(labels, image, *, noise_sd, merge_z):
     """Statistical region merging of adjacent basins, least different first."""
     n = int(labels.max()) + 1
@@ -287,8 +301,13 @@ def _merge_regions(labels, image, *, noise_sd, merge_z):
     version = np.zeros(n, dtype=np.int64)
 
     def z(a, b):
-        se = noise_sd * math.sqrt(1.0 / counts[a] + 1.0 / counts[b])
-        return abs(sums[a] / counts[a] - sums[b] / counts[b]) / se
+        step = abs(sums[a] / counts[a] - sums[b] / counts[b])
+        # A step under a quarter of the noise SD is no boundary a reader could see,
+        # however large the regions; merging it keeps the blurred strips along real
+        # boundaries from standing as regions of their own.
+        if step < 0.25 * noise_sd:
+            return 0.0
+        return step / (noise_sd * math.sqrt(1.0 / counts[a] + 1.0 / counts[b]))
 
     heap = [(z(a, b), int(a), int(b), 0, 0) for a, b in edges]
     heapq.heapify(heap)
@@ -528,10 +547,13 @@ def measure_face_image(
         pts = mids[sel]
         if pts[:, 1].min() > edge_px + max(2.0, smooth_px * 2) + 1.0:
             continue
+        # Only the stretch of the pair's boundary joined to its top point meets the
+        # surface; the same two regions may touch again deeper down.
+        pts = pts[_joined_to_top(pts)]
         inwin = (pts[:, 1] >= max(lo_px, edge_px)) & (pts[:, 1] <= hi_px)
         p = pts[inwin]
         contrast = abs(means[a] - means[b]) / noise
-        side = a_left[sel][inwin]
+        side = a_left[sel][_joined_to_top(mids[sel])][inwin]
         side = side[np.isfinite(side)]
         lo_left = bool(side.mean() >= 0.5) if len(side) else True
         grey_left, grey_right = (means[a], means[b]) if lo_left else (means[b], means[a])

@@ -279,10 +279,16 @@ def test_rotated_image_is_corrected(one_face):
     # Rotation fitted from ~1000 edge columns; 0.05° is 1 px over 1150 px (hand estimate).
     np.testing.assert_allclose(m2.rotation_deg, 2.0, rtol=0, atol=0.05)
     np.testing.assert_allclose(m0.rotation_deg, 0.0, rtol=0, atol=0.05)
-    pairs0 = {i: j for i, j in _pairs(upright, truth, m0, tolerance_um=0.3)
-              if m0.lines["status"][j] == "used"}
-    pairs2 = {i: j for i, j in _pairs(turned, truth, m2, tolerance_um=0.3)
-              if m2.lines["status"][j] == "used"}
+    pairs0 = {
+        i: j
+        for i, j in _pairs(upright, truth, m0, tolerance_um=0.3)
+        if m0.lines["status"][j] == "used"
+    }
+    pairs2 = {
+        i: j
+        for i, j in _pairs(turned, truth, m2, tolerance_um=0.3)
+        if m2.lines["status"][j] == "used"
+    }
     common = sorted(set(pairs0) & set(pairs2))
     assert len(common) >= 3
     a0 = m0.lines["image_angle_deg"][[pairs0[i] for i in common]]
@@ -330,8 +336,13 @@ def _cli(tmp_path, capsys, edit):
     sampled = synthetic.sample_map(micro, step_um=1.0, rng=1, noise_deg=0.5)
     write_npz(tmp_path / "map.npz", synthetic.as_orientation_map(sampled))
     face = synthetic.render_face_image(
-        micro, line_um=((5, 20), (55, 20)), viewer_at_um=(30, 25), imaging_tilt_deg=52,
-        pixel_um=0.2, depth_um=4, rng=0,
+        micro,
+        line_um=((5, 20), (55, 20)),
+        viewer_at_um=(30, 25),
+        imaging_tilt_deg=52,
+        pixel_um=0.2,
+        depth_um=4,
+        rng=0,
     )
     _write_image(tmp_path / "face.tif", face.image)
     section = {
@@ -344,8 +355,14 @@ def _cli(tmp_path, capsys, edit):
     doc = {
         "schema_version": 1,
         "phases": [CU_JOB],
-        "map": {"path": "map.npz", "format": "npz", "angles": "deg", "step_um": 1.0,
-                "grid": "square", "axes": {"x": "right", "y": "down"}},
+        "map": {
+            "path": "map.npz",
+            "format": "npz",
+            "angles": "deg",
+            "step_um": 1.0,
+            "grid": "square",
+            "axes": {"x": "right", "y": "down"},
+        },
         "sections": [section],
     }
     edit(tmp_path, section)
