@@ -29,7 +29,6 @@ noise inside one grain never does.
 
 from __future__ import annotations
 
-import heapq
 import math
 import os
 from dataclasses import dataclass, field
@@ -59,7 +58,7 @@ FACE_LINE_STATUSES = ("used", "low_contrast", "short", "curved")
 
 
 def read_face_image(path: str | os.PathLike, *, job_path=None, pointer: str = "") -> np.ndarray:
-    """Read a greyscale face image (TIFF by tifffile, PNG or other by skimage.io).
+    """Read a greyscale face image (TIFF by tifffile, PNG by matplotlib).
 
     Parameters
     ----------
@@ -72,8 +71,9 @@ def read_face_image(path: str | os.PathLike, *, job_path=None, pointer: str = ""
     -------
     ndarray, shape (H, W)
         Grey levels as floats, scaled to [0, 1] by the integer type's range (or
-        left as they are for a float image). An RGB image whose channels are equal
-        is grey and is read as its first channel.
+        left as they are for a float image; matplotlib gives a PNG in [0, 1]). An
+        RGB(A) image whose colour channels are equal is grey and is read as its
+        first channel. A file not named ``.tif``/``.tiff`` is read as PNG.
 
     Raises
     ------
@@ -103,9 +103,11 @@ def read_face_image(path: str | os.PathLike, *, job_path=None, pointer: str = ""
 
             raw = np.asarray(tifffile.imread(p))
         else:
-            from skimage import io
+            from matplotlib import image as mpimg
 
-            raw = np.asarray(io.imread(p))
+            # An open handle, closed here whatever the reader does with bad bytes.
+            with open(p, "rb") as fh:
+                raw = np.asarray(mpimg.imread(fh, format="png"))
     except Exception as exc:  # noqa: BLE001 - every reader failure is a bad input file
         fail(f"Expected a readable greyscale TIFF or PNG, got {p!r} ({type(exc).__name__}).")
     if raw.ndim == 3 and raw.shape[-1] in (3, 4):
@@ -283,7 +285,12 @@ def _joined_to_top(points):
 
 
 def _merge_regions(labels, image, *, noise_sd, merge_z):
-    """Statistical region merging of adjacent basins, least different first."""
+    """Statistical region merging of adjacent basins, least different first.
+
+    Each round merges every pair of adjacent regions that are each other's least
+    different neighbour and differ by less than the threshold (a matching, so the
+    globally least different pair always merges); rounds repeat until none is left.
+    """
     n = int(labels.max()) + 1
     flat = labels.ravel()
     sums = np.bincount(flat, weights=image.ravel(), minlength=n)
@@ -292,53 +299,41 @@ def _merge_regions(labels, image, *, noise_sd, merge_z):
     for a, b in ((labels[:, :-1], labels[:, 1:]), (labels[:-1, :], labels[1:, :])):
         m = (a != b) & (a > 0) & (b > 0)
         pairs.append(np.stack([np.minimum(a[m], b[m]), np.maximum(a[m], b[m])], axis=-1))
-    edges = np.unique(np.concatenate(pairs), axis=0) if pairs else np.zeros((0, 2), int)
-    neighbours = [set() for _ in range(n)]
-    for a, b in edges:
-        neighbours[a].add(b)
-        neighbours[b].add(a)
-    parent = np.arange(n)
-    version = np.zeros(n, dtype=np.int64)
-
-    def z(a, b):
-        step = abs(sums[a] / counts[a] - sums[b] / counts[b])
+    edges = np.unique(np.concatenate(pairs), axis=0)
+    root = np.arange(n)
+    while len(edges):
+        a, b = edges[:, 0], edges[:, 1]
+        step = np.abs(sums[a] / counts[a] - sums[b] / counts[b])
+        z = step / (noise_sd * np.sqrt(1.0 / counts[a] + 1.0 / counts[b]))
         # A step under a quarter of the noise SD is no boundary a reader could see,
         # however large the regions; merging it keeps the blurred strips along real
         # boundaries from standing as regions of their own.
-        if step < 0.25 * noise_sd:
-            return 0.0
-        return step / (noise_sd * math.sqrt(1.0 / counts[a] + 1.0 / counts[b]))
-
-    heap = [(z(a, b), int(a), int(b), 0, 0) for a, b in edges]
-    heapq.heapify(heap)
-    while heap:
-        zab, a, b, va, vb = heapq.heappop(heap)
-        if zab >= merge_z:
+        z[step < 0.25 * noise_sd] = 0.0
+        ok = z < merge_z
+        if not ok.any():
             break
-        if parent[a] != a or parent[b] != b or version[a] != va or version[b] != vb:
-            continue
-        # Merge b into a; a's statistics and neighbours grow, b disappears.
-        parent[b] = a
-        sums[a] += sums[b]
-        counts[a] += counts[b]
-        version[a] += 1
-        neighbours[a] |= neighbours[b]
-        neighbours[a].discard(a)
-        neighbours[a].discard(b)
-        for c in neighbours[b]:
-            if c != a:
-                neighbours[c].discard(b)
-                neighbours[c].add(a)
-        neighbours[b] = set()
-        for c in neighbours[a]:
-            heapq.heappush(heap, (z(a, c), a, c, int(version[a]), int(version[c])))
-    # Flatten the merge tree.
-    root = parent.copy()
-    while True:
-        nxt = root[root]
-        if np.array_equal(nxt, root):
-            break
-        root = nxt
+        best = np.full(n, np.inf)
+        np.minimum.at(best, a[ok], z[ok])
+        np.minimum.at(best, b[ok], z[ok])
+        mutual = ok & (z == best[a]) & (z == best[b])
+        # Ties could pair one region twice; keep the first pair of each region.
+        chosen = np.flatnonzero(mutual)
+        used = np.zeros(n, bool)
+        keep = []
+        for e in chosen:
+            if not (used[a[e]] or used[b[e]]):
+                used[a[e]] = used[b[e]] = True
+                keep.append(e)
+        keep = np.asarray(keep, dtype=np.int64)
+        ka, kb = a[keep], b[keep]
+        sums[ka] += sums[kb]
+        counts[ka] += counts[kb]
+        new_root = np.arange(n)
+        new_root[kb] = ka
+        root = new_root[root]
+        edges = new_root[edges]
+        edges = np.sort(edges, axis=1)
+        edges = np.unique(edges[edges[:, 0] != edges[:, 1]], axis=0)
     root[0] = 0
     return root[labels]
 
@@ -431,6 +426,7 @@ def measure_face_image(
     >>> m.lines["along_um"].round(1).tolist(), m.lines["image_angle_deg"].round(0).tolist()
     ([2.5], [45.0])
     """
+    from skimage.feature import peak_local_max
     from skimage.filters import gaussian, sobel
     from skimage.segmentation import watershed
 
@@ -502,7 +498,14 @@ def measure_face_image(
     noise = max(noise, 1e-3 * float(np.ptp(face_pixels)) + 1e-9)
 
     gradient = sobel(gaussian(img, sigma=smooth_px, mode="nearest", preserve_range=True))
-    basins = watershed(gradient, mask=mask)
+    # Seeds at least 2 px apart: every regional minimum of a noisy gradient would give
+    # basins of a few pixels, whose merging costs time and decides nothing.
+    seeds = peak_local_max(
+        -gradient, min_distance=2, labels=mask.astype(np.int64), exclude_border=False
+    )
+    markers = np.zeros(img.shape, dtype=np.int64)
+    markers[tuple(seeds.T)] = np.arange(1, len(seeds) + 1)
+    basins = watershed(gradient, markers=markers, mask=mask)
     labels = _merge_regions(basins, img, noise_sd=noise, merge_z=merge_z)
 
     n = int(labels.max()) + 1
