@@ -77,7 +77,8 @@ class Analysis:
         sections), ``measurement`` (:class:`inclination.sections.FaceMeasurement`),
         ``record`` (the :class:`~inclination.sections.CrossSection` measured),
         ``table`` (its section table), ``first_image_entry`` (rows from there on
-        came from the image), ``image`` (the grey levels, for the overlay).
+        came from the image), ``image`` (the grey levels, for the overlay),
+        ``grey_check`` (per image entry, :func:`inclination.sections.neighbour_check`).
 
     Absent stages hold None (or an empty tuple).
     """
@@ -241,6 +242,24 @@ def _face_image(section, record, job_path, pointer):
     return face, image
 
 
+def _grey_check(face, table, segments, first):
+    """The image's grey regions against the matched traces' grains, per used line."""
+    from .sections import neighbour_check
+
+    used = face.lines["status"] == "used"
+    seg_ids = np.asarray(table["segment_id"])[first:]
+    row_of = {int(s): i for i, s in enumerate(np.asarray(segments["segment_id"]))}
+    ga = np.full(len(seg_ids), -1, dtype=np.int64)
+    gb = np.full(len(seg_ids), -1, dtype=np.int64)
+    for j, s in enumerate(seg_ids):
+        if s >= 0:
+            ga[j] = int(segments["grain_a"][row_of[int(s)]])
+            gb[j] = int(segments["grain_b"][row_of[int(s)]])
+    return neighbour_check(
+        face.lines["region_left"][used], face.lines["region_right"][used], ga, gb
+    )
+
+
 def _face_note(face, record, table, segments, first):
     """What summary.json says of a face image: lines found, used, and the match offset."""
     from .sections import along_offsets_um
@@ -251,7 +270,9 @@ def _face_note(face, record, table, segments, first):
     offsets = along_offsets_um(
         record, segments, table["segment_id"][matched], np.asarray(table["along_um"])[matched]
     )
+    check = _grey_check(face, table, segments, first)
     return {
+        "grey_check": {k: int(np.sum(check == k)) for k in ("consistent", "inconsistent")},
         "lines_found": int(len(lines["status"])),
         "lines_used": int(np.sum(lines["status"] == "used")),
         "unsure": {
@@ -317,6 +338,7 @@ def _sections(job, omap, grain_map, segments, progress):
                         "table": table,
                         "first_image_entry": listed,
                         "image": face_grey,
+                        "grey_check": _grey_check(face, table, segments, listed),
                     }
                 )
             notes.append(

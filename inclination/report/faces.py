@@ -211,6 +211,9 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
             "note": "Copy 'boundaries' into the job's section (and remove 'image') to "
             "correct a measurement by hand; 'unsure' lines were not used.",
             "boundaries": m.entries(),
+            # The image's grey regions against the matched traces' grains, per entry
+            # (a second check of the match; inclination.sections.neighbour_check).
+            "grey_check": [str(c) for c in face.get("grey_check", [])],
             "unsure": unsure,
             "surface": {
                 "rotation_deg": round(m.rotation_deg, 4),

@@ -19,6 +19,7 @@ from .face_image import (
     FaceMeasurement,
     along_offsets_um,
     measure_face_image,
+    neighbour_check,
     predicted_image_direction,
     read_face_image,
 )
@@ -69,6 +70,7 @@ __all__ = [
     "measure_cross_section",
     "measure_serial_section",
     "measure_stack",
+    "neighbour_check",
     "predicted_image_direction",
     "read_face_image",
     "register_sections",

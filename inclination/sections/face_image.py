@@ -25,6 +25,11 @@ errors — a statistical region merging — or by less than a quarter of the noi
 Noise decides what is merged, not a fixed grey step, so a weak but real contrast
 between two large grains survives (and is then reported as low contrast) while
 noise inside one grain never does.
+
+Measured 2026-12 on synthetic faces (tests/end_to_end/test_face_images_synthetic.py:
+three samples, 15 faces, 0.1 µm pixels, noise SD 0.02, blur 1 px, 52° tilt): image
+angle error median 0.66°, 90th percentile 2.0° (85 lines); dip error median 0.54°,
+90th percentile 1.6° (73 boundaries, β > 30°); RMS of angle error over σ 0.84.
 """
 
 from __future__ import annotations
@@ -48,6 +53,7 @@ __all__ = [
     "FACE_LINE_STATUSES",
     "FaceMeasurement",
     "along_offsets_um",
+    "neighbour_check",
     "read_face_image",
     "measure_face_image",
     "predicted_image_direction",
@@ -156,7 +162,8 @@ class FaceMeasurement:
         (grey step over the noise SD), ``grey_left, grey_right, residual_px``
         (RMS distance of the boundary points from the line), ``span_um`` (image
         µm), ``n_points``, ``status`` (one of ``FACE_LINE_STATUSES``),
-        ``col0_px, row0_px, col1_px, row1_px`` (the fitted line over the window).
+        ``col0_px, row0_px, col1_px, row1_px`` (the fitted line over the window),
+        ``region_left, region_right`` (ids in ``labels`` of the regions either side).
     labels : ndarray of int, shape (H, W)
         The regions of the face (0 outside the analysed part).
     """
@@ -560,6 +567,7 @@ def measure_face_image(
         side = side[np.isfinite(side)]
         lo_left = bool(side.mean() >= 0.5) if len(side) else True
         grey_left, grey_right = (means[a], means[b]) if lo_left else (means[b], means[a])
+        region_left, region_right = (a, b) if lo_left else (b, a)
         if len(p) < 3 or np.ptp(p[:, 1]) <= 0:
             continue
         fit = fit_line_tls(p)
@@ -585,8 +593,7 @@ def measure_face_image(
             status = "curved"
         else:
             status = "used"
-        v_lo, v_hi = max(lo_px, edge_px), hi_px
-        ends = [origin + (u0 + du / dv * vv) * e_u + vv * e_v for vv in (0.0, v_hi)]
+        ends = [origin + (u0 + du / dv * vv) * e_u + vv * e_v for vv in (0.0, hi_px)]
         rows.append(
             (
                 along_sign * u0 * pixel_um,
@@ -604,7 +611,8 @@ def measure_face_image(
                 ends[0][1],
                 ends[1][0],
                 ends[1][1],
-                v_lo,
+                region_left,
+                region_right,
             )
         )
     rows.sort(key=lambda r: r[0])
@@ -624,13 +632,15 @@ def measure_face_image(
         "row0_px",
         "col1_px",
         "row1_px",
+        "region_left",
+        "region_right",
     )
     lines = {}
     for j, name in enumerate(names):
         values = [r[j] for r in rows]
         if name in ("descends", "status"):
             lines[name] = np.array(values, dtype="<U12")
-        elif name == "n_points":
+        elif name in ("n_points", "region_left", "region_right"):
             lines[name] = np.array(values, dtype=np.int64)
         else:
             lines[name] = np.array(values, dtype=float)
@@ -747,3 +757,49 @@ def along_offsets_um(
         t = np.where(np.abs(da - db) > 1e-12, da / (da - db), np.nan)
     x = a + t[:, None] * (b - a)
     return (x - p0) @ e - np.asarray(along_um, dtype=float)
+
+
+def neighbour_check(
+    region_left: ArrayLike, region_right: ArrayLike, grain_a: ArrayLike, grain_b: ArrayLike
+) -> np.ndarray:
+    """Second check of a face's matches: the image's grey regions against the map's grains.
+
+    Two lines in a row along the face that bound one grey region between them
+    (right region of one is the left region of the next) must be matched to traces
+    that share a grain: the grain the region shows. Each line gets ``consistent``
+    when every such neighbour agrees, ``inconsistent`` when one does not, and
+    ``unchecked`` when it has no matched neighbour over a shared region.
+
+    Parameters
+    ----------
+    region_left, region_right : array_like of int, shape (K,)
+        Image regions either side of each line, in order along image-right.
+    grain_a, grain_b : array_like of int, shape (K,)
+        Grains either side of each line's matched trace; -1 where unmatched.
+
+    Returns
+    -------
+    ndarray of str, shape (K,)
+
+    Examples
+    --------
+    >>> neighbour_check([1, 2, 3], [2, 3, 4], [10, 11, 5], [11, 12, 6]).tolist()
+    ['consistent', 'inconsistent', 'inconsistent']
+    """
+    left = np.asarray(region_left, dtype=np.int64)
+    right = np.asarray(region_right, dtype=np.int64)
+    ga = np.asarray(grain_a, dtype=np.int64)
+    gb = np.asarray(grain_b, dtype=np.int64)
+    k = len(left)
+    out = np.full(k, "unchecked", dtype="<U12")
+    for i in range(k - 1):
+        j = i + 1
+        if right[i] != left[j] or ga[i] < 0 or ga[j] < 0:
+            continue
+        share = bool({int(ga[i]), int(gb[i])} & {int(ga[j]), int(gb[j])})
+        for m in (i, j):
+            if not share:
+                out[m] = "inconsistent"
+            elif out[m] == "unchecked":
+                out[m] = "consistent"
+    return out

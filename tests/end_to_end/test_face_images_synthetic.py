@@ -237,6 +237,16 @@ def test_angle_sigma_is_calibrated(runs):
     assert np.mean(np.abs(z) < 2.0) >= 0.9
 
 
+def test_grey_regions_agree_with_the_matched_grains(runs):
+    checks = []
+    for seed in SEEDS:
+        analysis, _ = runs[(seed, "declared")]
+        for rec in analysis.faces:
+            checks += rec["grey_check"].tolist()
+    assert checks.count("consistent") >= 5
+    assert checks.count("inconsistent") == 0
+
+
 def test_frame_verdict_from_images(runs):
     for seed in SEEDS:
         assert runs[(seed, "declared")][0].verdict.verdict == "as_declared"
