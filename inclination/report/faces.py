@@ -177,7 +177,7 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from ._io import write_bytes_atomic, write_json_atomic
+    from .atomic import write_bytes_atomic, write_json_atomic
 
     folder = Path(out_dir) / "sections"
     files, notes = [], []
