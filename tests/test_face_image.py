@@ -133,9 +133,7 @@ def test_predicted_direction_round_trips_through_the_measurement():
 def test_read_grey_png_and_tiff(tmp_path):
     grey = (np.arange(200).reshape(10, 20) % 256).astype(np.uint8)
     io.imsave(tmp_path / "g.png", grey, check_contrast=False)
-    np.testing.assert_allclose(
-        read_face_image(tmp_path / "g.png"), grey / 255.0, rtol=0, atol=1e-6
-    )
+    np.testing.assert_allclose(read_face_image(tmp_path / "g.png"), grey / 255.0, rtol=0, atol=1e-6)
     rgb = np.repeat(grey[..., None], 3, axis=-1)
     io.imsave(tmp_path / "rgb.png", rgb, check_contrast=False)
     np.testing.assert_allclose(
