@@ -7,6 +7,7 @@ the field and what was expected; no traceback), 1 on an internal fault.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 import traceback
 from collections.abc import Sequence
@@ -51,6 +52,11 @@ def _build_parser() -> argparse.ArgumentParser:
         p = sub.add_parser(name, help=text)
         p.add_argument("job", help="job file (JSON)")
         _add_common(p, default_out=f"inclination-{name}")
+    audit = sub.add_parser(
+        "audit", help="the frame audit alone: which frame the twin traces support (audit.json)"
+    )
+    audit.add_argument("job", help="job file (JSON)")
+    _add_common(audit, default_out="inclination-audit")
     report = sub.add_parser(
         "report", help="write report.html and report.md again from a finished run's folder"
     )
@@ -88,6 +94,8 @@ def _dispatch(args) -> int:
         )
     elif args.command == "report":
         result = pipeline.rebuild_report(args.run)
+    elif args.command == "audit":
+        result = pipeline.audit(args.job, args.out, overwrite=args.overwrite, progress=progress)
     elif args.command == "stereology":
         result = pipeline.stereology(
             args.job, args.out, overwrite=args.overwrite, progress=progress
@@ -100,7 +108,50 @@ def _dispatch(args) -> int:
     if not getattr(args, "quiet", False):
         for line in result.messages:
             print(line)
+    for line in result.warnings:
+        print(line, file=sys.stderr)
     return 0
+
+
+class _Held:
+    """Warnings and library log records kept back until the run's outcome is known."""
+
+    def __init__(self):
+        self.warnings: list = []
+        self.records: list = []
+
+    def release(self) -> None:
+        import warnings
+
+        for w in self.warnings:
+            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+        for r in self.records:
+            print(f"{r.name}: {r.getMessage()}", file=sys.stderr)
+
+
+@contextlib.contextmanager
+def _held_diagnostics():
+    import logging
+    import warnings
+
+    held = _Held()
+
+    class _Keep(logging.Handler):
+        def emit(self, record):
+            held.records.append(record)
+
+    logger = logging.getLogger("tifffile")
+    handler, propagate = _Keep(), logger.propagate
+    logger.addHandler(handler)
+    logger.propagate = False
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("default")
+            yield held
+            held.warnings = list(caught)
+    finally:
+        logger.removeHandler(handler)
+        logger.propagate = propagate
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -114,8 +165,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return _dispatch(args)
+        with _held_diagnostics() as held:
+            status = _dispatch(args)
+        held.release()
+        return status
     except InclinationError as exc:
+        # One line means one line: library warnings and log records that led up to the
+        # refusal (numpy's invalid-value warnings, tifffile's complaints) are dropped.
         print(f"inclination: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

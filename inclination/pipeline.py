@@ -33,7 +33,7 @@ if TYPE_CHECKING:
     from .network import BoundaryNetwork
     from .planes import TwinTestSummary
 
-__all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "demo"]
+__all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "audit", "demo"]
 
 #: Stages in data-flow order; each includes everything before it.
 STAGES = ("grains", "traces", "planes", "sections")
@@ -79,6 +79,8 @@ class Analysis:
         ``table`` (its section table), ``first_image_entry`` (rows from there on
         came from the image), ``image`` (the grey levels, for the overlay),
         ``grey_check`` (per image entry, :func:`inclination.sections.neighbour_check`).
+    audit : FrameAudit or None
+        The frame audit (inclination.audit), from the planes stage on.
 
     Absent stages hold None (or an empty tuple).
     """
@@ -101,6 +103,7 @@ class Analysis:
     planes_full: Table | None = None
     features: Table | None = None
     faces: tuple[dict, ...] = ()
+    audit: Any = None
 
 
 @dataclass(frozen=True)
@@ -115,13 +118,17 @@ class RunResult:
     messages : tuple of str
         The lines the command line prints.
     summary : dict or None
-        What ``summary.json`` holds; for ``demo``, the two summaries by folder name.
+        What ``summary.json`` holds; for ``demo``, the summaries by folder name.
+    warnings : tuple of str
+        Lines for stderr (the frame audit's finding and patch, when the declared frame
+        is not the best beyond doubt).
     """
 
     out_dir: Path
     files: tuple[Path, ...]
     messages: tuple[str, ...] = field(default=())
     summary: dict | None = None
+    warnings: tuple[str, ...] = field(default=())
 
 
 def _stage_index(stage: str) -> int:
@@ -170,6 +177,19 @@ def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
         )
     finally:
         close()
+    if grain_map.n_grains == 0:
+        # Nothing downstream means anything without grains; the settings are the usual
+        # cause (a serial section's phases check would otherwise take the blame).
+        c = grain_map.cleanup
+        raise InputError(
+            f"Expected the {label} map to give at least one grain, got none with "
+            f"threshold_deg = {g['threshold_deg']} and min_pixels = {g['min_pixels']} "
+            f"({int(np.count_nonzero(np.asarray(omap.valid)))} indexed points, "
+            f"{c.get('grains_dissolved', 0)} grains dissolved as too small); lower "
+            "min_pixels or raise threshold_deg.",
+            path=job.source_path,
+            pointer="/grains",
+        )
     if stage_i < 1:
         return grain_map, None, None, None
     low_angle = g["low_angle_deg"] if subgrains and g.get("subgrain_network") else None
@@ -516,7 +536,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     twin = twin_test_summary(identification, segments)
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
-        return _with_features(analysis)
+        return _with_features(replace(analysis, audit=_frame_audit(analysis)))
     from .compare import best_measurements, compare_map
 
     tables, notes, faces = _sections(job, omap, grain_map, segments, progress)
@@ -537,7 +557,77 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         verdict=comparison.verdict,
         planes_full=comparison.planes_full,
     )
-    return _with_features(analysis)
+    return _with_features(replace(analysis, audit=_frame_audit(analysis)))
+
+
+def _frame_audit(analysis: Analysis):
+    """The frame audit of the surface map (inclination.audit), settled by the sections."""
+    from .audit import audit_frame
+
+    job, omap = analysis.job, analysis.omap
+    settle = None
+    if analysis.section_tables:
+        from .compare import best_measurements, compare_map
+        from .planes import match_planes
+
+        measured = best_measurements(*analysis.section_tables)
+        p = job.planes
+
+        def settle(quat_sample, phases):
+            # The comparator under the hypothesis: the same grains and segments, the
+            # grain orientations turned as the hypothesis says (conventions §6). Within
+            # 0.2° of the declared orientations the run's own verdict is that comparison.
+            declared = np.asarray(analysis.grain_map.grains["quat"], float)
+            same = np.abs(np.einsum("ni,ni->n", np.nan_to_num(declared), quat_sample))
+            close = same[np.isfinite(declared[:, 0])] > 1 - 1.5e-6
+            if analysis.verdict is not None and np.all(close):
+                return analysis.verdict.verdict
+            grains = dict(analysis.grain_map.grains, quat=quat_sample)
+            grain_map = replace(analysis.grain_map, grains=grains)
+            table = match_planes(
+                analysis.segments,
+                grain_map,
+                phases,
+                k=p["k"],
+                floor_deg=p["floor_deg"],
+                max_tolerance_deg=p["max_tolerance_deg"],
+                sigma_criterion=p["sigma_criterion"],
+            ).identification
+            return compare_map(
+                measured,
+                table,
+                grains,
+                phases,
+                coherent_tolerance_deg=p["max_tolerance_deg"],
+            ).verdict.verdict
+
+    pointers = ["/map"] + [
+        f"/sections/{i}/map" for i, s in enumerate(job.sections) if s.get("kind") == "serial"
+    ]
+    return audit_frame(
+        analysis.segments,
+        analysis.grain_map.grains,
+        job.phases,
+        axes=omap.axes,
+        data_frame_rotation=omap.data_frame_rotation,
+        rotation_sense=omap.rotation_sense,
+        sigma_criterion=job.planes["sigma_criterion"],
+        settle=settle,
+        map_pointers=tuple(pointers),
+    )
+
+
+def _audit_warnings(analysis: Analysis) -> tuple[str, ...]:
+    """The one stderr line of a frame audit that does not confirm the declared frame."""
+    a = analysis.audit
+    if a is None or a.declared_is_best is True:
+        return ()
+    if a.declared_is_best == "undecided":
+        return (f"inclination: warning: frame audit undecided: {a.reason}",)
+    return (
+        "inclination: warning: the declared frame is not the best fit of the twin traces; "
+        f"job patch {a.patch_line()} (see audit.json)",
+    )
 
 
 def _with_features(analysis: Analysis) -> Analysis:
@@ -605,12 +695,64 @@ def analyse(
 
     job = load_job(job_path)
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    notes: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+    ) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
         files, summary = write_outputs(analysis, stage_dir)
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
-    return RunResult(out, files, tuple(_messages(summary, out)), summary)
+    return RunResult(
+        out,
+        files,
+        tuple(notes + _messages(summary, out)),
+        summary,
+        warnings=_audit_warnings(analysis),
+    )
+
+
+def _input_files(job) -> list:
+    """Every file the job reads: the output folder must not be or hold their folders."""
+    files = [job.source_path, job.map.get("path"), job.map.get("sidecar")]
+    for section in job.sections:
+        spec = section.get("map")
+        if isinstance(spec, dict):
+            files += [spec.get("path"), spec.get("sidecar")]
+    return [f for f in files if f]
+
+
+def audit(
+    job_path: str | os.PathLike,
+    out_dir: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
+    """The frame audit of a job alone: writes ``audit.json`` (schemas/audit.schema.json).
+
+    Runs the job up to its planes (and its sections, which settle the 180° partner,
+    when it has any) and writes the ranked hypotheses and the job patch.
+    """
+    from .io.job import load_job
+    from .report.atomic import staged_output_dir, write_json_atomic
+
+    job = load_job(job_path)
+    out = Path(out_dir)
+    notes: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+    ) as stage_dir:
+        analysis = run(job, stage="sections", progress=progress)
+        write_json_atomic(stage_dir / "audit.json", analysis.audit.as_dict())
+    line = f"{out / 'audit.json'}: {analysis.audit.sentence()}"
+    return RunResult(
+        out,
+        (out / "audit.json",),
+        (*notes, line),
+        analysis.audit.as_dict(),
+        warnings=_audit_warnings(analysis),
+    )
 
 
 def _messages(summary, out):
@@ -637,8 +779,10 @@ def demo(
     """Write the demo scenario and run the whole job on it, and on its turned-frame twin.
 
     The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
-    (the job as declared) and ``results-turned-frame/`` (the same sample recorded
-    in a frame turned 180° about the surface normal: its verdict must say so).
+    (the job as declared), ``results-turned-frame/`` (the same sample recorded
+    in a frame turned 180° about the surface normal: its verdict must say so) and
+    ``results-turned-axes/`` (recorded with axes turned 90° about the normal: the
+    frame audit leads its report with the finding and the job patch).
 
     Examples
     --------
@@ -647,26 +791,48 @@ def demo(
     >>> [result.summary[k]["frame_verdict"]["verdict"]
     ...  for k in ("results", "results-turned-frame")]
     ['as_declared', 'turned_180_about_normal']
+    >>> result.summary["results-turned-axes"]["frame_audit"]["job_patch"]["map"]
+    {'data_frame_rotation': 'z90'}
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report.atomic import staged_output_dir
+    from .report.atomic import staged_output_dir, write_json_atomic
 
     out = Path(out_dir)
-    messages = []
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    messages: list = []
+    with staged_output_dir(out, overwrite=overwrite, notes=messages) as stage_dir:
         paths = write_demo_scenario(stage_dir / "scenario", seed=seed)
         summaries = {}
-        for key, folder in (("job", "results"), ("job_z180", "results-turned-frame")):
+        cases = (
+            ("job", "results"),
+            ("job_z180", "results-turned-frame"),
+            ("job_z90", "results-turned-axes"),
+        )
+        for key, folder in cases:
             job = load_job(paths[key])
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
             _, summary = write_outputs(analysis, stage_dir / folder)
+            summary = _relocated(summary, stage_dir, out)
+            write_json_atomic(stage_dir / folder / "summary.json", summary)
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
+            messages += [f"{out / folder}: {w}" for w in _audit_warnings(analysis)]
     messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
     messages.append(f"open {out / 'results' / 'report.html'} for the report")
     return RunResult(out, (), tuple(messages), summaries)
+
+
+def _relocated(doc, stage_dir: Path, out: Path):
+    """``doc`` with paths inside the staging folder named at their final place."""
+    stage, final = str(Path(stage_dir).resolve()), str(Path(out).resolve())
+    if isinstance(doc, dict):
+        return {k: _relocated(v, stage_dir, out) for k, v in doc.items()}
+    if isinstance(doc, list):
+        return [_relocated(v, stage_dir, out) for v in doc]
+    if isinstance(doc, str) and doc.startswith(stage):
+        return final + doc[len(stage) :]
+    return doc
 
 
 def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
@@ -700,43 +866,80 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     >>> [p.name for p in rebuild_report(folder / "out").files]
     ['report.html', 'report.md']
     """
-    import json
 
+    from .io.limits import check_regular_file, read_json
     from .report.columns import BOUNDARY_COLUMNS
     from .report.document import write_report
 
     folder = Path(run_dir)
+    if not folder.is_dir():
+        raise InputError(
+            "Expected the output folder of an earlier run, got no folder.", path=folder
+        )
     docs = {}
     for name in ("summary.json", "boundaries.json"):
         path = folder / name
-        try:
-            docs[name] = json.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
+        if not os.path.lexists(path):
             raise InputError(
                 "Expected the output folder of an analyse or planes run, got a folder "
                 f"without {name}.",
                 path=path,
-            ) from None
-        except (OSError, ValueError) as exc:
-            raise InputError(f"Expected a readable JSON file, got {exc}.", path=path) from None
+            )
+        docs[name] = read_json(path, kind="run")
+        if not isinstance(docs[name], dict):
+            raise InputError(f"Expected a JSON object, got {type(docs[name]).__name__}.", path=path)
     rows = docs["boundaries.json"].get("rows")
-    if not isinstance(rows, list):
+    if not isinstance(rows, list) or not all(isinstance(r, dict) for r in rows):
         raise InputError(
-            "Expected a list of rows, got none.", path=folder / "boundaries.json", pointer="/rows"
+            "Expected a list of rows (objects), got none.",
+            path=folder / "boundaries.json",
+            pointer="/rows",
         )
     table = {}
     for c in BOUNDARY_COLUMNS:
         values = [r.get(c.name) for r in rows]
-        if c.kind == "float":
-            table[c.name] = np.array([np.nan if v is None else v for v in values], float)
-        elif c.kind == "int":
-            table[c.name] = np.array([-1 if v is None else v for v in values], int)
-        else:
-            table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
+        table[c.name] = _run_column(values, c, folder / "boundaries.json")
     png = folder / "boundaries.png"
-    figure = png.read_bytes() if png.exists() else None
-    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure)
+    figure = None
+    if os.path.lexists(png):
+        check_regular_file(png, kind="run")
+        figure = png.read_bytes()
+    try:
+        files = write_report(
+            folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure
+        )
+    except (TypeError, KeyError, AttributeError, ValueError, IndexError) as exc:
+        # An edited summary.json: its parts have the wrong types for the report.
+        raise InputError(
+            f"Expected summary.json as a run wrote it, got a part of the wrong type "
+            f"({type(exc).__name__}).",
+            path=folder / "summary.json",
+        ) from None
     return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
+
+
+def _run_column(values: list, column, path) -> np.ndarray:
+    """One column of an earlier run's boundaries.json, its types checked."""
+    kinds = {"float": (int, float), "int": (int,), "str": (str,)}.get(column.kind, (str,))
+    for i, v in enumerate(values):
+        if v is not None and (not isinstance(v, kinds) or isinstance(v, bool)):
+            raise InputError(
+                f"Expected {column.name!r} to be {column.kind} or null, got {type(v).__name__}.",
+                path=path,
+                pointer=f"/rows/{i}/{column.name}",
+            )
+    if column.kind == "float":
+        return np.array([np.nan if v is None else v for v in values], float)
+    if column.kind == "int":
+        ints = [-1 if v is None else v for v in values]
+        if any(abs(v) > np.iinfo(np.int64).max for v in ints):
+            raise InputError(
+                f"Expected {column.name!r} to fit 64-bit integers, got a larger one.",
+                path=path,
+                pointer=f"/rows/*/{column.name}",
+            )
+        return np.array(ints, np.int64)
+    return np.array(["" if v is None else v for v in values], dtype=object)
 
 
 # ----------------------------------------------------------------------------- outputs
@@ -774,7 +977,13 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     """
     from .report import outputs
 
-    return outputs.write_all(analysis, Path(out_dir), summary_base=_summary_base(analysis))
+    base = _summary_base(analysis)
+    files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=base)
+    if analysis.audit is not None:
+        from .report.atomic import write_json_atomic
+
+        files = [*files, write_json_atomic(Path(out_dir) / "audit.json", analysis.audit.as_dict())]
+    return files, summary
 
 
 def _summary_base(analysis: Analysis) -> dict:
@@ -804,6 +1013,27 @@ def _summary_base(analysis: Analysis) -> dict:
             "map": dict(omap.provenance),
         },
         "stage": analysis.stage,
+    } | _audit_summary(analysis)
+
+
+def _audit_summary(analysis: Analysis) -> dict:
+    """summary.json's ``frame_audit`` when the declared frame is not best beyond doubt."""
+    a = analysis.audit
+    if a is None or a.declared_is_best is True:
+        return {}
+    return {
+        "frame_audit": {
+            "declared_is_best": a.declared_is_best,
+            "sentence": a.sentence(),
+            "warning": (
+                "The analysis ran in the frame as declared; the frame audit finds that "
+                "frame doubtful. Apply the job patch and run again."
+                if a.declared_is_best is False
+                else "The frame audit could not confirm the declared frame."
+            ),
+            "job_patch": a.job_patch,
+            "best": a.best_hypothesis.describe(),
+        }
     }
 
 
@@ -839,8 +1069,11 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
             {**job.raw, "stereology": {}}, base_dir=job.base_dir, path_for_errors=job.source_path
         )
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    lines: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=lines
+    ) as stage_dir:
         analysis = run(job, stage="traces", progress=progress)
         files = _stereology_outputs(analysis, stage_dir, standalone=True)
-    lines = [f"{out}: plane_distribution.json and {len(files) - 3} stereogram files"]
+    lines.append(f"{out}: plane_distribution.json and {len(files) - 3} stereogram files")
     return RunResult(out, tuple(out / Path(f).name for f in files), tuple(lines))

@@ -14,6 +14,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from .atomic import write_text_atomic
+from .audit_block import audit_block_html, audit_block_markdown
 from .columns import Column
 from .faces import face_images_section_html, face_images_section_markdown
 from .features import features_section_html, features_section_markdown
@@ -81,17 +82,30 @@ def _verdict_sentence(summary: dict) -> str:
     return str(verdict.get("sentence", verdict.get("verdict", "")))
 
 
+def _md(text) -> str:
+    """Text safe inside Markdown: raw HTML (from an edited run folder) shown, not run."""
+    return (
+        str(text)
+        .replace("&", "&amp;")
+        .replace("<", "&lt;")
+        .replace(">", "&gt;")
+        .replace("|", "\\|")
+        .replace("\n", " ")
+    )
+
+
 def render_markdown(summary: dict, table: dict, columns: Sequence[Column]) -> str:
     """The report as Markdown text."""
     by_name = {c.name: c for c in columns}
     shown = [by_name[n] for n in _REPORT_COLUMNS if n in by_name]
     lines = [
-        f"# {summary.get('title', 'Boundary planes')}",
+        f"# {_md(summary.get('title', 'Boundary planes'))}",
         "",
-        f"**Frame:** {_verdict_sentence(summary)}",
+        *audit_block_markdown(summary),
+        f"**Frame:** {_md(_verdict_sentence(summary))}",
         "",
     ]
-    lines += [f"- {k}: {v}" for k, v in _facts(summary)]
+    lines += [f"- {k}: {_md(v)}" for k, v in _facts(summary)]
     lines += ["", "![boundaries](boundaries.png)", ""]
     lines += features_section_markdown(summary)
     lines += face_images_section_markdown(summary)
@@ -99,7 +113,7 @@ def render_markdown(summary: dict, table: dict, columns: Sequence[Column]) -> st
     lines.append("|" + "|".join("---" for _ in shown) + "|")
     n = len(next(iter(table.values()))) if table else 0
     for i in range(n):
-        lines.append("| " + " | ".join(format_cell(table[c.name][i], c) for c in shown) + " |")
+        lines.append("| " + " | ".join(_md(format_cell(table[c.name][i], c)) for c in shown) + " |")
     lines += ["", f"_{_CAVEAT}_", ""]
     return "\n".join(lines)
 
@@ -121,6 +135,7 @@ def render_html(
         "th{text-align:center}.verdict{border-left:0.4em solid #0072B2;padding:0.5em 1em;"
         "background:#f3f6fa}.caveat{font-size:0.85em;color:#555}</style></head><body>",
         f"<h1>{esc(summary.get('title', 'Boundary planes'))}</h1>",
+        *audit_block_html(summary),
         f'<p class="verdict"><strong>Frame.</strong> {esc(_verdict_sentence(summary))}</p>',
         "<ul>",
     ]

@@ -68,7 +68,11 @@ def grains_table(analysis: Analysis) -> dict:
     omap = analysis.omap
     q = np.asarray(g["quat"], float).reshape(-1, 4)
     if len(q):
-        euler = quat_as_euler_deg(orientations_to_declared(q, omap.axes, omap.data_frame_rotation))
+        euler = quat_as_euler_deg(
+            orientations_to_declared(
+                q, omap.axes, omap.data_frame_rotation, rotation_sense=omap.rotation_sense
+            )
+        )
     else:
         euler = np.zeros((0, 3))
     cx, cy = _declared_points(omap.axes, g["centroid_x_um"], g["centroid_y_um"])
