@@ -72,6 +72,13 @@ class Analysis:
     measured, senses, planes_full : Table or None
         The fields of :class:`inclination.compare.Comparison`.
     verdict : FrameVerdict or None
+    faces : tuple of dict
+        One per cross-section given as an image: ``name``, ``index`` (in the job's
+        sections), ``measurement`` (:class:`inclination.sections.FaceMeasurement`),
+        ``record`` (the :class:`~inclination.sections.CrossSection` measured),
+        ``table`` (its section table), ``first_image_entry`` (rows from there on
+        came from the image), ``image`` (the grey levels, for the overlay),
+        ``grey_check`` (per image entry, :func:`inclination.sections.neighbour_check`).
     audit : FrameAudit or None
         The frame audit (inclination.audit), from the planes stage on.
 
@@ -95,6 +102,7 @@ class Analysis:
     verdict: FrameVerdict | None = None
     planes_full: Table | None = None
     features: Table | None = None
+    faces: tuple[dict, ...] = ()
     audit: Any = None
 
     @property
@@ -239,6 +247,80 @@ def _status_counts(table) -> dict:
     return dict(zip(status.tolist(), count.tolist(), strict=True))
 
 
+def _face_image(section, record, job_path, pointer):
+    """Read and measure the face image of a cross-section entry (conventions §7)."""
+    from .sections import image_right_sample, measure_face_image, read_face_image
+
+    spec = section["image"]
+    image = read_face_image(spec["path"], job_path=job_path, pointer=f"{pointer}/image")
+    right = image_right_sample(record.line_sample, record.viewer_sample)
+    along = record.line_sample[1] - record.line_sample[0]
+    length = float(np.hypot(*along))
+    try:
+        face = measure_face_image(
+            image,
+            pixel_um=float(spec["pixel_um"]),
+            line_start_px=spec["line_start_px"],
+            line_length_um=length,
+            right_along_line=bool(right[:2] @ along > 0),
+            tilt_deg=record.tilt_deg,
+            face_inclination_deg=record.face_inclination_deg,
+            surface_row=spec.get("surface_row"),
+            rotation_deg=spec.get("rotation_deg"),
+            depth_um=spec.get("depth_um"),
+        )
+    except ValueError as exc:
+        field = "line_start_px" if "line_start_px" in str(exc) else "path"
+        raise InputError(
+            f"{exc} (image {spec['path']!r})", path=job_path, pointer=f"{pointer}/image/{field}"
+        ) from None
+    return face, image
+
+
+def _grey_check(face, table, segments, first):
+    """The image's grey regions against the matched traces' grains, per used line."""
+    from .sections import neighbour_check
+
+    used = face.lines["status"] == "used"
+    seg_ids = np.asarray(table["segment_id"])[first:]
+    row_of = {int(s): i for i, s in enumerate(np.asarray(segments["segment_id"]))}
+    ga = np.full(len(seg_ids), -1, dtype=np.int64)
+    gb = np.full(len(seg_ids), -1, dtype=np.int64)
+    for j, s in enumerate(seg_ids):
+        if s >= 0:
+            ga[j] = int(segments["grain_a"][row_of[int(s)]])
+            gb[j] = int(segments["grain_b"][row_of[int(s)]])
+    return neighbour_check(
+        face.lines["region_left"][used], face.lines["region_right"][used], ga, gb
+    )
+
+
+def _face_note(face, record, table, segments, first):
+    """What summary.json says of a face image: lines found, used, and the match offset."""
+    from .sections import along_offsets_um
+
+    lines = face.lines
+    rows = np.arange(first, len(table["status"]))
+    matched = rows[np.asarray(table["segment_id"])[rows] >= 0]
+    offsets = along_offsets_um(
+        record, segments, table["segment_id"][matched], np.asarray(table["along_um"])[matched]
+    )
+    check = _grey_check(face, table, segments, first)
+    return {
+        "grey_check": {k: int(np.sum(check == k)) for k in ("consistent", "inconsistent")},
+        "lines_found": int(len(lines["status"])),
+        "lines_used": int(np.sum(lines["status"] == "used")),
+        "unsure": {
+            k: int(np.sum(lines["status"] == k)) for k in ("low_contrast", "short", "curved")
+        },
+        "rotation_deg": round(face.rotation_deg, 4),
+        "rotation_found": face.rotation_found,
+        # The shift of the image's along-line positions against the traces: a misplaced
+        # line_start_px shows here as a steady offset.
+        "along_offset_um": round(float(np.median(offsets)), 4) if len(offsets) else None,
+    }
+
+
 def _sections(job, omap, grain_map, segments, progress):
     """Measure every section of the job; returns (tables, notes)."""
     from .sections import (
@@ -249,7 +331,7 @@ def _sections(job, omap, grain_map, segments, progress):
         measure_stack,
     )
 
-    tables, notes = [], []
+    tables, notes, faces = [], [], []
     step = float(min(omap.step_x_um, omap.step_y_um))
     # Phase records, not bare Laue symbols: the setting matters for hexagonal phases.
     laue_by_phase = _phases_by_id(job)
@@ -262,6 +344,16 @@ def _sections(job, omap, grain_map, segments, progress):
             record = CrossSection.from_job_entry(
                 section, axes=omap.axes, path=job.source_path, pointer=pointer
             )
+            listed = len(record.along_um)
+            face = None
+            if "image" in section:
+                face, face_grey = _face_image(section, record, job.source_path, pointer)
+                record = CrossSection.from_job_entry(
+                    {**section, "boundaries": [*section.get("boundaries", []), *face.entries()]},
+                    axes=omap.axes,
+                    path=job.source_path,
+                    pointer=pointer,
+                )
             table = measure_cross_section(
                 record,
                 segments,
@@ -270,12 +362,31 @@ def _sections(job, omap, grain_map, segments, progress):
                 path=job.source_path,
                 pointer=pointer,
             )
+            if face is not None:
+                table["dip_source"][listed:] = "cross-section image"
+                faces.append(
+                    {
+                        "name": name,
+                        "index": index,
+                        "measurement": face,
+                        "record": record,
+                        "table": table,
+                        "first_image_entry": listed,
+                        "image": face_grey,
+                        "grey_check": _grey_check(face, table, segments, listed),
+                    }
+                )
             notes.append(
                 {
                     "name": name,
                     "kind": "cross-section",
                     "entries": int(len(table["status"])),
                     "status": _status_counts(table),
+                    **(
+                        {}
+                        if face is None
+                        else {"image": _face_note(face, record, table, segments, listed)}
+                    ),
                 }
             )
         else:
@@ -362,7 +473,7 @@ def _sections(job, omap, grain_map, segments, progress):
             }
         )
         tables.append(table)
-    return tuple(tables), tuple(notes)
+    return tuple(tables), tuple(notes), tuple(faces)
 
 
 def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None = None) -> Analysis:
@@ -443,7 +554,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         return _with_features(replace(analysis, audit=_frame_audit(analysis)))
     from .compare import best_measurements, compare_map
 
-    tables, notes = _sections(job, omap, grain_map, segments, progress)
+    tables, notes, faces = _sections(job, omap, grain_map, segments, progress)
     comparison = compare_map(
         best_measurements(*tables),
         identification,
@@ -455,6 +566,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         analysis,
         section_tables=tables,
         section_notes=notes,
+        faces=faces,
         measured=comparison.measured,
         senses=comparison.senses,
         verdict=comparison.verdict,

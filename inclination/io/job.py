@@ -213,6 +213,9 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         resolved = copy.deepcopy(section)
         if section["kind"] == "serial":
             resolved["map"] = _resolve_map(section["map"], base, path_for_errors, f"{pointer}/map")
+        if section["kind"] == "cross-section" and "image" in section:
+            # The face image's path is relative to the job file, as the maps' are.
+            resolved["image"]["path"] = str((base / section["image"]["path"]).resolve())
         sections.append(resolved)
     _check_features(doc, phases, path_for_errors)
     return Job(

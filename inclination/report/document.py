@@ -18,6 +18,7 @@ from pathlib import Path
 from ..io.limits import check_regular_file
 from .atomic import write_text_atomic
 from .audit_block import audit_block_html, audit_block_markdown
+from .faces import face_images_section_html, face_images_section_markdown
 from .features import features_section_html, features_section_markdown
 from .glossary import ROUNDING_RULE, glossary_html, glossary_markdown
 from .tables import paper_html, paper_legend, paper_markdown, paper_table
@@ -222,6 +223,7 @@ def render_markdown(summary: dict, table: dict) -> str:
             "",
         ]
     lines += features_section_markdown(summary)
+    lines += face_images_section_markdown(summary)
     paper = paper_table(table)
     lines += [
         "## Boundaries",
@@ -285,6 +287,7 @@ def render_html(summary: dict, table: dict, *, figures=()) -> str:
             )
         parts.append("</section>")
     parts += features_section_html(summary)
+    parts += face_images_section_html(summary)
     paper = paper_table(table)
     parts += [
         '<section id="boundaries"><h2>Boundaries</h2>',

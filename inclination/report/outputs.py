@@ -531,6 +531,11 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, pro
         files += paths
     step()
     summary = _summary(analysis, summary_base, boundaries)
+    if getattr(analysis, "faces", ()):
+        from .faces import write_face_outputs
+
+        face_files, summary["face_images"] = write_face_outputs(analysis, out_dir)
+        files += face_files
     if relocate is not None:
         staging, final = (str(Path(p)) for p in relocate)
         summary = _relocated(summary, staging, final)

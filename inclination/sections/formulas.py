@@ -27,6 +27,7 @@ __all__ = [
     "apparent_dip_deg",
     "true_dip_from_apparent_deg",
     "face_angle_from_image_deg",
+    "face_depth_scale",
     "section_line_frame",
     "image_right_sample",
     "depth_from_indent_um",
@@ -130,6 +131,39 @@ def face_angle_from_image_deg(
     1.26902
     """
     alpha = np.deg2rad(as_float_array(image_angle_deg, "image_angle_deg"))
+    shortening = face_depth_scale(tilt_deg, face_inclination_deg=face_inclination_deg)
+    return np.rad2deg(np.arctan2(np.tan(alpha), shortening))
+
+
+def face_depth_scale(tilt_deg: ArrayLike, *, face_inclination_deg: ArrayLike = 90.0) -> np.ndarray:
+    """Image length per unit of depth down the face, ``cos(φ − θ)`` (§7).
+
+    A distance ``w`` down a face inclined φ to the surface, seen by a beam at θ to
+    the surface normal, appears as ``w·cos(φ − θ)`` in the image (``sin θ`` for a
+    perpendicular face).
+
+    Parameters
+    ----------
+    tilt_deg : float or array_like
+        Imaging tilt θ, degrees.
+    face_inclination_deg : float, optional
+        Inclination φ of the face to the surface, degrees (90 = perpendicular).
+
+    Returns
+    -------
+    ndarray
+        The foreshortening factor, (0, 1].
+
+    Raises
+    ------
+    ValueError
+        When the beam does not see the face (factor <= 1e-6).
+
+    Examples
+    --------
+    >>> face_depth_scale(52.0).round(5).tolist()
+    0.78801
+    """
     theta = np.deg2rad(as_float_array(tilt_deg, "tilt_deg"))
     phi = np.deg2rad(as_float_array(face_inclination_deg, "face_inclination_deg"))
     shortening = np.cos(phi - theta)
@@ -138,7 +172,7 @@ def face_angle_from_image_deg(
             "Expected `tilt_deg` to let the beam see the face (cos(face inclination − tilt)"
             f" > 0), got tilt {np.rad2deg(theta)!r} for a face at {np.rad2deg(phi)!r} deg."
         )
-    return np.rad2deg(np.arctan2(np.tan(alpha), shortening))
+    return shortening
 
 
 def image_right_sample(line_sample: ArrayLike, viewer_sample: ArrayLike) -> np.ndarray:

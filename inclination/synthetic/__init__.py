@@ -13,6 +13,7 @@ package's one §5 function, :func:`inclination.planes.geometry.surface_geometry`
 
 from __future__ import annotations
 
+from .faces import FaceImage, render_face_image
 from .microstructure import (
     Microstructure,
     TwinLamella,
@@ -32,6 +33,7 @@ from .sectioning import cross_section_crossings, simulate_cross_section
 from .truth import boundary_normals_sample, ground_truth
 
 __all__ = [
+    "FaceImage",
     "Microstructure",
     "SampledMap",
     "TwinLamella",
@@ -44,6 +46,7 @@ __all__ = [
     "make_microstructure",
     "recorded_in_frame",
     "region_at",
+    "render_face_image",
     "sample_map",
     "simulate_cross_section",
     "twin_planes_crystal",
