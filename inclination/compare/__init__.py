@@ -18,10 +18,17 @@ from .comparison import (
     predicted_directions,
 )
 from .measured import best_measurements, full_planes, low_index_planes
-from .sense import SENSES, boundary_sense
+from .sense import (
+    DEFAULT_BLUNDER_RATE,
+    SENSES,
+    boundary_sense,
+    reversal_probability,
+    sense_bound_log10,
+)
 from .verdict import VERDICTS, FrameVerdict, frame_verdict
 
 __all__ = [
+    "DEFAULT_BLUNDER_RATE",
     "Comparison",
     "FrameVerdict",
     "PredictedDirections",
@@ -36,4 +43,6 @@ __all__ = [
     "low_index_planes",
     "measured_senses",
     "predicted_directions",
+    "reversal_probability",
+    "sense_bound_log10",
 ]

@@ -49,15 +49,16 @@ def best_measurements(*tables: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]
     [52.0, 60.0]
     """
     keys = [k for k in _MEASUREMENT_COLUMNS if all(k in t for t in tables)] if tables else []
-    rows = {k: [] for k in keys}
-    for t in tables:
+    if not keys:
+        return {}
+    rows = {k: [] for k in (*keys, "section")}
+    for index, t in enumerate(tables):
         ok = (np.asarray(t["segment_id"]) >= 0) & np.isin(
             np.asarray(t["status"]).astype(str), ("measured", "ill_conditioned")
         )
         for k in keys:
             rows[k].append(np.asarray(t[k])[ok])
-    if not keys:
-        return {}
+        rows["section"].append(np.full(int(ok.sum()), index))
     cat = {k: np.concatenate(v) for k, v in rows.items()}
     order = np.lexsort((cat["measured_dip_sigma_deg"], cat["segment_id"]))
     seg = cat["segment_id"][order]
@@ -77,6 +78,7 @@ _MEASUREMENT_COLUMNS = (
     "dip_direction_sigma_deg",
     "dip_source",
     "status",
+    "reversal_probability",
 )
 
 

@@ -91,7 +91,19 @@ BOUNDARY_COLUMNS = (
             "cross-section, serial-section or serial-stack; empty if not measured",
         ),
         _c("sense", "str", 0, "agrees, opposite or undecided (empty if not measured)"),
-        _c("sense_log10_lr", "float", 3, "log10 likelihood ratio, declared frame vs turned"),
+        _c(
+            "sense_log10_lr",
+            "float",
+            3,
+            "log10 likelihood ratio, declared frame vs turned, with the blunder rate and "
+            "reversal chance mixed in: at most log10((1 - blunder_rate)/blunder_rate)",
+        ),
+        _c(
+            "sense_reversal_probability",
+            "float",
+            4,
+            "chance that the measured or predicted dip direction is reversed (steep plane)",
+        ),
         _c("normal_x", "float", 5, "measured plane normal, declared axes, x"),
         _c("normal_y", "float", 5, "measured plane normal, declared axes, y"),
         _c("normal_z", "float", 5, "measured plane normal, declared axes, z"),
