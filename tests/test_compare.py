@@ -124,8 +124,13 @@ def test_steep_planes_carry_their_reversal_probability():
     p = reversal_probability(dips, 3.0)
     assert_allclose(p, norm.cdf((dips - 90.0) / 3.0), rtol=1e-12, atol=0)
     out = boundary_sense(
-        [0.0] * 3, dips, [0.0] * 3, [1.0] * 3,
-        measured_dip_deg=dips, measured_dip_sigma_deg=[3.0] * 3, n_sigma_vertical=1.0,
+        [0.0] * 3,
+        dips,
+        [0.0] * 3,
+        [1.0] * 3,
+        measured_dip_deg=dips,
+        measured_dip_sigma_deg=[3.0] * 3,
+        n_sigma_vertical=1.0,
         predicted_dip_sigma_deg=1e-3,
     )
     # The flip chance is ε ⊕ r = ε(1 − r) + r(1 − ε); the bound is (1 − q)/q.
@@ -134,8 +139,15 @@ def test_steep_planes_carry_their_reversal_probability():
     assert_allclose(out["reversal_probability"], p, rtol=1e-9, atol=1e-15)
     assert out["sense"].tolist() == ["agrees", "agrees", "undecided"]
     # The section's own figure (a trace nearly along the line) wins over the dip's.
-    own = boundary_sense([0.0], [50.0], [0.0], [1.0], measured_dip_deg=[40.0],
-                         measured_dip_sigma_deg=[3.0], measured_reversal_probability=[0.3])
+    own = boundary_sense(
+        [0.0],
+        [50.0],
+        [0.0],
+        [1.0],
+        measured_dip_deg=[40.0],
+        measured_dip_sigma_deg=[3.0],
+        measured_reversal_probability=[0.3],
+    )
     assert_allclose(own["reversal_probability"], [0.3], rtol=1e-12)
     assert own["sense"][0] == "undecided"
 
@@ -193,7 +205,10 @@ def test_frame_verdicts(counts, verdict):
 def test_ten_agreeing_boundaries_outweigh_a_simulated_blunder():
     # The blunder is a real row of the sense model: a precise, opposite entry.
     rows = boundary_sense(
-        [30.0] * 11, [50.0] * 11, [31.0] * 10 + [210.0], [0.5] * 11,
+        [30.0] * 11,
+        [50.0] * 11,
+        [31.0] * 10 + [210.0],
+        [0.5] * 11,
         predicted_azimuth_sigma_deg=0.2,
     )
     assert rows["sense"].tolist() == ["agrees"] * 10 + ["opposite"]

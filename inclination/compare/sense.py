@@ -202,9 +202,7 @@ def boundary_sense(
     msig = _column(measured_sigma_deg, "measured_sigma_deg", n)
     mdip = _column(measured_dip_deg, "measured_dip_deg", n, fill=np.nan)
     mdip_sig = _column(measured_dip_sigma_deg, "measured_dip_sigma_deg", n, fill=np.nan)
-    m_rev = _column(
-        measured_reversal_probability, "measured_reversal_probability", n, fill=np.nan
-    )
+    m_rev = _column(measured_reversal_probability, "measured_reversal_probability", n, fill=np.nan)
     psig = _column(predicted_azimuth_sigma_deg, "predicted_azimuth_sigma_deg", n)
     pdip_sig = _column(predicted_dip_sigma_deg, "predicted_dip_sigma_deg", n)
     _check_blunder_rate(blunder_rate)

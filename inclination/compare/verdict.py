@@ -93,10 +93,10 @@ def _tally(witness, decided, ratio, mask, threshold) -> _Tally:
     keys = np.unique(witness[mask])
     use = mask & decided
     if use.any():
-        w_keys, inverse = np.unique(witness[use], return_inverse=True)
+        _, inverse = np.unique(witness[use], return_inverse=True)
         mean = np.bincount(inverse, weights=ratio[use]) / np.bincount(inverse)
     else:
-        w_keys, mean = keys[:0], np.zeros(0)
+        mean = np.zeros(0)
     agree = int(np.sum(mean >= threshold))
     oppose = int(np.sum(mean <= -threshold))
     return _Tally(agree, oppose, len(keys) - agree - oppose, float(np.sum(mean)))
@@ -265,8 +265,9 @@ def _verdict_sentence(
         )
     elif verdict == "turned_180_about_normal":
         sides = (
-            "every section's viewer side and tilt" if multi else "the section's viewer side "
-            "and tilt"
+            "every section's viewer side and tilt"
+            if multi
+            else "the section's viewer side and tilt"
         )
         text = (
             f"{tally}: the data's frame is turned 180° about the surface normal (combined "
