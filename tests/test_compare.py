@@ -12,11 +12,13 @@ from numpy.testing import assert_allclose
 from scipy.stats import binomtest
 
 from inclination.compare import (
+    COHERENT_TWIN_ANSWERS,
     SENSES,
     TRUSTED_IDENTIFICATIONS,
     VERDICTS,
     best_measurements,
     boundary_sense,
+    coherent_twin_test,
     compare_map,
     frame_verdict,
     full_planes,
@@ -330,6 +332,29 @@ def _twin_pair(gen):
 
     qb = quat_multiply(r, qa)
     return qa, qb
+
+
+def test_coherent_twin_test_is_calibrated_and_has_three_answers():
+    # True coherent twins measured with σ per direction (normal errors): the angle is
+    # Rayleigh (scipy.stats.rayleigh), so "no" comes at most at the rate α = 0.01 when
+    # the plane's own tolerance is small against σ.
+    from scipy.stats import rayleigh
+
+    rng = np.random.default_rng(3)
+    sigma = 3.0
+    d = np.hypot(*rng.normal(0.0, sigma, (2, 200000)))
+    answer = coherent_twin_test(d, sigma, 1e-9)
+    assert abs((answer == "no").mean() - rayleigh.sf(3.0349 * sigma, scale=sigma)) < 0.002
+    assert abs((answer == "no").mean() - 0.01) < 0.002
+    # With a tolerance t the rejection moves out to t + c: fewer "no" still.
+    assert (coherent_twin_test(d, sigma, 5.0) == "no").mean() < 0.01
+    # The demo's case (5–7° off at σ ≈ 3.3°): not "no", but a plane 10° off would
+    # fit as well (c = 3.03σ = 10° > t), so it cannot tell; at σ = 1.5° it is a twin.
+    assert coherent_twin_test([5.0, 7.0], 3.3, 5.0).tolist() == ["cannot_tell"] * 2
+    assert coherent_twin_test([5.0, 7.0], 1.5, 5.0).tolist() == ["yes", "yes"]
+    # 10° off a precise measurement: no; a very uncertain one cannot tell.
+    assert coherent_twin_test([10.0, 10.0], [0.5, 6.0], 5.0).tolist() == ["no", "cannot_tell"]
+    assert set(COHERENT_TWIN_ANSWERS) == {"yes", "no", "cannot_tell"}
 
 
 def test_full_planes_of_a_coherent_twin_and_a_tilted_one():

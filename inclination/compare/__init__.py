@@ -17,7 +17,13 @@ from .comparison import (
     measured_senses,
     predicted_directions,
 )
-from .measured import best_measurements, full_planes, low_index_planes
+from .measured import (
+    COHERENT_TWIN_ANSWERS,
+    best_measurements,
+    coherent_twin_test,
+    full_planes,
+    low_index_planes,
+)
 from .sense import (
     DEFAULT_BLUNDER_RATE,
     SENSES,
@@ -28,6 +34,7 @@ from .sense import (
 from .verdict import VERDICTS, FrameVerdict, frame_verdict
 
 __all__ = [
+    "COHERENT_TWIN_ANSWERS",
     "DEFAULT_BLUNDER_RATE",
     "Comparison",
     "FrameVerdict",
@@ -37,6 +44,7 @@ __all__ = [
     "VERDICTS",
     "best_measurements",
     "boundary_sense",
+    "coherent_twin_test",
     "compare_map",
     "frame_verdict",
     "full_planes",

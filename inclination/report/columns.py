@@ -122,7 +122,13 @@ BOUNDARY_COLUMNS = (
         _c("measured_plane_b", "str", 0, "nearest low-index plane to the measured normal, grain b"),
         _c("measured_plane_b_deviation_deg", "float", 3, "angle to that plane"),
         _c("measured_twin_plane_deviation_deg", "float", 3, "Σ3: measured plane to common {111}"),
-        _c("measured_coherent_twin", "str", 0, "Σ3: yes when the measured plane is the {111}"),
+        _c(
+            "measured_coherent_twin",
+            "str",
+            0,
+            "Σ3: is the measured plane the common {111}, tested against its σ: yes, no or "
+            "cannot_tell (σ too large)",
+        ),
     )
 )
 
