@@ -531,3 +531,23 @@ def test_compare_map_leaves_out_unidentified_segments():
     # Σ3 comes from the identification: the coherent-twin test runs on segment 10 only.
     assert c.planes_full["coherent_twin"][1] == ""
     assert c.planes_full["coherent_twin"][0] in ("yes", "no")
+
+
+def test_reversal_probability_is_calibrated_by_monte_carlo():
+    # Planes near vertical: true signed dip δ_t uniform over 84–96° (beyond 90°: the
+    # plane dips the other way), measured with a normal error σ and folded into
+    # [0, 90]. The stated chance of reversal must match the observed rate of
+    # reversed directions within a factor of 1.5, bin by bin.
+    rng = np.random.default_rng(11)
+    sigma = 1.5
+    true = rng.uniform(84.0, 96.0, 400000)
+    seen = true + rng.normal(0.0, sigma, true.size)
+    folded = 90.0 - np.abs(90.0 - seen)
+    reversed_ = (true > 90.0) != (seen > 90.0)
+    stated = reversal_probability(folded, sigma)
+    edges = np.array([0.02, 0.05, 0.1, 0.2, 0.35, 0.5])
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        sel = (stated >= lo) & (stated < hi)
+        assert sel.sum() > 1000
+        ratio = reversed_[sel].mean() / stated[sel].mean()
+        assert 1 / 1.5 < ratio < 1.5, (lo, hi, ratio)
