@@ -71,8 +71,19 @@ BOUNDARY_COLUMNS = (
         _c("axis_a", "str", 0, "disorientation axis in grain a's crystal frame"),
         _c("sigma", "str", 0, "coincidence-site-lattice class, e.g. 3 or 13b; empty if none"),
         _c("sigma_deviation_deg", "float", 3, "angular distance from the exact CSL relation"),
-        _c("plane_a", "str", 0, "best candidate plane, indices in grain a"),
-        _c("plane_b", "str", 0, "the same plane, indices in grain b"),
+        _c(
+            "plane_a",
+            "str",
+            0,
+            "plane whose trace fits best, in grain a's indices (a plane both grains share "
+            "first; empty when it is grain b's alone); if ambiguous, the closest of several",
+        ),
+        _c(
+            "plane_b",
+            "str",
+            0,
+            "the same plane in grain b's indices; empty when it is grain a's alone",
+        ),
         _c("trace_deviation_deg", "float", 3, "measured minus predicted trace angle, absolute"),
         _c("tolerance_deg", "float", 3, "trace tolerance used for this boundary"),
         _c(
@@ -89,8 +100,14 @@ BOUNDARY_COLUMNS = (
         ),
         _c("identification", "str", 0, "coherent_twin, identified, ambiguous or none"),
         _c("twin_test", "str", 0, "Σ3 only: pass or fail of the coherent-twin trace test"),
-        _c("predicted_dip_deg", "float", 3, "dip of plane_a, 0 parallel to surface, 90 vertical"),
-        _c("predicted_dip_azimuth_deg", "float", 3, "dip direction of plane_a, declared axes"),
+        _c(
+            "predicted_dip_deg",
+            "float",
+            3,
+            "dip of that plane (0 parallel to surface, 90 vertical); for an ambiguous "
+            "boundary only that candidate's dip, not an answer",
+        ),
+        _c("predicted_dip_azimuth_deg", "float", 3, "dip direction of that plane, declared axes"),
         _c("measured_dip_deg", "float", 3, "dip measured on a section"),
         _c("measured_dip_sigma_deg", "float", 3, "standard uncertainty of the measured dip"),
         _c("measured_dip_azimuth_deg", "float", 3, "measured dip direction, declared axes"),
