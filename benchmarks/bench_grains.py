@@ -1,4 +1,4 @@
-"""Speed and memory of grains + boundary network (issue 4, section 4). Run by hand:
+"""Speed and memory of grains + boundary network (docs/performance.md). Run by hand:
 
     /work/venv/bin/python benchmarks/bench_grains.py [--sizes 1024 2048 4096] [--repeat 3]
 

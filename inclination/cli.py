@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 import traceback
+from collections.abc import Sequence
 
 from . import __version__
 from .errors import InclinationError
@@ -102,7 +103,7 @@ def _dispatch(args) -> int:
     return 0
 
 
-def main(argv=None) -> int:
+def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit status (0 ok, 2 bad input, 1 internal fault)."""
     parser = _build_parser()
     try:

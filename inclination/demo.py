@@ -34,7 +34,7 @@ import numpy as np
 
 from .crystal.phases import Phase
 from .io.writers import write_npz
-from .report._io import write_json_atomic
+from .report.atomic import write_json_atomic
 from .synthetic import (
     Microstructure,
     SampledMap,

@@ -6,6 +6,8 @@ stderr and exit status 2; anything else is an internal fault (exit 1).
 
 from __future__ import annotations
 
+import os
+
 __all__ = ["InclinationError", "InputError", "SettingError"]
 
 
@@ -31,7 +33,9 @@ class InputError(InclinationError, ValueError):
     "job.json: /map/step_um: Expected 'step_um' > 0, got -1."
     """
 
-    def __init__(self, message: str, *, path=None, pointer: str | None = None):
+    def __init__(
+        self, message: str, *, path: str | os.PathLike | None = None, pointer: str | None = None
+    ) -> None:
         self.message = message
         self.path = None if path is None else str(path)
         self.pointer = pointer

@@ -21,8 +21,9 @@ Work arrays are flat views of the (4, H, W) float32 planes taken in blocks of
 from __future__ import annotations
 
 import numbers
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy.sparse import coo_matrix
@@ -32,11 +33,23 @@ from ._validation import check_one_of
 from .crystal import symmetry
 from .crystal.rotations import quat_multiply
 from .errors import InputError, SettingError
+from .links import (
+    BLOCK,
+    MapPlanes,
+    PhaseInfo,
+    disorientation_cos_half,
+    map_planes,
+    neighbour_shifts,
+    phase_infos,
+    point_xy_um,
+    take_columns,
+)
+
+if TYPE_CHECKING:
+    from .crystal.lattice import Phase
+    from .maps import OrientationMap
 
 __all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
-
-#: Points per block of the vectorised kernels (a few hundred kB of float32 buffers).
-BLOCK = 65536
 
 #: What to do with grains under ``min_pixels``.
 SMALL_GRAIN_MODES = ("merge", "unindex")
@@ -99,44 +112,7 @@ class GrainMap:
 # ----------------------------------------------------------------------------- phases
 
 
-@dataclass(frozen=True)
-class _PhaseInfo:
-    id: int
-    laue: str
-    setting: str
-    code: int
-
-
-def _phase_infos(phases) -> list[_PhaseInfo]:
-    if isinstance(phases, Mapping):
-        items = list(phases.values())
-    else:
-        try:
-            items = list(phases)
-        except TypeError:
-            raise TypeError(
-                "Expected `phases` to be a sequence or mapping of Phase records, "
-                f"got {type(phases).__name__}."
-            ) from None
-    infos = []
-    for n, ph in enumerate(items):
-        if not all(hasattr(ph, f) for f in ("id", "laue", "lattice")):
-            raise TypeError(
-                f"Expected `phases[{n}]` to be a Phase (with id, laue, lattice), "
-                f"got {type(ph).__name__}."
-            )
-        infos.append(_PhaseInfo(int(ph.id), str(ph.laue), ph.setting, n + 1))
-    if not infos:
-        raise ValueError("Expected `phases` to hold at least one Phase, got none.")
-    if len(infos) > 250:
-        raise ValueError(f"Expected `phases` to hold at most 250 phases, got {len(infos)}.")
-    ids = [p.id for p in infos]
-    if len(set(ids)) != len(ids):
-        raise ValueError(f"Expected the phase ids in `phases` to be unique, got {ids}.")
-    return infos
-
-
-def _phase_codes(omap, infos: list[_PhaseInfo]) -> np.ndarray:
+def _phase_codes(omap, infos: tuple[PhaseInfo, ...]) -> np.ndarray:
     """Flat uint8 code per point: 1 + index of its phase in ``infos``; 0 = not usable."""
     phase = np.asarray(omap.phase).reshape(-1)
     valid = np.asarray(omap.valid, dtype=bool).reshape(-1)
@@ -157,133 +133,12 @@ def _phase_codes(omap, infos: list[_PhaseInfo]) -> np.ndarray:
     return code
 
 
-# ----------------------------------------------------------------------------- map access
-
-
-def _check_map(omap) -> tuple[np.ndarray, int, int, str]:
-    for field in ("quat", "phase", "valid", "grid", "step_x_um", "step_y_um"):
-        if not hasattr(omap, field):
-            raise TypeError(
-                f"Expected `omap` to be an OrientationMap (with {field}), "
-                f"got {type(omap).__name__}."
-            )
-    quat = np.asarray(omap.quat)
-    if quat.ndim != 3 or quat.shape[-1] != 4:
-        raise ValueError(f"Expected `omap.quat` to have shape (H, W, 4), got {quat.shape}.")
-    h, w = quat.shape[:2]
-    for field in ("phase", "valid"):
-        shape = np.shape(getattr(omap, field))
-        if shape != (h, w):
-            raise ValueError(f"Expected `omap.{field}` to have shape {(h, w)}, got {shape}.")
-    check_one_of(omap.grid, "omap.grid", ("square", "hexagonal"))
-    # The kernels run on (4, H, W) planes: a view for an OrientationMap, converted once
-    # only if the caller did not hand over contiguous float32 planes behind the view.
-    quat = np.ascontiguousarray(np.moveaxis(quat, -1, 0), dtype=np.float32)
-    return quat.reshape(4, h * w), h, w, omap.grid
-
-
-def row_pitch_um(omap) -> float:
-    """Distance between neighbouring rows (µm): the step, or step·√3/2 on a hexagonal grid.
-
-    Examples
-    --------
-    >>> from types import SimpleNamespace
-    >>> round(row_pitch_um(SimpleNamespace(grid="hexagonal", step_x_um=2.0, step_y_um=2.0)), 6)
-    1.732051
-    """
-    if omap.grid == "hexagonal":
-        return float(omap.step_x_um * np.sqrt(3.0) / 2.0)
-    return float(omap.step_y_um)
-
-
-def point_xy_um(omap, flat_index) -> tuple[np.ndarray, np.ndarray]:
-    """Positions in S (µm) of points given by flat index ``row·W + col`` (§1).
-
-    Square: (col·step_x, row·step_y); hexagonal: rows step·√3/2 apart, odd rows shifted
-    right by step/2.
-
-    Examples
-    --------
-    >>> from types import SimpleNamespace
-    >>> m = SimpleNamespace(grid="hexagonal", step_x_um=1.0, step_y_um=1.0,
-    ...                     quat=np.zeros((2, 3, 4), np.float32))
-    >>> [v.round(6).tolist() for v in point_xy_um(m, [0, 4])]
-    [[0.0, 1.5], [0.0, 0.866025]]
-    """
-    w = np.shape(omap.quat)[1]
-    k = np.asarray(flat_index, dtype=np.int64)
-    i, j = np.divmod(k, w)
-    x = j * float(omap.step_x_um)
-    if omap.grid == "hexagonal":
-        x = x + 0.5 * float(omap.step_x_um) * (i % 2)
-    return x, i * row_pitch_um(omap)
-
-
-def neighbour_shifts(grid: str, w: int) -> tuple[tuple[int, int], ...]:
-    """Forward neighbour pairs as ``(flat shift, row parity)``; parity -1 = every row.
-
-    Square: (0, +1) and (+1, 0). Hexagonal with odd rows shifted right (§1): (0, +1),
-    (+1, 0) on every row, (+1, -1) from even rows and (+1, +1) from odd rows.
-
-    Examples
-    --------
-    >>> neighbour_shifts("hexagonal", 10)
-    ((1, -1), (10, -1), (9, 0), (11, 1))
-    """
-    if grid == "square":
-        return ((1, -1), (w, -1))
-    return ((1, -1), (w, -1), (w - 1, 0), (w + 1, 1))
-
-
-def _pair_mask(k: np.ndarray, shift: int, parity: int, h: int, w: int) -> np.ndarray:
-    """Which flat indices ``k`` have an in-map forward neighbour ``k + shift``."""
-    i, j = np.divmod(k, w)
-    ok = i < h - 1 if shift != 1 else j < w - 1
-    if shift == w - 1 and parity == 0:
-        ok &= (j > 0) & (i % 2 == 0)
-    elif shift == w + 1 and parity == 1:
-        ok &= (j < w - 1) & (i % 2 == 1)
-    return ok
-
-
 # ----------------------------------------------------------------------------- kernels
 
 
-def _gather_rows(q: np.ndarray, index: np.ndarray) -> np.ndarray:
-    """Columns ``index`` of the (4, N) planes as a (4, n) array, one ``take`` per row."""
-    out = np.empty((4, len(index)), q.dtype)
-    for c in range(4):
-        q[c].take(index, out=out[c])
-    return out
-
-
-def _misorientation_rows(qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
-    """Crystal-frame misorientations ``qb ⊗ qa⁻¹`` of pairs given as (4, n) rows.
-
-    Returned as an (n, 4) view of contiguous (4, n) rows, the layout the symmetry
-    kernel copies its blocks from; the dtype of the rows is kept.
-    """
-    a0, a1, a2, a3 = qa
-    b0, b1, b2, b3 = qb
-    out = np.empty((4, qa.shape[1]), dtype=np.result_type(qa, qb))
-    out[0] = b0 * a0 + b1 * a1 + b2 * a2 + b3 * a3
-    out[1] = b1 * a0 - b0 * a1 - b2 * a3 + b3 * a2
-    out[2] = b2 * a0 - b0 * a2 + b1 * a3 - b3 * a1
-    out[3] = b3 * a0 - b0 * a3 - b1 * a2 + b2 * a1
-    return out.T
-
-
-def _disorientation_cos_half(qa: np.ndarray, qb: np.ndarray, info: _PhaseInfo) -> np.ndarray:
-    """cos(ω/2) of the disorientation ω of pairs given as (4, n) rows.
-
-    The misorientation ``qb ⊗ qa⁻¹`` goes to :func:`inclination.crystal.symmetry.max_scalar_part`.
-    """
-    dq = _misorientation_rows(qa, qb)
-    return symmetry.max_scalar_part(dq, info.laue, setting=info.setting)
-
-
-def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, progress):
+def _link_kernel(planes: MapPlanes, code, usable, infos, *, cos_half, shift, parity, out, progress):
     """Fill ``out[k]`` (bool, N) with the link between k and its neighbour k + shift."""
+    q, h, w = planes.quat, planes.height, planes.width
     n_points = q.shape[1]
     stop_all = max(n_points - shift, 0)
     out[stop_all:] = False
@@ -321,8 +176,8 @@ def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, pro
                 sel = rest if len(infos) == 1 else rest[phases_here == info.code]
                 if sel.size == 0:
                     continue
-                m = _disorientation_cos_half(
-                    _gather_rows(q, s + sel), _gather_rows(q, s + shift + sel), info
+                m = disorientation_cos_half(
+                    take_columns(q, s + sel), take_columns(q, s + shift + sel), info
                 )
                 lk[sel] = m > cos_half
         if progress is not None:
@@ -342,7 +197,15 @@ def _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, pro
 # ----------------------------------------------------------------------------- runs
 
 
-def _runs(ok: np.ndarray, h_link: np.ndarray):
+@dataclass(frozen=True)
+class _RowRuns:
+    """Where the row runs lie: index 0 is a dummy run of no points (run ids index these)."""
+
+    pos: np.ndarray  # (R + 1,) int64, flat index of each run's first point
+    length: np.ndarray  # (R + 1,) int64, points in each run
+
+
+def _runs(ok: np.ndarray, h_link: np.ndarray) -> tuple[np.ndarray, _RowRuns]:
     """Row runs: run id per point (int32, 1..R; 0 where not usable), start and length.
 
     Built block by block so that no full-size temporary is made besides the run ids.
@@ -369,7 +232,7 @@ def _runs(ok: np.ndarray, h_link: np.ndarray):
     # Index 0 is a dummy run of no points, so that run ids index these arrays directly.
     run_pos = np.concatenate(starts)
     run_end = np.concatenate(ends)
-    return run_id, run_pos, (run_end - run_pos + 1).astype(np.int64), n
+    return run_id, _RowRuns(run_pos, (run_end - run_pos + 1).astype(np.int64))
 
 
 def _run_edges(run_id, h_link, v_link, shift):
@@ -406,12 +269,13 @@ def _components(n_runs: int, edges_a: list, edges_b: list) -> np.ndarray:
 # ----------------------------------------------------------------------------- clean-up
 
 
-def _run_neighbours(run_pos, run_len, runs, run_id, grid, h, w):
+def _run_neighbours(rows: _RowRuns, runs, run_id, planes: MapPlanes):
     """(run, neighbouring run id) for every point of ``runs`` and each of its neighbours."""
-    lens = run_len[runs]
+    grid, h, w = planes.grid, planes.height, planes.width
+    lens = rows.length[runs]
     owner = np.repeat(runs, lens)
     offs = np.arange(owner.size) - np.repeat(np.cumsum(lens) - lens, lens)
-    k = run_pos[owner] + offs
+    k = rows.pos[owner] + offs
     i, j = np.divmod(k, w)
     if grid == "square":
         steps = ((0, -1), (0, 1), (-1, 0), (1, 0))
@@ -431,8 +295,11 @@ def _run_neighbours(run_pos, run_len, runs, run_id, grid, h, w):
     return np.concatenate(own), np.concatenate(other)
 
 
-def _dissolve_small(run_grain, run_pos, run_len, run_id, grain_code, min_pixels, mode, grid, h, w):
+def _dissolve_small(
+    run_grain, rows: _RowRuns, run_id, planes: MapPlanes, *, grain_code, min_pixels, mode
+):
     """Reassign the runs of grains under ``min_pixels``; returns new run_grain and counts."""
+    run_len = rows.length
     run_grain = run_grain.copy()
     n_grains = grain_code.size - 1
     area = np.bincount(run_grain, weights=run_len, minlength=n_grains + 1).astype(np.int64)
@@ -445,7 +312,7 @@ def _dissolve_small(run_grain, run_pos, run_len, run_id, grain_code, min_pixels,
             runs = np.flatnonzero(small[run_grain] & (run_grain > 0))
             if runs.size == 0:
                 break
-            own, other_run = _run_neighbours(run_pos, run_len, runs, run_id, grid, h, w)
+            own, other_run = _run_neighbours(rows, runs, run_id, planes)
             g_own = run_grain[own]
             g_other = run_grain[other_run]
             ok = (
@@ -467,12 +334,8 @@ def _dissolve_small(run_grain, run_pos, run_len, run_id, grain_code, min_pixels,
             target[ga[first]] = gb[first]
             moving = small[run_grain] & (target[run_grain] != run_grain)
             merged += int(run_len[moving].sum())
-            area_moved = np.bincount(
-                target[run_grain[moving]], weights=run_len[moving], minlength=n_grains + 1
-            )
             run_grain[moving] = target[run_grain[moving]]
             small[ga[first]] = False
-            del area_moved
     left = small[run_grain] & (run_grain > 0)
     unindexed = int(run_len[left].sum())
     run_grain[left] = 0
@@ -525,7 +388,27 @@ def _block_layout(s, e, pos, length, grain):
     return counts, vals, starts
 
 
-def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains, progress):
+@dataclass(frozen=True)
+class _GrainRuns:
+    """Runs, each with the grain it counts for (statistics or area)."""
+
+    pos: np.ndarray  # (n,) int64, flat index of the run's first point, raster order
+    length: np.ndarray  # (n,) int64
+    grain: np.ndarray  # (n,) int64, grain id 1..G (0 = none)
+
+
+@dataclass(frozen=True)
+class _GrainPhases:
+    """Phase of each grain and the proper rotations of each phase."""
+
+    code: np.ndarray  # (G + 1,) uint8 phase code of each grain id (links.PhaseInfo.code)
+    infos: tuple[PhaseInfo, ...]
+    ops: dict  # phase code -> (K, 4) proper rotations
+
+
+def _grain_orientations(
+    planes: MapPlanes, own: _GrainRuns, grain_info: _GrainPhases, *, n_grains, progress
+):
     """Mean orientation and spread of each grain over the points of its own runs.
 
     The mean is the normalised sum of each point's symmetric equivalent nearest the
@@ -535,6 +418,8 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     pass runs in float32 (sums in float64); the spread pass in float64, since
     2·arccos of a float32 cosine resolves small angles only to ~0.002°.
     """
+    q, w = planes.quat, planes.width
+    own_pos, own_len, own_grain = own.pos, own.length, own.grain
     n_points = q.shape[1]
     m = n_grains + 1
     first_run = np.full(m, -1, np.int64)
@@ -542,7 +427,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     ref = np.zeros((4, m), np.float32)
     has = first_run >= 0
     has[0] = False
-    ref[:, has] = _gather_rows(q, own_pos[first_run[has]])
+    ref[:, has] = take_columns(q, own_pos[first_run[has]])
     cos_safe = np.cos(_IDENTITY_SAFE_RAD / 2)
     blocks = []
     for s, e in _row_blocks(n_points, w):
@@ -569,7 +454,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         if far.size:
             g = np.repeat(vals, counts)[far]
             qn[:, far] = _nearest_equivalents(
-                _gather_rows(q, s + far), ref[:, g].T, g, grain_info
+                take_columns(q, s + far), ref[:, g].T, g, grain_info
             ).T
         run_sums[:, lo:hi] = np.add.reduceat(qn, starts, axis=1, dtype=np.float64)
         if progress is not None:
@@ -606,7 +491,7 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
         angle *= np.float32(4.0)
         if far.size:
             g = np.repeat(vals, counts)[far]
-            cos_half = _max_scalar_to(_gather_rows(q, s + far), mean[g], g, grain_info)
+            cos_half = _max_scalar_to(take_columns(q, s + far), mean[g], g, grain_info)
             angle[far] = 2.0 * np.arccos(np.minimum(cos_half, 1.0))
         angle *= inside
         run_angle_sum[lo:hi] = np.add.reduceat(angle, starts, dtype=np.float64)
@@ -619,10 +504,10 @@ def _grain_orientations(q, w, own_pos, own_len, own_grain, grain_info, n_grains,
     return mean, spread_sum, spread_max
 
 
-def _by_phase(g, grain_info):
+def _by_phase(g, grain_info: _GrainPhases) -> Iterator[tuple[PhaseInfo, np.ndarray]]:
     """(info, selection) for each phase among the grains ``g``."""
-    codes = grain_info["code"][g]
-    for info in grain_info["infos"]:
+    codes = grain_info.code[g]
+    for info in grain_info.infos:
         sel = np.flatnonzero(codes == info.code)
         if sel.size:
             yield info, sel
@@ -632,7 +517,7 @@ def _nearest_equivalents(qs, refs, g, grain_info):
     """Equivalents ``s ⊗ q`` nearest each point's reference, as (n, 4), signed toward it."""
     out = np.empty((qs.shape[1], 4))
     for info, sel in _by_phase(g, grain_info):
-        ops = grain_info["ops"][info.code]
+        ops = grain_info.ops[info.code]
         q = qs[:, sel].T
         cand = quat_multiply(ops[None, :, :], q[:, None, :])  # (n, K, 4)
         dots = np.einsum("nkc,nc->nk", cand, refs[sel])
@@ -647,7 +532,7 @@ def _max_scalar_to(qs, means, g, grain_info):
     """cos(ω/2) of the disorientation between points (4, n) and their grain means (n, 4)."""
     out = np.empty(qs.shape[1])
     for info, sel in _by_phase(g, grain_info):
-        out[sel] = _disorientation_cos_half(means[sel].T, qs[:, sel], info)
+        out[sel] = disorientation_cos_half(means[sel].T, qs[:, sel], info)
     return out
 
 
@@ -676,8 +561,8 @@ def _check_threshold(threshold_deg, infos):
 
 
 def segment_grains(
-    omap,
-    phases,
+    omap: OrientationMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
     *,
     threshold_deg: float = 5.0,
     min_pixels: int = 8,
@@ -690,7 +575,7 @@ def segment_grains(
     Parameters
     ----------
     omap : OrientationMap
-        ``quat`` float32 (4, H, W) unit quaternions in S; ``phase`` int (H, W), 0 = not
+        ``quat`` float32 (H, W, 4) unit quaternions in S; ``phase`` int (H, W), 0 = not
         indexed; ``valid`` bool (H, W); ``grid`` 'square' or 'hexagonal'; ``step_x_um``,
         ``step_y_um``.
     phases : sequence or mapping of Phase
@@ -721,11 +606,13 @@ def segment_grains(
     Raises
     ------
     SettingError
-        If ``threshold_deg`` is <= 0 or >= the largest disorientation of a phase.
+        If ``threshold_deg`` is <= 0 or >= the largest disorientation of a phase,
+        ``min_pixels`` < 1, ``small_grains`` not one of its options, or ``phases``
+        empty or with repeated ids.
     InputError
         If the map has no valid point, or a valid point has an undeclared phase id.
-    ValueError, TypeError
-        For options out of range or of the wrong type.
+    TypeError
+        For options of the wrong type.
 
     Examples
     --------
@@ -744,13 +631,14 @@ def segment_grains(
     >>> gm.labels.tolist(), gm.grains["area_um2"].tolist()
     ([[1, 1, 2, 2], [1, 1, 2, 2]], [1.0, 1.0])
     """
-    q, h, w, grid = _check_map(omap)
-    infos = _phase_infos(phases)
+    planes = map_planes(omap)
+    h, w, grid = planes.height, planes.width, planes.grid
+    infos = phase_infos(phases)
     threshold = _check_threshold(threshold_deg, infos)
     if isinstance(min_pixels, bool) or not isinstance(min_pixels, int | np.integer):
         raise TypeError(f"Expected `min_pixels` to be an integer, got {min_pixels!r}.")
     if min_pixels < 1:
-        raise ValueError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
+        raise SettingError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
     check_one_of(small_grains, "small_grains", SMALL_GRAIN_MODES)
     if progress is not None and not callable(progress):
         raise TypeError(f"Expected `progress` to be callable, got {type(progress).__name__}.")
@@ -770,11 +658,21 @@ def segment_grains(
             def prog(f, m=m):
                 progress(0.6 * (m + f) / len(shifts))
 
-        _link_kernel(q, code, usable, infos, cos_half, shift, parity, h, w, out, prog)
+        _link_kernel(
+            planes,
+            code,
+            usable,
+            infos,
+            cos_half=cos_half,
+            shift=shift,
+            parity=parity,
+            out=out,
+            progress=prog,
+        )
         links.append(out)
     h_link = links[0]
-    run_id, run_pos, run_len, _ = _runs(usable, h_link)
-    n_runs = run_pos.size - 1
+    run_id, rows = _runs(usable, h_link)
+    n_runs = rows.pos.size - 1
     ea, eb = [], []
     for (shift, _parity), link in zip(shifts[1:], links[1:], strict=True):
         a, b = _run_edges(run_id, h_link, link, shift)
@@ -792,21 +690,18 @@ def segment_grains(
     run_grain[1:] = grain_of_comp[run_comp]
     n_grains = int(uniq.size)
     grain_code = np.zeros(n_grains + 1, np.uint8)
-    grain_code[run_grain[1:]] = code[run_pos[1:]]
+    grain_code[run_grain[1:]] = code[rows.pos[1:]]
 
     dissolved = merged = unindexed = 0
     if min_pixels > 1:
         run_grain, dissolved, merged, unindexed = _dissolve_small(
             run_grain,
-            run_pos,
-            run_len,
+            rows,
             run_id,
-            grain_code,
-            min_pixels,
-            small_grains,
-            grid,
-            h,
-            w,
+            planes,
+            grain_code=grain_code,
+            min_pixels=min_pixels,
+            mode=small_grains,
         )
     # Which runs keep their statistics: those whose grain is still their own.
     own = np.zeros(n_runs + 1, bool)
@@ -838,21 +733,14 @@ def segment_grains(
 
     table = _grain_table(
         omap,
-        q,
-        run_pos[own],
-        run_len[own],
-        run_grain[own],
-        run_pos,
-        run_len,
-        run_grain,
-        grain_code,
-        infos,
-        n_grains,
-        filled_k,
-        filled_g,
-        h,
-        w,
-        progress,
+        planes,
+        own=_GrainRuns(rows.pos[own], rows.length[own], run_grain[own]),
+        every=_GrainRuns(rows.pos, rows.length, run_grain),
+        filled=(filled_k, filled_g),
+        grain_code=grain_code,
+        infos=infos,
+        n_grains=n_grains,
+        progress=progress,
     )
     cleanup = {
         "grains_dissolved": dissolved,
@@ -873,29 +761,31 @@ def segment_grains(
 
 def _grain_table(
     omap,
-    q,
-    own_pos,
-    own_len,
-    own_grain,
-    run_pos,
-    run_len,
-    run_grain,
-    grain_code,
-    infos,
-    n_grains,
-    filled_k,
-    filled_g,
-    h,
-    w,
-    progress,
-):
+    planes: MapPlanes,
+    *,
+    own: _GrainRuns,
+    every: _GrainRuns,
+    filled: tuple[np.ndarray, np.ndarray],
+    grain_code: np.ndarray,
+    infos: tuple[PhaseInfo, ...],
+    n_grains: int,
+    progress: Callable[[float], None] | None,
+) -> dict:
+    """The grain table (:data:`GRAIN_COLUMNS`).
+
+    Area and centroid count every run of a grain (``every``) and the filled points
+    ``filled`` = (flat index, grain); orientation statistics only its ``own`` runs.
+    """
+    h, w = planes.height, planes.width
+    run_pos, run_len, run_grain = every.pos, every.length, every.grain
+    filled_k, filled_g = filled
     gidx = np.arange(1, n_grains + 1)
     m = n_grains + 1
     area = np.bincount(run_grain, weights=run_len, minlength=m)
     area += np.bincount(filled_g, minlength=m)
     i, j0 = np.divmod(run_pos, w)
     step_x = float(omap.step_x_um)
-    pitch = row_pitch_um(omap)
+    pitch = float(omap.row_pitch_um)
     # Sum of x over a run starting at column j0: len·j0 + len·(len-1)/2 steps.
     sx = run_len * j0 + 0.5 * run_len * (run_len - 1)
     sum_x = np.bincount(run_grain, weights=sx, minlength=m) * step_x
@@ -910,18 +800,14 @@ def _grain_table(
     touches = np.bincount(run_grain, weights=edge, minlength=m) > 0
     # The proper rotations of each phase, built once per call (not cached across calls).
     ops = {p.code: symmetry.proper_rotations(p.laue, setting=p.setting) for p in infos}
-    grain_info = {"code": grain_code, "infos": infos, "ops": ops}
     mean, spread_sum, spread_max = _grain_orientations(
-        q,
-        w,
-        own_pos,
-        own_len,
-        own_grain,
-        grain_info,
-        n_grains,
-        None if progress is None else (lambda f: progress(0.8 + 0.2 * f)),
+        planes,
+        own,
+        _GrainPhases(grain_code, infos, ops),
+        n_grains=n_grains,
+        progress=None if progress is None else (lambda f: progress(0.8 + 0.2 * f)),
     )
-    n_own = np.bincount(own_grain, weights=own_len, minlength=m)
+    n_own = np.bincount(own.grain, weights=own.length, minlength=m)
     with np.errstate(invalid="ignore", divide="ignore"):
         spread_mean = np.where(n_own > 0, spread_sum / np.maximum(n_own, 1), np.nan)
     spread_max = np.where(n_own > 0, spread_max, np.nan)

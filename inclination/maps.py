@@ -640,7 +640,6 @@ def read_map(
             phase_ids,
             job_path,
             pointer,
-            settings,
             progress,
         )
     else:
@@ -818,7 +817,6 @@ def _read_table_map(
     phase_ids,
     job_path,
     pointer,
-    settings,
     progress=None,
 ):
     delimiter = spec.get("delimiter", TABLE_DELIMITERS[fmt])

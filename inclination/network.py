@@ -17,21 +17,29 @@ and the order along each chain comes from pointer jumping (list ranking in
 
 from __future__ import annotations
 
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .errors import SettingError
-from .grains import (
+from .errors import InputError, SettingError
+from .links import (
     BLOCK,
-    _check_map,
-    _disorientation_cos_half,
-    _gather_rows,
-    _pair_mask,
-    _phase_infos,
+    MapPlanes,
+    PhaseInfo,
+    disorientation_cos_half,
+    forward_pair_mask,
+    map_planes,
     neighbour_shifts,
-    row_pitch_um,
+    phase_infos,
+    take_columns,
 )
+
+if TYPE_CHECKING:
+    from .crystal.lattice import Phase
+    from .grains import GrainMap
+    from .maps import OrientationMap
 
 __all__ = ["BoundaryNetwork", "CHAIN_COLUMNS", "boundary_network"]
 
@@ -96,6 +104,32 @@ class BoundaryNetwork:
         return int(self.offsets.size - 1)
 
 
+@dataclass(frozen=True)
+class _LabelledMap:
+    """The map's planes with its grain labels; per-grain arrays are indexed by grain id."""
+
+    planes: MapPlanes
+    labels: np.ndarray  # (H, W) grain ids, 0 = no grain
+    grain_code: np.ndarray  # (G + 1,) phase code of each grain (links.PhaseInfo.code)
+    grain_phase: np.ndarray  # (G + 1,) phase id of each grain
+    infos: tuple[PhaseInfo, ...]
+    valid: np.ndarray  # (N,) bool
+
+    @property
+    def labels_flat(self) -> np.ndarray:
+        return self.labels.reshape(-1)
+
+
+@dataclass(frozen=True)
+class _Chains:
+    """Chain of each node, its position along it, and per chain its length and closure."""
+
+    chain: np.ndarray
+    position: np.ndarray
+    length: np.ndarray
+    closed: np.ndarray
+
+
 # ----------------------------------------------------------------------------- geometry
 
 
@@ -125,7 +159,7 @@ def _square_vertices(shift, i, j, w):
 def _edge_midpoints_um(omap, i, j, shift, w):
     """Midpoints (x, y) in S (µm) of the pairs (i, j)–(i, j) + shift (§1), without divmod."""
     step_x = float(omap.step_x_um)
-    pitch = row_pitch_um(omap)
+    pitch = float(omap.row_pitch_um)
     down = shift != 1
     dj = (
         np.where(shift == 1, 1, 0)
@@ -159,6 +193,18 @@ def _hex_vertices(shift, i, j, w):
     ll_tail = _hex_vid(1, i, j, w)
     ll_head = _hex_vid(0, i + 1, j - 1 + odd, w)
     return np.where(lower_right, lr_tail, ll_tail), np.where(lower_right, lr_head, ll_head)
+
+
+def _dual_segments(grid, shift, i, j, w):
+    """Base (tail, head) vertex ids of the dual segments of pairs (i, j)–(i, j) + shift."""
+    if grid == "square":
+        return _square_vertices(shift, i, j, w)
+    tail = np.empty(i.size, np.int64)
+    head = np.empty(i.size, np.int64)
+    for sh in np.unique(shift):
+        sel = shift == sh
+        tail[sel], head[sel] = _hex_vertices(int(sh), i[sel], j[sel], w)
+    return tail, head
 
 
 def _vertex_cells(grid, vid, w):
@@ -210,7 +256,7 @@ def _grain_edges(labels_flat, shifts, h, w):
             la = labels_flat[s:e]
             lb = labels_flat[s + shift : e + shift]
             k = np.flatnonzero((la != lb) & (la > 0) & (lb > 0)) + s
-            k = k[_pair_mask(k, shift, parity, h, w)]
+            k = k[forward_pair_mask(k, shift, parity, (h, w))]
             ks.append(k)
             ss.append(np.full(k.size, shift, np.int64))
     if not ks:
@@ -218,8 +264,10 @@ def _grain_edges(labels_flat, shifts, h, w):
     return np.concatenate(ks), np.concatenate(ss)
 
 
-def _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low_deg, high_deg):
+def _low_angle_edges(lm: _LabelledMap, shifts, *, low_deg, high_deg):
     """Edges inside one grain whose disorientation is in [low_deg, high_deg)."""
+    q, labels_flat, grain_code, infos = lm.planes.quat, lm.labels_flat, lm.grain_code, lm.infos
+    h, w = lm.labels.shape
     cos_low = np.float32(np.cos(np.deg2rad(low_deg) / 2))
     ks, ss, cs = [], [], []
     n = labels_flat.size
@@ -232,7 +280,7 @@ def _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low_deg, h
             d = np.abs(np.einsum("cn,cn->n", q[:, s:e], q[:, s + shift : e + shift]))
             # Pairs within low_deg without symmetry are within it with symmetry too.
             k = np.flatnonzero((la == lb) & (la > 0) & (d <= cos_low)) + s
-            k = k[_pair_mask(k, shift, parity, h, w)]
+            k = k[forward_pair_mask(k, shift, parity, (h, w))]
             if k.size == 0:
                 continue
             m = _pair_cos_half(q, k, k + shift, grain_code[labels_flat[k]], infos)
@@ -254,16 +302,16 @@ def _pair_cos_half(q, a, b, codes, infos):
         out = np.empty(a.size, q.dtype)
         for s in range(0, a.size, BLOCK):
             e = min(s + BLOCK, a.size)
-            out[s:e] = _disorientation_cos_half(
-                _gather_rows(q, a[s:e]), _gather_rows(q, b[s:e]), infos[0]
+            out[s:e] = disorientation_cos_half(
+                take_columns(q, a[s:e]), take_columns(q, b[s:e]), infos[0]
             )
         return out
     out = np.full(a.size, np.nan, np.float32)
     for info in infos:
         sel = np.flatnonzero(codes == info.code)
         if sel.size:
-            out[sel] = _disorientation_cos_half(
-                _gather_rows(q, a[sel]), _gather_rows(q, b[sel]), info
+            out[sel] = disorientation_cos_half(
+                take_columns(q, a[sel]), take_columns(q, b[sel]), info
             )
     return out
 
@@ -291,7 +339,7 @@ def _jump(nxt: np.ndarray):
     return ptr, dist, active
 
 
-def _order_chains(nxt: np.ndarray):
+def _order_chains(nxt: np.ndarray) -> _Chains:
     """Chain id, position along the chain, chain lengths and closed flags of a successor list.
 
     ``nxt[e]`` is the successor of node e or -1; every node has at most one
@@ -321,11 +369,12 @@ def _order_chains(nxt: np.ndarray):
     position = length[chain] - 1 - dist
     closed = np.zeros(length.size, bool)
     closed[chain[looping]] = True
-    return chain, position, length, closed
+    return _Chains(chain, position, length, closed)
 
 
-def _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, mid, angle):
+def _assemble(edge_a, edge_b, chains: _Chains, *, labels_flat, mid, angle):
     """Gather per-edge arrays into the ragged chains, ordered by grain pair then raster."""
+    chain, position, length, closed = chains.chain, chains.position, chains.length, chains.closed
     n_comp = length.size
     ga_e = labels_flat[edge_a]
     gb_e = labels_flat[edge_b]
@@ -408,7 +457,13 @@ def _finish(parts, grain_phase, kind, low_angle=None):
 # ----------------------------------------------------------------------------- public
 
 
-def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> BoundaryNetwork:
+def boundary_network(
+    omap: OrientationMap,
+    grain_map: GrainMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
+    *,
+    low_angle_deg: float | None = None,
+) -> BoundaryNetwork:
     """Chains of boundary-edge midpoints between grains, broken at junctions (§1–§2).
 
     Parameters
@@ -433,7 +488,7 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
 
     Raises
     ------
-    ValueError
+    InputError
         If the label image does not fit the map.
     SettingError
         If ``low_angle_deg`` is not in (0, threshold_deg).
@@ -454,11 +509,12 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
     >>> net.misorientation_deg.round(3).tolist()
     [45.0]
     """
-    q, h, w, grid = _check_map(omap)
-    infos = _phase_infos(phases)
+    planes = map_planes(omap)
+    h, w, grid = planes.height, planes.width, planes.grid
+    infos = phase_infos(phases)
     labels = np.asarray(grain_map.labels)
     if labels.shape != (h, w):
-        raise ValueError(
+        raise InputError(
             f"Expected `grain_map.labels` to have the map's shape {(h, w)}, got {labels.shape}."
         )
     threshold = float(grain_map.threshold_deg)
@@ -476,22 +532,11 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
     grain_code = np.array([0] + [code_of_id.get(int(p), 0) for p in phase_of], np.int64)
     valid = np.asarray(omap.valid, dtype=bool).reshape(-1)
     shifts = neighbour_shifts(grid, w)
+    lm = _LabelledMap(planes, labels, grain_code, grain_phase, infos, valid)
 
     low_net = None
     if low_angle_deg is not None:
-        low_net = _low_angle_network(
-            omap,
-            q,
-            labels,
-            labels_flat,
-            grain_code,
-            grain_phase,
-            infos,
-            shifts,
-            low,
-            threshold,
-            valid,
-        )
+        low_net = _low_angle_network(omap, lm, shifts, low_deg=low, high_deg=threshold)
 
     k, shift = _grain_edges(labels_flat, shifts, h, w)
     if k.size == 0:
@@ -501,14 +546,7 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
     la, lb = labels_flat[a], labels_flat[b]
     flip = la > lb
     i, j = np.divmod(a, w)
-    if grid == "square":
-        tail, head = _square_vertices(shift, i, j, w)
-    else:
-        tail = np.empty(a.size, np.int64)
-        head = np.empty(a.size, np.int64)
-        for sh in np.unique(shift):
-            sel = shift == sh
-            tail[sel], head[sel] = _hex_vertices(int(sh), i[sel], j[sel], w)
+    tail, head = _dual_segments(grid, shift, i, j, w)
     tail, head = np.where(flip, head, tail), np.where(flip, tail, head)
     # The lower grain first in each pair.
     edge_a, edge_b = np.where(flip, b, a), np.where(flip, a, b)
@@ -523,10 +561,11 @@ def boundary_network(omap, grain_map, phases, *, low_angle_deg=None) -> Boundary
     found = tail_sorted[pos] == head[idx]
     nxt[idx[found]] = order[pos[found]]
 
-    chain, position, length, closed = _order_chains(nxt)
-    angle = _edge_angles(q, edge_a, edge_b, labels_flat, grain_code, grain_phase, infos, valid)
+    angle = _edge_angles(lm, edge_a, edge_b)
     mid = _edge_midpoints_um(omap, i, j, shift, w)
-    parts = _assemble(edge_a, edge_b, chain, position, length, closed, labels_flat, mid, angle)
+    parts = _assemble(
+        edge_a, edge_b, _order_chains(nxt), labels_flat=labels_flat, mid=mid, angle=angle
+    )
     return _finish(parts, grain_phase, "grain", low_net)
 
 
@@ -536,8 +575,15 @@ def _with_low(net, low_net):
     return BoundaryNetwork(**fields)
 
 
-def _edge_angles(q, a, b, labels_flat, grain_code, grain_phase, infos, valid):
+def _edge_angles(lm: _LabelledMap, a, b):
     """Disorientation (degrees) of each edge's point pair; NaN across phases or no data."""
+    q, labels_flat, grain_code, grain_phase = (
+        lm.planes.quat,
+        lm.labels_flat,
+        lm.grain_code,
+        lm.grain_phase,
+    )
+    infos, valid = lm.infos, lm.valid
     ga, gb = labels_flat[a], labels_flat[b]
     same = (grain_phase[ga] == grain_phase[gb]) & valid[a] & valid[b]
     if same.all():
@@ -551,30 +597,24 @@ def _edge_angles(q, a, b, labels_flat, grain_code, grain_phase, infos, valid):
     return angle
 
 
-def _low_angle_network(
-    omap, q, labels, labels_flat, grain_code, grain_phase, infos, shifts, low, high, valid
-):
-    h, w = labels.shape
-    k, shift, angle = _low_angle_edges(q, labels_flat, grain_code, infos, shifts, h, w, low, high)
+def _low_angle_network(omap, lm: _LabelledMap, shifts, *, low_deg, high_deg):
+    """The sub-grain boundaries: chains of edges inside one grain, [low_deg, high_deg)."""
+    labels, labels_flat, valid = lm.labels, lm.labels_flat, lm.valid
+    w = labels.shape[1]
+    k, shift, angle = _low_angle_edges(lm, shifts, low_deg=low_deg, high_deg=high_deg)
     keep = valid[k] & valid[k + shift]
     k, shift, angle = k[keep], shift[keep], angle[keep]
     if k.size == 0:
         return _empty_network("low_angle")
     a, b = k, k + shift
     i, j = np.divmod(a, w)
-    if omap.grid == "square":
-        tail, head = _square_vertices(shift, i, j, w)
-    else:
-        tail = np.empty(a.size, np.int64)
-        head = np.empty(a.size, np.int64)
-        for sh in np.unique(shift):
-            sel = shift == sh
-            tail[sel], head[sel] = _hex_vertices(int(sh), i[sel], j[sel], w)
+    tail, head = _dual_segments(omap.grid, shift, i, j, w)
     nxt_state = _undirected_successors(omap.grid, labels, tail, head, w)
-    chain, position, length, closed = _pick_direction(nxt_state, a.size)
     mid = _edge_midpoints_um(omap, i, j, shift, w)
-    parts = _assemble(a, b, chain, position, length, closed, labels_flat, mid, angle)
-    return _finish(parts, grain_phase, "low_angle")
+    parts = _assemble(
+        a, b, _pick_direction(nxt_state, a.size), labels_flat=labels_flat, mid=mid, angle=angle
+    )
+    return _finish(parts, lm.grain_phase, "low_angle")
 
 
 def _undirected_successors(grid, labels, tail, head, w):
@@ -612,9 +652,10 @@ def _undirected_successors(grid, labels, tail, head, w):
     return nxt
 
 
-def _pick_direction(nxt_state, n):
+def _pick_direction(nxt_state, n) -> _Chains:
     """Chains of segments from the two-way state lists: keep one direction per chain."""
-    chain_s, pos_s, len_s, closed_s = _order_chains(nxt_state)
+    both = _order_chains(nxt_state)
+    chain_s, pos_s, len_s, closed_s = both.chain, both.position, both.length, both.closed
     n_chains = len_s.size
     first_state = np.zeros(n_chains, np.int64)
     starts = np.flatnonzero(pos_s == 0)
@@ -628,4 +669,4 @@ def _pick_direction(nxt_state, n):
     kept = np.unique(chain_s[state])
     renum = np.full(n_chains, -1, np.int64)
     renum[kept] = np.arange(kept.size)
-    return renum[chain_s[state]], pos_s[state], len_s[kept], closed_s[kept]
+    return _Chains(renum[chain_s[state]], pos_s[state], len_s[kept], closed_s[kept])

@@ -493,7 +493,7 @@ def analyse(
     1
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     out = Path(out_dir)
@@ -542,7 +542,7 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     out = Path(out_dir)
     messages = []
@@ -721,7 +721,7 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
     the job's ``stereology`` block may be absent (its defaults are then used).
     """
     from .io.job import load_job
-    from .report._io import staged_output_dir
+    from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
     if "stereology" not in job.raw:

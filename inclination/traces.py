@@ -12,7 +12,7 @@ A boundary drawn on a grid of step ``s`` is a staircase: its edge midpoints sit
 off the true line by a deterministic, grid-locked amount. Treating those
 offsets as uniform noise of variance s²/12 on ``n ≈ L/s`` points spread over a
 length ``L`` gives the TLS slope variance ``12·(s²/12)/(n·L²)``, that is the
-quantisation term quoted in issue 4,
+quantisation term
 
     σ_q = c · (s / L)^1.5   rad.
 
@@ -50,9 +50,12 @@ The reported standard uncertainty is ``σ = sqrt(σ_grid² + σ_r²)``, in degre
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
+from numpy.typing import ArrayLike
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
@@ -63,6 +66,10 @@ from ._validation import (
     check_one_of,
     check_positive,
 )
+from .errors import InputError
+
+if TYPE_CHECKING:
+    from .network import BoundaryNetwork
 
 __all__ = [
     "GRIDS",
@@ -174,13 +181,13 @@ def _wrap_angle_deg(angle_deg: np.ndarray) -> np.ndarray:
 def _check_points(points, name: str) -> np.ndarray:
     pts = as_float_array(points, name)
     if pts.ndim != 2:
-        raise ValueError(f"Expected `{name}` to have shape (N, 2), got {pts.shape}.")
+        raise InputError(f"Expected `{name}` to have shape (N, 2), got {pts.shape}.")
     check_last_axis(pts, name, 2)
     check_finite(pts, name)
     return pts
 
 
-def fit_line_tls(points) -> LineFit:
+def fit_line_tls(points: ArrayLike) -> LineFit:
     """Fit a straight line by total least squares (orthogonal regression).
 
     Parameters
@@ -196,7 +203,7 @@ def fit_line_tls(points) -> LineFit:
 
     Raises
     ------
-    ValueError
+    InputError
         If ``points`` is not (N, 2) with N >= 2, holds a non-finite value, or all
         points coincide (no direction).
 
@@ -210,13 +217,13 @@ def fit_line_tls(points) -> LineFit:
     """
     pts = _check_points(points, "points")
     if pts.shape[0] < 2:
-        raise ValueError(f"Expected `points` to hold at least 2 points, got {pts.shape[0]}.")
+        raise InputError(f"Expected `points` to hold at least 2 points, got {pts.shape[0]}.")
     centre = pts.mean(axis=0)
     d = pts - centre
     sxx, syy, sxy = (d[:, 0] ** 2).sum(), (d[:, 1] ** 2).sum(), (d[:, 0] * d[:, 1]).sum()
     theta, lam_min, lam_max = _principal_axis(sxx, syy, sxy)
     if not lam_max > 0:
-        raise ValueError("Expected `points` to hold at least 2 distinct points, got all equal.")
+        raise InputError("Expected `points` to hold at least 2 distinct points, got all equal.")
     angle_deg = float(_wrap_angle_deg(np.degrees(theta)))
     direction = np.array([np.cos(np.radians(angle_deg)), np.sin(np.radians(angle_deg))])
     t = d @ direction
@@ -242,7 +249,15 @@ def _principal_axis(sxx, syy, sxy):
     return theta, np.maximum(half_trace - radius, 0.0), half_trace + radius
 
 
-def trace_sigma_model_deg(length_um, step_um, residual_um, n, *, angle_deg=None, grid="square"):
+def trace_sigma_model_deg(
+    length_um: ArrayLike,
+    step_um: float,
+    residual_um: ArrayLike,
+    n: ArrayLike,
+    *,
+    angle_deg: ArrayLike | None = None,
+    grid: str = "square",
+) -> np.ndarray:
     """Standard uncertainty of a fitted trace angle: grid quantisation plus roughness.
 
     ``σ² = σ_q² + [near a row]·σ_h² + σ_r²`` (module docstring): ``σ_q =
@@ -363,7 +378,7 @@ def _ramer_douglas_peucker(points, starts, ends, tolerance):
     return np.unique(np.concatenate(kept))
 
 
-def split_polyline(points, tolerance_um, *, closed=False):
+def split_polyline(points: ArrayLike, tolerance_um: float, *, closed: bool = False) -> np.ndarray:
     """Indices where a polyline bends by more than a tolerance (Ramer–Douglas–Peucker).
 
     The polyline is split at the point farthest from the chord between its ends
@@ -420,13 +435,13 @@ def _check_network(network):
         )
     offsets = np.asarray(network.offsets)
     if offsets.ndim != 1 or offsets.size < 1 or not np.issubdtype(offsets.dtype, np.integer):
-        raise ValueError(
+        raise InputError(
             f"Expected `network.offsets` to be a 1-D integer array, got dtype {offsets.dtype} "
             f"and shape {offsets.shape}."
         )
     points = _check_points(network.points_um, "network.points_um")
     if offsets[0] != 0 or offsets[-1] != points.shape[0] or np.any(np.diff(offsets) < 0):
-        raise ValueError(
+        raise InputError(
             "Expected `network.offsets` to rise from 0 to the number of points "
             f"({points.shape[0]}), got {offsets[0]}..{offsets[-1]}."
         )
@@ -434,7 +449,7 @@ def _check_network(network):
     for name in _NETWORK_FIELDS[2:]:
         column = np.asarray(getattr(network, name))
         if column.shape != (n_chains,):
-            raise ValueError(
+            raise InputError(
                 f"Expected `network.{name}` to have shape ({n_chains},), got {column.shape}."
             )
     return offsets.astype(np.int64), points
@@ -537,7 +552,7 @@ def _chain_pieces(offsets, points, closed, tolerance):
     return order, piece_start, piece_end, piece_chain, at_chain_end, next_piece
 
 
-def _fit_pieces(pts, piece_start, piece_end, at_chain_end, next_piece, reach):
+def _fit_pieces(pts, piece_start, piece_end, *, at_chain_end, next_piece, reach):
     """TLS fit of many pieces at once: the columns of the segments table that are geometry.
 
     ``at_chain_end`` (K, 2) says whether each end of a piece is an end of its chain
@@ -612,7 +627,14 @@ def _fit_pieces(pts, piece_start, piece_end, at_chain_end, next_piece, reach):
     }
 
 
-def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, grid="square"):
+def fit_segments(
+    network: BoundaryNetwork,
+    *,
+    step_um: float,
+    tolerance_um: float | None = None,
+    min_length_um: float | None = None,
+    grid: str = "square",
+) -> dict[str, np.ndarray]:
     """Split every boundary chain into straight segments and fit each one.
 
     Parameters
@@ -656,9 +678,11 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     ------
     TypeError
         If ``network`` lacks a field of the contract.
-    ValueError
-        If a setting is out of range, the offsets do not fit the points, a
-        per-chain column has the wrong length, or a point is not finite.
+    SettingError
+        If a setting is out of range or not one of its options.
+    InputError
+        If the offsets do not fit the points, a per-chain column has the wrong
+        length, or a point is not finite.
 
     Examples
     --------
@@ -695,11 +719,25 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
         order, p_start, p_end, p_chain, at_chain_end, next_piece = _chain_pieces(
             local, block_points, closed[c0:c1], tolerance
         )
-        geo = _fit_pieces(block_points[order], p_start, p_end, at_chain_end, next_piece, tolerance)
+        geo = _fit_pieces(
+            block_points[order],
+            p_start,
+            p_end,
+            at_chain_end=at_chain_end,
+            next_piece=next_piece,
+            reach=tolerance,
+        )
         parts.append((geo, p_chain + c0))
     if not parts:
         none = np.zeros(0, dtype=np.int64)
-        empty = _fit_pieces(points, none, none, np.zeros((0, 2), bool), none, tolerance)
+        empty = _fit_pieces(
+            points,
+            none,
+            none,
+            at_chain_end=np.zeros((0, 2), bool),
+            next_piece=none,
+            reach=tolerance,
+        )
         parts.append((empty, none))
     geo = {k: np.concatenate([g[k] for g, _ in parts]) for k in parts[0][0]}
     p_chain = np.concatenate([c for _, c in parts])
@@ -734,7 +772,9 @@ def fit_segments(network, *, step_um, tolerance_um=None, min_length_um=None, gri
     return table
 
 
-def group_collinear(segments, *, max_offset_um, n_sigma=3.0):
+def group_collinear(
+    segments: Mapping[str, np.ndarray], *, max_offset_um: float, n_sigma: float = 3.0
+) -> np.ndarray:
     """Label segments that are collinear pieces of one straight boundary.
 
     A junction artefact (a stray pixel, a tiny grain) can break one straight
@@ -763,8 +803,10 @@ def group_collinear(segments, *, max_offset_um, n_sigma=3.0):
 
     Raises
     ------
-    ValueError
-        If a setting is out of range or a needed column is missing.
+    SettingError
+        If a setting is out of range.
+    InputError
+        If a needed column is missing.
 
     Examples
     --------
@@ -790,7 +832,7 @@ def group_collinear(segments, *, max_offset_um, n_sigma=3.0):
     )
     missing = [c for c in needed if c not in segments]
     if missing:
-        raise ValueError(
+        raise InputError(
             f"Expected `segments` to have columns {needed}, got one without {missing}."
         )
     ga, gb = np.asarray(segments["grain_a"]), np.asarray(segments["grain_b"])

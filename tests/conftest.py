@@ -1,4 +1,4 @@
-"""Shared test settings: a deterministic hypothesis profile and the reference-extra gate."""
+"""Shared test settings: a deterministic hypothesis profile, the `slow` marker, the reference gate."""
 
 from __future__ import annotations
 
@@ -15,6 +15,14 @@ settings.register_profile(
     suppress_health_check=[HealthCheck.too_slow],
 )
 settings.load_profile("ci")
+
+
+def pytest_collection_modifyitems(items):
+    # Whole runs on synthetic samples are the `slow` tests (pyproject.toml markers): the
+    # oldest-versions step of .ci/run leaves them out (-m "not slow") to stay in time.
+    for item in items:
+        if "end_to_end" in item.path.parts:
+            item.add_marker(pytest.mark.slow)
 
 
 def require_reference(module_name: str):

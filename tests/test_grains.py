@@ -13,13 +13,8 @@ from inclination.crystal.lattice import Lattice, Phase
 from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply, random_quat
 from inclination.crystal.symmetry import disorientation_angle_deg, proper_rotations
 from inclination.errors import InputError, SettingError
-from inclination.grains import (
-    GRAIN_COLUMNS,
-    GrainMap,
-    neighbour_shifts,
-    point_xy_um,
-    segment_grains,
-)
+from inclination.grains import GRAIN_COLUMNS, GrainMap, segment_grains
+from inclination.links import misorientation_columns, neighbour_shifts, point_xy_um
 from inclination.maps import OrientationMap
 
 CUBIC = Phase(1, "copper", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90), ("{1 1 1}",))
@@ -316,9 +311,9 @@ def test_undeclared_phase_raises():
 @pytest.mark.parametrize(
     ("kwargs", "error", "match"),
     [
-        ({"min_pixels": 0}, ValueError, "Expected `min_pixels` to be an integer >= 1"),
+        ({"min_pixels": 0}, SettingError, "Expected `min_pixels` to be an integer >= 1"),
         ({"min_pixels": 2.5}, TypeError, "Expected `min_pixels` to be an integer"),
-        ({"small_grains": "drop"}, ValueError, r"Expected `small_grains` to be one of \('merge'"),
+        ({"small_grains": "drop"}, SettingError, r"Expected `small_grains` to be one of \('merge'"),
         ({"progress": 3}, TypeError, "Expected `progress` to be callable"),
     ],
 )
@@ -329,13 +324,13 @@ def test_bad_options_raise(kwargs, error, match):
 
 def test_bad_phases_raise():
     omap = make_map(np.tile(IDENTITY, (2, 2, 1)))
-    with pytest.raises(ValueError, match="Expected `phases` to hold at least one Phase"):
+    with pytest.raises(SettingError, match="Expected `phases` to hold at least one Phase"):
         segment_grains(omap, [])
     with pytest.raises(TypeError, match=r"Expected `phases\[0\]` to be a Phase"):
         segment_grains(omap, ["copper"])
     with pytest.raises(TypeError, match="Expected `phases` to be a sequence or mapping"):
         segment_grains(omap, 5)
-    with pytest.raises(ValueError, match="Expected the phase ids in `phases` to be unique"):
+    with pytest.raises(SettingError, match="Expected the phase ids in `phases` to be unique"):
         segment_grains(omap, [CUBIC, CUBIC])
 
 
@@ -392,11 +387,9 @@ def test_every_grain_dissolved_gives_empty_table_not_error():
 def test_misorientation_rows_match_scipy_matrices():
     # Reference: scipy's Rotation matrices. Passive orientations (§3): the misorientation
     # from a to b is g_b · g_aᵀ; scipy takes scalar-last quaternions of the same matrices.
-    from inclination import grains
-
     rng = np.random.default_rng(4)
     qa, qb = random_quat(5, rng=rng), random_quat(5, rng=rng)
-    dq = grains._misorientation_rows(qa.T.copy(), qb.T.copy())
+    dq = misorientation_columns(qa.T.copy(), qb.T.copy())
     ga = Rotation.from_quat(np.roll(qa, -1, axis=1)).as_matrix()
     gb = Rotation.from_quat(np.roll(qb, -1, axis=1)).as_matrix()
     expected = gb @ np.transpose(ga, (0, 2, 1))

@@ -1,4 +1,4 @@
-"""The job file: schema, defaults, phases, paths and one-line errors (design.md, "The job file")."""
+"""The job file: schema, defaults, phases, paths and one-line errors (schemas/job.schema.json)."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from inclination.io.schemas import load_schema, schema_path
 
 CUBIC = {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}
 
-# The example job of design.md ("The job file"), field for field.
+# A complete example job, with a field of every part of schemas/job.schema.json.
 DESIGN_EXAMPLE = {
     "phases": [
         {

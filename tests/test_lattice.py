@@ -472,7 +472,7 @@ def test_cubic_d_spacing_handbook_formula():
     hkl = np.array([[1, 1, 1], [2, 0, 0], [2, 2, 0], [3, 1, 1], [1, 2, 3]])
     expected = 3.615 / np.sqrt(np.sum(hkl**2, axis=1))
     assert_allclose(d_spacing(CU, hkl), expected, rtol=1e-12, atol=0)
-    assert_allclose(d_spacing(CU, [1, 1, 1]), 2.08712, rtol=0, atol=5e-6)  # issue 2 value
+    assert_allclose(d_spacing(CU, [1, 1, 1]), 2.08712, rtol=0, atol=5e-6)  # a/√3 by hand
 
 
 def test_hexagonal_d_spacing_handbook_formula():
@@ -484,7 +484,7 @@ def test_hexagonal_d_spacing_handbook_formula():
     for setting in SETTINGS:
         lat = Lattice.from_parameters(a, a, c, 90, 90, 120, setting=setting)
         assert_allclose(d_spacing(lat, hkl), expected, rtol=1e-12, atol=0)
-    assert_allclose(d_spacing(TI, [1, 0, -1, 1]), 2.24344, rtol=0, atol=5e-6)  # issue 2 value
+    assert_allclose(d_spacing(TI, [1, 0, -1, 1]), 2.24344, rtol=0, atol=5e-6)  # formula by hand
 
 
 def test_cubic_handbook_angles():
@@ -500,7 +500,7 @@ def test_cubic_handbook_angles():
 
 def test_hexagonal_basal_to_pyramidal_angle():
     # Hexagonal angle between (0001) and (h0-hl): tan θ = 2 h c / (√3 l a) (hand derivation);
-    # issue 2 gives 61.3826° for Ti (10-11).
+    # 61.3826° for Ti (10-11) by hand.
     expected = math.degrees(math.atan(2 * 4.684 / (math.sqrt(3) * 2.951)))
     got = interplanar_angle_deg(TI, [0, 0, 0, 1], [1, 0, -1, 1])
     assert_allclose(got, expected, rtol=0, atol=1e-10)

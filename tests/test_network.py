@@ -19,7 +19,7 @@ from test_grains import (
 )
 
 from inclination.crystal.rotations import quat_from_axis_angle_deg
-from inclination.errors import SettingError
+from inclination.errors import InputError, SettingError
 from inclination.grains import segment_grains
 from inclination.network import CHAIN_COLUMNS, BoundaryNetwork, boundary_network
 
@@ -279,7 +279,7 @@ def test_bad_inputs_raise():
     with pytest.raises(SettingError, match="Expected `low_angle_deg` to lie between 0"):
         boundary_network(omap, gm, [CUBIC], low_angle_deg=0.0)
     other = segment_grains(region_map(np.zeros((2, 2), int), [IDENTITY]), [CUBIC])
-    with pytest.raises(ValueError, match="Expected `grain_map.labels` to have the map's shape"):
+    with pytest.raises(InputError, match="Expected `grain_map.labels` to have the map's shape"):
         boundary_network(omap, other, [CUBIC])
 
 

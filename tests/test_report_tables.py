@@ -12,7 +12,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from inclination.errors import InputError
-from inclination.report._io import staged_output_dir, write_json_atomic
+from inclination.report.atomic import staged_output_dir, write_json_atomic
 from inclination.report.columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, Column
 from inclination.report.schemas import SCHEMAS, render
 from inclination.report.tables import (
@@ -128,7 +128,7 @@ def test_markdown_empty_table(tmp_path):
 
 
 def test_unequal_columns_refused(tmp_path):
-    with pytest.raises(ValueError, match="equal length"):
+    with pytest.raises(InputError, match="equal length"):
         write_csv(
             tmp_path / "x.csv",
             {"a": np.zeros(2), "b": np.zeros(3)},

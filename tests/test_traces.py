@@ -18,6 +18,7 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import stats
 
+from inclination.errors import InputError, SettingError
 from inclination.traces import (
     SEGMENT_COLUMNS,
     LineFit,
@@ -288,7 +289,7 @@ def test_bicrystal_one_segment_at_its_angle(angle_deg, grid):
     assert len(seg["segment_id"]) == 1
     err = abs(angle_error_deg(seg["trace_angle_deg"][0], angle_deg))
     # The quantisation bound: within 3σ of the model, and never worse than the
-    # (s/L)^1.5-rad scale quoted in issue 4 times 3.
+    # (s/L)^1.5-rad quantisation scale (inclination.traces, module docstring) times 3.
     assert err <= 3 * seg["trace_sigma_deg"][0] + 1e-9
     assert err <= 3 * np.degrees((0.5 / seg["length_um"][0]) ** 1.5) + 1e-9
     assert not seg["too_short"][0]
@@ -477,7 +478,7 @@ def test_sigma_model_matches_rms_error_on_random_boundaries(grid):
 
 
 def test_rms_error_against_published_simulation_square():
-    # Published simulation quoted in issue 4 (publication not named there): RMS angle
+    # A published simulation whose source was not recorded (so: from memory): RMS angle
     # error of straight boundaries on square grids 1.6° at L/s = 10, 0.60° at 20, 0.15°
     # at 50. Computed here with the TLS fit on edge midpoints: 1.59°, 0.53°, 0.150° (this
     # test, 400 boundaries each); 1.62°, 0.57°, 0.148° with 1000 each (benchmarks/).
@@ -557,17 +558,17 @@ def test_group_collinear_keeps_nan_angles_apart():
 
 def test_bad_settings_raise():
     net = network([digital_line(10.0, (0, 0), 20.0)])
-    with pytest.raises(ValueError, match="Expected `step_um` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `step_um` to be a finite number > 0"):
         fit_segments(net, step_um=0.0)
-    with pytest.raises(ValueError, match="Expected `tolerance_um` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `tolerance_um` to be a finite number > 0"):
         fit_segments(net, step_um=1.0, tolerance_um=-1.0)
-    with pytest.raises(ValueError, match="Expected `min_length_um` to be a finite number >= 0"):
+    with pytest.raises(SettingError, match="Expected `min_length_um` to be a finite number >= 0"):
         fit_segments(net, step_um=1.0, min_length_um=np.nan)
-    with pytest.raises(ValueError, match=r"Expected `grid` to be one of \('square', 'hexagonal'\)"):
+    with pytest.raises(SettingError, match=r"Expected `grid` to be one of \('square', 'hexagonal'\)"):
         fit_segments(net, step_um=1.0, grid="hex")
-    with pytest.raises(ValueError, match="Expected `grid` to be one of"):
+    with pytest.raises(SettingError, match="Expected `grid` to be one of"):
         trace_sigma_model_deg(10.0, 1.0, 0.0, 10, grid="triangular")
-    with pytest.raises(ValueError, match="Expected `tolerance_um` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `tolerance_um` to be a finite number > 0"):
         split_polyline([[0, 0], [1, 1]], 0.0)
 
 
@@ -580,31 +581,31 @@ def test_bad_network_raises():
             SimpleNamespace(**{k: v for k, v in vars(net).items() if k != "closed"}), step_um=1.0
         )
     bad = SimpleNamespace(**{**vars(net), "offsets": np.array([0, 3])})
-    with pytest.raises(ValueError, match="Expected `network.offsets` to rise from 0"):
+    with pytest.raises(InputError, match="Expected `network.offsets` to rise from 0"):
         fit_segments(bad, step_um=1.0)
     bad = SimpleNamespace(**{**vars(net), "offsets": np.array([0.0, 1.0])})
-    with pytest.raises(ValueError, match="Expected `network.offsets` to be a 1-D integer array"):
+    with pytest.raises(InputError, match="Expected `network.offsets` to be a 1-D integer array"):
         fit_segments(bad, step_um=1.0)
     bad = SimpleNamespace(**{**vars(net), "grain_b": np.array([2, 3])})
-    with pytest.raises(ValueError, match=r"Expected `network.grain_b` to have shape \(1,\)"):
+    with pytest.raises(InputError, match=r"Expected `network.grain_b` to have shape \(1,\)"):
         fit_segments(bad, step_um=1.0)
     points = net.points_um.copy()
     points[4, 1] = np.nan
     bad = SimpleNamespace(**{**vars(net), "points_um": points})
-    with pytest.raises(ValueError, match=r"Expected `network.points_um` to be finite.*\(4,\)"):
+    with pytest.raises(InputError, match=r"Expected `network.points_um` to be finite.*\(4,\)"):
         fit_segments(bad, step_um=1.0)
 
 
 def test_bad_points_raise():
-    with pytest.raises(ValueError, match=r"Expected `points` to have shape \(N, 2\), got \(4,\)"):
+    with pytest.raises(InputError, match=r"Expected `points` to have shape \(N, 2\), got \(4,\)"):
         fit_line_tls([1.0, 2.0, 3.0, 4.0])
     with pytest.raises(
         ValueError, match=r"Expected `points` to have shape \(\.\.\., 2\), got \(2, 3\)"
     ):
         split_polyline(np.zeros((2, 3)), 1.0)
-    with pytest.raises(ValueError, match="Expected `points` to hold at least 2 points, got 1"):
+    with pytest.raises(InputError, match="Expected `points` to hold at least 2 points, got 1"):
         fit_line_tls([[1.0, 2.0]])
-    with pytest.raises(ValueError, match="Expected `points` to hold at least 2 distinct points"):
+    with pytest.raises(InputError, match="Expected `points` to hold at least 2 distinct points"):
         fit_line_tls([[1.0, 2.0], [1.0, 2.0]])
     with pytest.raises(TypeError, match="Expected `points` to be an array of numbers, got str"):
         fit_line_tls("abc")
@@ -612,11 +613,11 @@ def test_bad_points_raise():
 
 def test_group_collinear_bad_input_raises():
     seg = fit_segments(network([digital_line(10.0, (0, 0), 20.0)]), step_um=1.0)
-    with pytest.raises(ValueError, match="Expected `max_offset_um` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `max_offset_um` to be a finite number > 0"):
         group_collinear(seg, max_offset_um=0.0)
-    with pytest.raises(ValueError, match="Expected `n_sigma` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `n_sigma` to be a finite number > 0"):
         group_collinear(seg, max_offset_um=1.0, n_sigma=-2.0)
-    with pytest.raises(ValueError, match="Expected `segments` to have columns"):
+    with pytest.raises(InputError, match="Expected `segments` to have columns"):
         group_collinear({"grain_a": seg["grain_a"]}, max_offset_um=1.0)
 
 
@@ -673,7 +674,7 @@ def test_any_network_gives_a_consistent_table(specs):
 
 
 def test_sigma_model_bad_input_raises():
-    with pytest.raises(ValueError, match="Expected `step_um` to be a finite number > 0"):
+    with pytest.raises(SettingError, match="Expected `step_um` to be a finite number > 0"):
         trace_sigma_model_deg(10.0, -1.0, 0.0, 10)
     with pytest.raises(TypeError, match="Expected `length_um` to be an array of numbers"):
         trace_sigma_model_deg("long", 1.0, 0.0, 10)

@@ -1,6 +1,6 @@
 """The job file: schema validation, defaults, phases and paths (schemas/job.schema.json).
 
-A job file is JSON (design.md, "The job file"). :func:`load_job` validates it
+A job file is JSON, every field described in schemas/job.schema.json. :func:`load_job` validates it
 against the JSON Schema (draft 2020-12), fills in every default the schema
 documents, builds the phases, resolves paths relative to the job file and
 checks that the files exist. Any failure is one :class:`InputError` line naming

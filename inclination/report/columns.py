@@ -17,7 +17,6 @@ __all__ = [
     "BOUNDARY_COLUMNS",
     "SEGMENT_COLUMNS",
     "GRAIN_COLUMNS",
-    "column_names",
 ]
 
 
@@ -163,14 +162,3 @@ GRAIN_COLUMNS = (
     _c("spread_max_deg", "float", 3, "largest disorientation of its points to the mean"),
     _c("touches_edge", "bool", 0, "the grain reaches the map edge"),
 )
-
-
-def column_names(columns) -> tuple[str, ...]:
-    """Names of a column list, in order.
-
-    Examples
-    --------
-    >>> column_names(GRAIN_COLUMNS)[:3]
-    ('grain_id', 'phase', 'phi1_deg')
-    """
-    return tuple(c.name for c in columns)

@@ -9,8 +9,12 @@ from __future__ import annotations
 
 import base64
 import html
+import os
+from collections.abc import Sequence
+from pathlib import Path
 
-from ._io import write_text_atomic
+from .atomic import write_text_atomic
+from .columns import Column
 from .features import features_section_html, features_section_markdown
 from .tables import format_cell
 
@@ -76,7 +80,7 @@ def _verdict_sentence(summary: dict) -> str:
     return str(verdict.get("sentence", verdict.get("verdict", "")))
 
 
-def render_markdown(summary: dict, table: dict, columns) -> str:
+def render_markdown(summary: dict, table: dict, columns: Sequence[Column]) -> str:
     """The report as Markdown text."""
     by_name = {c.name: c for c in columns}
     shown = [by_name[n] for n in _REPORT_COLUMNS if n in by_name]
@@ -98,7 +102,9 @@ def render_markdown(summary: dict, table: dict, columns) -> str:
     return "\n".join(lines)
 
 
-def render_html(summary: dict, table: dict, columns, *, figure_png: bytes | None = None) -> str:
+def render_html(
+    summary: dict, table: dict, columns: Sequence[Column], *, figure_png: bytes | None = None
+) -> str:
     """The report as one self-contained HTML page (the figure embedded as data)."""
     by_name = {c.name: c for c in columns}
     shown = [by_name[n] for n in _REPORT_COLUMNS if n in by_name]
@@ -141,10 +147,15 @@ def render_html(summary: dict, table: dict, columns, *, figure_png: bytes | None
     return "\n".join(parts) + "\n"
 
 
-def write_report(out_dir, summary: dict, table: dict, columns, *, figure_png: bytes | None = None):
+def write_report(
+    out_dir: str | os.PathLike,
+    summary: dict,
+    table: dict,
+    columns: Sequence[Column],
+    *,
+    figure_png: bytes | None = None,
+) -> list[Path]:
     """Write ``report.html`` and ``report.md`` into ``out_dir``; returns their paths."""
-    from pathlib import Path
-
     out = Path(out_dir)
     return [
         write_text_atomic(

@@ -8,7 +8,16 @@ matplotlib is imported inside the functions; nothing here calls ``show()``.
 
 from __future__ import annotations
 
+import os
+from pathlib import Path
+from typing import TYPE_CHECKING
+
 import numpy as np
+from numpy.typing import ArrayLike
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+    from matplotlib.figure import Figure
 
 __all__ = ["IDENTIFICATION_COLOURS", "plot_boundaries", "save_figure"]
 
@@ -45,16 +54,16 @@ def _nice_length(target: float) -> float:
 
 
 def plot_boundaries(
-    labels,
-    segments_sample,
-    classes,
+    labels: ArrayLike,
+    segments_sample: ArrayLike,
+    classes: ArrayLike,
     *,
     step_x_um: float,
     step_y_um: float,
-    axes_declared=("right", "down"),
-    ax=None,
+    axes_declared: tuple[str, str] = ("right", "down"),
+    ax: Axes | None = None,
     title: str | None = None,
-):
+) -> dict:
     """Draw the grain map in grey and every fitted segment coloured by its class.
 
     Parameters
@@ -190,12 +199,11 @@ def plot_boundaries(
     return {"image": image, "lines": lines, "scale_bar": scale_bar, "arrows": arrows}
 
 
-def save_figure(fig, path_stem) -> list:
+def save_figure(fig: Figure, path_stem: str | os.PathLike) -> list[Path]:
     """Save a figure as PNG (200 dpi) and SVG beside each other, atomically; returns the paths."""
     import io
-    from pathlib import Path
 
-    from ._io import write_bytes_atomic
+    from .atomic import write_bytes_atomic
 
     paths = []
     for ext, kwargs in (("png", {"dpi": 200}), ("svg", {})):

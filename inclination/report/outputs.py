@@ -10,13 +10,17 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ._io import write_json_atomic
+from .atomic import write_json_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
 from .tables import write_csv, write_latex, write_markdown, write_table_json
+
+if TYPE_CHECKING:
+    from ..pipeline import Analysis
 
 __all__ = ["write_all", "grains_table", "segments_table", "boundaries_table"]
 
@@ -55,7 +59,7 @@ def _declared_points(axes, x, y):
     return xy[..., 0], xy[..., 1]
 
 
-def grains_table(analysis) -> dict:
+def grains_table(analysis: Analysis) -> dict:
     """The grains table in declared axes (orientations back in the data frame)."""
     from ..crystal.rotations import quat_as_euler_deg
     from ..frames import orientations_to_declared
@@ -84,7 +88,7 @@ def grains_table(analysis) -> dict:
     }
 
 
-def segments_table(analysis, segments=None) -> dict:
+def segments_table(analysis: Analysis, segments: dict | None = None) -> dict:
     """A segments table (default: the grain boundaries') in declared axes, with WKT."""
     s = analysis.segments if segments is None else segments
     axes = analysis.omap.axes
@@ -136,7 +140,7 @@ def _aligned(table, segment_ids):
     return column
 
 
-def boundaries_table(analysis) -> dict:
+def boundaries_table(analysis: Analysis) -> dict:
     """The per-boundary table (one row per segment long enough for planes), declared axes."""
     seg = segments_table(analysis)
     keep = ~seg["too_short"]
@@ -296,7 +300,7 @@ def _summary(analysis, base, boundaries) -> dict:
     return summary
 
 
-def write_all(analysis, out_dir: Path, *, summary_base: dict):
+def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple[list[Path], dict]:
     """Write every file of ``analysis`` into ``out_dir``; returns (paths, summary)."""
     meta = _frame_meta(analysis.omap.axes)
     files = []

@@ -8,8 +8,9 @@ checks that the committed files equal a fresh rendering, so they cannot drift.
 from __future__ import annotations
 
 import json
+from collections.abc import Sequence
 
-from .columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
+from .columns import BOUNDARY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS, Column
 
 __all__ = ["SCHEMA_VERSION", "SCHEMAS", "render", "table_schema"]
 
@@ -42,7 +43,7 @@ _RANGES = {
 }
 
 
-def column_schema(c):
+def column_schema(c: Column) -> dict:
     if c.kind == "int":
         s = {"type": ["integer", "null"]}
     elif c.kind == "float":
@@ -63,7 +64,7 @@ def column_schema(c):
     return s
 
 
-def table_schema(title, name, columns):
+def table_schema(title: str, name: str, columns: Sequence[Column]) -> dict:
     return {
         "$schema": "https://json-schema.org/draft/2020-12/schema",
         "$id": f"inclination/{name}.schema.json",

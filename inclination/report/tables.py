@@ -13,11 +13,17 @@ import csv
 import io
 import json
 import math
+import os
 import re
+from collections.abc import Mapping, Sequence
+from pathlib import Path
 
 import numpy as np
+from numpy.typing import ArrayLike
 
-from ._io import _clean_json, write_text_atomic
+from ..errors import InputError
+from .atomic import json_ready, write_text_atomic
+from .columns import Column
 
 __all__ = [
     "format_cell",
@@ -40,7 +46,7 @@ def _absent(value, kind: str) -> bool:
     return value is None
 
 
-def format_cell(value, column) -> str:
+def format_cell(value: object, column: Column) -> str:
     """Text form of one value; absent values become the empty string.
 
     Examples
@@ -67,10 +73,10 @@ def format_cell(value, column) -> str:
 def _check_table(table, columns) -> int:
     missing = [c.name for c in columns if c.name not in table]
     if missing:
-        raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
+        raise InputError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
     lengths = {c.name: len(table[c.name]) for c in columns}
     if len(set(lengths.values())) > 1:
-        raise ValueError(f"Expected columns of equal length, got {lengths}.")
+        raise InputError(f"Expected columns of equal length, got {lengths}.")
     return next(iter(lengths.values()), 0)
 
 
@@ -87,7 +93,7 @@ def _json_column(values, column) -> list:
     return [None if v is None or str(v) == "" else str(v) for v in arr.tolist()]
 
 
-def table_rows(table, columns) -> list[dict]:
+def table_rows(table: Mapping[str, ArrayLike], columns: Sequence[Column]) -> list[dict]:
     """Rows as JSON-ready dicts (absent values as None).
 
     Examples
@@ -117,7 +123,9 @@ def _text_column(values, column) -> list[str]:
     return ["" if v is None else str(v) for v in arr.tolist()]
 
 
-def write_csv(path, table, columns):
+def write_csv(
+    path: str | os.PathLike, table: Mapping[str, ArrayLike], columns: Sequence[Column]
+) -> Path:
     """Write a table as CSV with a header row; returns the path."""
     _check_table(table, columns)
     buf = io.StringIO()
@@ -127,9 +135,16 @@ def write_csv(path, table, columns):
     return write_text_atomic(path, buf.getvalue())
 
 
-def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
+def write_table_json(
+    path: str | os.PathLike,
+    table: Mapping[str, ArrayLike],
+    columns: Sequence[Column],
+    *,
+    schema_version: str,
+    meta: dict,
+) -> Path:
     """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
-    head = _clean_json(
+    head = json_ready(
         {
             "schema_version": schema_version,
             "meta": meta,
@@ -146,7 +161,14 @@ def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
     return write_text_atomic(path, text + ',\n  "rows": [' + body + "]\n}\n")
 
 
-def write_markdown(path, table, columns, *, title: str, notes: str = ""):
+def write_markdown(
+    path: str | os.PathLike,
+    table: Mapping[str, ArrayLike],
+    columns: Sequence[Column],
+    *,
+    title: str,
+    notes: str = "",
+) -> Path:
     """Write a pipe table with a title and notes; returns the path."""
     n = _check_table(table, columns)
     lines = [f"# {title}", ""]
@@ -203,7 +225,15 @@ def _latex_escape(text: str) -> str:
 LONG_TABLE_ROWS = 40
 
 
-def write_latex(path, table, columns, *, caption: str, label: str, sigma_of: dict | None = None):
+def write_latex(
+    path: str | os.PathLike,
+    table: Mapping[str, ArrayLike],
+    columns: Sequence[Column],
+    *,
+    caption: str,
+    label: str,
+    sigma_of: dict | None = None,
+) -> Path:
     """Write a booktabs table; returns the path.
 
     Up to :data:`LONG_TABLE_ROWS` rows it is a ``table`` float; longer tables are a

@@ -212,7 +212,7 @@ def write_stereology(results, phases, out_dir, *, settings: dict, standalone: bo
     from jsonschema import Draft202012Validator
 
     from ..io.schemas import load_schema
-    from ..report._io import write_json_atomic, write_text_atomic
+    from ..report.atomic import write_json_atomic, write_text_atomic
 
     out = Path(out_dir)
     doc = distribution_document(results, settings=settings)

@@ -30,10 +30,13 @@ def project(normals_crystal, projection: str = "stereographic") -> np.ndarray:
     n = np.atleast_2d(np.asarray(normals_crystal, dtype=float))
     n = n / np.linalg.norm(n, axis=1, keepdims=True)
     n = np.where(n[:, 2:3] < 0, -n, n)
-    theta = np.arccos(np.clip(n[:, 2], -1.0, 1.0))
-    rho = np.tan(theta / 2.0) if projection == "stereographic" else np.sin(theta / 2.0) * np.sqrt(2)
-    phi = np.arctan2(n[:, 1], n[:, 0])
-    return np.stack([rho * np.cos(phi), rho * np.sin(phi)], axis=1) + 0.0
+    # In closed form, no angles: with θ the polar angle, stereographic ρ = tan(θ/2) and
+    # equal-area ρ = √2·sin(θ/2) (scaled to the unit disc) give, along (x, y)/sin θ,
+    # the points (x, y)/(1 + z) and (x, y)/√(1 + z).
+    scale = 1.0 + n[:, 2]
+    if projection != "stereographic":
+        scale = np.sqrt(scale)
+    return n[:, :2] / scale[:, None] + 0.0
 
 
 def unproject(points, projection: str = "stereographic") -> np.ndarray:

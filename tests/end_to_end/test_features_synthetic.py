@@ -129,7 +129,7 @@ def _bad(tmp_path, capsys, edit):
 
 
 def test_bad_point_outside_the_map(tmp_path, capsys):
-    def edit(job, sm):
+    def edit(job, _sm):
         job["features"]["traces"][0] = {"at_um": [-20.0, 5.0], "trace_angle_deg": 10.0}
 
     err = _bad(tmp_path, capsys, edit)
@@ -147,7 +147,7 @@ def test_bad_point_on_a_non_indexed_point(tmp_path, capsys):
 
 
 def test_bad_line_crossing_a_boundary(tmp_path, capsys):
-    def edit(job, sm):
+    def edit(job, _sm):
         job["features"]["traces"][2] = {"line_um": [[2.0, 30.0], [78.0, 30.0]]}
 
     err = _bad(tmp_path, capsys, edit)
@@ -155,7 +155,7 @@ def test_bad_line_crossing_a_boundary(tmp_path, capsys):
 
 
 def test_bad_slip_system_string(tmp_path, capsys):
-    def edit(job, sm):
+    def edit(job, _sm):
         job["phases"][0] = {**CU, "slip_systems": ["{1 1 1}<1 1 1>"]}
 
     err = _bad(tmp_path, capsys, edit)
@@ -163,7 +163,7 @@ def test_bad_slip_system_string(tmp_path, capsys):
 
 
 def test_bad_zero_loading_direction(tmp_path, capsys):
-    def edit(job, sm):
+    def edit(job, _sm):
         job["features"]["loading_direction"] = [0, 0, 0]
 
     err = _bad(tmp_path, capsys, edit)

@@ -5,7 +5,7 @@ of their seeds, with annealing-twin lamellae on known {111} planes. A plane meet
 section in a straight trace whose angle comes from the plane's normal (conventions §5);
 its extent on the map comes from the true region of every point (``grain_id``).
 
-Check (issue 4): every true planar boundary longer than 20 steps is found as one
+Check: every true planar boundary longer than 20 steps is found as one
 segment or as collinear pieces, with its angle within 3σ. The σ model's errors are
 heavier-tailed than a normal law (measured on clean staircases, see
 inclination.traces: 0.8 % beyond 3σ, the largest near 6σ), so the 3σ condition is
@@ -14,13 +14,12 @@ asked of 95 % of the boundaries and 6σ of all of them.
 
 from __future__ import annotations
 
-from types import SimpleNamespace
-
 import numpy as np
 import pytest
 
 from inclination import grains, network
 from inclination.crystal.lattice import Lattice, Phase
+from inclination.maps import OrientationMap
 from inclination.planes import surface_geometry
 from inclination.synthetic import (
     as_orientation_map,
@@ -216,14 +215,9 @@ def test_grain_inside_a_grain_gives_its_four_sides(grid):
     block[20:40, 15:45] = True
     quat[block] = np.array([np.cos(np.pi / 8), 0, 0, np.sin(np.pi / 8)], np.float32)
     pitch = STEP_UM if grid == "square" else STEP_UM * np.sqrt(3) / 2
-    omap = SimpleNamespace(
-        quat=quat,
-        phase=np.ones((60, 60), int),
-        valid=np.ones((60, 60), bool),
-        grid=grid,
-        # As OrientationMap holds them: on a hexagonal grid both steps are the spacing.
-        step_x_um=STEP_UM,
-        step_y_um=STEP_UM,
+    # On a hexagonal grid both steps are the in-row spacing.
+    omap = OrientationMap(
+        quat, np.ones((60, 60), int), grid=grid, step_x_um=STEP_UM, step_y_um=STEP_UM
     )
     grain_map = grains.segment_grains(omap, [CU])
     net = network.boundary_network(omap, grain_map, [CU])

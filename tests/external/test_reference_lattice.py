@@ -2,8 +2,8 @@
 
 Two kinds of check:
 
-- reference numbers copied as constants (issue 2, "External checks", values computed
-  with pymatgen-core and matching handbook formulas), which run without the extra;
+- reference numbers copied as constants (values computed with pymatgen-core and
+  matching handbook formulas), which run without the extra;
 - live cross-checks against pymatgen-core (``Lattice``, ``reciprocal_lattice_crystallographic``,
   ``d_hkl``) and spglib (symmetry operations in the lattice basis), which need the
   ``reference`` extra and are gated by ``require_reference``.
@@ -42,7 +42,7 @@ HKL = np.array(
     [h for h in itertools.product(range(-2, 3), repeat=3) if any(h) and math.gcd(*h) == 1]
 )
 
-# Reference values (issue 2, "External checks"; pymatgen-core Lattice.d_hkl and
+# Reference values (pymatgen-core Lattice.d_hkl and
 # reciprocal_lattice_crystallographic give the same to the digits shown).
 CU_A = 3.615
 CU_111_M111_DEG = 70.5288

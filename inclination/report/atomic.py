@@ -11,13 +11,20 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
 
-__all__ = ["write_text_atomic", "write_bytes_atomic", "write_json_atomic", "staged_output_dir"]
+__all__ = [
+    "json_ready",
+    "staged_output_dir",
+    "write_bytes_atomic",
+    "write_json_atomic",
+    "write_text_atomic",
+]
 
 
 def _umask() -> int:
@@ -26,7 +33,7 @@ def _umask() -> int:
     return current
 
 
-def write_bytes_atomic(path, data: bytes) -> Path:
+def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
@@ -43,7 +50,7 @@ def write_bytes_atomic(path, data: bytes) -> Path:
     return path
 
 
-def write_text_atomic(path, text: str) -> Path:
+def write_text_atomic(path: str | os.PathLike, text: str) -> Path:
     """Write UTF-8 text atomically (see :func:`write_bytes_atomic`)."""
     return write_bytes_atomic(path, text.encode("utf-8"))
 
@@ -58,14 +65,22 @@ def _json_default(value):
     raise TypeError(f"Expected a JSON-serialisable value, got {type(value).__name__}.")
 
 
-def _clean_json(value):
-    """Replace NaN and infinities by None: JSON has no NaN, and absent is not a number."""
+def json_ready(value: object) -> object:
+    """Replace NaN and infinities by None: JSON has no NaN, and absent is not a number.
+
+    Dicts, lists, tuples and arrays are converted all the way down; keys become strings.
+
+    Examples
+    --------
+    >>> json_ready({"a": np.array([1.5, np.nan]), 2: (np.float32(np.inf), "x")})
+    {'a': [1.5, None], '2': [None, 'x']}
+    """
     if isinstance(value, dict):
-        return {str(k): _clean_json(v) for k, v in value.items()}
+        return {str(k): json_ready(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_clean_json(v) for v in value]
+        return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
-        return _clean_json(value.tolist())
+        return json_ready(value.tolist())
     if isinstance(value, np.generic):
         value = value.item()
     if isinstance(value, float) and not np.isfinite(value):
@@ -73,14 +88,14 @@ def _clean_json(value):
     return value
 
 
-def write_json_atomic(path, document) -> Path:
+def write_json_atomic(path: str | os.PathLike, document: object) -> Path:
     """Write a JSON document atomically; NaN becomes null."""
-    text = json.dumps(_clean_json(document), indent=2, default=_json_default, allow_nan=False)
+    text = json.dumps(json_ready(document), indent=2, default=_json_default, allow_nan=False)
     return write_text_atomic(path, text + "\n")
 
 
 @contextlib.contextmanager
-def staged_output_dir(out_dir, *, overwrite: bool = False):
+def staged_output_dir(out_dir: str | os.PathLike, *, overwrite: bool = False) -> Iterator[Path]:
     """Yield a fresh staging folder that replaces ``out_dir`` only when the block succeeds.
 
     An existing, non-empty ``out_dir`` is refused unless ``overwrite`` is true;
