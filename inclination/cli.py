@@ -7,6 +7,7 @@ the field and what was expected; no traceback), 1 on an internal fault.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
 import traceback
 from collections.abc import Sequence
@@ -103,6 +104,47 @@ def _dispatch(args) -> int:
     return 0
 
 
+class _Held:
+    """Warnings and library log records kept back until the run's outcome is known."""
+
+    def __init__(self):
+        self.warnings: list = []
+        self.records: list = []
+
+    def release(self) -> None:
+        import warnings
+
+        for w in self.warnings:
+            warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+        for r in self.records:
+            print(f"{r.name}: {r.getMessage()}", file=sys.stderr)
+
+
+@contextlib.contextmanager
+def _held_diagnostics():
+    import logging
+    import warnings
+
+    held = _Held()
+
+    class _Keep(logging.Handler):
+        def emit(self, record):
+            held.records.append(record)
+
+    logger = logging.getLogger("tifffile")
+    handler, propagate = _Keep(), logger.propagate
+    logger.addHandler(handler)
+    logger.propagate = False
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("default")
+            yield held
+            held.warnings = list(caught)
+    finally:
+        logger.removeHandler(handler)
+        logger.propagate = propagate
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; return the exit status (0 ok, 2 bad input, 1 internal fault)."""
     parser = _build_parser()
@@ -114,8 +156,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return _dispatch(args)
+        with _held_diagnostics() as held:
+            status = _dispatch(args)
+        held.release()
+        return status
     except InclinationError as exc:
+        # One line means one line: library warnings and log records that led up to the
+        # refusal (numpy's invalid-value warnings, tifffile's complaints) are dropped.
         print(f"inclination: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

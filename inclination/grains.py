@@ -136,8 +136,14 @@ def _phase_codes(omap, infos: tuple[PhaseInfo, ...]) -> np.ndarray:
 # ----------------------------------------------------------------------------- kernels
 
 
-def _link_kernel(planes: MapPlanes, code, usable, infos, *, cos_half, shift, parity, out, progress):
-    """Fill ``out[k]`` (bool, N) with the link between k and its neighbour k + shift."""
+def _link_kernel(
+    planes: MapPlanes, code, usable, infos, *, cos_half, shift, parity, out, progress, horizontal
+):
+    """Fill ``out[k]`` (bool, N) with the link between k and its neighbour k + shift.
+
+    ``horizontal`` marks the (0, +1) shift: in a map one point wide the down shift is
+    also 1, so the value alone cannot tell them apart.
+    """
     q, h, w = planes.quat, planes.height, planes.width
     n_points = q.shape[1]
     stop_all = max(n_points - shift, 0)
@@ -184,7 +190,7 @@ def _link_kernel(planes: MapPlanes, code, usable, infos, *, cos_half, shift, par
             progress(e / n_points)
     # Pairs that wrap round a row end, or hexagonal diagonals of the wrong row parity.
     grid2 = out.reshape(h, w)
-    if shift == 1:
+    if horizontal:
         grid2[:, w - 1] = False
     elif parity == 0:
         grid2[1::2] = False
@@ -668,6 +674,7 @@ def segment_grains(
             parity=parity,
             out=out,
             progress=prog,
+            horizontal=m == 0,
         )
         links.append(out)
     h_link = links[0]

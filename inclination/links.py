@@ -239,22 +239,24 @@ def neighbour_shifts(grid: str, w: int) -> tuple[tuple[int, int], ...]:
 
 
 def forward_pair_mask(
-    flat_index: np.ndarray, shift: int, parity: int, shape: tuple[int, int]
+    flat_index: np.ndarray, shift: int, parity: int, shape: tuple[int, int], *, horizontal: bool
 ) -> np.ndarray:
     """Which points ``flat_index`` have an in-map forward neighbour ``flat_index + shift``.
 
     ``(shift, parity)`` is one pair of :func:`neighbour_shifts`; ``shape`` is (H, W).
     A shift of one column has no partner in the last column; the hexagonal diagonals
     exist only from rows of their parity and not across the side of the map.
+    ``horizontal`` says the pair is the (0, +1) one (the first of :func:`neighbour_shifts`):
+    in a map one point wide the down shift is also 1, so the value cannot tell.
 
     Examples
     --------
-    >>> forward_pair_mask(np.arange(6), 2, 0, (2, 3)).tolist()  # (+1, -1) from even rows
+    >>> forward_pair_mask(np.arange(6), 2, 0, (2, 3), horizontal=False).tolist()  # (+1, -1)
     [False, True, True, False, False, False]
     """
     h, w = shape
     i, j = np.divmod(flat_index, w)
-    ok = i < h - 1 if shift != 1 else j < w - 1
+    ok = j < w - 1 if horizontal else i < h - 1
     if shift == w - 1 and parity == 0:
         ok &= (j > 0) & (i % 2 == 0)
     elif shift == w + 1 and parity == 1:

@@ -434,6 +434,9 @@ def _sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
+_MAX_EULER_DEG = 720.0
+
+
 def _check_units(largest, n_valid, angles, path):
     """Refuse angles whose size contradicts the declared unit (conventions §3)."""
     limit = 2.0 * np.pi * 1.001
@@ -442,6 +445,12 @@ def _check_units(largest, n_valid, angles, path):
             f"Expected angles in radians as declared (|angle| <= 2π), got {largest:.6g}; "
             'if the file holds degrees, declare "angles": "deg".',
             path=path,
+        )
+    if angles == "deg" and largest > _MAX_EULER_DEG:
+        # Exporters write 0..360° or -180..180°; far beyond is a broken cell, and past
+        # ~1e16° the angle has no significant digits left.
+        raise InputError(
+            f"Expected Euler angles within ±{_MAX_EULER_DEG:g}°, got {largest:.6g}°.", path=path
         )
     if angles == "deg" and n_valid > _UNIT_CHECK_MIN_POINTS and largest < limit:
         raise InputError(
@@ -460,11 +469,14 @@ def _phase_values(raw, phase_ids, path, line_of):
         bad = np.flatnonzero(raw < 0) if raw.dtype.kind == "i" else np.empty(0, int)
     else:
         finite = np.isfinite(raw)
-        bad = np.flatnonzero(finite & ((raw < 0) | (raw != np.rint(raw))))
+        # NaN is "not indexed"; an infinite or huge id is a broken cell.
+        bad = np.flatnonzero(
+            np.isinf(raw) | (finite & ((raw < 0) | (raw != np.rint(raw)) | (raw >= 2**31)))
+        )
     if bad.size:
         k = int(bad[0])
         raise InputError(
-            f"Expected phase ids to be whole numbers >= 0, got {raw[k]!r}.",
+            f"Expected phase ids to be whole numbers >= 0 and < 2^31, got {raw[k]!r}.",
             path=path,
             pointer=line_of(k),
         )

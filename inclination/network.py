@@ -150,7 +150,7 @@ def _square_vertices(shift, i, j, w):
     cell runs downwards, its bottom side leftwards.
     """
     stride = w + 1
-    right = shift == 1
+    right = (shift == 1) & (w > 1)  # one point wide: shift 1 is the down neighbour
     tail = np.where(right, i * stride + j + 1, (i + 1) * stride + j + 1)
     head = np.where(right, (i + 1) * stride + j + 1, (i + 1) * stride + j)
     return tail, head
@@ -160,12 +160,9 @@ def _edge_midpoints_um(omap, i, j, shift, w):
     """Midpoints (x, y) in S (µm) of the pairs (i, j)–(i, j) + shift (§1), without divmod."""
     step_x = float(omap.step_x_um)
     pitch = float(omap.row_pitch_um)
-    down = shift != 1
-    dj = (
-        np.where(shift == 1, 1, 0)
-        + np.where(shift == w - 1, -1, 0)
-        + np.where(shift == w + 1, 1, 0)
-    )
+    right = (shift == 1) & (w > 1)  # one point wide: shift 1 is the down neighbour
+    down = ~right
+    dj = np.where(right, 1, 0) + np.where(shift == w - 1, -1, 0) + np.where(shift == w + 1, 1, 0)
     x = (j + 0.5 * dj) * step_x
     if omap.grid == "hexagonal":
         odd = i % 2
@@ -185,7 +182,7 @@ def _hex_vertices(shift, i, j, w):
     upper-right neighbour, its lower-right vertex U of the lower-right neighbour, and so on.
     """
     odd = i % 2
-    if shift == 1:  # east neighbour: the right side, from upper-right to lower-right
+    if shift == 1 and w > 1:  # east neighbour: the right side, from upper-right to lower-right
         return _hex_vid(1, i - 1, j + odd, w), _hex_vid(0, i + 1, j + odd, w)
     lower_right = (shift == w and odd == 0) | (shift == w + 1)
     lr_tail = _hex_vid(0, i + 1, j + odd, w)
@@ -249,14 +246,14 @@ def _grain_edges(labels_flat, shifts, h, w):
     """Flat index k and shift of every edge between two different grains."""
     ks, ss = [], []
     n = labels_flat.size
-    for shift, parity in shifts:
+    for m, (shift, parity) in enumerate(shifts):
         stop = max(n - shift, 0)
         for s in range(0, stop, 4 * BLOCK):
             e = min(s + 4 * BLOCK, stop)
             la = labels_flat[s:e]
             lb = labels_flat[s + shift : e + shift]
             k = np.flatnonzero((la != lb) & (la > 0) & (lb > 0)) + s
-            k = k[forward_pair_mask(k, shift, parity, (h, w))]
+            k = k[forward_pair_mask(k, shift, parity, (h, w), horizontal=m == 0)]
             ks.append(k)
             ss.append(np.full(k.size, shift, np.int64))
     if not ks:
@@ -271,7 +268,7 @@ def _low_angle_edges(lm: _LabelledMap, shifts, *, low_deg, high_deg):
     cos_low = np.float32(np.cos(np.deg2rad(low_deg) / 2))
     ks, ss, cs = [], [], []
     n = labels_flat.size
-    for shift, parity in shifts:
+    for m_shift, (shift, parity) in enumerate(shifts):
         stop = max(n - shift, 0)
         for s in range(0, stop, BLOCK):
             e = min(s + BLOCK, stop)
@@ -280,7 +277,7 @@ def _low_angle_edges(lm: _LabelledMap, shifts, *, low_deg, high_deg):
             d = np.abs(np.einsum("cn,cn->n", q[:, s:e], q[:, s + shift : e + shift]))
             # Pairs within low_deg without symmetry are within it with symmetry too.
             k = np.flatnonzero((la == lb) & (la > 0) & (d <= cos_low)) + s
-            k = k[forward_pair_mask(k, shift, parity, (h, w))]
+            k = k[forward_pair_mask(k, shift, parity, (h, w), horizontal=m_shift == 0)]
             if k.size == 0:
                 continue
             m = _pair_cos_half(q, k, k + shift, grain_code[labels_flat[k]], infos)

@@ -162,6 +162,19 @@ def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
         )
     finally:
         close()
+    if grain_map.n_grains == 0:
+        # Nothing downstream means anything without grains; the settings are the usual
+        # cause (a serial section's phases check would otherwise take the blame).
+        c = grain_map.cleanup
+        raise InputError(
+            f"Expected the {label} map to give at least one grain, got none with "
+            f"threshold_deg = {g['threshold_deg']} and min_pixels = {g['min_pixels']} "
+            f"({int(np.count_nonzero(np.asarray(omap.valid)))} indexed points, "
+            f"{c.get('grains_dissolved', 0)} grains dissolved as too small); lower "
+            "min_pixels or raise threshold_deg.",
+            path=job.source_path,
+            pointer="/grains",
+        )
     if stage_i < 1:
         return grain_map, None, None, None
     low_angle = g["low_angle_deg"] if subgrains and g.get("subgrain_network") else None
@@ -497,12 +510,25 @@ def analyse(
 
     job = load_job(job_path)
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    notes: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+    ) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
         files, summary = write_outputs(analysis, stage_dir)
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
-    return RunResult(out, files, tuple(_messages(summary, out)), summary)
+    return RunResult(out, files, tuple(notes + _messages(summary, out)), summary)
+
+
+def _input_files(job) -> list:
+    """Every file the job reads: the output folder must not be or hold their folders."""
+    files = [job.source_path, job.map.get("path"), job.map.get("sidecar")]
+    for section in job.sections:
+        spec = section.get("map")
+        if isinstance(spec, dict):
+            files += [spec.get("path"), spec.get("sidecar")]
+    return [f for f in files if f]
 
 
 def _messages(summary, out):
@@ -542,11 +568,11 @@ def demo(
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
-    from .report.atomic import staged_output_dir
+    from .report.atomic import staged_output_dir, write_json_atomic
 
     out = Path(out_dir)
-    messages = []
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    messages: list = []
+    with staged_output_dir(out, overwrite=overwrite, notes=messages) as stage_dir:
         paths = write_demo_scenario(stage_dir / "scenario", seed=seed)
         summaries = {}
         for key, folder in (("job", "results"), ("job_z180", "results-turned-frame")):
@@ -554,11 +580,25 @@ def demo(
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
             _, summary = write_outputs(analysis, stage_dir / folder)
+            summary = _relocated(summary, stage_dir, out)
+            write_json_atomic(stage_dir / folder / "summary.json", summary)
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
     messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
     messages.append(f"open {out / 'results' / 'report.html'} for the report")
     return RunResult(out, (), tuple(messages), summaries)
+
+
+def _relocated(doc, stage_dir: Path, out: Path):
+    """``doc`` with paths inside the staging folder named at their final place."""
+    stage, final = str(Path(stage_dir).resolve()), str(Path(out).resolve())
+    if isinstance(doc, dict):
+        return {k: _relocated(v, stage_dir, out) for k, v in doc.items()}
+    if isinstance(doc, list):
+        return [_relocated(v, stage_dir, out) for v in doc]
+    if isinstance(doc, str) and doc.startswith(stage):
+        return final + doc[len(stage) :]
+    return doc
 
 
 def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
@@ -592,43 +632,80 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     >>> [p.name for p in rebuild_report(folder / "out").files]
     ['report.html', 'report.md']
     """
-    import json
 
+    from .io.limits import check_regular_file, read_json
     from .report.columns import BOUNDARY_COLUMNS
     from .report.document import write_report
 
     folder = Path(run_dir)
+    if not folder.is_dir():
+        raise InputError(
+            "Expected the output folder of an earlier run, got no folder.", path=folder
+        )
     docs = {}
     for name in ("summary.json", "boundaries.json"):
         path = folder / name
-        try:
-            docs[name] = json.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
+        if not os.path.lexists(path):
             raise InputError(
                 "Expected the output folder of an analyse or planes run, got a folder "
                 f"without {name}.",
                 path=path,
-            ) from None
-        except (OSError, ValueError) as exc:
-            raise InputError(f"Expected a readable JSON file, got {exc}.", path=path) from None
+            )
+        docs[name] = read_json(path, kind="run")
+        if not isinstance(docs[name], dict):
+            raise InputError(f"Expected a JSON object, got {type(docs[name]).__name__}.", path=path)
     rows = docs["boundaries.json"].get("rows")
-    if not isinstance(rows, list):
+    if not isinstance(rows, list) or not all(isinstance(r, dict) for r in rows):
         raise InputError(
-            "Expected a list of rows, got none.", path=folder / "boundaries.json", pointer="/rows"
+            "Expected a list of rows (objects), got none.",
+            path=folder / "boundaries.json",
+            pointer="/rows",
         )
     table = {}
     for c in BOUNDARY_COLUMNS:
         values = [r.get(c.name) for r in rows]
-        if c.kind == "float":
-            table[c.name] = np.array([np.nan if v is None else v for v in values], float)
-        elif c.kind == "int":
-            table[c.name] = np.array([-1 if v is None else v for v in values], int)
-        else:
-            table[c.name] = np.array(["" if v is None else v for v in values], dtype=object)
+        table[c.name] = _run_column(values, c, folder / "boundaries.json")
     png = folder / "boundaries.png"
-    figure = png.read_bytes() if png.exists() else None
-    files = write_report(folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure)
+    figure = None
+    if os.path.lexists(png):
+        check_regular_file(png, kind="run")
+        figure = png.read_bytes()
+    try:
+        files = write_report(
+            folder, docs["summary.json"], table, BOUNDARY_COLUMNS, figure_png=figure
+        )
+    except (TypeError, KeyError, AttributeError, ValueError, IndexError) as exc:
+        # An edited summary.json: its parts have the wrong types for the report.
+        raise InputError(
+            f"Expected summary.json as a run wrote it, got a part of the wrong type "
+            f"({type(exc).__name__}).",
+            path=folder / "summary.json",
+        ) from None
     return RunResult(folder, tuple(files), (f"{folder}: report.html and report.md written",))
+
+
+def _run_column(values: list, column, path) -> np.ndarray:
+    """One column of an earlier run's boundaries.json, its types checked."""
+    kinds = {"float": (int, float), "int": (int,), "str": (str,)}.get(column.kind, (str,))
+    for i, v in enumerate(values):
+        if v is not None and (not isinstance(v, kinds) or isinstance(v, bool)):
+            raise InputError(
+                f"Expected {column.name!r} to be {column.kind} or null, got {type(v).__name__}.",
+                path=path,
+                pointer=f"/rows/{i}/{column.name}",
+            )
+    if column.kind == "float":
+        return np.array([np.nan if v is None else v for v in values], float)
+    if column.kind == "int":
+        ints = [-1 if v is None else v for v in values]
+        if any(abs(v) > np.iinfo(np.int64).max for v in ints):
+            raise InputError(
+                f"Expected {column.name!r} to fit 64-bit integers, got a larger one.",
+                path=path,
+                pointer=f"/rows/*/{column.name}",
+            )
+        return np.array(ints, np.int64)
+    return np.array(["" if v is None else v for v in values], dtype=object)
 
 
 # ----------------------------------------------------------------------------- outputs
@@ -731,8 +808,11 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
             {**job.raw, "stereology": {}}, base_dir=job.base_dir, path_for_errors=job.source_path
         )
     out = Path(out_dir)
-    with staged_output_dir(out, overwrite=overwrite) as stage_dir:
+    lines: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=lines
+    ) as stage_dir:
         analysis = run(job, stage="traces", progress=progress)
         files = _stereology_outputs(analysis, stage_dir, standalone=True)
-    lines = [f"{out}: plane_distribution.json and {len(files) - 3} stereogram files"]
+    lines.append(f"{out}: plane_distribution.json and {len(files) - 3} stereogram files")
     return RunResult(out, tuple(out / Path(f).name for f in files), tuple(lines))

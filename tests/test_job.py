@@ -302,7 +302,7 @@ def test_missing_empty_and_invalid_job_files(folder):
     with pytest.raises(InputError, match=r"list.json: /: Expected a JSON object at the top level"):
         load_job(folder / "list.json")
     (folder / "latin.json").write_bytes(b'{"name": "\xe9"}')
-    with pytest.raises(InputError, match=r"latin.json: Expected a readable UTF-8 job file"):
+    with pytest.raises(InputError, match=r"latin.json: Expected UTF-8 text"):
         load_job(folder / "latin.json")
 
 

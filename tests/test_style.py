@@ -24,6 +24,7 @@ PACKAGE = ROOT / "inclination"
 # The one module allowed to compute the §5 quantities (docs/conventions.md §5).
 SECTION5_HOME = "inclination/planes/geometry.py"
 
+
 def test_ruff_check_is_clean():
     # ruff is part of the test extra; a finding fails the suite like any other defect.
     result = subprocess.run(

@@ -564,7 +564,9 @@ def test_bad_settings_raise():
         fit_segments(net, step_um=1.0, tolerance_um=-1.0)
     with pytest.raises(SettingError, match="Expected `min_length_um` to be a finite number >= 0"):
         fit_segments(net, step_um=1.0, min_length_um=np.nan)
-    with pytest.raises(SettingError, match=r"Expected `grid` to be one of \('square', 'hexagonal'\)"):
+    with pytest.raises(
+        SettingError, match=r"Expected `grid` to be one of \('square', 'hexagonal'\)"
+    ):
         fit_segments(net, step_um=1.0, grid="hex")
     with pytest.raises(SettingError, match="Expected `grid` to be one of"):
         trace_sigma_model_deg(10.0, 1.0, 0.0, 10, grid="triangular")

@@ -10,7 +10,7 @@ return plain arrays; :func:`inclination.maps.read_map` turns them into an
 
 from __future__ import annotations
 
-import json
+import math
 from os import PathLike
 from pathlib import Path
 
@@ -22,15 +22,68 @@ from .schemas import load_schema
 __all__ = ["read_npz_arrays", "read_sidecar", "read_tiff_arrays"]
 
 
+def _check_npz_members(path) -> None:
+    """Refuse a file that is not a zip of .npy arrays, or whose headers promise more than it holds.
+
+    A header is read before its array: a forged shape would otherwise make NumPy try to
+    allocate whatever it promises (hundreds of GiB) before finding the data missing.
+    """
+    import zipfile
+
+    from .limits import check_regular_file
+
+    check_regular_file(path, kind="map")
+    if not zipfile.is_zipfile(path):
+        raise InputError(
+            "Expected a NumPy .npz archive (a zip of .npy arrays), got a file that is not a zip "
+            "(a single .npy, or a text table declared as npz?).",
+            path=path,
+        )
+    try:
+        with zipfile.ZipFile(path) as zf:
+            for info in zf.infolist():
+                with zf.open(info) as fh:
+                    version = np.lib.format.read_magic(fh)
+                    read_header = (
+                        np.lib.format.read_array_header_1_0
+                        if version == (1, 0)
+                        else np.lib.format.read_array_header_2_0
+                    )
+                    shape, _fortran, dtype = read_header(fh)
+                    header_bytes = fh.tell()
+                if dtype.hasobject:
+                    raise InputError(
+                        f"Expected arrays of numbers, got objects in {info.filename!r}.",
+                        path=path,
+                        pointer=info.filename.removesuffix(".npy"),
+                    )
+                promised = math.prod(shape) * dtype.itemsize
+                if promised > info.file_size - header_bytes:
+                    raise InputError(
+                        f"Expected array {info.filename.removesuffix('.npy')!r} to hold the "
+                        f"{promised} bytes its header promises, got "
+                        f"{max(info.file_size - header_bytes, 0)}.",
+                        path=path,
+                        pointer=info.filename.removesuffix(".npy"),
+                    )
+    except InputError:
+        raise
+    except (OSError, ValueError, EOFError, zipfile.BadZipFile, KeyError) as exc:
+        raise InputError(
+            f"Expected a NumPy .npz archive, got an unreadable one ({type(exc).__name__}).",
+            path=path,
+        ) from None
+
+
 def _load_npz(path):
+    _check_npz_members(path)
     try:
         with np.load(path, allow_pickle=False) as npz:
             return {k: npz[k] for k in npz.files}
-    except FileNotFoundError:
-        raise InputError("Expected an existing file, got none at this path.", path=path) from None
     except (OSError, ValueError, EOFError) as exc:
         raise InputError(
-            f"Expected a NumPy .npz archive, got an unreadable file ({exc}).", path=path
+            f"Expected a NumPy .npz archive, got an unreadable one ({type(exc).__name__}).",
+            path=path,
         ) from None
 
 
@@ -115,20 +168,15 @@ def read_npz_arrays(
 
 def read_sidecar(path: str | PathLike) -> dict:
     """Read and validate a TIFF sidecar (schemas/tiff-sidecar.schema.json)."""
-    from jsonschema import Draft202012Validator
+    from .limits import read_json, schema_validator
 
-    try:
-        doc = json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
+    if not Path(path).exists():
         raise InputError(
             "Expected the TIFF's JSON sidecar naming its channels, got no file at this path.",
             path=path,
-        ) from None
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(
-            f"Expected a JSON sidecar, got unreadable JSON ({exc}).", path=path
-        ) from None
-    validator = Draft202012Validator(load_schema("tiff-sidecar.schema.json"))
+        )
+    doc = read_json(path, kind="sidecar")
+    validator = schema_validator(load_schema("tiff-sidecar.schema.json"))
     errors = sorted(validator.iter_errors(doc), key=lambda e: list(e.absolute_path))
     if errors:
         err = errors[0]

@@ -135,25 +135,10 @@ def load_job(path) -> Job:
     >>> j.grains["threshold_deg"], j.traces, j.map["data_frame_rotation"]
     (5, {'min_length_um': 5.0, 'tolerance_um': 0.75}, 'identity')
     """
+    from .limits import read_json
+
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(
-            "Expected an existing job file, got none at this path.", path=path
-        ) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"Expected a readable UTF-8 job file, got {exc}.", path=path) from None
-    if not text.strip():
-        raise InputError("Expected a JSON object, got an empty file.", path=path)
-    try:
-        doc = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise InputError(
-            f"Expected valid JSON, got {exc.msg}.",
-            path=path,
-            pointer=f"line {exc.lineno}, column {exc.colno}",
-        ) from None
+    doc = read_json(path, kind="job")
     return job_from_dict(doc, base_dir=path.parent, path_for_errors=path)
 
 
@@ -184,7 +169,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
     >>> job.phase_ids, job.planes["sigma_criterion"], job.sections
     ((1,), 'brandon', ())
     """
-    from jsonschema import Draft202012Validator
+    from .limits import schema_validator
 
     if not isinstance(d, Mapping):
         raise InputError(
@@ -194,7 +179,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         )
     doc = copy.deepcopy(dict(d))
     schema = load_schema("job.schema.json")
-    validator = Draft202012Validator(schema)
+    validator = schema_validator(schema)
     errors = list(validator.iter_errors(doc))
     if errors:
         raise _schema_error(_pick(errors), path_for_errors)

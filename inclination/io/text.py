@@ -183,13 +183,10 @@ def read_table(
     >>> t.header, t.values.tolist(), t.first_line
     (('a', 'b'), [[1.0, 2.0], [3.0, nan]], 2)
     """
+    from .limits import read_bytes
+
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("Expected an existing file, got none at this path.", path=path) from None
-    except OSError as exc:
-        raise InputError(f"Expected a readable file, got {exc.strerror}.", path=path) from None
+    raw = read_bytes(path, kind="map")
     # hashlib releases the GIL on large buffers: the digest is computed while
     # numpy parses the same bytes.
     hasher = ThreadPoolExecutor(max_workers=1)
@@ -368,6 +365,9 @@ def _first_off(residual: np.ndarray) -> int:
     return -1 if bad.size == 0 else int(bad[0])
 
 
+_MAX_COORD_UM = 1e9
+
+
 def place_on_grid(
     x_um: ArrayLike,
     y_um: ArrayLike,
@@ -423,6 +423,16 @@ def place_on_grid(
     def refuse(message, row=None):
         pointer = None if row is None else f"line {line_of(row)}"
         raise InputError(message, path=path, pointer=pointer)
+
+    # A map spans millimetres; coordinates beyond a kilometre are broken cells, and
+    # far beyond they overflow the grid arithmetic (steps, indices).
+    for name, v in (("x", x), ("y", y)):
+        far = np.flatnonzero(~(np.abs(v) <= _MAX_COORD_UM))
+        if far.size:
+            refuse(
+                f"Expected {name} coordinates within ±{_MAX_COORD_UM:g} µm, got {v[far[0]]!r}.",
+                int(far[0]),
+            )
 
     # A declared step separates lines at once: x lines are a step (square) or half a
     # step (hexagonal) apart, rows a step or step·√3/2, so these cuts suit both grids.

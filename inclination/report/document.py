@@ -80,24 +80,36 @@ def _verdict_sentence(summary: dict) -> str:
     return str(verdict.get("sentence", verdict.get("verdict", "")))
 
 
+def _md(text) -> str:
+    """Text safe inside Markdown: raw HTML (from an edited run folder) shown, not run."""
+    return (
+        str(text)
+        .replace("&", "&amp;")
+        .replace("<", "&lt;")
+        .replace(">", "&gt;")
+        .replace("|", "\\|")
+        .replace("\n", " ")
+    )
+
+
 def render_markdown(summary: dict, table: dict, columns: Sequence[Column]) -> str:
     """The report as Markdown text."""
     by_name = {c.name: c for c in columns}
     shown = [by_name[n] for n in _REPORT_COLUMNS if n in by_name]
     lines = [
-        f"# {summary.get('title', 'Boundary planes')}",
+        f"# {_md(summary.get('title', 'Boundary planes'))}",
         "",
-        f"**Frame:** {_verdict_sentence(summary)}",
+        f"**Frame:** {_md(_verdict_sentence(summary))}",
         "",
     ]
-    lines += [f"- {k}: {v}" for k, v in _facts(summary)]
+    lines += [f"- {k}: {_md(v)}" for k, v in _facts(summary)]
     lines += ["", "![boundaries](boundaries.png)", ""]
     lines += features_section_markdown(summary)
     lines.append("| " + " | ".join(c.name for c in shown) + " |")
     lines.append("|" + "|".join("---" for _ in shown) + "|")
     n = len(next(iter(table.values()))) if table else 0
     for i in range(n):
-        lines.append("| " + " | ".join(format_cell(table[c.name][i], c) for c in shown) + " |")
+        lines.append("| " + " | ".join(_md(format_cell(table[c.name][i], c)) for c in shown) + " |")
     lines += ["", f"_{_CAVEAT}_", ""]
     return "\n".join(lines)
 

@@ -203,11 +203,16 @@ def save_figure(fig: Figure, path_stem: str | os.PathLike) -> list[Path]:
     """Save a figure as PNG (200 dpi) and SVG beside each other, atomically; returns the paths."""
     import io
 
+    import matplotlib
+
     from .atomic import write_bytes_atomic
 
     paths = []
-    for ext, kwargs in (("png", {"dpi": 200}), ("svg", {})):
-        buf = io.BytesIO()
-        fig.savefig(buf, format=ext, bbox_inches="tight", **kwargs)
-        paths.append(write_bytes_atomic(Path(f"{path_stem}.{ext}"), buf.getvalue()))
+    # Identical runs give identical bytes: no date in the metadata, and SVG ids from a
+    # fixed salt instead of a random one.
+    with matplotlib.rc_context({"svg.hashsalt": "inclination"}):
+        for ext, kwargs in (("png", {"dpi": 200}), ("svg", {})):
+            buf = io.BytesIO()
+            fig.savefig(buf, format=ext, bbox_inches="tight", metadata={"Date": None}, **kwargs)
+            paths.append(write_bytes_atomic(Path(f"{path_stem}.{ext}"), buf.getvalue()))
     return paths
