@@ -33,6 +33,15 @@ def _add_common(p: argparse.ArgumentParser, *, default_out: str) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bars")
 
 
+def _add_candidates(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--all-candidates",
+        action="store_true",
+        help="write every candidate plane to candidates.jsonl, not only those that fit or are "
+        "shared (job setting planes.candidate_rows)",
+    )
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="inclination",
@@ -48,10 +57,18 @@ def _build_parser() -> argparse.ArgumentParser:
     analyse = sub.add_parser("analyse", help="the whole job, driven by a job file")
     analyse.add_argument("job", help="job file (JSON)")
     _add_common(analyse, default_out="inclination-out")
+    _add_candidates(analyse)
     for name, text in _STAGES.items():
         p = sub.add_parser(name, help=text)
         p.add_argument("job", help="job file (JSON)")
         _add_common(p, default_out=f"inclination-{name}")
+        if name in ("planes", "sections"):
+            _add_candidates(p)
+    audit = sub.add_parser(
+        "audit", help="the frame audit alone: which frame the twin traces support (audit.json)"
+    )
+    audit.add_argument("job", help="job file (JSON)")
+    _add_common(audit, default_out="inclination-audit")
     report = sub.add_parser(
         "report", help="write report.html and report.md again from a finished run's folder"
     )
@@ -89,6 +106,8 @@ def _dispatch(args) -> int:
         )
     elif args.command == "report":
         result = pipeline.rebuild_report(args.run)
+    elif args.command == "audit":
+        result = pipeline.audit(args.job, args.out, overwrite=args.overwrite, progress=progress)
     elif args.command == "stereology":
         result = pipeline.stereology(
             args.job, args.out, overwrite=args.overwrite, progress=progress
@@ -96,11 +115,18 @@ def _dispatch(args) -> int:
     else:
         stage = "sections" if args.command == "analyse" else args.command
         result = pipeline.analyse(
-            args.job, args.out, stage=stage, overwrite=args.overwrite, progress=progress
+            args.job,
+            args.out,
+            stage=stage,
+            overwrite=args.overwrite,
+            progress=progress,
+            all_candidates=getattr(args, "all_candidates", False),
         )
     if not getattr(args, "quiet", False):
         for line in result.messages:
             print(line)
+    for line in result.warnings:
+        print(line, file=sys.stderr)
     return 0
 
 

@@ -18,7 +18,10 @@ sample frame S of conventions §2):
 - ``surface_z180.npz``, ``serial_5um_z180.npz``, ``job_z180.json``: the same
   sample recorded by an instrument whose data frame is turned 180° about Z_S (§6),
   the job unaware of it: traces agree, every predicted dip direction is reversed;
-- both job files also carry a ``features`` block: slip traces drawn in grains of a strained
+- ``surface_z90.npz``, ``serial_5um_z90.npz``, ``job_z90.json``: the same sample
+  exported with its orientation axes turned 90° about the surface normal, the job
+  unaware of it: the frame audit (inclination.audit) must find it and give the patch;
+- the job files also carry a ``features`` block: slip traces drawn in grains of a strained
   region (the right half of the map, invented: a tensile load along x), each on the {111}
   plane with the highest Schmid factor (:mod:`inclination.synthetic.slip_traces`);
 - ``truth.json``: every grain and boundary plane, the boundaries each map shows,
@@ -151,15 +154,16 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     -------
     dict of str to Path
         ``surface``, ``serial``, ``job``, ``surface_z180``, ``serial_z180``,
-        ``job_z180``, ``truth``.
+        ``job_z180``, ``truth``, ``surface_z90``, ``serial_z90``, ``job_z90``.
 
     Examples
     --------
     >>> import tempfile
     >>> with tempfile.TemporaryDirectory() as folder:
     ...     paths = write_demo_scenario(folder)
-    >>> sorted(paths)
-    ['job', 'job_z180', 'serial', 'serial_z180', 'surface', 'surface_z180', 'truth']
+    >>> sorted(paths)  # doctest: +NORMALIZE_WHITESPACE
+    ['job', 'job_z180', 'job_z90', 'serial', 'serial_z180', 'serial_z90', 'surface',
+     'surface_z180', 'surface_z90', 'truth']
     """
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
         raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")
@@ -272,7 +276,40 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
         },
     }
     truth["scenario"]["features"] = feature_truth
+    paths.update(_turned_axes_case(out, surface, serial, sections, features, story))
+    truth["scenario"]["cases"]["job_z90.json"] = {
+        "data_frame": "turned 90° about Z_S (conventions §3)",
+        "expected_audit": {"declared_is_best": False, "job_patch": {"data_frame_rotation": "z90"}},
+    }
     paths["truth"] = write_json_atomic(out / "truth.json", truth)
+    return paths
+
+
+def _turned_axes_case(out, surface, serial, sections, features, story):
+    """The third case: maps exported with their axes turned 90° about Z, the job unaware."""
+    from .frames import data_frame_quat
+
+    turn = data_frame_quat("z90")
+    paths = {
+        "surface_z90": _write_npz(
+            out / "surface_z90.npz", recorded_in_frame(surface, rotation=turn)
+        ),
+        "serial_z90": _write_npz(
+            out / "serial_5um_z90.npz", recorded_in_frame(serial, rotation=turn)
+        ),
+    }
+    paths["job_z90"] = write_json_atomic(
+        out / "job_z90.json",
+        _with_features(
+            _job(
+                "surface_z90.npz",
+                "serial_5um_z90.npz",
+                sections,
+                story + "; maps exported with their axes turned 90° about the surface normal.",
+            ),
+            features,
+        ),
+    )
     return paths
 
 

@@ -39,6 +39,7 @@ __all__ = [
     "SCREEN_DIRECTIONS",
     "NAMED_TURNS",
     "DeclaredAxes",
+    "ROTATION_SENSES",
     "data_frame_quat",
     "orientations_to_sample",
     "orientations_to_declared",
@@ -56,6 +57,12 @@ _SCREEN_ANGLE_DEG = {"right": 0.0, "down": 90.0, "left": 180.0, "up": 270.0}
 NAMED_TURNS = ("identity",) + tuple(f"{axis}{angle}" for axis in "xyz" for angle in (90, 180, 270))
 
 _TRACE_KINDS = ("trace", "azimuth")
+
+#: How a map's stored rotations are read (conventions §3): ``"passive"`` (the stored
+#: rotation is g_data, data frame to crystal) or ``"active"`` (it is g_dataᵀ).
+ROTATION_SENSES = ("passive", "active")
+
+_CONJUGATE = np.array([1.0, -1.0, -1.0, -1.0])
 
 
 @dataclass(frozen=True)
@@ -356,7 +363,9 @@ def _sample_to_data_quat(axes: DeclaredAxes, data_frame_rotation) -> np.ndarray:
     return quat_multiply(quat_inverse(q_dfr), quat_inverse(q_m))
 
 
-def orientations_to_sample(quat_data, axes: DeclaredAxes, data_frame_rotation=None):
+def orientations_to_sample(
+    quat_data, axes: DeclaredAxes, data_frame_rotation=None, *, rotation_sense: str = "passive"
+):
     """Orientations referred to the data frame to orientations in S (conventions §2–§3).
 
     Derivation. The data's orientation maps data-frame vectors to crystal:
@@ -373,6 +382,10 @@ def orientations_to_sample(quat_data, axes: DeclaredAxes, data_frame_rotation=No
     axes : DeclaredAxes
     data_frame_rotation : array_like, shape (4,), optional
         From :func:`data_frame_quat`; identity if omitted.
+    rotation_sense : {'passive', 'active'}
+        ``'active'``: the stored rotation r maps crystal to data frame, so
+        ``g_data = rᵀ`` (the quaternion's conjugate) before the conversion:
+        ``g_S = rᵀ · R`` (conventions §3).
 
     Returns
     -------
@@ -386,20 +399,33 @@ def orientations_to_sample(quat_data, axes: DeclaredAxes, data_frame_rotation=No
     >>> quat_as_matrix(q).round(6).tolist()  # declared axes: S turned 180° about Z_S
     [[-1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.0, 0.0, 1.0]]
     """
+    check_one_of(rotation_sense, "rotation_sense", ROTATION_SENSES)
     dfr = np.array([1.0, 0.0, 0.0, 0.0]) if data_frame_rotation is None else data_frame_rotation
+    if rotation_sense == "active":
+        quat_data = np.asarray(quat_data) * _CONJUGATE.astype(np.asarray(quat_data).dtype)
     q = quat_multiply(quat_data, _sample_to_data_quat(axes, dfr))
     return np.where(q[..., :1] < 0, -q, q) + 0.0
 
 
-def orientations_to_declared(quat_sample, axes: DeclaredAxes, data_frame_rotation=None):
-    """Orientations in S back to the data frame: ``g_data = g_S · Rᵀ`` (inverse of the above).
+def orientations_to_declared(
+    quat_sample, axes: DeclaredAxes, data_frame_rotation=None, *, rotation_sense: str = "passive"
+):
+    """Orientations in S back to the stored rotations: ``g_data = g_S · Rᵀ`` (inverse of the above).
+
+    With ``rotation_sense='active'`` the result is the stored rotation ``r = g_dataᵀ``.
 
     Examples
     --------
     >>> q = orientations_to_declared([0.0, 0.0, 0.0, 1.0], DeclaredAxes("left", "up"))
     >>> q.round(6).tolist()
     [1.0, 0.0, 0.0, 0.0]
+    >>> q = orientations_to_declared([0.6, 0.8, 0.0, 0.0], DeclaredAxes(), rotation_sense="active")
+    >>> q.round(6).tolist()
+    [0.6, -0.8, 0.0, 0.0]
     """
+    check_one_of(rotation_sense, "rotation_sense", ROTATION_SENSES)
     dfr = np.array([1.0, 0.0, 0.0, 0.0]) if data_frame_rotation is None else data_frame_rotation
     q = quat_multiply(quat_sample, quat_inverse(_sample_to_data_quat(axes, dfr)))
+    if rotation_sense == "active":
+        q = q * _CONJUGATE
     return np.where(q[..., :1] < 0, -q, q) + 0.0

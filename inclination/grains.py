@@ -487,6 +487,9 @@ def _grain_orientations(
         np.subtract(q[:, s:e], rn, out=rn)
         dn = np.einsum("cn,cn->n", rn, rn)
         np.minimum(dn, 4.0 - dn, out=dn)
+        # float32 unit quaternions have norms 1 ± 1e-7, so a point nearly antipodal to
+        # its mean can give |q - m|² a little above 4 and 4 - x a little below 0.
+        np.maximum(dn, np.float32(0.0), out=dn)
         inside = np.repeat(vals > 0, counts)
         # Beyond 30° the identity may not be the nearest equivalent: full symmetry test.
         far = np.flatnonzero(inside & (dn > np.float32(4 * np.sin(_IDENTITY_SAFE_RAD / 4) ** 2)))

@@ -28,7 +28,13 @@ import numpy as np
 from ._validation import check_one_of
 from .crystal.rotations import quat_as_euler_deg, quat_from_euler_deg
 from .errors import InputError, SettingError
-from .frames import DeclaredAxes, data_frame_quat, orientations_to_declared, orientations_to_sample
+from .frames import (
+    ROTATION_SENSES,
+    DeclaredAxes,
+    data_frame_quat,
+    orientations_to_declared,
+    orientations_to_sample,
+)
 from .io.arrays import read_npz_arrays, read_tiff_arrays
 from .io.text import TABLE_DELIMITERS, place_on_grid, read_table
 
@@ -127,6 +133,8 @@ class OrientationMap:
         write angles and positions back in the user's frame.
     data_frame_rotation : array_like, shape (4,)
         Quaternion of the declared data-frame rotation (frames.data_frame_quat).
+    rotation_sense : {'passive', 'active'}
+        How the stored rotations were read (conventions §3); ``quat`` is in S either way.
     provenance : mapping
         Source path, SHA-256 of the file, reader and its settings.
 
@@ -155,6 +163,7 @@ class OrientationMap:
     axes: DeclaredAxes = field(default_factory=DeclaredAxes)
     data_frame_rotation: np.ndarray = _IDENTITY
     provenance: Mapping = field(default_factory=dict)
+    rotation_sense: str = "passive"
 
     def __post_init__(self):
         # Planes (4, H, W) that own their memory, are float32, C-ordered and already
@@ -244,6 +253,11 @@ class OrientationMap:
         object.__setattr__(self, "valid", _read_only(valid))
         object.__setattr__(self, "quality", MappingProxyType(quality))
         object.__setattr__(self, "data_frame_rotation", _read_only(dfr))
+        if self.rotation_sense not in ROTATION_SENSES:
+            raise SettingError(
+                f"Expected `rotation_sense` to be one of {ROTATION_SENSES}, "
+                f"got {self.rotation_sense!r}."
+            )
         object.__setattr__(self, "provenance", MappingProxyType(dict(self.provenance)))
 
     @classmethod
@@ -350,7 +364,9 @@ class OrientationMap:
         """
         out = np.full(self.shape + (3,), np.nan)
         q = self.quat[self.valid].astype(np.float64)
-        q_data = orientations_to_declared(q, self.axes, self.data_frame_rotation)
+        q_data = orientations_to_declared(
+            q, self.axes, self.data_frame_rotation, rotation_sense=self.rotation_sense
+        )
         out[self.valid] = quat_as_euler_deg(q_data)
         return out
 
@@ -622,6 +638,13 @@ def read_map(
     dfr = data_frame_quat(
         spec.get("data_frame_rotation"), path=job_path, pointer=f"{pointer}/data_frame_rotation"
     )
+    sense = spec.get("rotation_sense", "passive")
+    if sense not in ROTATION_SENSES:
+        raise InputError(
+            f"Expected one of {ROTATION_SENSES}, got {sense!r}.",
+            path=job_path,
+            pointer=f"{pointer}/rotation_sense",
+        )
     step_x, step_y = _steps_sample(spec, axes, grid, job_path, pointer)
     path = Path(spec["path"])
     if base_dir is not None and not path.is_absolute():
@@ -638,6 +661,8 @@ def read_map(
         "axes": axes.as_dict(),
         "data_frame_rotation": spec.get("data_frame_rotation", "identity"),
     }
+    if sense != "passive":
+        settings["rotation_sense"] = sense
     if fmt in TABLE_DELIMITERS:
         omap_args = _read_table_map(
             spec,
@@ -695,7 +720,28 @@ def read_map(
         "reader": reader,
         "settings": settings,
     }
-    return OrientationMap(data_frame_rotation=dfr, provenance=provenance, **omap_args)
+    if sense == "active":
+        omap_args["quat"] = _active_to_sample(omap_args["quat"], omap_args["valid"], axes, dfr)
+    return OrientationMap(
+        data_frame_rotation=dfr, provenance=provenance, rotation_sense=sense, **omap_args
+    )
+
+
+def _active_to_sample(quat, valid, axes, dfr):
+    """Quaternions (H, W, 4) read as passive, re-read as active (conventions §3).
+
+    The readers convert the stored rotation r as if it were g_data; an active map's
+    g_data is rᵀ, so r is recovered and converted again, in blocks (one extra pass,
+    paid only by maps declared active).
+    """
+    out = np.array(quat, dtype=np.float32)
+    flat = out.reshape(-1, 4)
+    rows = np.flatnonzero(np.asarray(valid).ravel())
+    for start in range(0, rows.size, _BLOCK):
+        r = rows[start : start + _BLOCK]
+        stored = orientations_to_declared(flat[r].astype(np.float64), axes, dfr)
+        flat[r] = orientations_to_sample(stored, axes, dfr, rotation_sense="active")
+    return out
 
 
 def _no_indexed_point(path):

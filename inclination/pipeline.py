@@ -33,7 +33,7 @@ if TYPE_CHECKING:
     from .network import BoundaryNetwork
     from .planes import TwinTestSummary
 
-__all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "demo"]
+__all__ = ["STAGES", "Analysis", "RunResult", "run", "write_outputs", "analyse", "audit", "demo"]
 
 #: Stages in data-flow order; each includes everything before it.
 STAGES = ("grains", "traces", "planes", "sections")
@@ -72,6 +72,8 @@ class Analysis:
     measured, senses, planes_full : Table or None
         The fields of :class:`inclination.compare.Comparison`.
     verdict : FrameVerdict or None
+    audit : FrameAudit or None
+        The frame audit (inclination.audit), from the planes stage on.
 
     Absent stages hold None (or an empty tuple).
     """
@@ -93,6 +95,7 @@ class Analysis:
     verdict: FrameVerdict | None = None
     planes_full: Table | None = None
     features: Table | None = None
+    audit: Any = None
 
 
 @dataclass(frozen=True)
@@ -107,13 +110,17 @@ class RunResult:
     messages : tuple of str
         The lines the command line prints.
     summary : dict or None
-        What ``summary.json`` holds; for ``demo``, the two summaries by folder name.
+        What ``summary.json`` holds; for ``demo``, the summaries by folder name.
+    warnings : tuple of str
+        Lines for stderr (the frame audit's finding and patch, when the declared frame
+        is not the best beyond doubt).
     """
 
     out_dir: Path
     files: tuple[Path, ...]
     messages: tuple[str, ...] = field(default=())
     summary: dict | None = None
+    warnings: tuple[str, ...] = field(default=())
 
 
 def _stage_index(stage: str) -> int:
@@ -418,7 +425,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     twin = twin_test_summary(identification, segments)
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
-        return _with_features(analysis)
+        return _with_features(replace(analysis, audit=_frame_audit(analysis)))
     from .compare import DEFAULT_BLUNDER_RATE, best_measurements, compare_map
 
     tables, notes = _sections(job, omap, grain_map, segments, progress)
@@ -442,7 +449,77 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         verdict=comparison.verdict,
         planes_full=comparison.planes_full,
     )
-    return _with_features(analysis)
+    return _with_features(replace(analysis, audit=_frame_audit(analysis)))
+
+
+def _frame_audit(analysis: Analysis):
+    """The frame audit of the surface map (inclination.audit), settled by the sections."""
+    from .audit import audit_frame
+
+    job, omap = analysis.job, analysis.omap
+    settle = None
+    if analysis.section_tables:
+        from .compare import best_measurements, compare_map
+        from .planes import match_planes
+
+        measured = best_measurements(*analysis.section_tables)
+        p = job.planes
+
+        def settle(quat_sample, phases):
+            # The comparator under the hypothesis: the same grains and segments, the
+            # grain orientations turned as the hypothesis says (conventions §6). Within
+            # 0.2° of the declared orientations the run's own verdict is that comparison.
+            declared = np.asarray(analysis.grain_map.grains["quat"], float)
+            same = np.abs(np.einsum("ni,ni->n", np.nan_to_num(declared), quat_sample))
+            close = same[np.isfinite(declared[:, 0])] > 1 - 1.5e-6
+            if analysis.verdict is not None and np.all(close):
+                return analysis.verdict.verdict
+            grains = dict(analysis.grain_map.grains, quat=quat_sample)
+            grain_map = replace(analysis.grain_map, grains=grains)
+            table = match_planes(
+                analysis.segments,
+                grain_map,
+                phases,
+                k=p["k"],
+                floor_deg=p["floor_deg"],
+                max_tolerance_deg=p["max_tolerance_deg"],
+                sigma_criterion=p["sigma_criterion"],
+            ).identification
+            return compare_map(
+                measured,
+                table,
+                grains,
+                phases,
+                coherent_tolerance_deg=p["max_tolerance_deg"],
+            ).verdict.verdict
+
+    pointers = ["/map"] + [
+        f"/sections/{i}/map" for i, s in enumerate(job.sections) if s.get("kind") == "serial"
+    ]
+    return audit_frame(
+        analysis.segments,
+        analysis.grain_map.grains,
+        job.phases,
+        axes=omap.axes,
+        data_frame_rotation=omap.data_frame_rotation,
+        rotation_sense=omap.rotation_sense,
+        sigma_criterion=job.planes["sigma_criterion"],
+        settle=settle,
+        map_pointers=tuple(pointers),
+    )
+
+
+def _audit_warnings(analysis: Analysis) -> tuple[str, ...]:
+    """The one stderr line of a frame audit that does not confirm the declared frame."""
+    a = analysis.audit
+    if a is None or a.declared_is_best is True:
+        return ()
+    if a.declared_is_best == "undecided":
+        return (f"inclination: warning: frame audit undecided: {a.reason}",)
+    return (
+        "inclination: warning: the declared frame is not the best fit of the twin traces; "
+        f"job patch {a.patch_line()} (see audit.json)",
+    )
 
 
 def _with_features(analysis: Analysis) -> Analysis:
@@ -461,6 +538,7 @@ def analyse(
     stage: str = "sections",
     overwrite: bool = False,
     progress: ProgressFactory | None = None,
+    all_candidates: bool = False,
 ) -> RunResult:
     """Load a job file, run it up to ``stage`` and write the outputs into ``out_dir``.
 
@@ -479,6 +557,9 @@ def analyse(
         Replace an existing ``out_dir``.
     progress : callable, optional
         As for :func:`run`.
+    all_candidates : bool, optional
+        Write every candidate plane to ``candidates.jsonl``, as the job setting
+        ``planes.candidate_rows = "all"`` does.
 
     Returns
     -------
@@ -509,6 +590,8 @@ def analyse(
     from .report.atomic import staged_output_dir
 
     job = load_job(job_path)
+    if all_candidates:
+        job = replace(job, planes={**job.planes, "candidate_rows": "all"})
     out = Path(out_dir)
     notes: list = []
     with staged_output_dir(
@@ -518,7 +601,13 @@ def analyse(
         files, summary = write_outputs(analysis, stage_dir)
         files += _stereology_outputs(analysis, stage_dir, standalone=False)
     files = tuple(out / Path(f).name for f in files)
-    return RunResult(out, files, tuple(notes + _messages(summary, out)), summary)
+    return RunResult(
+        out,
+        files,
+        tuple(notes + _messages(summary, out)),
+        summary,
+        warnings=_audit_warnings(analysis),
+    )
 
 
 def _input_files(job) -> list:
@@ -529,6 +618,39 @@ def _input_files(job) -> list:
         if isinstance(spec, dict):
             files += [spec.get("path"), spec.get("sidecar")]
     return [f for f in files if f]
+
+
+def audit(
+    job_path: str | os.PathLike,
+    out_dir: str | os.PathLike,
+    *,
+    overwrite: bool = False,
+    progress: ProgressFactory | None = None,
+) -> RunResult:
+    """The frame audit of a job alone: writes ``audit.json`` (schemas/audit.schema.json).
+
+    Runs the job up to its planes (and its sections, which settle the 180° partner,
+    when it has any) and writes the ranked hypotheses and the job patch.
+    """
+    from .io.job import load_job
+    from .report.atomic import staged_output_dir, write_json_atomic
+
+    job = load_job(job_path)
+    out = Path(out_dir)
+    notes: list = []
+    with staged_output_dir(
+        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+    ) as stage_dir:
+        analysis = run(job, stage="sections", progress=progress)
+        write_json_atomic(stage_dir / "audit.json", analysis.audit.as_dict())
+    line = f"{out / 'audit.json'}: {analysis.audit.sentence()}"
+    return RunResult(
+        out,
+        (out / "audit.json",),
+        (*notes, line),
+        analysis.audit.as_dict(),
+        warnings=_audit_warnings(analysis),
+    )
 
 
 def _messages(summary, out):
@@ -555,8 +677,10 @@ def demo(
     """Write the demo scenario and run the whole job on it, and on its turned-frame twin.
 
     The folder gets ``scenario/`` (maps, job files, ground truth), ``results/``
-    (the job as declared) and ``results-turned-frame/`` (the same sample recorded
-    in a frame turned 180° about the surface normal: its verdict must say so).
+    (the job as declared), ``results-turned-frame/`` (the same sample recorded
+    in a frame turned 180° about the surface normal: its verdict must say so) and
+    ``results-turned-axes/`` (recorded with axes turned 90° about the normal: the
+    frame audit leads its report with the finding and the job patch).
 
     Examples
     --------
@@ -565,6 +689,8 @@ def demo(
     >>> [result.summary[k]["frame_verdict"]["verdict"]
     ...  for k in ("results", "results-turned-frame")]
     ['as_declared', 'turned_180_about_normal']
+    >>> result.summary["results-turned-axes"]["frame_audit"]["job_patch"]["map"]
+    {'data_frame_rotation': 'z90'}
     """
     from .demo import write_demo_scenario
     from .io.job import load_job
@@ -575,7 +701,12 @@ def demo(
     with staged_output_dir(out, overwrite=overwrite, notes=messages) as stage_dir:
         paths = write_demo_scenario(stage_dir / "scenario", seed=seed)
         summaries = {}
-        for key, folder in (("job", "results"), ("job_z180", "results-turned-frame")):
+        cases = (
+            ("job", "results"),
+            ("job_z180", "results-turned-frame"),
+            ("job_z90", "results-turned-axes"),
+        )
+        for key, folder in cases:
             job = load_job(paths[key])
             analysis = run(job, stage="sections", progress=progress)
             (stage_dir / folder).mkdir()
@@ -584,6 +715,7 @@ def demo(
             write_json_atomic(stage_dir / folder / "summary.json", summary)
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
+            messages += [f"{out / folder}: {w}" for w in _audit_warnings(analysis)]
     messages.append(f"scenario, maps and ground truth: {out / 'scenario'}")
     messages.append(f"open {out / 'results' / 'report.html'} for the report")
     return RunResult(out, (), tuple(messages), summaries)
@@ -743,7 +875,13 @@ def write_outputs(analysis: Analysis, out_dir: str | os.PathLike) -> tuple[list[
     """
     from .report import outputs
 
-    return outputs.write_all(analysis, Path(out_dir), summary_base=_summary_base(analysis))
+    base = _summary_base(analysis)
+    files, summary = outputs.write_all(analysis, Path(out_dir), summary_base=base)
+    if analysis.audit is not None:
+        from .report.atomic import write_json_atomic
+
+        files = [*files, write_json_atomic(Path(out_dir) / "audit.json", analysis.audit.as_dict())]
+    return files, summary
 
 
 def _summary_base(analysis: Analysis) -> dict:
@@ -773,6 +911,27 @@ def _summary_base(analysis: Analysis) -> dict:
             "map": dict(omap.provenance),
         },
         "stage": analysis.stage,
+    } | _audit_summary(analysis)
+
+
+def _audit_summary(analysis: Analysis) -> dict:
+    """summary.json's ``frame_audit`` when the declared frame is not best beyond doubt."""
+    a = analysis.audit
+    if a is None or a.declared_is_best is True:
+        return {}
+    return {
+        "frame_audit": {
+            "declared_is_best": a.declared_is_best,
+            "sentence": a.sentence(),
+            "warning": (
+                "The analysis ran in the frame as declared; the frame audit finds that "
+                "frame doubtful. Apply the job patch and run again."
+                if a.declared_is_best is False
+                else "The frame audit could not confirm the declared frame."
+            ),
+            "job_patch": a.job_patch,
+            "best": a.best_hypothesis.describe(),
+        }
     }
 
 

@@ -5,15 +5,20 @@ Run after changing inclination/report/columns.py: python scripts/make_schemas.py
 
 from __future__ import annotations
 
+import json
 import sys
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from inclination.report.candidates import candidates_schema  # noqa: E402
 from inclination.report.schemas import SCHEMAS, render  # noqa: E402
 
 if __name__ == "__main__":
     for name in SCHEMAS:
         (ROOT / "schemas" / f"{name}.schema.json").write_text(render(name), encoding="utf-8")
         print(f"schemas/{name}.schema.json")
+    text = json.dumps(candidates_schema(), indent=2, ensure_ascii=False) + "\n"
+    (ROOT / "schemas" / "candidates.schema.json").write_text(text, encoding="utf-8")
+    print("schemas/candidates.schema.json")

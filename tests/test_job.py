@@ -111,6 +111,7 @@ def test_design_example_loads_with_defaults(folder):
         "floor_deg": 1,
         "max_tolerance_deg": 5,
         "sigma_criterion": "brandon",
+        "candidate_rows": "fit_or_shared",
     }
     cross, serial = job.sections
     assert cross["face_inclination_deg"] == 90

@@ -925,3 +925,46 @@ def test_place_on_grid_recovers_indices_of_any_subset_in_any_order(h, w, step, h
     )
     assert_array_equal(p.row, i[order] - i.min())
     assert_array_equal(p.col, j[order])
+
+
+def test_rotation_sense_active_reads_the_inverse(tmp_path):
+    # An active rotation r maps crystal to data frame, so g = rᵀ (conventions §3);
+    # scipy's Rotation.inv() is the reference inverse.
+    q = random_quat(6, rng=3).reshape(2, 3, 4)
+    omap = OrientationMap(q, np.ones((2, 3), int), grid="square", step_x_um=1.0, step_y_um=1.0)
+    write_npz(tmp_path / "m.npz", omap)
+    spec = {
+        "path": "m.npz",
+        "format": "npz",
+        "angles": "deg",
+        "step_um": 1,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+        "rotation_sense": "active",
+    }
+    active = read_map(spec, base_dir=tmp_path)
+    expected = Rotation.from_quat(q.reshape(-1, 4)[:, [1, 2, 3, 0]]).inv().as_matrix()
+    got = Rotation.from_quat(np.asarray(active.quat, float).reshape(-1, 4)[:, [1, 2, 3, 0]])
+    assert_allclose(got.as_matrix(), expected, rtol=0, atol=1e-5)
+    assert active.rotation_sense == "active"
+    # Written back, the Euler angles are the stored ones again.
+    assert_allclose(active.euler_deg_declared(), omap.euler_deg_declared(), rtol=0, atol=2e-3)
+
+
+def test_rotation_sense_bad_value(tmp_path):
+    q = np.zeros((1, 2, 4))
+    q[..., 0] = 1.0
+    write_npz(tmp_path / "m.npz", OrientationMap(q, np.ones((1, 2), int), step_x_um=1.0))
+    spec = {
+        "path": "m.npz",
+        "format": "npz",
+        "angles": "deg",
+        "step_um": 1,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+        "rotation_sense": "inverse",
+    }
+    with pytest.raises(InputError, match="rotation_sense"):
+        read_map(spec, base_dir=tmp_path)
+    with pytest.raises(SettingError, match="rotation_sense"):
+        OrientationMap(q, np.ones((1, 2), int), rotation_sense="inverse")

@@ -12,7 +12,7 @@ import json
 import os
 import shutil
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +23,7 @@ __all__ = [
     "json_ready",
     "staged_output_dir",
     "write_bytes_atomic",
+    "write_chunks_atomic",
     "write_json_atomic",
     "write_text_atomic",
 ]
@@ -36,11 +37,17 @@ def _umask() -> int:
 
 def write_bytes_atomic(path: str | os.PathLike, data: bytes) -> Path:
     """Write ``data`` to a temporary file beside ``path``, then rename it into place."""
+    return write_chunks_atomic(path, (data,))
+
+
+def write_chunks_atomic(path: str | os.PathLike, chunks: Iterable[bytes]) -> Path:
+    """Write byte blocks to ``path`` atomically, one block in memory at a time."""
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            for chunk in chunks:
+                fh.write(chunk)
         # mkstemp makes the file private (0600); results are ordinary data files.
         os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)

@@ -14,6 +14,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from .atomic import write_text_atomic
+from .audit_block import audit_block_html, audit_block_markdown
 from .columns import Column
 from .features import features_section_html, features_section_markdown
 from .tables import format_cell
@@ -99,6 +100,7 @@ def render_markdown(summary: dict, table: dict, columns: Sequence[Column]) -> st
     lines = [
         f"# {_md(summary.get('title', 'Boundary planes'))}",
         "",
+        *audit_block_markdown(summary),
         f"**Frame:** {_md(_verdict_sentence(summary))}",
         "",
     ]
@@ -131,6 +133,7 @@ def render_html(
         "th{text-align:center}.verdict{border-left:0.4em solid #0072B2;padding:0.5em 1em;"
         "background:#f3f6fa}.caveat{font-size:0.85em;color:#555}</style></head><body>",
         f"<h1>{esc(summary.get('title', 'Boundary planes'))}</h1>",
+        *audit_block_html(summary),
         f'<p class="verdict"><strong>Frame.</strong> {esc(_verdict_sentence(summary))}</p>',
         "<ul>",
     ]

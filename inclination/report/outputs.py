@@ -68,7 +68,11 @@ def grains_table(analysis: Analysis) -> dict:
     omap = analysis.omap
     q = np.asarray(g["quat"], float).reshape(-1, 4)
     if len(q):
-        euler = quat_as_euler_deg(orientations_to_declared(q, omap.axes, omap.data_frame_rotation))
+        euler = quat_as_euler_deg(
+            orientations_to_declared(
+                q, omap.axes, omap.data_frame_rotation, rotation_sense=omap.rotation_sense
+            )
+        )
     else:
         euler = np.zeros((0, 3))
     cx, cy = _declared_points(omap.axes, g["centroid_x_um"], g["centroid_y_um"])
@@ -374,17 +378,10 @@ def write_all(analysis: Analysis, out_dir: Path, *, summary_base: dict) -> tuple
         )
         cand = analysis.candidates
         if cand is not None:
-            files.append(
-                write_json_atomic(
-                    out_dir / "candidates.json",
-                    {
-                        "schema_version": SCHEMA_VERSION,
-                        "meta": meta,
-                        "frame": "sample frame S (conventions §2)",
-                        "table": {k: np.asarray(v).tolist() for k, v in cand.items()},
-                    },
-                )
-            )
+            from .candidates import write_candidates
+
+            rows = analysis.job.planes.get("candidate_rows", "fit_or_shared")
+            files.append(write_candidates(out_dir / "candidates.jsonl", cand, meta=meta, rows=rows))
     if analysis.section_tables:
         files.append(
             write_json_atomic(

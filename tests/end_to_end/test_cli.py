@@ -29,7 +29,7 @@ def scenario(tmp_path_factory):
 
 
 def test_demo_writes_every_file(demo_run):
-    for folder in ("results", "results-turned-frame"):
+    for folder in ("results", "results-turned-frame", "results-turned-axes"):
         names = {p.name for p in (demo_run / folder).iterdir()}
         for expected in (
             "grains.csv",
@@ -44,6 +44,7 @@ def test_demo_writes_every_file(demo_run):
             "summary.json",
             "report.html",
             "report.md",
+            "audit.json",
         ):
             assert expected in names, f"{folder}/{expected} missing"
     assert (demo_run / "scenario" / "truth.json").exists()
@@ -66,6 +67,19 @@ def test_demo_frame_verdicts(demo_run):
     assert (
         declared["frame_verdict"]["sentence"] in (demo_run / "results" / "report.html").read_text()
     )
+
+
+def test_demo_turned_axes_report_leads_with_the_audit(demo_run):
+    # The third case: axes turned 90° about the normal; the audit finds it and the
+    # report's first block is its warning with the job patch.
+    summary = json.loads((demo_run / "results-turned-axes" / "summary.json").read_text())
+    assert summary["frame_audit"]["job_patch"]["map"] == {"data_frame_rotation": "z90"}
+    md = (demo_run / "results-turned-axes" / "report.md").read_text().splitlines()
+    assert md[2].startswith("> **WARNING — frame audit.**")
+    assert any("z90" in line for line in md[:8])
+    html = (demo_run / "results-turned-axes" / "report.html").read_text()
+    assert html.index("frame-audit") < html.index('class="verdict"')
+    assert "frame_audit" not in json.loads((demo_run / "results" / "summary.json").read_text())
 
 
 def test_existing_output_refused_without_overwrite(demo_run, capsys):

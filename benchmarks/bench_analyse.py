@@ -1,0 +1,242 @@
+"""Per-stage time and peak memory of the whole job, its numpy/scipy floor, and exponents.
+
+Run by hand (not by CI):
+
+    python benchmarks/bench_analyse.py --sizes 1024 2048 4096 --grains 16000
+
+For each (size, grains) it builds a synthetic sample with ``inclination.synthetic``
+(0.5 µm step, 1 % non-indexed points, mis-indexed clusters, a serial section 5 µm down
+and two cross-sections across the map), writes the maps and a job, and runs the
+commands ``grains``, ``traces``, ``planes`` and ``analyse`` each in a fresh process.
+Each command runs every stage before it, so a stage's time is the difference between
+two consecutive commands (including the writing of that stage's outputs), and its peak
+is the child's maximum resident set size. In the same run it times the plain
+numpy/scipy floor of the same work (read both maps, orientations, links, labels, grain
+statistics, boundary pairs, line fits, plane predictions, a CSV) and prints the ratio.
+With several sizes (grains scaled as size²) or several grain counts at one size, it
+fits the exponent of each stage: log time against log points, or log grains.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy import ndimage
+
+from inclination.crystal.lattice import Phase
+from inclination.io.writers import write_npz
+from inclination.synthetic import (
+    as_orientation_map,
+    make_microstructure,
+    sample_map,
+    simulate_cross_section,
+)
+
+STEP_UM = 0.5
+PHASE = {
+    "id": 1,
+    "name": "austenite",
+    "laue": "m-3m",
+    "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90},
+    "families": ["{1 1 1}"],
+}
+COMMANDS = ("grains", "traces", "planes", "analyse")
+
+
+def _map_entry(path):
+    return {
+        "path": path,
+        "format": "npz",
+        "angles": "deg",
+        "step_um": STEP_UM,
+        "grid": "square",
+        "axes": {"x": "right", "y": "down"},
+    }
+
+
+def build_sample(folder: Path, size: int, n_grains: int, seed: int) -> Path:
+    """Write surface.npz, serial.npz and job.json for one sample; returns the job path."""
+    gen = np.random.default_rng(seed)
+    side_um = size * STEP_UM
+    micro = make_microstructure(
+        box_um=(side_um, side_um, 30.0),
+        n_grains=n_grains,
+        rng=gen,
+        phases=[Phase.from_dict(PHASE)],
+        twins=max(1, n_grains // 10),
+    )
+    options = {"step_um": STEP_UM, "noise_deg": 0.5, "nonindexed_fraction": 0.01}
+    surface = sample_map(micro, rng=gen, misindexed_clusters=3, shape=(size, size), **options)
+    serial = sample_map(micro, rng=gen, depth_um=5.0, shape=(size, size), **options)
+    write_npz(folder / "surface.npz", as_orientation_map(surface))
+    write_npz(folder / "serial.npz", as_orientation_map(serial))
+    sections = []
+    for k, frac in enumerate((1 / 3, 2 / 3)):
+        y = frac * side_um
+        geometry = {
+            "line_um": [[0.02 * side_um, y], [0.98 * side_um, y]],
+            "viewer_at_um": [side_um / 2, y + 1.0],
+            "imaging_tilt_deg": 52.0,
+            "max_depth_um": 3.0,
+        }
+        found = simulate_cross_section(micro, rng=gen, angle_noise_deg=1.0, **geometry)
+        sections.append(
+            {
+                "kind": "cross-section",
+                "name": f"section {k + 1}",
+                "line_um": geometry["line_um"],
+                "viewer_at_um": geometry["viewer_at_um"],
+                "imaging_tilt_deg": 52.0,
+                "boundaries": [
+                    {
+                        "along_um": round(e["along_um"], 2),
+                        "image_angle_deg": max(round(e["image_angle_deg"], 1), 0.1),
+                        "descends": e["descends"],
+                    }
+                    for e in found
+                ],
+            }
+        )
+    sections.append(
+        {"kind": "serial", "name": "5 µm", "map": _map_entry("serial.npz"), "depth_um": 5.0}
+    )
+    job = {
+        "schema_version": 1,
+        "description": f"benchmark {size}² with {n_grains} grains (synthetic)",
+        "phases": [PHASE],
+        "map": _map_entry("surface.npz"),
+        "grains": {"threshold_deg": 5, "min_pixels": 8},
+        "traces": {"min_length_um": 5, "tolerance_um": 0.75},
+        "sections": sections,
+    }
+    path = folder / "job.json"
+    path.write_text(json.dumps(job), encoding="utf-8")
+    return path
+
+
+def run_command(command: str, job: Path, out: Path) -> tuple[float, float]:
+    """Wall time (s) and peak RSS (bytes) of one CLI command in a fresh process."""
+    code = (
+        "import resource, sys, time\n"
+        "t = time.perf_counter()\n"
+        "from inclination.cli import main\n"
+        f"rc = main([{command!r}, {str(job)!r}, '--out', {str(out)!r}, '--quiet'])\n"
+        "dt = time.perf_counter() - t\n"
+        "print(dt, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)\n"
+        "sys.exit(rc)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    if done.returncode != 0:
+        raise RuntimeError(f"{command} failed: {done.stderr.strip()[-500:]}")
+    dt, rss = done.stdout.split()[-2:]
+    return float(dt), float(rss)
+
+
+def floor_seconds(folder: Path) -> float:
+    """The plain numpy/scipy version of the same work, timed in this process."""
+    t0 = time.perf_counter()
+    maps = [np.load(folder / name) for name in ("surface.npz", "serial.npz")]
+    for m in maps:
+        euler = np.deg2rad(np.asarray(m["euler_deg"], np.float32))
+        phase = np.asarray(m["phase"])
+        h, w = phase.shape
+        # Orientations: Bunge Euler to quaternions (formula, Rowenhorst et al. 2015).
+        c, s = np.cos(euler / 2), np.sin(euler / 2)
+        sigma, delta = euler[..., 0] + euler[..., 2], euler[..., 0] - euler[..., 2]
+        q = np.stack(
+            [
+                c[..., 1] * np.cos(sigma / 2),
+                s[..., 1] * np.cos(delta / 2),
+                s[..., 1] * np.sin(delta / 2),
+                c[..., 1] * np.sin(sigma / 2),
+            ]
+        ).astype(np.float32)
+        # Links: |q·q'| to the right and below (no symmetry: a floor, not the method).
+        right = np.abs(np.einsum("chw,chw->hw", q[:, :, :-1], q[:, :, 1:])) > 0.999
+        down = np.abs(np.einsum("chw,chw->hw", q[:, :-1], q[:, 1:])) > 0.999
+        ok = phase > 0
+        labels, n = ndimage.label(ok)
+        del right, down
+        # Grain statistics: sizes and mean quaternions.
+        flat = labels.ravel()
+        np.bincount(flat, minlength=n + 1)
+        for k in range(4):
+            np.bincount(flat, weights=q[k].ravel(), minlength=n + 1)
+        # Boundary pairs and per-pair line-fit moments.
+        a, b = labels[:, :-1].ravel(), labels[:, 1:].ravel()
+        cut = a != b
+        pair = a[cut].astype(np.int64) * (n + 1) + b[cut]
+        uniq, inv = np.unique(pair, return_inverse=True)
+        cols = np.nonzero(cut)[0] % (w - 1)
+        for v in (cols, cols * cols):
+            np.bincount(inv, weights=v.astype(float), minlength=uniq.size)
+    # Plane predictions: four {111} normals per pair rotated into S, then a CSV.
+    g = np.random.default_rng(0).normal(size=(uniq.size, 3, 3))
+    normals = np.einsum("nij,kj->nki", g, np.ones((4, 3)))
+    buf = "\n".join(",".join(f"{x:.4f}" for x in row) for row in normals[:, 0, :])
+    (folder / "floor.csv").write_text(buf)
+    return time.perf_counter() - t0
+
+
+def fit_exponent(x, y) -> float:
+    """Slope of log y against log x (least squares)."""
+    return float(np.polyfit(np.log(x), np.log(y), 1)[0])
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--sizes", type=int, nargs="+", default=[4096])
+    parser.add_argument("--grains", type=int, nargs="+", default=[16000])
+    parser.add_argument("--seed", type=int, default=1)
+    args = parser.parse_args(argv)
+    cases = []
+    if len(args.sizes) > 1:  # grains scaled with the area: same grain size
+        g0, s0 = args.grains[0], args.sizes[-1]
+        cases = [(s, max(10, round(g0 * (s / s0) ** 2))) for s in args.sizes]
+    else:
+        cases = [(args.sizes[0], g) for g in args.grains]
+    print("| size | grains | stage | time s | peak GiB | bytes/point |")
+    print("|---|---|---|---|---|---|")
+    results = []
+    for size, n_grains in cases:
+        with tempfile.TemporaryDirectory() as tmp:
+            folder = Path(tmp)
+            job = build_sample(folder, size, n_grains, args.seed)
+            previous = 0.0
+            stages = {}
+            for command in COMMANDS:
+                dt, rss = run_command(command, job, folder / f"out-{command}")
+                stages[command] = (dt - previous, rss)
+                previous = dt
+                print(
+                    f"| {size}² | {n_grains} | {command} | {stages[command][0]:.2f} | "
+                    f"{rss / 2**30:.2f} | {rss / size**2:.0f} |"
+                )
+            floor = floor_seconds(folder)
+            print(
+                f"| {size}² | {n_grains} | floor (numpy/scipy) | {floor:.2f} | | |\n"
+                f"| {size}² | {n_grains} | analyse / floor | {previous / floor:.1f}× | | |"
+            )
+            results.append((size, n_grains, stages, previous, floor))
+        print(f"resources: {resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss} KiB")
+    if len(results) > 1:
+        x = [r[0] ** 2 for r in results] if len(args.sizes) > 1 else [r[1] for r in results]
+        what = "points" if len(args.sizes) > 1 else "grains"
+        print(f"\nexponents against {what}:")
+        for command in COMMANDS:
+            y = [max(r[2][command][0], 1e-3) for r in results]
+            print(f"  {command}: {fit_exponent(x, y):.2f}")
+        print(f"  analyse total: {fit_exponent(x, [r[3] for r in results]):.2f}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
