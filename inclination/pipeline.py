@@ -552,7 +552,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     analysis = replace(analysis, identification=identification, candidates=cands, twin_summary=twin)
     if stage_i < 3 or not job.sections:
         return _with_features(replace(analysis, audit=_frame_audit(analysis)))
-    from .compare import best_measurements, compare_map
+    from .compare import DEFAULT_BLUNDER_RATE, best_measurements, compare_map
 
     tables, notes, faces = _sections(job, omap, grain_map, segments, progress)
     comparison = compare_map(
@@ -561,6 +561,10 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         grain_map.grains,
         _phases_by_id(job),
         coherent_tolerance_deg=job.planes["max_tolerance_deg"],
+        blunder_rate=float(job.raw.get("comparison", {}).get("blunder_rate", DEFAULT_BLUNDER_RATE)),
+        section_names=[note.get("name", "") for note in notes]
+        if len(notes) == len(tables)
+        else None,
     )
     analysis = replace(
         analysis,

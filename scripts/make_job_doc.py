@@ -159,6 +159,17 @@ SERIAL_SECTION_EXAMPLE = {
 EXTRA_EXAMPLES = {
     "map.sidecar": "surface.tif.json",
     "sections[serial].depth_um": 5.0,
+    "sections[cross-section].image": {
+        "path": "trench_a.tif",
+        "pixel_um": 0.05,
+        "line_start_px": [112, 40],
+    },
+    "sections[cross-section].image.path": "trench_a.tif",
+    "sections[cross-section].image.pixel_um": 0.05,
+    "sections[cross-section].image.line_start_px": [112, 40],
+    "sections[cross-section].image.surface_row": 38,
+    "sections[cross-section].image.rotation_deg": 0.0,
+    "sections[cross-section].image.depth_um": 6.0,
 }
 
 

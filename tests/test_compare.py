@@ -12,17 +12,20 @@ from numpy.testing import assert_allclose
 from scipy.stats import binomtest
 
 from inclination.compare import (
+    COHERENT_TWIN_ANSWERS,
     SENSES,
     TRUSTED_IDENTIFICATIONS,
     VERDICTS,
     best_measurements,
     boundary_sense,
+    coherent_twin_test,
     compare_map,
     frame_verdict,
     full_planes,
     low_index_planes,
     measured_senses,
     predicted_directions,
+    reversal_probability,
 )
 from inclination.crystal.lattice import Lattice, Phase
 from inclination.crystal.rotations import (
@@ -76,24 +79,79 @@ def test_sense_calls_and_reasons():
     assert_allclose(out["mismatch_deg"][:3], [2.0, 5.0, 90.0], rtol=0, atol=1e-9)
 
 
-def test_likelihood_ratio_grows_with_precision():
+def test_likelihood_ratio_is_the_blunder_mixture_of_the_von_mises_ratio():
     out = boundary_sense(
         [0.0] * 3,
         [45.0] * 3,
         [5.0] * 3,
-        [20.0, 10.0, 5.0],
+        [80.0, 60.0, 40.0],
         predicted_azimuth_sigma_deg=0.0,
-        min_log10_ratio=0.5,
+        min_log10_ratio=0.1,
     )
     assert np.all(np.diff(out["log10_likelihood_ratio"]) > 0)
-    # 2κ cos(φ − μ) / ln 10 with κ = 1/σ² (von Mises, hand-computed for σ = 10°).
-    kappa = 1 / math.radians(10.0) ** 2
-    assert_allclose(
-        out["log10_likelihood_ratio"][1],
-        2 * kappa * math.cos(math.radians(5.0)) / math.log(10),
-        rtol=1e-12,
-        atol=0,
+    # Von Mises ratio ℓ = 2κ cos(φ − μ), κ = 1/σ², mixed with a flip of chance
+    # ε = 0.05: ((1−ε)e^{ℓ/2} + εe^{−ℓ/2}) / ((1−ε)e^{−ℓ/2} + εe^{ℓ/2}) (formula).
+    ell = 2 / math.radians(60.0) ** 2 * math.cos(math.radians(5.0))
+    lr = (0.95 * math.exp(ell / 2) + 0.05 * math.exp(-ell / 2)) / (
+        0.95 * math.exp(-ell / 2) + 0.05 * math.exp(ell / 2)
     )
+    assert_allclose(out["log10_likelihood_ratio"][1], math.log10(lr), rtol=1e-12, atol=0)
+
+
+@given(
+    st.floats(0, 360),
+    st.floats(0, 89),
+    st.floats(-180, 180),
+    st.floats(0.01, 30),
+    st.sampled_from([0.01, 0.05, 0.2]),
+)
+def test_no_boundary_exceeds_the_bound_of_the_blunder_rate(mu, dip, err, sigma, eps):
+    out = boundary_sense([mu], [dip], [mu + err], [sigma], blunder_rate=eps)
+    # log10((1 − ε)/ε): the odds of a call that is wrong with probability ε (formula).
+    assert abs(out["log10_likelihood_ratio"][0]) <= math.log10((1 - eps) / eps) + 1e-12
+
+
+def test_a_precise_blunder_says_at_most_the_bound():
+    # A mismatched entry: measured exactly opposite with σ = 0.1° (old model: 10^-4).
+    out = boundary_sense([30.0], [50.0], [210.0], [0.1], predicted_azimuth_sigma_deg=0.05)
+    assert out["sense"][0] == "opposite"
+    assert_allclose(out["log10_likelihood_ratio"][0], -math.log10(19.0), rtol=1e-9, atol=0)
+
+
+def test_steep_planes_carry_their_reversal_probability():
+    # Φ((δ − 90°)/σ) (normal distribution, scipy.stats.norm.cdf).
+    from scipy.stats import norm
+
+    dips = np.array([40.0, 80.0, 86.0])
+    p = reversal_probability(dips, 3.0)
+    assert_allclose(p, norm.cdf((dips - 90.0) / 3.0), rtol=1e-12, atol=0)
+    out = boundary_sense(
+        [0.0] * 3,
+        dips,
+        [0.0] * 3,
+        [1.0] * 3,
+        measured_dip_deg=dips,
+        measured_dip_sigma_deg=[3.0] * 3,
+        n_sigma_vertical=1.0,
+        predicted_dip_sigma_deg=1e-3,
+    )
+    # The flip chance is ε ⊕ r = ε(1 − r) + r(1 − ε); the bound is (1 − q)/q.
+    q = 0.05 * (1 - p) + p * 0.95
+    assert_allclose(out["log10_likelihood_ratio"], np.log10((1 - q) / q), rtol=1e-9)
+    assert_allclose(out["reversal_probability"], p, rtol=1e-9, atol=1e-15)
+    assert out["sense"].tolist() == ["agrees", "agrees", "undecided"]
+    # The section's own figure (a trace nearly along the line) wins over the dip's.
+    own = boundary_sense(
+        [0.0],
+        [50.0],
+        [0.0],
+        [1.0],
+        measured_dip_deg=[40.0],
+        measured_dip_sigma_deg=[3.0],
+        measured_reversal_probability=[0.3],
+    )
+    assert_allclose(own["reversal_probability"], [0.3], rtol=1e-12)
+    assert own["sense"][0] == "undecided"
 
 
 def test_sense_argument_errors():
@@ -108,7 +166,10 @@ def test_sense_argument_errors():
 # --------------------------------------------------------------------------- frame_verdict
 
 
-def _senses(n_agree, n_oppose, n_undecided=0, strength=30.0):
+B = math.log10(19.0)  # log10((1 − ε)/ε) at ε = 0.05 (formula)
+
+
+def _senses(n_agree, n_oppose, n_undecided=0, strength=B, **columns):
     return {
         "sense": np.array(
             ["agrees"] * n_agree + ["opposite"] * n_oppose + ["undecided"] * n_undecided
@@ -116,6 +177,7 @@ def _senses(n_agree, n_oppose, n_undecided=0, strength=30.0):
         "log10_likelihood_ratio": np.array(
             [strength] * n_agree + [-strength] * n_oppose + [0.3] * n_undecided
         ),
+        **columns,
     }
 
 
@@ -124,7 +186,8 @@ def _senses(n_agree, n_oppose, n_undecided=0, strength=30.0):
     [
         ((12, 0, 3), "as_declared"),
         ((0, 9, 1), "turned_180_about_normal"),
-        ((11, 1, 0), "as_declared"),  # one slip in twelve is within the error rate
+        ((11, 1, 0), "as_declared"),  # one slip in twelve is within the blunder rate
+        ((10, 1, 0), "as_declared"),  # ten agreeing boundaries and one blunder
         ((6, 6, 0), "inconsistent"),
         ((8, 4, 0), "inconsistent"),
         ((1, 0, 4), "undecided"),  # one boundary alone never decides a map
@@ -141,30 +204,73 @@ def test_frame_verdicts(counts, verdict):
     assert v.as_dict()["verdict"] == verdict
 
 
+def test_ten_agreeing_boundaries_outweigh_a_simulated_blunder():
+    # The blunder is a real row of the sense model: a precise, opposite entry.
+    rows = boundary_sense(
+        [30.0] * 11,
+        [50.0] * 11,
+        [31.0] * 10 + [210.0],
+        [0.5] * 11,
+        predicted_azimuth_sigma_deg=0.2,
+    )
+    assert rows["sense"].tolist() == ["agrees"] * 10 + ["opposite"]
+    v = frame_verdict(rows)
+    assert v.verdict == "as_declared"
+    assert_allclose(v.log10_likelihood_ratio, 9 * B, rtol=1e-9, atol=0)
+
+
+def test_segments_of_one_boundary_count_once():
+    # Six segments of two grain pairs (collinear pieces, both faces of a lamella).
+    v = frame_verdict(_senses(6, 0, witness=np.array(["1-2"] * 4 + ["1-3"] * 2)))
+    assert (v.n_agree, v.n_opposite, v.n_undecided) == (2, 0, 0)
+    assert_allclose(v.log10_likelihood_ratio, 2 * B, rtol=1e-12, atol=0)
+    assert v.sentence.startswith("Of 2 boundaries")
+    # Six pieces of one lamella are one witness: 10^1.28 does not decide a map.
+    one = frame_verdict(_senses(6, 0, witness=np.array(["1-2"] * 6)))
+    assert (one.n_agree, one.verdict) == (1, "undecided")
+    assert frame_verdict(_senses(6, 0)).verdict == "as_declared"
+    # A boundary whose pieces disagree says nothing.
+    w = frame_verdict(_senses(1, 1, witness=np.array(["1-2", "1-2"])))
+    assert (w.n_agree, w.n_opposite, w.n_undecided) == (0, 0, 1)
+
+
+def test_a_section_turned_against_the_others_is_named_not_read_as_a_turned_frame():
+    section = np.array([0] * 6 + [1] * 4)
+    v = frame_verdict(
+        {
+            "sense": np.array(["agrees"] * 6 + ["opposite"] * 4),
+            "log10_likelihood_ratio": np.array([B] * 6 + [-B] * 4),
+            "section": section,
+        },
+        section_names=["north face", "south face"],
+    )
+    assert v.verdict == "as_declared"
+    assert v.suspect_sections == ("south face",)
+    assert (v.n_agree, v.n_opposite) == (6, 0)
+    assert "check this section's viewer side and tilt" in v.sentence
+    assert "south face" in v.sentence
+    # One section alone turned the other way names the section too, when no other
+    # section contradicts it the frame itself is the explanation, with the caveat.
+    t = frame_verdict(_senses(0, 8, section=np.zeros(8, int)))
+    assert t.verdict == "turned_180_about_normal" and t.suspect_sections == ()
+    assert "viewer side and tilt" in t.sentence
+
+
 def test_verdict_p_values_match_scipy_binomial_tests():
     v = frame_verdict(_senses(10, 2))
     # Sign test of the majority (scipy.stats.binomtest, one-sided, p = 1/2).
     assert_allclose(
         v.p_value_sign, binomtest(10, 12, 0.5, alternative="greater").pvalue, rtol=1e-12, atol=0
     )
-    # Split test of the minority against the per-call error rate ε = 0.05.
+    # Split test of the minority against the blunder rate ε = 0.05.
     assert_allclose(
         v.p_value_split, binomtest(2, 12, 0.05, alternative="greater").pvalue, rtol=1e-12, atol=0
     )
 
 
-def test_each_boundary_is_bounded_by_the_error_rate():
-    # log10((1 − ε)/ε) per decisive boundary, ε = 0.05: 1.2788 (hand-computed).
-    v = frame_verdict(_senses(3, 0, strength=500.0))
-    assert_allclose(v.log10_likelihood_ratio, 3 * math.log10(19.0), rtol=1e-9, atol=0)
-    w = frame_verdict(_senses(3, 0, strength=500.0), error_rate=0.2)
-    assert_allclose(w.log10_likelihood_ratio, 3 * math.log10(4.0), rtol=1e-9, atol=0)
-    assert w.verdict == "undecided"
-
-
 def test_frame_verdict_errors():
-    with pytest.raises(SettingError, match=r"`error_rate` to be in \(0, 0.5\)"):
-        frame_verdict(_senses(1, 0), error_rate=0.5)
+    with pytest.raises(SettingError, match=r"`blunder_rate` to be in \(0, 0.5\)"):
+        frame_verdict(_senses(1, 0), blunder_rate=0.5)
     with pytest.raises(SettingError, match=r"`alpha` to be in \(0, 1\)"):
         frame_verdict(_senses(1, 0), alpha=0.0)
     with pytest.raises(SettingError, match="`min_log10_ratio` to be a finite number > 0"):
@@ -226,6 +332,29 @@ def _twin_pair(gen):
 
     qb = quat_multiply(r, qa)
     return qa, qb
+
+
+def test_coherent_twin_test_is_calibrated_and_has_three_answers():
+    # True coherent twins measured with σ per direction (normal errors): the angle is
+    # Rayleigh (scipy.stats.rayleigh), so "no" comes at most at the rate α = 0.01 when
+    # the plane's own tolerance is small against σ.
+    from scipy.stats import rayleigh
+
+    rng = np.random.default_rng(3)
+    sigma = 3.0
+    d = np.hypot(*rng.normal(0.0, sigma, (2, 200000)))
+    answer = coherent_twin_test(d, sigma, 1e-9)
+    assert abs((answer == "no").mean() - rayleigh.sf(3.0349 * sigma, scale=sigma)) < 0.002
+    assert abs((answer == "no").mean() - 0.01) < 0.002
+    # With a tolerance t the rejection moves out to t + c: fewer "no" still.
+    assert (coherent_twin_test(d, sigma, 5.0) == "no").mean() < 0.01
+    # The demo's case (5–7° off at σ ≈ 3.3°): not "no", but a plane 10° off would
+    # fit as well (c = 3.03σ = 10° > t), so it cannot tell; at σ = 1.5° it is a twin.
+    assert coherent_twin_test([5.0, 7.0], 3.3, 5.0).tolist() == ["cannot_tell"] * 2
+    assert coherent_twin_test([5.0, 7.0], 1.5, 5.0).tolist() == ["yes", "yes"]
+    # 10° off a precise measurement: no; a very uncertain one cannot tell.
+    assert coherent_twin_test([10.0, 10.0], [0.5, 6.0], 5.0).tolist() == ["no", "cannot_tell"]
+    assert set(COHERENT_TWIN_ANSWERS) == {"yes", "no", "cannot_tell"}
 
 
 def test_full_planes_of_a_coherent_twin_and_a_tilted_one():
@@ -373,13 +502,17 @@ def test_measured_senses_follow_the_trust_rules():
     assert senses["reason"].tolist()[2:] == ["no predicted dip direction"] * 2
     # The σ passed on is the combination of the measured σ and τ/2 (von Mises odds,
     # 2κ cos Δ / ln 10 with 1/κ = σ_m² + (τ/2)², hand-derived as in boundary_sense).
+    # Mixed with the blunder rate ε = 0.05 (the bounded ratio of boundary_sense).
     kappa = 1.0 / (math.radians(2.0) ** 2 + math.radians(0.5) ** 2)
-    assert_allclose(
-        senses["log10_likelihood_ratio"][0],
-        2.0 * kappa * math.cos(math.radians(1.0)) / math.log(10.0),
-        rtol=1e-12,
-        atol=0,
+    ell = 2.0 * kappa * math.cos(math.radians(1.0))
+    expected = np.logaddexp(math.log(0.95) + ell / 2, math.log(0.05) - ell / 2) - np.logaddexp(
+        math.log(0.95) - ell / 2, math.log(0.05) + ell / 2
     )
+    assert_allclose(
+        senses["log10_likelihood_ratio"][0], expected / math.log(10.0), rtol=1e-12, atol=0
+    )
+    # Each row's witness is its unordered grain pair.
+    assert all("-" in w for w in senses["witness"])
 
 
 def test_compare_map_leaves_out_unidentified_segments():
@@ -398,3 +531,23 @@ def test_compare_map_leaves_out_unidentified_segments():
     # Σ3 comes from the identification: the coherent-twin test runs on segment 10 only.
     assert c.planes_full["coherent_twin"][1] == ""
     assert c.planes_full["coherent_twin"][0] in ("yes", "no")
+
+
+def test_reversal_probability_is_calibrated_by_monte_carlo():
+    # Planes near vertical: true signed dip δ_t uniform over 84–96° (beyond 90°: the
+    # plane dips the other way), measured with a normal error σ and folded into
+    # [0, 90]. The stated chance of reversal must match the observed rate of
+    # reversed directions within a factor of 1.5, bin by bin.
+    rng = np.random.default_rng(11)
+    sigma = 1.5
+    true = rng.uniform(84.0, 96.0, 400000)
+    seen = true + rng.normal(0.0, sigma, true.size)
+    folded = 90.0 - np.abs(90.0 - seen)
+    reversed_ = (true > 90.0) != (seen > 90.0)
+    stated = reversal_probability(folded, sigma)
+    edges = np.array([0.02, 0.05, 0.1, 0.2, 0.35, 0.5])
+    for lo, hi in zip(edges[:-1], edges[1:], strict=True):
+        sel = (stated >= lo) & (stated < hi)
+        assert sel.sum() > 1000
+        ratio = reversed_[sel].mean() / stated[sel].mean()
+        assert 1 / 1.5 < ratio < 1.5, (lo, hi, ratio)

@@ -229,11 +229,19 @@ def test_counts_and_chance_agree_with_the_candidate_table():
     assert len(c["segment_id"]) == 4 * 2 * 25
     for row, sid in enumerate(t["segment_id"]):
         mine = c["segment_id"] == sid
-        assert t["candidates_within_tolerance"][row] == c["fits"][mine].sum()
-        tol = c["tolerance_deg"][mine & c["has_trace"]]
-        assert t["chance_fit"][row] == pytest.approx(
-            1 - np.prod(1 - 2 * tol / 180), rel=1e-12, abs=1e-15
+        # A plane shared by both grains and fitting on both sides counts once.
+        side_a = mine & (c["side"] == "a") & c["fits"]
+        fits_b = set(c["plane"][mine & (c["side"] == "b") & c["fits"]].tolist())
+        shared = sum(p in fits_b for p in c["shared_with"][side_a].tolist() if p)
+        assert t["candidates_within_tolerance"][row] == c["fits"][mine].sum() - shared
+        # Chance of a random trace: the covered fraction of a fine grid of angles
+        # (the definition, not the formula).
+        use = mine & c["has_trace"]
+        grid = (np.arange(180000) + 0.5) / 1000.0
+        cover = (
+            trace_deviation_deg(grid[:, None], c["trace_angle_deg"][use]) <= c["tolerance_deg"][use]
         )
+        assert t["chance_fit"][row] == pytest.approx(cover.any(axis=1).mean(), abs=2e-5)
     # Fits are exactly the planes within their tolerance, and never a plane with no trace.
     fits = c["has_trace"] & (c["trace_deviation_deg"] <= c["tolerance_deg"])
     assert (c["fits"] == fits).all()
@@ -431,4 +439,5 @@ def test_chance_fit_column_is_the_public_chance_fit():
     for row, sid in enumerate(m.identification["segment_id"]):
         mine = c["segment_id"] == sid
         tol = np.where(c["has_trace"][mine], c["tolerance_deg"][mine], np.nan)
-        assert m.identification["chance_fit"][row] == chance_fit(tol)
+        angle = c["trace_angle_deg"][mine]
+        assert m.identification["chance_fit"][row] == chance_fit(angle, tol)

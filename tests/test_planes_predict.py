@@ -248,17 +248,26 @@ def test_trace_deviation_wraps_at_180():
 
 
 def test_chance_fit_formula_and_monte_carlo():
-    # 1 − (1 − 2τ/180)^k for k equal tolerances.
-    assert chance_fit([3.0] * 5) == pytest.approx(1 - (1 - 6 / 180) ** 5, rel=1e-12, abs=0)
-    # Monte Carlo with traces whose fit windows do not overlap: exact for disjoint windows.
-    rng = np.random.default_rng(5)
+    # Disjoint windows: Σ 2τ/180 (formula); the old product 1 − Π(1 − 2τ/180) is below it.
     centres = np.array([10.0, 50.0, 100.0, 150.0])
     tol = np.array([2.0, 3.0, 1.0, 4.0])
-    theta = rng.uniform(0, 180, 200000)
-    hit = (trace_deviation_deg(theta[:, None], centres) <= tol).any(axis=1).mean()
-    assert hit == pytest.approx(2 * tol.sum() / 180, rel=0.02, abs=0)
-    assert chance_fit(tol) == pytest.approx(1 - np.prod(1 - 2 * tol / 180), rel=1e-12, abs=0)
-    assert chance_fit([np.nan, 2.0]) == pytest.approx(4 / 180, rel=1e-12, abs=0)
+    assert chance_fit(centres, tol) == pytest.approx(2 * tol.sum() / 180, rel=1e-12, abs=0)
+    assert chance_fit([np.nan, 20.0], [2.0, 2.0]) == pytest.approx(4 / 180, rel=1e-12, abs=0)
+    assert chance_fit([20.0, 5.0], [np.nan, 2.0]) == pytest.approx(4 / 180, rel=1e-12, abs=0)
+    # Monte Carlo against the definition (a random trace within τ_i of some θ_i), with
+    # overlapping windows, one across 0°/180°, and a shared plane given twice.
+    rng = np.random.default_rng(5)
+    theta = rng.uniform(0, 180, 400000)
+    for centres, tol in (
+        (np.array([10.0, 50.0, 100.0, 150.0]), np.array([2.0, 3.0, 1.0, 4.0])),
+        (np.array([10.0, 12.0, 13.0, 178.5, 1.0]), np.array([3.0, 2.0, 4.0, 2.5, 1.0])),
+        (np.array([40.0, 40.2, 90.0]), np.array([3.0, 3.0, 5.0])),
+    ):
+        hit = (trace_deviation_deg(theta[:, None], centres) <= tol).any(axis=1).mean()
+        assert chance_fit(centres, tol) == pytest.approx(hit, rel=0.02, abs=0)
+    # Batched over leading axes.
+    batch = chance_fit(np.array([[0.0, 90.0], [0.0, 1.0]]), np.full((2, 2), 5.0))
+    assert_allclose(batch, [20 / 180, 11 / 180], rtol=1e-12)
 
 
 @pytest.mark.parametrize(
@@ -271,7 +280,7 @@ def test_chance_fit_formula_and_monte_carlo():
 )
 def test_chance_fit_refuses_bad_input(tol, match):
     with pytest.raises(ValueError, match=match):
-        chance_fit(tol)
+        chance_fit(np.zeros(np.shape(tol)), tol)
 
 
 # ---------------------------------------------------------------- fit and shared planes

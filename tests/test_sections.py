@@ -204,6 +204,54 @@ def test_cross_section_recovers_known_planes(axes, tilt_deg, face_deg):
     assert set(out["dip_source"].tolist()) == {"cross-section"}
 
 
+def test_descends_is_read_as_seen_in_the_image_on_an_inclined_face():
+    # docs/conventions.md §7: on a 60° face "descends" is the side the boundary leans
+    # toward in the image (L·(V × Z) with L down the face), not d·(V × Z); the two
+    # differ for planes steeper than the face. Every plane is recovered either way.
+    gen = np.random.default_rng(23)
+    line = np.array([[20.0, 50.0], [180.0, 50.0]])
+    viewer = np.array([100.0, 80.0])
+    right = np.array([1.0, 0.0, 0.0])  # V = +Y, V × Z = +X (hand-computed)
+    normals, entries, differ = [], [], 0
+    while len(normals) < 12 or differ < 3:
+        n = _random_normals(gen, 1, max_dip=88.0)[0]
+        t = np.cross(Z, n)[:2] / np.linalg.norm(np.cross(Z, n)[:2])
+        if abs(t[1]) < math.sin(math.radians(20)):
+            continue  # near-parallel traces are tested on their own
+        alpha, side = _face_view(n, line, viewer, 52.0, 60.0)
+        d = _plane_geometry(n)[1]
+        by_dip = (
+            "right"
+            if np.array([math.cos(math.radians(d)), math.sin(math.radians(d)), 0]) @ right > 0
+            else "left"
+        )
+        differ += side != by_dip
+        normals.append(n)
+        entries.append({"image_angle_deg": alpha, "descends": side})
+    # The sample holds planes the old wording (d·(V × Z)) would have put on the other side.
+    along = np.linspace(10.0, 150.0, len(normals))
+    for e, s in zip(entries, along, strict=True):
+        e["along_um"] = float(s)
+    section = {
+        "line_um": line.tolist(),
+        "viewer_at_um": viewer.tolist(),
+        "imaging_tilt_deg": 52.0,
+        "face_inclination_deg": 60.0,
+        "boundaries": entries,
+    }
+    out = _measure(
+        section,
+        _segments_for(normals, line, along),
+        axes=SAMPLE_AXES,
+        step_um=0.5,
+        bounds_um=BOUNDS,
+    )
+    truth = np.array([_plane_geometry(n) for n in normals])
+    assert_allclose(out["measured_dip_deg"], truth[:, 0], rtol=0, atol=1e-6)
+    diff = (out["dip_direction_azimuth_deg"] - truth[:, 1] + 180) % 360 - 180
+    assert_allclose(diff, 0.0, rtol=0, atol=1e-6)
+
+
 def _one_boundary_case(beta_deg, *, dip_deg=60.0, angle_sigma_deg=1.0):
     line = np.array([[0.0, 50.0], [200.0, 50.0]])
     viewer = np.array([100.0, 80.0])

@@ -17,11 +17,25 @@ from .comparison import (
     measured_senses,
     predicted_directions,
 )
-from .measured import best_measurements, full_planes, low_index_planes
-from .sense import SENSES, boundary_sense
+from .measured import (
+    COHERENT_TWIN_ANSWERS,
+    best_measurements,
+    coherent_twin_test,
+    full_planes,
+    low_index_planes,
+)
+from .sense import (
+    DEFAULT_BLUNDER_RATE,
+    SENSES,
+    boundary_sense,
+    reversal_probability,
+    sense_bound_log10,
+)
 from .verdict import VERDICTS, FrameVerdict, frame_verdict
 
 __all__ = [
+    "COHERENT_TWIN_ANSWERS",
+    "DEFAULT_BLUNDER_RATE",
     "Comparison",
     "FrameVerdict",
     "PredictedDirections",
@@ -30,10 +44,13 @@ __all__ = [
     "VERDICTS",
     "best_measurements",
     "boundary_sense",
+    "coherent_twin_test",
     "compare_map",
     "frame_verdict",
     "full_planes",
     "low_index_planes",
     "measured_senses",
     "predicted_directions",
+    "reversal_probability",
+    "sense_bound_log10",
 ]

@@ -10,7 +10,7 @@ same path without the full planes.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,7 +18,7 @@ from numpy.typing import ArrayLike
 
 from ..crystal.lattice import Phase
 from .measured import full_planes
-from .sense import boundary_sense
+from .sense import DEFAULT_BLUNDER_RATE, boundary_sense
 from .verdict import FrameVerdict, frame_verdict
 
 __all__ = [
@@ -137,9 +137,17 @@ def predicted_directions(
 
 
 def measured_senses(
-    measured: Mapping[str, ArrayLike], identification: Mapping[str, ArrayLike]
+    measured: Mapping[str, ArrayLike],
+    identification: Mapping[str, ArrayLike],
+    *,
+    blunder_rate: float = DEFAULT_BLUNDER_RATE,
 ) -> dict[str, np.ndarray]:
     """The sense of every measured plane against its trusted prediction (§6).
+
+    Each row also carries its ``witness`` — the unordered grain pair of its
+    segment (``"a-b"`` with a < b), so that collinear pieces of one boundary and
+    both faces of one twin lamella count once in :func:`frame_verdict` — and its
+    ``section`` (from ``measured``, 0 when absent).
 
     Parameters
     ----------
@@ -149,13 +157,16 @@ def measured_senses(
         measured_dip_deg, measured_dip_sigma_deg``; every segment must be in
         ``identification``.
     identification : mapping
-        Table of :func:`inclination.planes.identify`.
+        Table of :func:`inclination.planes.identify` (``grain_a, grain_b`` give the
+        witness; without them every segment is its own).
+    blunder_rate : float, optional
+        Passed to :func:`boundary_sense`.
 
     Returns
     -------
     dict of 1-D arrays
-        ``segment_id`` and the columns of :func:`boundary_sense`, one row per
-        measured plane, in the order of ``measured``.
+        ``segment_id``, the columns of :func:`boundary_sense`, ``witness`` and
+        ``section``, one row per measured plane, in the order of ``measured``.
 
     Examples
     --------
@@ -176,10 +187,24 @@ def measured_senses(
         measured["dip_direction_sigma_deg"],
         measured_dip_deg=measured["measured_dip_deg"],
         measured_dip_sigma_deg=measured["measured_dip_sigma_deg"],
+        measured_reversal_probability=measured.get("reversal_probability"),
         predicted_azimuth_sigma_deg=predicted.azimuth_sigma_deg,
         predicted_dip_sigma_deg=predicted.dip_sigma_deg,
+        blunder_rate=blunder_rate,
     )
-    return {"segment_id": predicted.segment_id, **senses}
+    seg = predicted.segment_id
+    if "grain_a" in identification and "grain_b" in identification:
+        rows = _identification_rows(identification, seg)
+        ga = np.asarray(identification["grain_a"])[rows]
+        gb = np.asarray(identification["grain_b"])[rows]
+        witness = np.array(
+            [f"{min(a, b)}-{max(a, b)}" for a, b in zip(ga.tolist(), gb.tolist(), strict=True)],
+            dtype=str,
+        )
+    else:
+        witness = np.array([f"segment {s}" for s in seg.tolist()], dtype=str)
+    section = np.asarray(measured.get("section", np.zeros(len(seg), int))).astype(int)
+    return {"segment_id": seg, **senses, "witness": witness, "section": section}
 
 
 @dataclass(frozen=True)
@@ -210,6 +235,8 @@ def compare_map(
     phases: Mapping[int, Phase],
     *,
     coherent_tolerance_deg: float = 5.0,
+    blunder_rate: float = DEFAULT_BLUNDER_RATE,
+    section_names: Sequence[str] | None = None,
 ) -> Comparison:
     """Senses, frame verdict and full planes of one map's measured planes (§6).
 
@@ -230,6 +257,12 @@ def compare_map(
         The job's phases by id.
     coherent_tolerance_deg : float, optional
         Passed to :func:`inclination.compare.full_planes`.
+    blunder_rate : float, optional
+        The job's ``comparison.blunder_rate``, passed to :func:`measured_senses` and
+        :func:`inclination.compare.frame_verdict`.
+    section_names : sequence of str, optional
+        Names of the section tables by index (``measured["section"]``), for the
+        verdict's sentence.
 
     Returns
     -------
@@ -260,8 +293,8 @@ def compare_map(
     keep = rows >= 0
     measured = {k: np.asarray(v)[keep] for k, v in measured.items()}
     rows = rows[keep]
-    senses = measured_senses(measured, identification)
-    verdict = frame_verdict(senses)
+    senses = measured_senses(measured, identification, blunder_rate=blunder_rate)
+    verdict = frame_verdict(senses, blunder_rate=blunder_rate, section_names=section_names)
     boundaries = {
         "segment_id": np.asarray(measured["segment_id"]),
         **{k: np.asarray(identification[k])[rows] for k in ("grain_a", "grain_b", "sigma")},

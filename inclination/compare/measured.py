@@ -14,13 +14,23 @@ from collections.abc import Mapping
 import numpy as np
 from numpy.typing import ArrayLike
 
+from .._validation import as_float_array
 from ..crystal.indices import format_indices, low_indices
 from ..crystal.lattice import Lattice, plane_normals_crystal
 from ..crystal.phases import Phase
 from ..crystal.rotations import quat_apply, quat_as_matrix
 from ..errors import SettingError
 
-__all__ = ["best_measurements", "full_planes", "low_index_planes"]
+__all__ = [
+    "COHERENT_TWIN_ANSWERS",
+    "best_measurements",
+    "coherent_twin_test",
+    "full_planes",
+    "low_index_planes",
+]
+
+#: Closed set of the ``coherent_twin`` column ("" where the test does not apply).
+COHERENT_TWIN_ANSWERS = ("yes", "no", "cannot_tell")
 
 
 def best_measurements(*tables: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]:
@@ -49,15 +59,16 @@ def best_measurements(*tables: Mapping[str, ArrayLike]) -> dict[str, np.ndarray]
     [52.0, 60.0]
     """
     keys = [k for k in _MEASUREMENT_COLUMNS if all(k in t for t in tables)] if tables else []
-    rows = {k: [] for k in keys}
-    for t in tables:
+    if not keys:
+        return {}
+    rows = {k: [] for k in (*keys, "section")}
+    for index, t in enumerate(tables):
         ok = (np.asarray(t["segment_id"]) >= 0) & np.isin(
             np.asarray(t["status"]).astype(str), ("measured", "ill_conditioned")
         )
         for k in keys:
             rows[k].append(np.asarray(t[k])[ok])
-    if not keys:
-        return {}
+        rows["section"].append(np.full(int(ok.sum()), index))
     cat = {k: np.concatenate(v) for k, v in rows.items()}
     order = np.lexsort((cat["measured_dip_sigma_deg"], cat["segment_id"]))
     seg = cat["segment_id"][order]
@@ -77,6 +88,7 @@ _MEASUREMENT_COLUMNS = (
     "dip_direction_sigma_deg",
     "dip_source",
     "status",
+    "reversal_probability",
 )
 
 
@@ -149,8 +161,8 @@ def full_planes(
     max_index : int, optional
         Largest Miller index searched.
     coherent_tolerance_deg : float, optional
-        Largest angle from the common {111} of a coherent Σ3 twin (5° is common
-        practice for measured planes).
+        Largest angle from the common {111} of a coherent Σ3 twin plane itself (5° is
+        common practice for measured planes), before the measurement's σ.
 
     Returns
     -------
@@ -159,7 +171,9 @@ def full_planes(
         ``normal_b_x/y/z`` (crystal frames of grains a and b); ``plane_a_measured,
         plane_b_measured`` (e.g. ``(1 1 -1)``), ``plane_a_deviation_deg,
         plane_b_deviation_deg``; ``twin_plane_deviation_deg`` (NaN unless Σ3) and
-        ``coherent_twin`` (``yes``/``no``/"").
+        ``coherent_twin`` (:func:`coherent_twin_test` against the σ of the measured
+        normal from ``measured_dip_sigma_deg`` and ``dip_direction_sigma_deg`` when
+        ``measured`` has them, else an exact normal; "" unless Σ3).
 
     Examples
     --------
@@ -258,9 +272,73 @@ def full_planes(
             shared = na[np.arange(len(na)), best // 4]
             cos_m = np.abs(np.sum(shared * normal_s[sel], axis=1))
             twin_dev[sel] = np.rad2deg(np.arccos(np.clip(cos_m, 0.0, 1.0)))
-    coherent = np.where(
-        np.isnan(twin_dev), "", np.where(twin_dev <= coherent_tolerance_deg, "yes", "no")
+    coherent = coherent_twin_test(
+        twin_dev, _normal_sigma_deg(measured, has, normal_s), coherent_tolerance_deg
     )
     out["twin_plane_deviation_deg"] = twin_dev
     out["coherent_twin"] = coherent.astype(str)
     return out
+
+
+def coherent_twin_test(
+    deviation_deg: ArrayLike,
+    sigma_deg: ArrayLike,
+    tolerance_deg: float,
+    *,
+    alpha: float = 0.01,
+) -> np.ndarray:
+    """Whether measured planes are the common {111} of a Σ3 twin, against their σ.
+
+    The angle d between a measured normal and the {111} is, if the plane is the
+    {111} and the normal's error is normal with σ per direction, Rayleigh
+    distributed: P(d > c) = exp(−c²/2σ²), so d > c = σ·√(−2 ln α) rejects the
+    {111} at significance α; a coherent twin plane may itself lie up to
+    ``tolerance_deg`` (t) off. The answer is ``no`` when d > t + c; ``yes`` when it
+    is not and the noise is no larger than the tolerance (c <= t, so that a plane
+    beyond about 2t would have been rejected); ``cannot_tell`` when σ is too large
+    for that. NaN deviation gives "".
+
+    Parameters
+    ----------
+    deviation_deg : array_like
+        Angle from the common {111}, degrees.
+    sigma_deg : array_like
+        σ of the measured normal per direction, degrees (0: exact; broadcast).
+    tolerance_deg : float
+        Largest angle of a coherent twin plane itself from the {111}.
+    alpha : float, optional
+        Significance of the rejection.
+
+    Returns
+    -------
+    ndarray of str
+        One of :data:`COHERENT_TWIN_ANSWERS` or "".
+
+    Examples
+    --------
+    >>> coherent_twin_test([1.0, 7.0, 20.0, 6.0, np.nan], [0.5, 1.5, 1.0, 8.0, 1.0],
+    ...                    5.0).tolist()
+    ['yes', 'yes', 'no', 'cannot_tell', '']
+    """
+    d = as_float_array(deviation_deg, "deviation_deg")
+    sigma = np.broadcast_to(as_float_array(sigma_deg, "sigma_deg"), d.shape)
+    critical = np.nan_to_num(sigma, nan=0.0) * np.sqrt(-2.0 * np.log(alpha))
+    answer = np.where(
+        d > tolerance_deg + critical,
+        "no",
+        np.where(critical <= tolerance_deg, "yes", "cannot_tell"),
+    )
+    return np.where(np.isnan(d), "", answer).astype(str)
+
+
+def _normal_sigma_deg(measured, has, normal_s):
+    """σ per direction of each measured normal: the larger of the dip's and the strike's."""
+    if "measured_dip_sigma_deg" not in measured:
+        return np.zeros(len(normal_s))
+    dip_sigma = np.asarray(measured["measured_dip_sigma_deg"], float)[has]
+    az_sigma = np.asarray(
+        measured.get("dip_direction_sigma_deg", np.full(len(has), np.nan)), float
+    )[has]
+    # An azimuth error φ moves the normal by sin δ · φ, δ the dip (sin δ = |n_xy|).
+    strike = np.hypot(normal_s[:, 0], normal_s[:, 1]) * az_sigma
+    return np.fmax(np.nan_to_num(dip_sigma, nan=0.0), strike)

@@ -223,12 +223,18 @@ def _match_block(blk, planes_a, planes_b, phase, settings, want_table, want_long
     seg_of, first = np.unique(s[order], return_index=True)
     best = order[first]
 
-    out["candidates_within_tolerance"] = fit_a.sum(axis=1) + fit_b.sum(axis=1)
+    # A plane the two grains share, fitting on both sides, is one candidate, not two.
+    both = fit_a[s, i] & fit_b[s, j]
+    out["candidates_within_tolerance"] = (
+        fit_a.sum(axis=1) + fit_b.sum(axis=1) - np.bincount(s[both], minlength=n)
+    )
     out["common_planes_within_tolerance"] = n_common
     has_trace = np.concatenate([pred_a.has_trace, pred_b.has_trace], axis=1)
     tol_all = np.concatenate([tol_a, tol_b], axis=1)
-    # A plane without a trace is no candidate: chance_fit skips NaN.
-    out["chance_fit"] = chance_fit(np.where(has_trace, tol_all, np.nan))
+    angle_all = np.concatenate([pred_a.trace_angle_deg, pred_b.trace_angle_deg], axis=1)
+    # A plane without a trace is no candidate: chance_fit skips NaN; a shared plane's
+    # two windows overlap and count once in the union.
+    out["chance_fit"] = chance_fit(angle_all, np.where(has_trace, tol_all, np.nan))
 
     def put(rows, geometry, index, dev, tol):
         out["trace_deviation_deg"][rows] = dev

@@ -258,19 +258,23 @@ def trace_deviation_deg(measured_deg: ArrayLike, predicted_deg: ArrayLike) -> np
     return np.abs(np.mod(m - p + 90.0, 180.0) - 90.0)
 
 
-def chance_fit(tolerance_deg: ArrayLike) -> float | np.ndarray:
+def chance_fit(trace_angle_deg: ArrayLike, tolerance_deg: ArrayLike) -> float | np.ndarray:
     """Chance that a trace at a uniformly random angle fits at least one candidate.
 
-    For candidates with tolerances τ_i the chance is 1 − Π (1 − 2τ_i/180°);
-    with k candidates at one tolerance τ this is 1 − (1 − 2τ/180°)^k. The
-    candidates are treated as independent, which slightly overstates the
-    chance when their traces lie closer than 2τ. NaN entries (planes with no
-    trace) are not candidates. The product runs over the last axis.
+    A trace fits candidate i when it lies within τ_i of the candidate's trace
+    angle θ_i, so the chance is the length of the union of the windows
+    [θ_i − τ_i, θ_i + τ_i] on the 180° circle of trace angles, divided by 180°:
+    overlapping windows (two candidates with nearly the same trace, or one plane
+    shared by both grains) count once. For disjoint windows this is Σ 2τ_i/180°.
+    NaN entries (planes with no trace) are not candidates. The union runs over the
+    last axis.
 
     Parameters
     ----------
+    trace_angle_deg : array_like, shape (..., K)
+        Trace angles of the K candidates, degrees (any real; taken modulo 180).
     tolerance_deg : array_like, shape (..., K)
-        Tolerances of the K candidates, degrees, in [0, 90].
+        Their tolerances, degrees, in [0, 90].
 
     Returns
     -------
@@ -279,9 +283,11 @@ def chance_fit(tolerance_deg: ArrayLike) -> float | np.ndarray:
 
     Examples
     --------
-    >>> round(float(chance_fit([2.0, 2.0, 2.0])), 6)  # 1 − (1 − 4/180)³
-    0.065196
-    >>> round(float(chance_fit([])), 6)
+    >>> round(float(chance_fit([10.0, 50.0, 100.0], [2.0, 2.0, 2.0])), 6)  # 12/180
+    0.066667
+    >>> round(float(chance_fit([10.0, 11.0], [2.0, 2.0])), 6)  # [8, 13]: 5/180
+    0.027778
+    >>> round(float(chance_fit([], [])), 6)
     0.0
     """
     t = as_float_array(tolerance_deg, "tolerance_deg")
@@ -289,8 +295,27 @@ def chance_fit(tolerance_deg: ArrayLike) -> float | np.ndarray:
         raise ValueError(f"Expected `tolerance_deg` to have shape (..., K), got {t.shape}.")
     if np.any((t < 0) | (t > 90)):
         raise ValueError("Expected `tolerance_deg` to lie in [0, 90], got a value outside.")
-    miss = np.where(np.isnan(t), 1.0, 1.0 - 2.0 * t / 180.0)
-    out = 1.0 - np.prod(miss, axis=-1)
+    theta = as_float_array(trace_angle_deg, "trace_angle_deg")
+    if theta.shape != t.shape:
+        raise ValueError(
+            f"Expected `trace_angle_deg` to have the shape of `tolerance_deg` {t.shape}, "
+            f"got {theta.shape}."
+        )
+    none = np.isnan(t) | np.isnan(theta)
+    start = np.where(none, 0.0, np.mod(theta - t, 180.0))
+    end = np.where(none, 0.0, start + 2.0 * t)
+    # A window past 180° wraps: its piece beyond 180° starts again at 0°.
+    wrap_end = np.where(end > 180.0, end - 180.0, 0.0)
+    starts = np.concatenate([start, np.zeros_like(start)], axis=-1)
+    ends = np.concatenate([np.minimum(end, 180.0), wrap_end], axis=-1)
+    order = np.argsort(starts, axis=-1, kind="stable")
+    starts = np.take_along_axis(starts, order, -1)
+    ends = np.take_along_axis(ends, order, -1)
+    # With the starts sorted, the covered length is Σ max(0, e_i − max(s_i, max_{j<i} e_j)).
+    reach = np.maximum.accumulate(ends, axis=-1)
+    before = np.concatenate([np.zeros_like(reach[..., :1]), reach[..., :-1]], axis=-1)
+    covered = np.sum(np.maximum(0.0, ends - np.maximum(starts, before)), axis=-1)
+    out = np.clip(covered / 180.0, 0.0, 1.0)
     return float(out) if out.ndim == 0 else out
 
 

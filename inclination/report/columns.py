@@ -134,7 +134,7 @@ SEGMENT_COLUMNS = (
             "misorientation_deg",
             "float",
             3,
-            "mean disorientation of the pixel pairs along it",
+            "disorientation angle between the grains",
             "Misorientation",
             "°",
         ),
@@ -186,8 +186,23 @@ BOUNDARY_COLUMNS = (
             "Deviation from Σ",
             "°",
         ),
-        _c("plane_a", "str", 0, "best candidate plane, indices in grain a", "Plane (grain a)", ""),
-        _c("plane_b", "str", 0, "the same plane, indices in grain b", "Plane (grain b)", ""),
+        _c(
+            "plane_a",
+            "str",
+            0,
+            "plane whose trace fits best, in grain a's indices (a plane both grains share first; "
+            "empty when it is grain b's alone); if ambiguous, the closest of several",
+            "Plane (grain a)",
+            "",
+        ),
+        _c(
+            "plane_b",
+            "str",
+            0,
+            "the same plane in grain b's indices; empty when it is grain a's alone",
+            "Plane (grain b)",
+            "",
+        ),
         _c(
             "trace_deviation_deg",
             "float",
@@ -201,7 +216,7 @@ BOUNDARY_COLUMNS = (
             "candidates_within_tolerance",
             "int",
             0,
-            "how many candidate planes fit the trace",
+            "how many candidate planes fit the trace (a plane both grains share counts once)",
             "Planes fitting",
             "",
         ),
@@ -209,7 +224,7 @@ BOUNDARY_COLUMNS = (
             "chance_fit",
             "float",
             4,
-            "chance that a random trace fits some candidate",
+            "chance that a random trace fits some candidate: union of their windows / 180°",
             "Chance fit",
             "",
         ),
@@ -226,7 +241,8 @@ BOUNDARY_COLUMNS = (
             "predicted_dip_deg",
             "float",
             3,
-            "dip of plane_a, 0 parallel to surface, 90 vertical",
+            "dip of that plane (0 parallel to surface, 90 vertical); for an ambiguous boundary "
+            "only that candidate's dip, not an answer",
             "Predicted dip",
             "°",
         ),
@@ -234,7 +250,7 @@ BOUNDARY_COLUMNS = (
             "predicted_dip_azimuth_deg",
             "float",
             3,
-            "dip direction of plane_a, declared axes",
+            "dip direction of that plane, declared axes",
             "Predicted dip direction",
             "°",
         ),
@@ -278,8 +294,17 @@ BOUNDARY_COLUMNS = (
             "sense_log10_lr",
             "float",
             3,
-            "log10 likelihood ratio, declared frame vs turned",
+            "log10 likelihood ratio, declared frame vs turned, with the blunder rate and reversal "
+            "chance mixed in: at most log10((1 - blunder_rate)/blunder_rate)",
             "log₁₀ LR",
+            "",
+        ),
+        _c(
+            "sense_reversal_probability",
+            "float",
+            4,
+            "chance that the measured or predicted dip direction is reversed (steep plane)",
+            "P(reversed)",
             "",
         ),
         _c("normal_x", "float", 5, "measured plane normal, declared axes, x", "n_x", ""),
@@ -315,7 +340,8 @@ BOUNDARY_COLUMNS = (
             "measured_coherent_twin",
             "str",
             0,
-            "Σ3: yes when the measured plane is the {111}",
+            "Σ3: is the measured plane the common {111}, tested against its σ: yes, no or "
+            "cannot_tell (σ too large)",
             "Coherent twin",
             "",
         ),
@@ -370,9 +396,9 @@ SOURCE_SYMBOLS = {"cross-section": "X", "serial-section": "S", "serial-stack": "
 
 #: The paper table: one row per selected boundary, every cell a rounded string.
 PAPER_COLUMNS = (
-    _c("boundary_id", "int", 0, "boundary number, as in boundaries.csv and on the map", "ID"),
+    _c("boundary_id", "int", 0, "boundary (straight segment) number, from 1", "ID"),
     _c("grains", "str", 0, "the two grains, a/b (grain ids of grains.csv)", "Grains"),
-    _c("sigma", "str", 0, "coincidence-site-lattice class Σ; empty if none", "Σ"),
+    _c("sigma", "str", 0, "coincidence-site-lattice class, e.g. 3 or 13b; empty if none", "Σ"),
     _c(
         "class",
         "str",
@@ -441,8 +467,7 @@ PAPER_COLUMNS = (
         "sense",
         "str",
         0,
-        "agrees: the measurement confirms the declared frame; opposite: it fits the frame "
-        "turned 180° about the surface normal; undecided: it cannot tell",
+        "agrees, opposite or undecided (empty if not measured)",
         "Sense",
     ),
 )

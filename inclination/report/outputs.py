@@ -163,6 +163,7 @@ def boundaries_table(analysis) -> dict:
     out["dip_source"] = from_measured("dip_source", "")
     out["sense"] = from_senses("sense", "")
     out["sense_log10_lr"] = from_senses("log10_likelihood_ratio", np.nan)
+    out["sense_reversal_probability"] = from_senses("reversal_probability", np.nan)
     normal_s = np.stack([from_measured(f"normal_{c}", np.nan) for c in "xyz"], axis=-1)
     normal_d = axes.vectors_to_declared(normal_s.reshape(-1, 3)).reshape(-1, 3)
     out["normal_x"], out["normal_y"], out["normal_z"] = normal_d.T

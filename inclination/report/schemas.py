@@ -21,7 +21,7 @@ _ENUMS = {
     "dip_source": ["cross-section", "serial-section", "serial-stack"],
     "identification": ["coherent_twin", "identified", "ambiguous", "none"],
     "twin_test": ["pass", "fail"],
-    "measured_coherent_twin": ["yes", "no"],
+    "measured_coherent_twin": ["yes", "no", "cannot_tell"],
 }
 _PATTERNS = {
     "plane_a": _INDICES,

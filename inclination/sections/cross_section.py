@@ -22,8 +22,10 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.sparse.csgraph import connected_components
+from scipy.special import ndtr
 
 from .._validation import as_float_array
+from ..compare.sense import reversal_probability
 from ..errors import InputError, SettingError
 from ..frames import DeclaredAxes
 from ..planes.geometry import surface_geometry
@@ -40,6 +42,10 @@ _Z.setflags(write=False)
 
 #: Sides of the image a boundary may descend toward (as the viewer sees it, §7).
 _DESCENDS = ("left", "right")
+
+# A plane within this of the surface (degrees) is parallel to it to round-off: no
+# dip direction.
+_HORIZONTAL_DIP_DEG = 1e-6
 
 
 def _frozen(values, dtype=float) -> np.ndarray:
@@ -492,6 +498,15 @@ def measure_cross_section(
             dip_sigma[matched] > max_sigma_deg, "ill_conditioned", "measured"
         )
 
+    # Reversed dip direction (§6): a steep plane whose true dip lies beyond 90°, or a
+    # trace so near the line that the azimuth error passes 90° (normal, both tails).
+    # A horizontal plane, or an azimuth σ at its 180° cap, has no dip direction.
+    steep = np.nan_to_num(reversal_probability(dip, dip_sigma), nan=0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        along_line = np.nan_to_num(2.0 * ndtr(-90.0 / azimuth_sigma), nan=0.0)
+    reversal = steep * (1 - along_line) + along_line * (1 - steep)
+    undefined = (dip <= _HORIZONTAL_DIP_DEG) | (azimuth_sigma >= 180.0)
+    reversal = np.where(np.isfinite(dip) & ~undefined, np.minimum(reversal, 0.5), np.nan)
     return {
         "entry": np.arange(k),
         "segment_id": out_id,
@@ -503,8 +518,9 @@ def measure_cross_section(
         "normal_z": normal[:, 2],
         "measured_dip_deg": dip,
         "measured_dip_sigma_deg": dip_sigma,
-        "dip_direction_azimuth_deg": azimuth,
-        "dip_direction_sigma_deg": azimuth_sigma,
+        "dip_direction_azimuth_deg": np.where(undefined, np.nan, azimuth),
+        "dip_direction_sigma_deg": np.where(undefined, np.nan, azimuth_sigma),
+        "reversal_probability": reversal,
         "dip_source": np.full(k, "cross-section", dtype=object),
         "status": status.astype(str) if k else np.array([], dtype=str),
     }

@@ -24,6 +24,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike
+from scipy.special import ndtr
 
 from ..errors import InputError
 from ..frames import DeclaredAxes
@@ -615,6 +616,9 @@ def measure_serial_section(
         "measured_dip_sigma_deg": np.where(found, dip_sigma, np.nan),
         "dip_direction_azimuth_deg": azimuth,
         "dip_direction_sigma_deg": az_sigma,
+        # The dip direction is the sign of the offset Δ (§8): reversed when the true
+        # offset has the other sign, Φ(−|Δ|/σ_Δ) (normal error of Δ).
+        "reversal_probability": np.where(found, ndtr(-np.abs(delta) / offset_sigma), np.nan),
         "dip_source": np.where(found, "serial-section", "").astype(object),
         "status": status.astype(str),
     }

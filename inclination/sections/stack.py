@@ -20,6 +20,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from .._validation import as_float_array, check_finite
+from ..compare.sense import reversal_probability
 from ..errors import SettingError
 from ..planes.geometry import surface_geometry
 from ._settings import setting_positive
@@ -279,6 +280,7 @@ def measure_stack(
         "measured_dip_sigma_deg": sigma,
         "dip_direction_azimuth_deg": azimuth,
         "dip_direction_sigma_deg": az_sigma,
+        "reversal_probability": reversal_probability(dip, sigma),
         "fit_residual_um": residual,
         "dip_source": np.where(found, "serial-stack", "").astype(object),
         "status": np.where(found, "measured", "unmatched").astype(str),

@@ -292,7 +292,7 @@ def _formulas_hold(table, cands, grains, segments):
         tol = np.where(cands["has_trace"][mine], cands["tolerance_deg"][mine], np.nan)
         # The identification's chance is the public chance_fit (Monte-Carlo checked in
         # tests/test_planes_predict.py) of the candidates' tolerances, bit for bit.
-        assert table["chance_fit"][row] == chance_fit(tol)
+        assert table["chance_fit"][row] == chance_fit(cands["trace_angle_deg"][mine], tol)
         seg_row = row_of[int(sid)]
         spread = grains["spread_mean_deg"][cands["grain_id"][mine] - 1]
         expected = trace_tolerance_deg(

@@ -90,16 +90,23 @@ def test_image_right_is_v_cross_z_from_scipy_rotation():
 
 
 def test_sense_likelihood_ratio_is_the_von_mises_density_ratio():
-    # The per-boundary odds: von Mises density (scipy.stats.vonmises) about μ over
-    # that about μ + 180°, κ = 1/σ².
+    # The per-boundary odds: von Mises density (scipy.stats.vonmises) about μ (f₁)
+    # and about μ + 180° (f₂), κ = 1/σ², mixed with a flip of chance ε:
+    # ((1 − ε)f₁ + εf₂) / ((1 − ε)f₂ + εf₁).
     sigma_deg = 25.0
     kappa = 1.0 / math.radians(sigma_deg) ** 2
     phi, mu = 100.0, 70.0
-    expected = math.log10(
-        vonmises.pdf(math.radians(phi), kappa, loc=math.radians(mu))
-        / vonmises.pdf(math.radians(phi), kappa, loc=math.radians(mu + 180.0))
-    )
-    out = boundary_sense(
-        [mu], [50.0], [phi], [sigma_deg], predicted_azimuth_sigma_deg=0.0, min_log10_ratio=0.1
-    )
-    assert_allclose(out["log10_likelihood_ratio"], [expected], rtol=1e-9, atol=1e-9)
+    f1 = vonmises.pdf(math.radians(phi), kappa, loc=math.radians(mu))
+    f2 = vonmises.pdf(math.radians(phi), kappa, loc=math.radians(mu + 180.0))
+    for eps in (0.05, 0.01):
+        expected = math.log10(((1 - eps) * f1 + eps * f2) / ((1 - eps) * f2 + eps * f1))
+        out = boundary_sense(
+            [mu],
+            [50.0],
+            [phi],
+            [sigma_deg],
+            predicted_azimuth_sigma_deg=0.0,
+            min_log10_ratio=0.1,
+            blunder_rate=eps,
+        )
+        assert_allclose(out["log10_likelihood_ratio"], [expected], rtol=1e-9, atol=1e-9)
