@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 from scipy import ndimage
 
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.io.writers import write_npz
 from inclination.synthetic import (
     as_orientation_map,

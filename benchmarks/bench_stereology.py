@@ -16,7 +16,8 @@ import time
 
 import numpy as np
 
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import random_quat
 from inclination.stereology import plane_distribution
 

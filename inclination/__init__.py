@@ -16,7 +16,9 @@ try:
 except PackageNotFoundError:  # running from a source tree that was never installed
     __version__ = "0.0.0+unknown"
 
-from .crystal.lattice import Lattice, Phase, format_indices, parse_indices
+from .crystal.indices import format_indices, parse_indices
+from .crystal.lattice import Lattice
+from .crystal.phases import Phase
 from .errors import InclinationError, InputError, SettingError
 from .frames import DeclaredAxes
 from .io.job import Job, job_from_dict, load_job

@@ -324,7 +324,7 @@ def _slip_features(micro, surface, seed):
     Their own random stream (seeded from ``seed``), so the rest of the scenario is
     unchanged by them.
     """
-    from .crystal.lattice import Phase
+    from .crystal.phases import Phase
     from .crystal.slip import slip_systems
     from .synthetic.slip_traces import slip_traces
 

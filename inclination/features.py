@@ -219,7 +219,7 @@ def read_slip_systems(phase_entries, phases, *, path=None) -> dict:
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Phase
+    >>> from inclination.crystal.phases import Phase
     >>> entry = {"id": 1, "name": "Cu", "laue": "m-3m",
     ...          "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}
     >>> cu = Phase.from_dict(entry)
@@ -258,11 +258,11 @@ def feature_candidate_planes(phase, slip=None, families=None):
 
     Returns
     -------
-    inclination.crystal.lattice.CandidatePlanes
+    inclination.crystal.phases.CandidatePlanes
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Phase
+    >>> from inclination.crystal.phases import Phase
     >>> cu = Phase.from_dict({"id": 1, "name": "Cu", "laue": "m-3m",
     ...     "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}})
     >>> len(feature_candidate_planes(cu)), len(feature_candidate_planes(cu, families=["{111}"]))
@@ -587,7 +587,7 @@ def identify_features(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Phase
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.crystal.slip import slip_systems
     >>> cu = Phase.from_dict({"id": 1, "name": "Cu", "laue": "m-3m",
     ...     "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}})

@@ -46,7 +46,7 @@ from .links import (
 )
 
 if TYPE_CHECKING:
-    from .crystal.lattice import Phase
+    from .crystal.phases import Phase
     from .maps import OrientationMap
 
 __all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
@@ -625,7 +625,8 @@ def segment_grains(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.maps import OrientationMap
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
     >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))

@@ -109,7 +109,8 @@ def phase_infos(phases: Iterable | Mapping) -> tuple[PhaseInfo, ...]:
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
     >>> cu = Phase(3, "copper", "m-3m", cell, ("{1 1 1}",))
     >>> phase_infos({3: cu})

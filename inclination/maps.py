@@ -944,7 +944,7 @@ def _read_table_map(
             raise InputError(
                 f"Expected a column {name!r} for {role!r}, got columns {list(table.header)}"
                 f"{hint}. Name the file's columns in the job's map.columns under the keys "
-                f"{_ROLES}, e.g. \"columns\": {{\"{role}\": \"{near[0] if near else 'name'}\"}}.",
+                f'{_ROLES}, e.g. "columns": {{"{role}": "{near[0] if near else "name"}"}}.',
                 path=path,
                 pointer="header",
             )
@@ -1074,16 +1074,3 @@ def read_map_file(path, *, format: str, angles: str, axes=None, **options) -> Or
         **options,
     }
     return read_map(spec, pointer="")
-
-
-# Written maps moved to inclination.io.writers; still importable from here so that code
-# written against the earlier layout keeps working.
-_MOVED = ("write_npz", "write_tiff", "write_csv")
-
-
-def __getattr__(name: str) -> object:
-    if name in _MOVED:
-        from .io import writers
-
-        return getattr(writers, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

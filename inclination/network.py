@@ -37,7 +37,7 @@ from .links import (
 )
 
 if TYPE_CHECKING:
-    from .crystal.lattice import Phase
+    from .crystal.phases import Phase
     from .grains import GrainMap
     from .maps import OrientationMap
 
@@ -492,7 +492,8 @@ def boundary_network(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.maps import OrientationMap
     >>> from inclination.grains import segment_grains
     >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)

@@ -501,7 +501,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     --------
     >>> import tempfile
     >>> from inclination.io.job import job_from_dict
-    >>> from inclination.maps import write_npz
+    >>> from inclination.io.writers import write_npz
     >>> folder = Path(tempfile.mkdtemp())
     >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
     >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
@@ -696,7 +696,7 @@ def analyse(
     --------
     >>> import tempfile
     >>> from inclination.io.job import job_from_dict
-    >>> from inclination.maps import write_npz
+    >>> from inclination.io.writers import write_npz
     >>> folder = Path(tempfile.mkdtemp())
     >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
     >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
@@ -865,7 +865,7 @@ def rebuild_report(run_dir: str | os.PathLike) -> RunResult:
     --------
     >>> import tempfile
     >>> from inclination.io.job import job_from_dict
-    >>> from inclination.maps import write_npz
+    >>> from inclination.io.writers import write_npz
     >>> folder = Path(tempfile.mkdtemp())
     >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
     >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
@@ -976,7 +976,7 @@ def write_outputs(
     --------
     >>> import tempfile
     >>> from inclination.io.job import job_from_dict
-    >>> from inclination.maps import write_npz
+    >>> from inclination.io.writers import write_npz
     >>> folder = Path(tempfile.mkdtemp())
     >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
     >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(

@@ -1,6 +1,7 @@
 """Write the table schemas into schemas/ from the column definitions.
 
 Run after changing inclination/report/columns.py: python scripts/make_schemas.py
+(it writes the schemas and docs/glossary.md).
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from inclination.report.candidates import candidates_schema  # noqa: E402
+from inclination.report.glossary import glossary_markdown  # noqa: E402
 from inclination.report.schemas import SCHEMAS, render  # noqa: E402
 
 if __name__ == "__main__":
@@ -22,3 +24,6 @@ if __name__ == "__main__":
     text = json.dumps(candidates_schema(), indent=2, ensure_ascii=False) + "\n"
     (ROOT / "schemas" / "candidates.schema.json").write_text(text, encoding="utf-8")
     print("schemas/candidates.schema.json")
+    # The glossary is drawn from the same column list (a test checks it is current).
+    (ROOT / "docs" / "glossary.md").write_text(glossary_markdown(), encoding="utf-8")
+    print("docs/glossary.md")

@@ -15,8 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
-from inclination.io.writers import write_csv
-from inclination.maps import OrientationMap, write_npz
+from inclination.io.writers import write_csv, write_npz
+from inclination.maps import OrientationMap
 
 PHASES = [
     {

@@ -27,7 +27,8 @@ from inclination.compare import (
     predicted_directions,
     reversal_probability,
 )
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import (
     quat_apply,
     quat_from_axis_angle_deg,

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import quat_from_euler_deg
 from inclination.crystal.slip import slip_systems
 from inclination.errors import InputError

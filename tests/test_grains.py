@@ -9,7 +9,8 @@ from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 from skimage.measure import label as sk_label
 
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply, random_quat
 from inclination.crystal.symmetry import disorientation_angle_deg, proper_rotations
 from inclination.errors import InputError, SettingError

@@ -17,7 +17,8 @@ import numpy as np
 import pytest
 
 from inclination.cli import main
-from inclination.maps import OrientationMap, write_npz
+from inclination.io.writers import write_npz
+from inclination.maps import OrientationMap
 
 
 @pytest.fixture(scope="module")

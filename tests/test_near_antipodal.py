@@ -17,7 +17,8 @@ from numpy.testing import assert_allclose
 from scipy.spatial.transform import Rotation
 
 from inclination.crystal.csl import classify_misorientation_quat, relation_deviation_deg
-from inclination.crystal.lattice import Lattice, Phase, interplanar_angle_deg
+from inclination.crystal.lattice import Lattice, interplanar_angle_deg
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import (
     matrix_from_euler_deg,
     quat_angle_deg,

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.crystal.slip import (
     SLIP_PRESET_SOURCES,
     SLIP_PRESETS,

@@ -16,7 +16,8 @@ import pytest
 from jsonschema import Draft202012Validator
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import quat_apply, quat_inverse, quat_multiply, random_quat
 from inclination.crystal.symmetry import proper_rotations
 from inclination.io.schemas import load_schema

@@ -15,7 +15,7 @@ from scipy.spatial import cKDTree
 from scipy.spatial.transform import Rotation
 
 from inclination.crystal import symmetry
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import (
     quat_apply,
     quat_as_matrix,

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from ..crystal.lattice import Phase
+from ..crystal.phases import Phase
 from .measured import full_planes
 from .sense import DEFAULT_BLUNDER_RATE, boundary_sense
 from .verdict import FrameVerdict, frame_verdict
@@ -270,7 +270,8 @@ def compare_map(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> cu = Phase(1, "copper", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> ident = {"segment_id": np.array([0]), "identification": np.array(["identified"]),

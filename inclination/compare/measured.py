@@ -177,7 +177,8 @@ def full_planes(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> cu = Phase(1, "copper", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> out = full_planes(

@@ -547,7 +547,8 @@ def hexagonal_twins(
     {1 1 -2 2} 64.42 (1, 0, -1, 0)
     {1 1 -2 1} 34.97 (1, 0, -1, 0)
     """
-    from .lattice import Lattice, format_indices, plane_normals_crystal
+    from .indices import format_indices
+    from .lattice import Lattice, plane_normals_crystal
 
     c_over_a = float(as_float_array(c_over_a, "c_over_a"))
     if not np.isfinite(c_over_a) or c_over_a <= 0:

@@ -513,27 +513,3 @@ def interplanar_angle_deg(lattice: Lattice, hkl1, hkl2) -> np.ndarray:
     n2 = plane_normals_crystal(lattice, hkl2)
     cos = np.clip(np.sum(n1 * n2, axis=-1), -1.0, 1.0)
     return np.degrees(np.arccos(cos))
-
-
-# Names that lived here before indices, families and phases had modules of their own:
-# still importable from here so that code written against the earlier layout keeps
-# working; new code imports them from inclination.crystal or from their own module.
-_MOVED = {
-    "Indices": "indices",
-    "parse_indices": "indices",
-    "format_indices": "indices",
-    "format_indices_latex": "indices",
-    "expand_family": "families",
-    "default_families": "families",
-    "CandidatePlanes": "phases",
-    "Phase": "phases",
-    "Phases": "phases",
-}
-
-
-def __getattr__(name: str) -> object:
-    if name in _MOVED:
-        import importlib
-
-        return getattr(importlib.import_module(f"{__package__}.{_MOVED[name]}"), name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

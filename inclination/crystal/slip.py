@@ -17,14 +17,9 @@ from types import MappingProxyType
 import numpy as np
 
 from .._validation import as_float_array, check_last_axis
-from .lattice import (
-    LAUE_CRYSTAL_SYSTEMS,
-    direction_crystal,
-    expand_family,
-    format_indices,
-    parse_indices,
-    plane_normals_crystal,
-)
+from .families import expand_family
+from .indices import format_indices, parse_indices
+from .lattice import LAUE_CRYSTAL_SYSTEMS, direction_crystal, plane_normals_crystal
 
 __all__ = [
     "SLIP_PRESETS",
@@ -93,7 +88,7 @@ def parse_slip_system(text):
     ----------
     text : str
         ``"{h k l}<u v w>"`` or Miller–Bravais ``"{h k i l}<U V T W>"``; the index
-        forms of :func:`inclination.crystal.lattice.parse_indices` are accepted.
+        forms of :func:`inclination.crystal.indices.parse_indices` are accepted.
 
     Returns
     -------
@@ -219,7 +214,7 @@ def slip_systems(phase, systems) -> SlipSystems:
 
     Parameters
     ----------
-    phase : inclination.crystal.lattice.Phase
+    phase : inclination.crystal.phases.Phase
         Supplies the lattice (and its setting) and the Laue class.
     systems : sequence of str
         Slip-system strings (:func:`parse_slip_system`) or names of
@@ -239,7 +234,7 @@ def slip_systems(phase, systems) -> SlipSystems:
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Phase
+    >>> from inclination.crystal.phases import Phase
     >>> cell = {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}
     >>> cu = Phase.from_dict({"id": 1, "name": "Cu", "laue": "m-3m", "lattice": cell})
     >>> s = slip_systems(cu, ["fcc"])

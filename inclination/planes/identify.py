@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .._validation import as_float_array, check_finite
-from ..crystal.lattice import Phase
+from ..crystal.phases import Phase
 from ..errors import InputError, SettingError
 from ..grains import GrainMap
 from ._tables import column
@@ -569,7 +569,8 @@ def match_planes(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.grains import GrainMap
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
@@ -602,7 +603,7 @@ def identify(
     """Identify the crystal plane of each straight boundary segment from its trace.
 
     For each segment, every candidate plane of both grains (the phase's
-    families, ±n once; :meth:`inclination.crystal.lattice.Phase.candidate_planes`) is
+    families, ±n once; :meth:`inclination.crystal.phases.Phase.candidate_planes`) is
     predicted in S with :func:`predict_planes` and compared with the measured
     trace. A plane *fits* when its trace deviation is at most its tolerance
     τ = k·√(σ_measured² + σ_predicted²), floored at ``floor_deg`` and capped at
@@ -686,7 +687,8 @@ def identify(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.615, 3.615, 3.615, 90, 90, 90),
     ...            ("{1 1 1}", "{1 1 0}"))
@@ -739,7 +741,8 @@ def candidates(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> from inclination.grains import GrainMap

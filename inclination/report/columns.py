@@ -134,7 +134,7 @@ SEGMENT_COLUMNS = (
             "misorientation_deg",
             "float",
             3,
-            "disorientation angle between the grains",
+            "mean disorientation of the pixel pairs along it",
             "Misorientation",
             "°",
         ),
@@ -396,9 +396,9 @@ SOURCE_SYMBOLS = {"cross-section": "X", "serial-section": "S", "serial-stack": "
 
 #: The paper table: one row per selected boundary, every cell a rounded string.
 PAPER_COLUMNS = (
-    _c("boundary_id", "int", 0, "boundary (straight segment) number, from 1", "ID"),
+    _c("boundary_id", "int", 0, "boundary number, as in boundaries.csv and on the map", "ID"),
     _c("grains", "str", 0, "the two grains, a/b (grain ids of grains.csv)", "Grains"),
-    _c("sigma", "str", 0, "coincidence-site-lattice class, e.g. 3 or 13b; empty if none", "Σ"),
+    _c("sigma", "str", 0, "coincidence-site-lattice class Σ; empty if none", "Σ"),
     _c(
         "class",
         "str",
@@ -467,7 +467,8 @@ PAPER_COLUMNS = (
         "sense",
         "str",
         0,
-        "agrees, opposite or undecided (empty if not measured)",
+        "agrees: the measurement confirms the declared frame; opposite: it fits the frame "
+        "turned 180° about the surface normal; undecided: it cannot tell",
         "Sense",
     ),
 )

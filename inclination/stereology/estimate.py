@@ -48,12 +48,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..crystal.csl import classify_misorientation_quat, relation_deviation_deg
-from ..crystal.lattice import (
-    LAUE_CRYSTAL_SYSTEMS,
-    direction_crystal,
-    format_indices,
-    plane_normals_crystal,
-)
+from ..crystal.indices import format_indices
+from ..crystal.lattice import LAUE_CRYSTAL_SYSTEMS, direction_crystal, plane_normals_crystal
 from ..crystal.phases import Phases
 from ..crystal.rotations import quat_apply, quat_as_matrix, quat_from_axis_angle_deg
 from ..crystal.symmetry import misorientation_quat, proper_rotations, reduce_axis_to_triangle
@@ -449,7 +445,7 @@ def plane_distribution(
     grains : dict of str to ndarray
         The grains table of ``grains.segment_grains``: ``grain_id``, ``phase``, ``quat``
         (sample to crystal, §3).
-    phases : sequence of inclination.crystal.lattice.Phase
+    phases : sequence of inclination.crystal.phases.Phase
     classes : sequence
         Misorientation classes (:meth:`MisorientationClass.from_spec` forms).
     resolution_deg : float
@@ -472,7 +468,8 @@ def plane_distribution(
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}",))
     >>> grains = {"grain_id": np.array([1, 2]), "phase": np.array([1, 1]),

@@ -74,12 +74,9 @@ def _smoothed_field(dist, normals: np.ndarray) -> np.ndarray:
 
 
 def _poles(phase):
-    from ..crystal.lattice import (
-        expand_family,
-        format_indices,
-        parse_indices,
-        plane_normals_crystal,
-    )
+    from ..crystal.families import expand_family
+    from ..crystal.indices import format_indices, parse_indices
+    from ..crystal.lattice import plane_normals_crystal
 
     out = []
     for family in phase.families:
@@ -104,7 +101,7 @@ def plot_stereogram(
     ----------
     dist : inclination.stereology.PlaneDistribution
         With ``mrd`` (not None).
-    phase : inclination.crystal.lattice.Phase
+    phase : inclination.crystal.phases.Phase
         Its ``families`` are marked as poles.
     projection : {'stereographic', 'equal-area'}
     ax : matplotlib Axes, optional
@@ -121,7 +118,8 @@ def plot_stereogram(
     --------
     >>> import matplotlib
     >>> matplotlib.use("Agg")
-    >>> from inclination.crystal.lattice import Lattice, Phase
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
     >>> from inclination.stereology import plane_distribution
     >>> cu = Phase(1, "Cu", "m-3m", Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90),
     ...            ("{1 1 1}", "{1 0 0}"))

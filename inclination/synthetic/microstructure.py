@@ -50,7 +50,7 @@ from ..planes.geometry import surface_geometry
 from ._shared import Seed, checked, frozen, scatter_quat
 
 if TYPE_CHECKING:
-    from ..crystal.lattice import Phase
+    from ..crystal.phases import Phase
 
 __all__ = [
     "TwinSpec",
@@ -136,7 +136,7 @@ class Microstructure:
     lamellae : tuple of TwinLamella
         Regions G+1.. in order.
     phases : tuple
-        The phase records (``inclination.crystal.lattice.Phase``) of the sample.
+        The phase records (``inclination.crystal.phases.Phase``) of the sample.
     grain_pairs : ndarray, shape (M, 2)
         Pairs (a < b) of grains that share a face inside the box.
     """
@@ -174,7 +174,7 @@ def twin_planes_crystal(phase: Phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
     Parameters
     ----------
-    phase : inclination.crystal.lattice.Phase
+    phase : inclination.crystal.phases.Phase
         Needs ``laue``; a hexagonal phase also needs ``lattice`` (§4 reciprocal vectors).
 
     Returns
@@ -186,7 +186,7 @@ def twin_planes_crystal(phase: Phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
     Examples
     --------
-    >>> from inclination.crystal.lattice import Phase
+    >>> from inclination.crystal.phases import Phase
     >>> steel = Phase.from_dict({"id": 1, "name": "steel", "laue": "m-3m",
     ...     "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90}})
     >>> normals, labels = twin_planes_crystal(steel)
@@ -207,7 +207,7 @@ def twin_planes_crystal(phase: Phase) -> tuple[np.ndarray, tuple[str, ...]]:
 
 
 def _default_phases():
-    from ..crystal.lattice import Phase
+    from ..crystal.phases import Phase
 
     # An austenitic (FCC) matrix; a = 3.59 Å is typical of such steels (from memory).
     return (
@@ -344,7 +344,7 @@ def make_microstructure(
         Number of Voronoi seeds, >= 1, drawn uniformly in the box.
     rng : None, int or numpy.random.Generator
         Seed of everything random here.
-    phases : sequence of inclination.crystal.lattice.Phase, optional
+    phases : sequence of inclination.crystal.phases.Phase, optional
         Default: one FCC phase (id 1, Laue m-3m).
     phase_fractions : sequence of float, optional
         Probability of each phase per grain; equal if omitted.

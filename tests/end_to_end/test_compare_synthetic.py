@@ -13,7 +13,8 @@ import pytest
 
 from inclination import synthetic
 from inclination.compare import TRUSTED_IDENTIFICATIONS, predicted_directions
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.grains import segment_grains
 from inclination.network import boundary_network
 from inclination.planes import identify, surface_geometry

@@ -19,7 +19,8 @@ import tifffile
 
 from inclination import synthetic
 from inclination.cli import main
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.io.job import job_from_dict
 from inclination.io.writers import write_npz
 from inclination.pipeline import run

@@ -17,10 +17,10 @@ import pytest
 
 from inclination import synthetic
 from inclination.cli import main
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.crystal.slip import slip_systems
 from inclination.io.job import load_job
-from inclination.maps import write_npz
+from inclination.io.writers import write_npz
 from inclination.pipeline import run
 from inclination.synthetic.slip_traces import slip_traces
 

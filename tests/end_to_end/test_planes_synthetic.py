@@ -13,7 +13,8 @@ import pytest
 
 from inclination import synthetic
 from inclination.crystal.csl import classify_misorientation
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.symmetry import disorientation
 from inclination.grains import segment_grains
 from inclination.network import boundary_network

@@ -14,7 +14,8 @@ import pytest
 
 from inclination import synthetic
 from inclination.compare import frame_verdict, measured_senses
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.frames import DeclaredAxes
 from inclination.grains import segment_grains
 from inclination.network import boundary_network

@@ -20,11 +20,12 @@ import numpy as np
 
 from inclination import synthetic
 from inclination.cli import main
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import quat_apply, quat_as_matrix
 from inclination.crystal.symmetry import proper_rotations
 from inclination.grains import segment_grains
-from inclination.maps import write_npz
+from inclination.io.writers import write_npz
 from inclination.network import boundary_network
 from inclination.stereology import plane_distribution
 from inclination.traces import fit_segments

@@ -18,7 +18,8 @@ import numpy as np
 import pytest
 
 from inclination import grains, network
-from inclination.crystal.lattice import Lattice, Phase
+from inclination.crystal.lattice import Lattice
+from inclination.crystal.phases import Phase
 from inclination.maps import OrientationMap
 from inclination.planes import surface_geometry
 from inclination.synthetic import (

@@ -19,11 +19,11 @@ import pytest
 from conftest import require_reference
 from numpy.testing import assert_allclose
 
+from inclination.crystal.families import expand_family
 from inclination.crystal.lattice import (
     SETTINGS,
     Lattice,
     d_spacing,
-    expand_family,
     interplanar_angle_deg,
     plane_normals_crystal,
 )

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from inclination.crystal.lattice import Phase
+from inclination.crystal.phases import Phase
 from inclination.crystal.rotations import quat_apply, random_quat
 from inclination.crystal.slip import schmid_factor, slip_systems
 
