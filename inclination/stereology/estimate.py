@@ -370,10 +370,6 @@ def remove_background(accumulated_mrd, kernel: np.ndarray) -> np.ndarray:
     )
 
 
-def _setting(phase) -> str:
-    return getattr(phase.lattice, "setting", None) or "x_parallel_a"
-
-
 def _class_members(cls: MisorientationClass, m_quat, phase, criterion: str) -> np.ndarray | str:
     """Mask of the traces in the class, or a note why the class does not apply."""
     if cls.kind == "all":
@@ -391,7 +387,7 @@ def _class_members(cls: MisorientationClass, m_quat, phase, criterion: str) -> n
     rel = quat_from_axis_angle_deg(axis, cls.angle_deg)
     if len(m_quat) == 0:
         return np.zeros(0, dtype=bool)
-    dev = relation_deviation_deg(m_quat, rel, phase.laue, setting=_setting(phase))
+    dev = relation_deviation_deg(m_quat, rel, phase.laue, setting=phase.setting)
     return dev <= cls.tolerance_deg
 
 
@@ -527,7 +523,7 @@ def plane_distribution(
             continue
         qa, qb = g_quat[ra[in_phase]], g_quat[rb[in_phase]]
         m_quat = misorientation_quat(qa, qb)
-        rotations = proper_rotations(phase.laue, setting=_setting(phase))
+        rotations = proper_rotations(phase.laue, setting=phase.setting)
         mats = quat_as_matrix(rotations)
         for cls in specs:
             members = _class_members(cls, m_quat, phase, sigma_criterion)
@@ -581,7 +577,7 @@ def plane_distribution(
             peak = int(np.argmax(mrd))
             centres = grid.centres_crystal()
             spread = _symmetric_angle_deg(centres[np.argmax(rep_mrd, axis=1)], centres[peak], mats)
-            normal = reduce_axis_to_triangle(centres[peak], phase.laue, setting=_setting(phase))
+            normal = reduce_axis_to_triangle(centres[peak], phase.laue, setting=phase.setting)
             label, offset = _nearest_plane(normal, phase)
             out.append(
                 PlaneDistribution(
