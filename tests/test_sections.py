@@ -1112,3 +1112,35 @@ def test_empty_tables_give_empty_or_unmatched_rows():
         registrations=[given],
     )
     assert len(stack["status"]) == 0
+
+
+@pytest.mark.parametrize(
+    ("shift_um", "depth_um", "radius_steps"),
+    [
+        ((1.5, -1.0), 0.0, 6.0),
+        ((-4.0, 4.5), 5.0, 6.0),
+        ((3.25, 0.75), 5.0, 1.0),
+        ((2.0, 1.25), 8.0, 0.5),
+    ],
+)
+def test_registration_coarse_to_fine_equals_the_exhaustive_search(
+    voronoi, monkeypatch, shift_um, depth_um, radius_steps
+):
+    # The coarse pass only picks where the full-resolution climb starts; the shift must
+    # be the one an exhaustive full-resolution search over the whole range finds. Small
+    # vote radii put the peak on the edge of the search range (reach = radius + 1 step).
+    from inclination.sections import registration as reg_module
+    from inclination.synthetic import sample_map
+
+    kw = {"step_um": STEP, "rng": 0, "extent_um": (90, 70), "noise_deg": 0.0}
+    surface = _truth_grain_map(voronoi, sample_map(voronoi, offset_um=(5, 5), **kw))
+    deeper = _truth_grain_map(
+        voronoi,
+        sample_map(voronoi, offset_um=(5 + shift_um[0], 5 + shift_um[1]), depth_um=depth_um, **kw),
+    )
+    args = {"step_um": STEP, "laue_by_phase": {1: "m-3m"}, "vote_radius_um": radius_steps * STEP}
+    monkeypatch.setattr(reg_module, "_COARSE_POINTS", 10**12)  # stride 1: every shift in full
+    exhaustive = register_sections(surface, deeper, **args)
+    monkeypatch.setattr(reg_module, "_COARSE_POINTS", 64)  # strides of several pixels
+    coarse_to_fine = register_sections(surface, deeper, **args)
+    assert coarse_to_fine == exhaustive

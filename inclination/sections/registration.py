@@ -25,6 +25,7 @@ from scipy.ndimage import uniform_filter
 from .._validation import as_float_array, check_finite
 from ..crystal.symmetry import disorientation_angle_deg
 from ..errors import SettingError
+from ..maps import row_pitch_um
 from ._settings import setting_one_of, setting_positive
 
 if TYPE_CHECKING:
@@ -81,12 +82,6 @@ class Registration:
 
 #: Map grids a registration moves along (conventions §1).
 GRIDS = ("square", "hexagonal")
-
-
-def _row_pitch_um(step_um, grid):
-    """Distance between map rows (§1): the step, or step·√3/2 on a hexagonal grid."""
-    setting_one_of(grid, "grid", GRIDS)
-    return step_um * (math.sqrt(3.0) / 2.0 if grid == "hexagonal" else 1.0)
 
 
 def _grain_table(grains):
@@ -178,7 +173,8 @@ def match_grains(
     setting_positive(threshold_deg, "threshold_deg")
     s_labels = np.asarray(surface_grains.labels)
     d_labels = np.asarray(deeper_grains.labels)
-    row_um = _row_pitch_um(step_um, grid)
+    setting_one_of(grid, "grid", GRIDS)
+    row_um = row_pitch_um(grid, step_um)
     shift_px = (registration.shift_y_um / row_um, registration.shift_x_um / step_um)
     placed = _shift_labels(d_labels, shift_px, s_labels.shape)
     both = (placed > 0) & (s_labels > 0)
@@ -289,12 +285,89 @@ def _densest_vote(votes, weights, radius):
     return np.all(np.abs(idx - best) <= 2, axis=1)
 
 
-def _agreement(s_labels, placed_mapped, di, dj):
-    """Fraction of the common area where the shifted, relabelled deeper map agrees."""
-    shifted = _shift_labels(placed_mapped, (di, dj), s_labels.shape)
-    both = (shifted > 0) & (s_labels > 0)
-    n = both.sum()
-    return float(np.sum(shifted[both] == s_labels[both]) / n) if n else 0.0
+def _overlap_views(s_labels, mapped, di, dj, stride):
+    """The surface and deeper views that fall on each other at shift (di, dj), every
+    ``stride``-th row and column: slices of the inputs, no shifted copy."""
+    h_s, w_s = s_labels.shape
+    h_d, w_d = mapped.shape
+    r0, r1 = max(0, di), min(h_s, h_d + di)
+    c0, c1 = max(0, dj), min(w_s, w_d + dj)
+    if r1 <= r0 or c1 <= c0:
+        return None
+    a = s_labels[r0:r1:stride, c0:c1:stride]
+    b = mapped[r0 - di : r1 - di : stride, c0 - dj : c1 - dj : stride]
+    return a, b
+
+
+def _agreement(s_labels, mapped, di, dj, stride=1):
+    """Fraction of the common area where the shifted, relabelled deeper map agrees.
+
+    With ``stride`` > 1 the common area is sampled on every ``stride``-th row and
+    column: the same quantity estimated from 1/stride² of the points.
+    """
+    views = _overlap_views(s_labels, mapped, di, dj, stride)
+    if views is None:
+        return 0.0
+    a, b = views
+    covered = b > 0
+    n = np.count_nonzero(covered & (a > 0))
+    # b > 0 and a == b imply a > 0: agreement needs no second mask.
+    return float(np.count_nonzero(covered & (a == b)) / n) if n else 0.0
+
+
+#: Points of the overlap sampled per shift in the coarse pass of the registration.
+_COARSE_POINTS = 1 << 18
+
+
+def _best_shift(s_labels, mapped, i0, j0, reach):
+    """Shift (row, col offsets in [-reach, reach]) where the maps agree best, and the
+    full-resolution score at it and its four neighbours (None outside the range).
+
+    Coarse to fine: every shift of the range is scored on a strided sample of the
+    overlap (about ``_COARSE_POINTS`` points), then the full-resolution score climbs
+    from the best coarse shift to a local maximum over 3 × 3 windows. Each score
+    compares two slices of the inputs, so no shifted copy of a map is made.
+    """
+    stride = max(1, int(math.sqrt(s_labels.size / _COARSE_POINTS)))
+    offsets = np.arange(-reach, reach + 1)
+    if stride > 1:
+        coarse = np.array(
+            [
+                [_agreement(s_labels, mapped, i0 + di, j0 + dj, stride) for dj in offsets]
+                for di in offsets
+            ]
+        )
+        bi, bj = (int(v) - reach for v in np.unravel_index(int(np.argmax(coarse)), coarse.shape))
+    else:
+        bi = bj = 0
+    fine = {}
+
+    def score(di, dj):
+        if abs(di) > reach or abs(dj) > reach:
+            return None
+        if (di, dj) not in fine:
+            fine[di, dj] = _agreement(s_labels, mapped, i0 + di, j0 + dj)
+        return fine[di, dj]
+
+    if stride == 1:
+        for di in offsets:
+            for dj in offsets:
+                score(int(di), int(dj))
+        bi, bj = max(fine, key=lambda k: (fine[k], -k[0], -k[1]))
+    while True:
+        window = [
+            (bi + a, bj + b)
+            for a in (-1, 0, 1)
+            for b in (-1, 0, 1)
+            if score(bi + a, bj + b) is not None
+        ]
+        # Ties go to the first shift in row-major order, as an exhaustive argmax would.
+        best = max(window, key=lambda k: (fine[k], -k[0], -k[1]))
+        if best == (bi, bj):
+            break
+        bi, bj = best
+    near = [score(bi - 1, bj), score(bi + 1, bj), score(bi, bj - 1), score(bi, bj + 1)]
+    return bi, bj, fine[bi, bj], near
 
 
 def _parabola_peak(f_minus, f_0, f_plus):
@@ -425,25 +498,14 @@ def register_sections(
     relabel = np.zeros(int(d_labels.max()) + 1, dtype=s_labels.dtype)
     relabel[pairs["deeper_grain"]] = pairs["surface_grain"]
     mapped = relabel[d_labels]
-    row_um = _row_pitch_um(step_um, grid)
+    setting_one_of(grid, "grid", GRIDS)
+    row_um = row_pitch_um(grid, step_um)
     i0, j0 = int(round(coarse[1] / row_um)), int(round(coarse[0] / step_um))
     reach = int(math.ceil(radius / row_um)) + 1
-    offsets = range(-reach, reach + 1)
-    score = np.array(
-        [[_agreement(s_labels, mapped, i0 + di, j0 + dj) for dj in offsets] for di in offsets]
-    )
-    bi, bj = np.unravel_index(int(np.argmax(score)), score.shape)
-    sub_i = (
-        _parabola_peak(score[bi - 1, bj], score[bi, bj], score[bi + 1, bj])
-        if (0 < bi < score.shape[0] - 1)
-        else 0.0
-    )
-    sub_j = (
-        _parabola_peak(score[bi, bj - 1], score[bi, bj], score[bi, bj + 1])
-        if (0 < bj < score.shape[1] - 1)
-        else 0.0
-    )
-    shift = np.array([(j0 + bj - reach + sub_j) * step_um, (i0 + bi - reach + sub_i) * row_um])
+    bi, bj, peak, (up, down, left, right) = _best_shift(s_labels, mapped, i0, j0, reach)
+    sub_i = _parabola_peak(up, peak, down) if up is not None and down is not None else 0.0
+    sub_j = _parabola_peak(left, peak, right) if left is not None and right is not None else 0.0
+    shift = np.array([(j0 + bj + sub_j) * step_um, (i0 + bi + sub_i) * row_um])
 
     s_row = np.searchsorted(np.asarray(s_tab["grain_id"]), pairs["surface_grain"])
     d_row = np.searchsorted(np.asarray(d_tab["grain_id"]), pairs["deeper_grain"])
