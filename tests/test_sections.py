@@ -158,6 +158,55 @@ def test_indent_that_grows_is_refused():
 # --------------------------------------------------------------------------- cross-sections
 
 
+def test_cross_section_matching_among_many_distant_segments():
+    """20,000 traces away from the line leave the eight crossings' matches as they are.
+
+    The entry/segment graph is built from the hits only; a dense one would hold
+    (8 + 20,008)² links (400 MB as booleans, more once converted for the components).
+    """
+    gen = np.random.default_rng(11)
+    normals = _random_normals(gen, 8)
+    line = np.array([[20.0, 50.0], [180.0, 45.0]])
+    viewer = np.array([100.0, 70.0])
+    along = np.linspace(10.0, 150.0, 8)
+    near = _segments_for(normals, line, along)
+    m = 20_000
+    x0 = gen.uniform(0.0, 200.0, m)
+    y0 = gen.uniform(60.0, 99.0, m)  # all above the line (y <= 50 along it)
+    far = {
+        "segment_id": np.arange(m) + 100,
+        "grain_a": np.arange(m) + 1000,
+        "grain_b": np.arange(m) + 50_000,
+        "x0_um": x0,
+        "y0_um": y0,
+        "x1_um": x0 + 0.5,
+        "y1_um": y0 + 0.5,
+        "length_um": np.full(m, math.sqrt(0.5)),
+        "trace_angle_deg": np.full(m, 45.0),
+        "trace_sigma_deg": np.full(m, 0.5),
+    }
+    segments = {key: np.concatenate([near[key], far[key]]) for key in near}
+    entries = []
+    keep = []
+    for k, n in enumerate(normals):
+        alpha, side = _face_view(n, line, viewer, 52.0, 90.0)
+        e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
+        t = np.cross(Z, n)[:2]
+        if abs(e[0] * t[1] - e[1] * t[0]) / np.linalg.norm(t) > math.sin(math.radians(15)):
+            keep.append(k)
+            entries.append({"along_um": along[k], "image_angle_deg": alpha, "descends": side})
+    section = {
+        "line_um": SAMPLE_AXES.points_to_declared(line).tolist(),
+        "viewer_at_um": SAMPLE_AXES.points_to_declared(viewer).tolist(),
+        "imaging_tilt_deg": 52.0,
+        "face_inclination_deg": 90.0,
+        "boundaries": entries,
+    }
+    out = _measure(section, segments, step_um=0.5, bounds_um=BOUNDS)
+    assert out["status"].tolist() == ["measured"] * len(keep)
+    assert out["segment_id"].tolist() == keep
+
+
 @pytest.mark.parametrize(
     ("axes", "tilt_deg", "face_deg"),
     [

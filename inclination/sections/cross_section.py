@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
+from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.special import ndtr
 
@@ -241,12 +242,17 @@ def _assign_in_order(hit, along, s_cross):
     matched = np.zeros(k, dtype=bool)
     if k == 0 or n == 0:
         return first, matched
-    graph = np.zeros((k + n, k + n), dtype=bool)
-    graph[:k, k:] = hit
-    _, comp = connected_components(graph | graph.T, directed=False)
+    # The graph is built from the hits only (sparse): a dense (k + n)² matrix made this
+    # step quadratic in the segments, gigabytes on a map of 10⁴ grains.
+    rows, cols = np.nonzero(hit)
+    graph = coo_matrix(
+        (np.ones(rows.size, dtype=np.int8), (rows, k + cols)), shape=(k + n, k + n)
+    ).tocsr()
+    _, comp = connected_components(graph, directed=False)
+    seg_comp = comp[k:]
     for c in np.unique(comp[:k]):
         entries = np.flatnonzero(comp[:k] == c)
-        segs = np.flatnonzero(comp[k:] == c)
+        segs = np.flatnonzero(seg_comp == c)
         if len(segs) == 0 or len(entries) != len(segs):
             continue
         e_sorted = entries[np.argsort(along[entries], kind="stable")]
