@@ -321,7 +321,7 @@ def _face_note(face, record, table, segments, first):
     }
 
 
-def _sections(job, omap, grain_map, segments, progress):
+def _sections(job, omap, grain_map, segments, progress, network=None):
     """Measure every section of the job; returns (tables, notes)."""
     from .sections import (
         CrossSection,
@@ -329,10 +329,17 @@ def _sections(job, omap, grain_map, segments, progress):
         measure_cross_section,
         measure_serial_section,
         measure_stack,
+        network_crossings,
+        network_junctions_um,
     )
 
     tables, notes, faces = [], [], []
     step = float(min(omap.step_x_um, omap.step_y_um))
+    junctions = (
+        None
+        if network is None
+        else network_junctions_um(network, _map_bounds_um(omap), step_um=step)
+    )
     # Phase records, not bare Laue symbols: the setting matters for hexagonal phases.
     laue_by_phase = _phases_by_id(job)
     stack = []
@@ -354,11 +361,17 @@ def _sections(job, omap, grain_map, segments, progress):
                     path=job.source_path,
                     pointer=pointer,
                 )
+            # Matches come from where the network itself crosses the line, and entries
+            # at a triple junction are flagged (conventions §7).
             table = measure_cross_section(
                 record,
                 segments,
                 step_um=step,
                 bounds_um=_map_bounds_um(omap),
+                crossings=None
+                if network is None
+                else network_crossings(network, record.line_sample),
+                junctions_um=None if network is None else junctions,
                 path=job.source_path,
                 pointer=pointer,
             )
@@ -554,7 +567,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         return _with_features(replace(analysis, audit=_frame_audit(analysis)))
     from .compare import DEFAULT_BLUNDER_RATE, best_measurements, compare_map
 
-    tables, notes, faces = _sections(job, omap, grain_map, segments, progress)
+    tables, notes, faces = _sections(job, omap, grain_map, segments, progress, network)
     comparison = compare_map(
         best_measurements(*tables),
         identification,

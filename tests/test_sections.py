@@ -28,6 +28,8 @@ from inclination.sections import (
     measure_cross_section,
     measure_serial_section,
     measure_stack,
+    network_crossings,
+    network_junctions_um,
     register_sections,
     section_depth,
     serial_dip_deg,
@@ -1193,3 +1195,69 @@ def test_registration_coarse_to_fine_equals_the_exhaustive_search(
     monkeypatch.setattr(reg_module, "_COARSE_POINTS", 64)  # strides of several pixels
     coarse_to_fine = register_sections(surface, deeper, **args)
     assert coarse_to_fine == exhaustive
+
+
+def test_an_entry_matches_the_boundary_that_crosses_not_a_segment_that_stops_short():
+    """A fitted segment ending 0.7 µm short of the line is not the boundary seen there.
+
+    Constructed case: boundary A (grains 1|2) stops 0.7 µm before the line at a triple
+    junction; boundary B (grains 3|4) runs on and crosses it 0.6 µm further along. With
+    the match tolerance of two 0.5 µm steps both fitted segments reach the entry, but only
+    B's boundary meets the line (derived from the geometry of the case).
+    """
+    from types import SimpleNamespace
+
+    def seg(ids, pairs, x0, y0, x1, y1):
+        n = len(ids)
+        return {
+            "segment_id": np.array(ids),
+            "grain_a": np.array([p[0] for p in pairs]),
+            "grain_b": np.array([p[1] for p in pairs]),
+            "x0_um": np.array(x0, float),
+            "y0_um": np.array(y0, float),
+            "x1_um": np.array(x1, float),
+            "y1_um": np.array(y1, float),
+            "trace_angle_deg": np.full(n, 90.0),
+            "trace_sigma_deg": np.full(n, 0.5),
+        }
+
+    network = SimpleNamespace(
+        offsets=np.array([0, 3, 6]),
+        closed=np.array([False, False]),
+        points_um=np.array(
+            [[40.0, 80.0], [40.0, 60.0], [40.0, 50.7], [40.6, 20.0], [40.6, 40.0], [40.6, 50.7]]
+        ),
+        grain_a=np.array([1, 3]),
+        grain_b=np.array([2, 4]),
+    )
+    record = CrossSection(
+        line_sample=[[0.0, 50.0], [100.0, 50.0]],
+        viewer_sample=[50.0, 30.0],
+        tilt_deg=90.0,
+        along_um=[40.5],
+        image_angle_deg=[60.0],
+        descends=["right"],
+        angle_sigma_deg=[1.0],
+    )
+    both = seg([0, 1], [(1, 2), (3, 4)], [40.0, 40.6], [80.0, 20.0], [40.0, 40.6], [50.7, 50.6])
+    crossings = network_crossings(network, record.line_sample)
+    assert crossings["along_um"].tolist() == pytest.approx([40.6])
+    options = {"step_um": 0.5, "bounds_um": (0.0, 0.0, 100.0, 100.0)}
+
+    alone = measure_cross_section(record, both, **options)
+    assert alone["status"].tolist() == ["ambiguous"]  # both segments reach the entry
+    matched = measure_cross_section(record, both, crossings=crossings, **options)
+    assert matched["status"].tolist() == ["measured"]
+    assert matched["segment_id"].tolist() == [1]
+    # The two boundaries meet 0.7 µm from the entry: a triple junction, flagged.
+    junctions = network_junctions_um(network, options["bounds_um"], step_um=0.5)
+    flagged = measure_cross_section(
+        record, both, crossings=crossings, junctions_um=junctions, **options
+    )
+    assert flagged["status"].tolist() == ["near_junction"]
+
+    # Only the short segment fitted: it used to be taken; now nothing is.
+    short_only = seg([0], [(1, 2)], [40.0], [80.0], [40.0], [50.7])
+    assert measure_cross_section(record, short_only, **options)["segment_id"].tolist() == [0]
+    none = measure_cross_section(record, short_only, crossings=crossings, **options)
+    assert none["status"].tolist() == ["unmatched"]

@@ -13,7 +13,13 @@ docstring says what it owns:
 
 from __future__ import annotations
 
-from .cross_section import CROSS_SECTION_STATUSES, CrossSection, measure_cross_section
+from .cross_section import (
+    CROSS_SECTION_STATUSES,
+    CrossSection,
+    measure_cross_section,
+    network_crossings,
+    network_junctions_um,
+)
 from .face_image import (
     FACE_LINE_STATUSES,
     FaceMeasurement,
@@ -48,6 +54,8 @@ from .stack import PlaneFit, fit_plane_through_traces, measure_stack
 
 __all__ = [
     "CROSS_SECTION_STATUSES",
+    "network_crossings",
+    "network_junctions_um",
     "CrossSection",
     "FACE_LINE_STATUSES",
     "FaceMeasurement",

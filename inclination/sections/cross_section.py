@@ -20,6 +20,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
+import shapely
 from numpy.typing import ArrayLike
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
@@ -33,10 +34,16 @@ from ..planes.geometry import surface_geometry
 from ._settings import setting_positive
 from .formulas import face_angle_from_image_deg, image_right_sample, section_line_frame
 
-__all__ = ["CROSS_SECTION_STATUSES", "CrossSection", "measure_cross_section"]
+__all__ = [
+    "CROSS_SECTION_STATUSES",
+    "CrossSection",
+    "measure_cross_section",
+    "network_crossings",
+    "network_junctions_um",
+]
 
 #: Closed set of the ``status`` column of section tables.
-CROSS_SECTION_STATUSES = ("measured", "ill_conditioned", "unmatched", "ambiguous")
+CROSS_SECTION_STATUSES = ("measured", "ill_conditioned", "unmatched", "ambiguous", "near_junction")
 
 _Z = np.array([0.0, 0.0, 1.0])
 _Z.setflags(write=False)
@@ -282,6 +289,27 @@ def _cross_section_normals(alpha_image_deg, trace_deg, tilt_deg, face_deg, frame
     return np.cross(t, line_on_face)
 
 
+def _pair_crosses_near(crossings, segments, keep, along, tolerance):
+    """(K, N) mask: a crossing of segment j's grain pair lies within tolerance of entry i."""
+    ga = np.asarray(segments["grain_a"], np.int64)[keep]
+    gb = np.asarray(segments["grain_b"], np.int64)[keep]
+    lo, hi = np.minimum(ga, gb), np.maximum(ga, gb)
+    ca = np.asarray(crossings["grain_a"], np.int64)
+    cb = np.asarray(crossings["grain_b"], np.int64)
+    c_lo, c_hi = np.minimum(ca, cb), np.maximum(ca, cb)
+    c_along = np.asarray(crossings["along_um"], float)
+    out = np.zeros((len(along), len(ga)), dtype=bool)
+    if c_along.size == 0:
+        return out
+    # Only the crossings within tolerance of some entry matter: few, so a dense check.
+    near_entry = np.abs(c_along[:, None] - along[None, :]) <= tolerance  # (C, K)
+    useful = np.flatnonzero(near_entry.any(axis=1))
+    for c in useful:
+        same = (lo == c_lo[c]) & (hi == c_hi[c])
+        out[np.ix_(near_entry[c], same)] = True
+    return out
+
+
 def _angle_diff_deg(a, b):
     """Signed difference a − b wrapped to [-180, 180)."""
     return (a - b + 180.0) % 360.0 - 180.0
@@ -312,6 +340,106 @@ def _section_crossings(line, along_dir, length, a, b, tolerance):
     return s_cross, crosses
 
 
+def network_crossings(network, line_um: ArrayLike) -> dict[str, np.ndarray]:
+    """Where the boundary network itself crosses a straight section line (S, §2).
+
+    Each chain of edge midpoints becomes a shapely line (a closed chain closed); an
+    ``STRtree`` gives the chains the section line meets, and their intersections are
+    projected on the line. A fitted segment may end short of the line (it ends where the
+    boundary bends) while another boundary is the one that truly crosses there; these
+    crossings tell which grain pairs reach the line, and where.
+
+    Parameters
+    ----------
+    network : BoundaryNetwork
+        The map's boundary network (:func:`inclination.network.boundary_network`).
+    line_um : array_like, shape (2, 2)
+        Section line end points in S, µm.
+
+    Returns
+    -------
+    dict of 1-D arrays
+        ``along_um`` (distance from the line's first point), ``grain_a``, ``grain_b``,
+        sorted by ``along_um``; one row per crossing.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> net = SimpleNamespace(offsets=np.array([0, 3]), closed=np.array([False]),
+    ...     points_um=np.array([[5.0, 0.0], [5.0, 5.0], [5.0, 10.0]]),
+    ...     grain_a=np.array([1]), grain_b=np.array([2]))
+    >>> network_crossings(net, [[0.0, 4.0], [10.0, 4.0]])["along_um"].tolist()
+    [5.0]
+    """
+    line = np.asarray(line_um, dtype=float)
+    offsets = np.asarray(network.offsets, dtype=np.int64)
+    points = np.asarray(network.points_um, dtype=float)
+    n_chain = len(offsets) - 1
+    empty = {
+        "along_um": np.zeros(0),
+        "grain_a": np.zeros(0, np.int64),
+        "grain_b": np.zeros(0, np.int64),
+    }
+    counts = np.diff(offsets)
+    closed = np.asarray(network.closed, dtype=bool)
+    usable = np.flatnonzero(counts >= 2)
+    if n_chain == 0 or usable.size == 0:
+        return empty
+    # A closed chain repeats its first point so that its last edge is part of the line.
+    extra = closed[usable] & (counts[usable] >= 3)
+    take = [np.arange(offsets[c], offsets[c + 1]) for c in usable]
+    index = np.concatenate(
+        [np.append(t, t[0]) if e else t for t, e in zip(take, extra, strict=True)]
+    )
+    owner = np.repeat(np.arange(usable.size), counts[usable] + extra)
+    lines = shapely.linestrings(points[index], indices=owner)
+    section = shapely.linestrings(line)
+    hit = shapely.STRtree(lines).query(section, predicate="intersects")
+    if hit.size == 0:
+        return empty
+    where = shapely.intersection(lines[hit], section)
+    coords, which = shapely.get_coordinates(where, return_index=True)
+    e = (line[1] - line[0]) / np.hypot(*(line[1] - line[0]))
+    along = (coords - line[0]) @ e
+    chain = usable[hit[which]]
+    order = np.argsort(along, kind="stable")
+    return {
+        "along_um": along[order],
+        "grain_a": np.asarray(network.grain_a, np.int64)[chain][order],
+        "grain_b": np.asarray(network.grain_b, np.int64)[chain][order],
+    }
+
+
+def network_junctions_um(network, bounds_um: ArrayLike, *, step_um: float) -> np.ndarray:
+    """Triple junctions of the network: ends of open chains away from the map's edge (S).
+
+    An open chain of the network runs between two points where three or more grains
+    meet, or to the map's edge; the ends within one step of the edge are left out.
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace
+    >>> net = SimpleNamespace(offsets=np.array([0, 3]), closed=np.array([False]),
+    ...     points_um=np.array([[5.0, 0.0], [5.0, 5.0], [5.0, 8.0]]))
+    >>> network_junctions_um(net, (0, 0, 10, 10), step_um=1.0).tolist()
+    [[5.0, 8.0]]
+    """
+    offsets = np.asarray(network.offsets, dtype=np.int64)
+    points = np.asarray(network.points_um, dtype=float)
+    is_open = ~np.asarray(network.closed, dtype=bool) & (np.diff(offsets) > 0)
+    ends = np.concatenate(
+        [points[offsets[:-1][is_open]], points[offsets[1:][is_open] - 1]]
+    ).reshape(-1, 2)
+    b = np.asarray(bounds_um, dtype=float)
+    inner = (
+        (ends[:, 0] > b[0] + step_um)
+        & (ends[:, 0] < b[2] - step_um)
+        & (ends[:, 1] > b[1] + step_um)
+        & (ends[:, 1] < b[3] - step_um)
+    )
+    return ends[inner]
+
+
 def measure_cross_section(
     section: CrossSection,
     segments: Mapping,
@@ -320,6 +448,8 @@ def measure_cross_section(
     bounds_um: ArrayLike,
     tilt_sigma_deg: float = 0.5,
     max_sigma_deg: float = 10.0,
+    crossings: Mapping | None = None,
+    junctions_um: ArrayLike | None = None,
     path=None,
     pointer: str = "",
 ) -> dict:
@@ -357,6 +487,15 @@ def measure_cross_section(
         σ of the imaging tilt, degrees.
     max_sigma_deg : float, optional
         Dip σ above which an entry is ``ill_conditioned``.
+    crossings : mapping, optional
+        Where the boundary network crosses the line (:func:`network_crossings`). When
+        given, an entry matches a segment only if a boundary of that segment's grain pair
+        crosses the line within the tolerance of the entry: a fitted segment whose
+        extension meets the line is not enough.
+    junctions_um : array_like, shape (J, 2), optional
+        Triple junctions (:func:`network_junctions_um`). A matched entry within the
+        match tolerance of one keeps its values with status ``near_junction``: which of
+        the boundaries meeting there the face shows cannot be told, so it decides nothing.
     path, pointer : optional
         Job file and JSON pointer of the entry, for the error of a line off the map.
 
@@ -439,6 +578,8 @@ def measure_cross_section(
 
     s_cross, crosses = _section_crossings(line, along_dir, length, a, b, tolerance)
     hit = crosses[None, :] & (np.abs(s_cross[None, :] - along[:, None]) <= tolerance)
+    if crossings is not None and hit.any():
+        hit &= _pair_crosses_near(crossings, segments, keep, along, tolerance)
     n_hits = hit.sum(axis=1)
     first, matched = _assign_in_order(hit, along, s_cross)
 
@@ -503,6 +644,14 @@ def measure_cross_section(
         status[matched] = np.where(
             dip_sigma[matched] > max_sigma_deg, "ill_conditioned", "measured"
         )
+        if junctions_um is not None:
+            junctions = np.asarray(junctions_um, dtype=float).reshape(-1, 2)
+            at = line[0] + along[:, None] * along_dir[None, :]
+            near = np.zeros(k, dtype=bool)
+            if len(junctions):
+                gap = np.hypot(*(at[:, None, :] - junctions[None, :, :]).transpose(2, 0, 1))
+                near = gap.min(axis=1) <= tolerance
+            status[matched & near] = "near_junction"
 
     # Reversed dip direction (§6): a steep plane whose true dip lies beyond 90°, or a
     # trace so near the line that the azimuth error passes 90° (normal, both tails).

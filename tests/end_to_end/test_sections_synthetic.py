@@ -26,6 +26,8 @@ from inclination.sections import (
     measure_cross_section,
     measure_serial_section,
     measure_stack,
+    network_crossings,
+    network_junctions_um,
     register_sections,
 )
 from inclination.traces import fit_segments
@@ -44,10 +46,15 @@ SHIFT_UM = (1.5, -1.0)
 
 
 def _chain(sampled):
+    return _chain_and_network(sampled)[:3]
+
+
+def _chain_and_network(sampled):
     omap = synthetic.as_orientation_map(sampled)
     grains = segment_grains(omap, [CU])
-    segments = fit_segments(boundary_network(omap, grains, [CU]), step_um=STEP_UM)
-    return grains, segments, identify(segments, grains, [CU])
+    network = boundary_network(omap, grains, [CU])
+    segments = fit_segments(network, step_um=STEP_UM)
+    return grains, segments, identify(segments, grains, [CU]), network
 
 
 def _region_of(labels, truth, n_regions):
@@ -69,10 +76,16 @@ def _senses(measured, identification):
     return measured_senses(measured, identification)
 
 
-def _cross_sections(micro, sampled, segments):
-    """Five cross-sections across the map; measured rows with the truth beside them."""
+def _cross_sections(micro, sampled, segments, network):
+    """Five cross-sections across the map; measured rows with the truth beside them.
+
+    Matched as the pipeline does: from where the network crosses each line, with the
+    entries at triple junctions flagged (``near_junction``, counted in ``n_near_junction``).
+    """
     bounds = (0.0, 0.0, (sampled.shape[1] - 1) * STEP_UM, (sampled.shape[0] - 1) * STEP_UM)
+    junctions = network_junctions_um(network, bounds, step_um=STEP_UM)
     parts = []
+    n_near_junction = 0
     for k, y in enumerate(LINES_Y_UM):
         line = ((3.0, y), (116.0, y + 3.0))
         viewer = (60.0, y - 10.0)
@@ -82,13 +95,17 @@ def _cross_sections(micro, sampled, segments):
         )
         truth = synthetic.cross_section_crossings(micro, **geometry, max_depth_um=3.0)
         section = {**geometry, "boundaries": entries}
+        record = CrossSection.from_job_entry(section, axes=DeclaredAxes("right", "down"))
         out = measure_cross_section(
-            CrossSection.from_job_entry(section, axes=DeclaredAxes("right", "down")),
+            record,
             segments,
             step_um=STEP_UM,
             bounds_um=bounds,
+            crossings=network_crossings(network, record.line_sample),
+            junctions_um=junctions,
         )
         ok = out["status"] == "measured"
+        n_near_junction += int(np.sum(out["status"] == "near_junction"))
         parts.append(
             {
                 **{key: np.asarray(v)[ok] for key, v in out.items()},
@@ -97,7 +114,9 @@ def _cross_sections(micro, sampled, segments):
                 "is_twin": truth["is_twin"][ok],
             }
         )
-    return {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+    out = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+    out["n_near_junction"] = n_near_junction
+    return out
 
 
 @pytest.fixture(scope="module")
@@ -112,8 +131,8 @@ def cross_runs():
             ("declared", sampled),
             ("turned", synthetic.recorded_in_frame(sampled, rotation="z180")),
         ):
-            _, segments, identification = _chain(recorded)
-            measured = _cross_sections(micro, sampled, segments)
+            _, segments, identification, network = _chain_and_network(recorded)
+            measured = _cross_sections(micro, sampled, segments, network)
             runs[(seed, frame)] = (measured, _senses(measured, identification))
     return runs
 
@@ -130,6 +149,8 @@ def test_every_decided_twin_boundary_agrees(cross_runs):
         decided_twins += int(twins.sum())
         assert frame_verdict(senses).verdict == "as_declared"
     assert decided_twins >= 20, "too few decided twin boundaries to judge"
+    # The lines pass triple junctions: those entries were flagged, not decided.
+    assert sum(cross_runs[(seed, "declared")][0]["n_near_junction"] for seed in XS_SEEDS) > 0
 
 
 def test_turned_frame_gives_opposite_on_every_decided_boundary(cross_runs):
