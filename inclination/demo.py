@@ -154,7 +154,8 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     -------
     dict of str to Path
         ``surface``, ``serial``, ``job``, ``surface_z180``, ``serial_z180``,
-        ``job_z180``, ``truth``, ``surface_z90``, ``serial_z90``, ``job_z90``.
+        ``job_z180``, ``truth``, ``surface_z90``, ``serial_z90``, ``job_z90``,
+        ``survey``, ``job_survey``.
 
     Examples
     --------
@@ -162,8 +163,8 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     >>> with tempfile.TemporaryDirectory() as folder:
     ...     paths = write_demo_scenario(folder)
     >>> sorted(paths)  # doctest: +NORMALIZE_WHITESPACE
-    ['job', 'job_z180', 'job_z90', 'serial', 'serial_z180', 'serial_z90', 'surface',
-     'surface_z180', 'surface_z90', 'truth']
+    ['job', 'job_survey', 'job_z180', 'job_z90', 'serial', 'serial_z180', 'serial_z90',
+     'surface', 'surface_z180', 'surface_z90', 'survey', 'truth']
     """
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
         raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")
@@ -281,7 +282,59 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
         "data_frame": "turned 90° about Z_S (conventions §3)",
         "expected_audit": {"declared_is_best": False, "job_patch": {"data_frame_rotation": "z90"}},
     }
+    paths.update(_survey_case(out, seed))
+    truth["scenario"]["cases"]["job_survey.json"] = {
+        "data_frame": "sample frame",
+        "sample": (
+            f"a larger area of the same coupon (invented): {_SURVEY_BOX_UM[0]:.0f} × "
+            f"{_SURVEY_BOX_UM[1]:.0f} µm at {_SURVEY_STEP_UM} µm, {_SURVEY_GRAINS} grains, "
+            f"{_SURVEY_TWINS} twinned; map only, for the plane distribution"
+        ),
+        "expected_peak": {"all": "(1 1 1)", "sigma3": "(1 1 1)"},
+    }
     paths["truth"] = write_json_atomic(out / "truth.json", truth)
+    return paths
+
+
+# The fourth case (invented): a survey map of a larger area of the coupon, map only, with
+# enough traces for the plane distribution (conventions §4 crystal frame): the stereology
+# needs thousands of traces overall and over a thousand in the Σ3 class.
+_SURVEY_BOX_UM = (500.0, 500.0, 20.0)
+_SURVEY_STEP_UM = 1.0
+_SURVEY_GRAINS = 900
+_SURVEY_TWINS = 340
+
+
+def _survey_case(out: Path, seed: int) -> dict[str, Path]:
+    """The fourth case: a larger survey map and a job with a ``stereology`` block."""
+    gen = np.random.default_rng([seed, 4])
+    micro = make_microstructure(
+        box_um=_SURVEY_BOX_UM,
+        n_grains=_SURVEY_GRAINS,
+        rng=gen,
+        phases=[Phase.from_dict(_AUSTENITE)],
+        twins=_SURVEY_TWINS,
+        twin_thickness_um=(2.0, 5.0),
+    )
+    survey = sample_map(
+        micro, rng=gen, step_um=_SURVEY_STEP_UM, noise_deg=0.5, nonindexed_fraction=0.01
+    )
+    paths = {"survey": _write_npz(out / "survey.npz", survey)}
+    paths["job_survey"] = write_json_atomic(
+        out / "job_survey.json",
+        {
+            "schema_version": 1,
+            "description": (
+                "Coupon LK-7 (invented; synthetic sample): survey map of a 500 × 500 µm area "
+                "at 1 µm steps; which planes do the boundaries favour, overall and for Σ3?"
+            ),
+            "phases": [_AUSTENITE],
+            "map": {**_map_entry("survey.npz"), "step_um": _SURVEY_STEP_UM},
+            "grains": {"threshold_deg": 5, "min_pixels": 8},
+            "traces": {"min_length_um": 5, "tolerance_um": 1.5},
+            "stereology": {"classes": ["all", "sigma3"]},
+        },
+    )
     return paths
 
 

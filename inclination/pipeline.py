@@ -822,7 +822,9 @@ def demo(
     (the job as declared), ``results-turned-frame/`` (the same sample recorded
     in a frame turned 180° about the surface normal: its verdict must say so) and
     ``results-turned-axes/`` (recorded with axes turned 90° about the normal: the
-    frame audit leads its report with the finding and the job patch).
+    frame audit leads its report with the finding and the job patch) and
+    ``results-survey/`` (a larger survey map, map only, whose report shows the plane
+    distribution overall and for Σ3 from its thousands of traces).
 
     Examples
     --------
@@ -847,6 +849,7 @@ def demo(
             ("job", "results"),
             ("job_z180", "results-turned-frame"),
             ("job_z90", "results-turned-axes"),
+            ("job_survey", "results-survey"),
         )
         for key, folder in cases:
             job = load_job(paths[key])
@@ -855,6 +858,7 @@ def demo(
             _, summary = write_outputs(
                 analysis, stage_dir / folder, relocate=(stage_dir, out), progress=progress
             )
+            _stereology_outputs(analysis, stage_dir / folder, standalone=False)
             summaries[folder] = summary
             messages += _messages(summary, out / folder)
             messages += [f"{out / folder}: {w}" for w in _audit_warnings(analysis)]

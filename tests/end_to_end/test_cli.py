@@ -12,6 +12,7 @@ import pytest
 
 from inclination.cli import main
 from inclination.demo import write_demo_scenario
+from inclination.io.schemas import load_schema
 from inclination.report.schemas import render
 
 
@@ -29,7 +30,7 @@ def scenario(tmp_path_factory):
 
 
 def test_demo_writes_every_file(demo_run):
-    for folder in ("results", "results-turned-frame", "results-turned-axes"):
+    for folder in ("results", "results-turned-frame", "results-turned-axes", "results-survey"):
         names = {p.name for p in (demo_run / folder).iterdir()}
         for expected in (
             "grains.csv",
@@ -48,6 +49,24 @@ def test_demo_writes_every_file(demo_run):
         ):
             assert expected in names, f"{folder}/{expected} missing"
     assert (demo_run / "scenario" / "truth.json").exists()
+
+
+def test_demo_survey_gives_the_plane_distributions(demo_run):
+    # The fourth case: a survey map with thousands of traces; both distributions exist and
+    # peak at (1 1 1), the coherent twin plane of the sample's annealing twins (the
+    # synthetic model's twins are {111}: the oracle's ground truth).
+    folder = demo_run / "results-survey"
+    doc = json.loads((folder / "plane_distribution.json").read_text())
+    jsonschema.validate(doc, load_schema("plane_distribution.schema.json"))
+    by_class = {d["misorientation"]: d for d in doc["distributions"]}
+    assert by_class["all"]["n_traces"] >= 2000
+    assert by_class["sigma3"]["n_traces"] >= 1000
+    for name in ("all", "sigma3"):
+        assert by_class[name]["peak"]["indices"] == "(1 1 1)"
+        assert (folder / f"stereogram_phase1_{name}.png").stat().st_size > 0
+        assert (folder / f"stereogram_phase1_{name}.svg").stat().st_size > 0
+    assert "stereogram_phase1_sigma3" in (folder / "report.html").read_text()
+    assert "it never gives the plane of any one boundary" in (folder / "report.md").read_text()
 
 
 def test_demo_tables_validate_against_their_schemas(demo_run):

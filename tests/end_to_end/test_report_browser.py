@@ -84,6 +84,14 @@ def test_report_renders_in_chromium(tmp_path, demo_run, folder, verdict):
     assert f"verdict-{VERDICT_STYLES[verdict]}" in result["cls"].split()
 
 
+def test_survey_report_shows_its_stereograms_in_chromium(tmp_path, demo_run):
+    # The fourth case has no sections: no verdict box, but the map figures and the two
+    # stereograms (all boundaries, Σ3) must load.
+    result, console_errors = _check(tmp_path, demo_run / "results-survey" / "report.html")
+    assert result["images"] >= 4 and result["bad"] == []
+    assert result["errors"] == [] and console_errors == []
+
+
 def test_report_screenshot(tmp_path, demo_run):
     shot = tmp_path / "report.png"
     run = subprocess.run(
