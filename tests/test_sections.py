@@ -1261,3 +1261,38 @@ def test_an_entry_matches_the_boundary_that_crosses_not_a_segment_that_stops_sho
     assert measure_cross_section(record, short_only, **options)["segment_id"].tolist() == [0]
     none = measure_cross_section(record, short_only, crossings=crossings, **options)
     assert none["status"].tolist() == ["unmatched"]
+
+
+def test_a_lamella_moved_clear_of_itself_is_paired_by_its_centroid():
+    # A 3-px lamella (grain 2, turned 60° about [111] as a Σ3 twin, from memory) in a
+    # parent (grain 1); on the deeper map it sits 6 px aside: no pixel overlaps, so the
+    # overlap floor alone leaves it out, and the centroid rule pairs it within the bound.
+    from inclination.crystal.rotations import quat_from_axis_angle_deg
+
+    def lamella(first_col):
+        labels = np.ones((20, 40), np.int32)
+        labels[:, first_col : first_col + 3] = 2
+        cols = np.arange(first_col, first_col + 3)
+        table = {
+            "grain_id": np.array([1, 2]),
+            "phase": np.array([1, 1]),
+            "quat": np.stack([np.array([1.0, 0, 0, 0]), quat_from_axis_angle_deg([1, 1, 1], 60.0)]),
+            "area_px": np.array([20 * 37, 20 * 3]),
+            "centroid_x_um": np.array([19.5, cols.mean()]) * 1.0,
+            "centroid_y_um": np.array([9.5, 9.5]),
+            "touches_edge": np.array([1, 1]),
+        }
+        return GrainMap(labels, table, {}, 5.0, 4)
+
+    given = Registration(0, 0, 0, 0, 0, "given")
+    kw = {"step_um": 1.0, "laue_by_phase": {1: "m-3m"}}
+    alone = match_grains(lamella(10), lamella(16), given, **kw)
+    assert alone["deeper_grain"].tolist() == [1]
+    both = match_grains(lamella(10), lamella(16), given, max_shift_um=8.0, **kw)
+    assert both["deeper_grain"].tolist() == [1, 2]
+    assert both["surface_grain"].tolist() == [1, 2]
+    assert both["overlap_fraction"][1] == 0.0
+    # Beyond the bound it stays unpaired.
+    assert match_grains(lamella(10), lamella(16), given, max_shift_um=5.0, **kw)[
+        "deeper_grain"
+    ].tolist() == [1]

@@ -118,6 +118,7 @@ def match_grains(
     laue_by_phase: Mapping,
     threshold_deg: float = 5.0,
     min_overlap: float = 0.2,
+    max_shift_um: float = 0.0,
     grid: str = "square",
 ) -> dict:
     """Pair each grain of a deeper map with a grain of the surface map (§8).
@@ -125,7 +126,10 @@ def match_grains(
     A pair must share its phase, be disoriented by less than ``threshold_deg`` and
     overlap: after registration, at least ``min_overlap`` of the deeper grain's
     pixels fall on the surface grain. Each deeper grain takes the surface grain it
-    overlaps most among those that qualify; grains without one are left out.
+    overlaps most among those that qualify. A deeper grain with none (a thin twin
+    lamella moves sideways by h·cot δ between the sections, often by more than its
+    width) takes the like-oriented surface grain whose centroid lies nearest its
+    registered centroid, if within ``max_shift_um``; grains without either are left out.
 
     Parameters
     ----------
@@ -144,6 +148,10 @@ def match_grains(
         Largest disorientation of one grain seen on both sections, degrees.
     min_overlap : float, optional
         Least fraction of the deeper grain's pixels on the surface grain.
+    max_shift_um : float, optional
+        Farthest a deeper grain's registered centroid may lie from the centroid of a
+        like-oriented surface grain it barely overlaps, µm; 0 (the default) pairs on
+        overlap alone. The serial-section measurement passes ``h·cot 10°``.
     grid : {"square", "hexagonal"}, optional
         The maps' grid (§1); a hexagonal map is moved by whole rows and columns, so a
         shift of an odd number of rows is placed to half a step.
@@ -171,6 +179,7 @@ def match_grains(
     """
     setting_positive(step_um, "step_um")
     setting_positive(threshold_deg, "threshold_deg")
+    setting_positive(max_shift_um, "max_shift_um", allow_zero=True)
     s_labels = np.asarray(surface_grains.labels)
     d_labels = np.asarray(deeper_grains.labels)
     setting_one_of(grid, "grid", GRIDS)
@@ -207,9 +216,28 @@ def match_grains(
             s_quat[s_row[sel]], d_quat[d_row[sel]], laue_by_phase[int(phase_id)]
         )
     ok &= angle < threshold_deg
-    if not ok.any():
-        return empty
+    all_fraction = fraction
     pair_d, pair_s, fraction, angle = pair_d[ok], pair_s[ok], fraction[ok], angle[ok]
+    if max_shift_um > 0:
+        near_d, near_s, near_angle = _nearest_like_grains(
+            s_tab,
+            d_tab,
+            np.setdiff1d(d_ids, pair_d),
+            registration,
+            laue_by_phase,
+            threshold_deg=threshold_deg,
+            max_shift_um=max_shift_um,
+        )
+        # Their overlap, where they have one; 0 where the lamella moved clear of itself.
+        near_code = near_d * (int(s_labels.max()) + 1) + near_s
+        at = np.minimum(np.searchsorted(pairs, near_code), len(pairs) - 1)
+        near_fraction = np.where(pairs[at] == near_code, all_fraction[at], 0.0)
+        pair_d = np.concatenate([pair_d, near_d])
+        pair_s = np.concatenate([pair_s, near_s])
+        fraction = np.concatenate([fraction, near_fraction])
+        angle = np.concatenate([angle, near_angle])
+    if len(pair_d) == 0:
+        return empty
     # Best surface grain per deeper grain: sort by (deeper id, -fraction), keep first.
     order = np.lexsort((-fraction, pair_d))
     first = np.ones(len(order), bool)
@@ -221,6 +249,54 @@ def match_grains(
         "disorientation_deg": angle[pick],
         "overlap_fraction": fraction[pick],
     }
+
+
+def _nearest_like_grains(
+    s_tab, d_tab, d_want, registration, laue_by_phase, *, threshold_deg, max_shift_um
+):
+    """For deeper grains ``d_want``: the nearest like-oriented surface grain by centroid.
+
+    Returns ``(deeper_id, surface_id, disorientation_deg)`` of the pairs found within
+    ``max_shift_um`` (after ``registration``) and ``threshold_deg``.
+    """
+    none = (np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0))
+    d_ids, s_ids = np.asarray(d_tab["grain_id"]), np.asarray(s_tab["grain_id"])
+    d_row = np.searchsorted(d_ids, d_want)
+    if len(d_row) == 0 or len(s_ids) == 0:
+        return none
+    d_xy = registration.apply(
+        np.stack(
+            [
+                np.asarray(d_tab["centroid_x_um"], float)[d_row],
+                np.asarray(d_tab["centroid_y_um"], float)[d_row],
+            ],
+            -1,
+        )
+    )
+    s_xy = np.stack(
+        [np.asarray(s_tab["centroid_x_um"], float), np.asarray(s_tab["centroid_y_um"], float)], -1
+    )
+    dist = np.hypot(*(d_xy[:, None, :] - s_xy[None, :, :]).transpose(2, 0, 1))
+    d_phase = np.asarray(d_tab["phase"])[d_row]
+    s_phase = np.asarray(s_tab["phase"])
+    a, b = np.nonzero((dist <= max_shift_um) & (d_phase[:, None] == s_phase[None, :]))
+    if len(a) == 0:
+        return none
+    angle = np.full(len(a), np.inf)
+    s_quat, d_quat = np.asarray(s_tab["quat"], float), np.asarray(d_tab["quat"], float)
+    for phase_id in np.unique(s_phase[b]):
+        sel = s_phase[b] == phase_id
+        angle[sel] = _disorientation_deg(
+            s_quat[b[sel]], d_quat[d_row[a[sel]]], laue_by_phase[int(phase_id)]
+        )
+    like = angle < threshold_deg
+    a, b, angle = a[like], b[like], angle[like]
+    # The nearest per deeper grain: sort by (deeper row, distance), keep first.
+    order = np.lexsort((dist[a, b], a))
+    first = np.ones(len(order), bool)
+    first[1:] = a[order][1:] != a[order][:-1]
+    pick = order[first]
+    return d_want[a[pick]].astype(np.int64), s_ids[b[pick]].astype(np.int64), angle[pick]
 
 
 def _fit_rigid(src, dst, weights, fit_rotation):

@@ -540,6 +540,9 @@ def measure_serial_section(
         step_um=step_um,
         laue_by_phase=laue_by_phase,
         threshold_deg=threshold_deg,
+        # A boundary dipping δ moves h·cot δ between the sections (§8); a lamella moved
+        # by more than its width is found by its centroid down to δ = 10°.
+        max_shift_um=depth_um / math.tan(math.radians(10.0)),
         grid=grid,
     )
     paired = match_segments(

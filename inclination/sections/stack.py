@@ -233,6 +233,9 @@ def measure_stack(
             step_um=step_um,
             laue_by_phase=laue_by_phase,
             threshold_deg=threshold_deg,
+            # As in measure_serial_section: a lamella moved by more than its width is
+            # found by its centroid down to δ = 10° (§8).
+            max_shift_um=float(h) / math.tan(math.radians(10.0)),
             grid=grid,
         )
         max_offset = float(h) / math.tan(math.radians(5.0)) + 2.0 * step_um
