@@ -451,6 +451,7 @@ def audit_frame(
     settle: Callable | None = None,
     min_voters: int = 5,
     min_margin_nats: float = float(np.log(100.0)),
+    outlier_fraction: float = _OUTLIER_FRACTION,
     max_turn_deg: float = 10.0,
     map_pointers: tuple = ("/map",),
 ) -> FrameAudit:
@@ -478,6 +479,8 @@ def audit_frame(
         Fewer voting twin segments than this: undecided.
     min_margin_nats : float, default log(100)
         The best must beat the next hypothesis (other than its 180° partner) by this.
+    outlier_fraction : float, default 0.3
+        Share ε of voters taken to be outliers in the trace mixture (:func:`turn_fit`).
     max_turn_deg : float, default 10.0
         Range of the fitted turn.
     map_pointers : tuple of str
@@ -575,6 +578,7 @@ def audit_frame(
                     sign * deviation,
                     np.hypot(sigma_m[rows], sigma_p),
                     max_turn_deg=max_turn_deg,
+                    outlier_fraction=outlier_fraction,
                 )
                 fitted[name] = fit
                 hypotheses.append(Hypothesis(name, sense, settings, fit, partner))
