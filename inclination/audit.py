@@ -346,7 +346,7 @@ class _Relation:
 
 
 def _twin_relations(phase: Phase, criterion: str) -> list[_Relation]:
-    """Σ3 for cubic phases, the twins the families imply for hexagonal ones (else none)."""
+    """Σ3 for cubic phases, the twins the families imply for hexagonal and trigonal ones."""
     if phase.laue == "m-3m":
         sigma3 = next(r for r in cubic_csl_relations(3) if r.sigma == 3)
         normals = plane_normals_crystal(
@@ -367,7 +367,43 @@ def _twin_relations(phase: Phase, criterion: str) -> list[_Relation]:
                 )
             )
         return out
+    if phase.laue in ("-3m", "-3"):
+        return _trigonal_twins(phase)
     return []
+
+
+def _trigonal_twins(phase: Phase) -> list[_Relation]:
+    """One twin per declared plane family of a trigonal phase: the half turn about its normal.
+
+    The 180° rotation about the normal of the plane K1 (the reflection twin on K1 composed
+    with the inversion every Laue class holds; from memory), reduced by the disorientation
+    under the phase's Laue class and setting, as :func:`hexagonal_twins` builds the
+    hexagonal ones (conventions §4). A half turn that reduces to about 0° is a symmetry of
+    the class, not a twin, and is dropped; so is a family whose half turn repeats one kept.
+    """
+    from .crystal.indices import parse_indices
+    from .crystal.symmetry import disorientation
+
+    limit = 5.0  # As hexagonal_twins: no Brandon-like rule for twins (common practice).
+    out, seen = [], []
+    for text in phase.families:
+        idx = parse_indices(text)
+        if idx.kind != "plane":
+            continue
+        rows = expand_family(phase.lattice, idx.values, phase.laue)
+        normals = plane_normals_crystal(phase.lattice, rows)
+        half_turn = quat_from_axis_angle_deg(normals[0], 180.0)
+        dis = disorientation(
+            np.array([1.0, 0.0, 0.0, 0.0]), half_turn, phase.laue, setting=phase.setting
+        )
+        if float(dis.angle_deg) < 0.5:
+            continue
+        q = np.asarray(dis.quat, float).reshape(4)
+        if any(abs(float(np.dot(q, k))) > 1 - 1e-9 for k in seen):
+            continue
+        seen.append(q)
+        out.append(_Relation(q, limit, normals))
+    return out
 
 
 def _with_setting(phase: Phase, setting: str) -> Phase:
@@ -451,6 +487,7 @@ def audit_frame(
     settle: Callable | None = None,
     min_voters: int = 5,
     min_margin_nats: float = float(np.log(100.0)),
+    outlier_fraction: float = _OUTLIER_FRACTION,
     max_turn_deg: float = 10.0,
     map_pointers: tuple = ("/map",),
 ) -> FrameAudit:
@@ -478,6 +515,8 @@ def audit_frame(
         Fewer voting twin segments than this: undecided.
     min_margin_nats : float, default log(100)
         The best must beat the next hypothesis (other than its 180° partner) by this.
+    outlier_fraction : float, default 0.3
+        Share ε of voters taken to be outliers in the trace mixture (:func:`turn_fit`).
     max_turn_deg : float, default 10.0
         Range of the fitted turn.
     map_pointers : tuple of str
@@ -575,6 +614,7 @@ def audit_frame(
                     sign * deviation,
                     np.hypot(sigma_m[rows], sigma_p),
                     max_turn_deg=max_turn_deg,
+                    outlier_fraction=outlier_fraction,
                 )
                 fitted[name] = fit
                 hypotheses.append(Hypothesis(name, sense, settings, fit, partner))

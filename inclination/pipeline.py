@@ -645,6 +645,10 @@ def _frame_audit(analysis: Analysis):
         rotation_sense=omap.rotation_sense,
         sigma_criterion=job.planes["sigma_criterion"],
         settle=settle,
+        min_voters=int(job.audit["min_voters"]),
+        # The job states the margin as odds (log10); the audit weighs in nats.
+        min_margin_nats=float(job.audit["min_margin_log10"]) * float(np.log(10.0)),
+        outlier_fraction=float(job.audit["outlier_fraction"]),
         map_pointers=tuple(pointers),
     )
 

@@ -128,6 +128,55 @@ def test_wrong_hexagonal_setting_is_found():
     assert audit.job_patch["map"] == {}
 
 
+# Corundum, a = 4.759 Å, c = 12.992 Å, Laue -3m (from memory); it twins on {1 0 -1 2}.
+_TRIGONAL = {"a": 4.759, "b": 4.759, "c": 12.992, "alpha": 90, "beta": 90, "gamma": 120}
+
+
+def _trigonal(setting):
+    return Phase.from_dict(
+        {
+            "id": 1,
+            "name": "corundum",
+            "laue": "-3m",
+            "setting": setting,
+            "lattice": _TRIGONAL,
+            "families": ["{1 0 -1 2}", "{0 0 0 1}"],
+        }
+    )
+
+
+def test_wrong_trigonal_setting_is_found():
+    # The reflection twin on K1 is the half turn about its normal (from memory).
+    sample = _sample(_trigonal("x_parallel_a"))
+    audit = _audit(synthetic.as_orientation_map(sample), _trigonal("x_parallel_a_star"))
+    assert audit.declared_is_best is False
+    assert audit.job_patch["phases"] == {"1": {"setting": "x_parallel_a"}}
+    assert audit.job_patch["map"] == {}
+    assert audit.best_hypothesis.fit.n_voters >= 5
+
+
+def test_trigonal_half_turns_that_are_symmetries_do_not_vote():
+    from inclination.crystal.symmetry import disorientation_angle_deg
+
+    # In -3m the half turns about the <1 1 -2 0> or <1 0 -1 0> normals (by setting) are
+    # two-fold axes of the class (International Tables, point group -3m; from memory).
+    for setting in ("x_parallel_a", "x_parallel_a_star"):
+        phase = Phase.from_dict(
+            {
+                "id": 1,
+                "name": "corundum",
+                "laue": "-3m",
+                "setting": setting,
+                "lattice": _TRIGONAL,
+                "families": ["{1 1 -2 0}", "{1 0 -1 0}"],
+            }
+        )
+        normals = plane_normals_crystal(phase.lattice, [[1, 1, -2, 0], [1, 0, -1, 0]])
+        half = quat_from_axis_angle_deg(normals, np.full(2, 180.0))
+        angles = disorientation_angle_deg(np.array([1.0, 0, 0, 0]), half, "-3m", setting=setting)
+        assert min(angles) < 1e-6 and max(angles) > 59.0
+
+
 def test_two_twin_boundaries_are_undecided():
     sample = _sample(CU, twins=1, seed=4)
     audit = _audit(synthetic.as_orientation_map(sample), CU)

@@ -48,6 +48,9 @@ class Job:
     grains, traces, planes : dict
         Settings with defaults filled (``traces`` lengths in µm: null in the
         file becomes 10 and 1.5 map steps when the map's step is declared).
+    audit : dict
+        The frame audit's thresholds, defaults filled: ``outlier_fraction``,
+        ``min_voters``, ``min_margin_log10`` (inclination.audit.audit_frame).
     sections : tuple of dict
         Each a validated cross-section or serial section; a serial section's
         ``map`` has an absolute path.
@@ -64,6 +67,7 @@ class Job:
     grains: dict
     traces: dict
     planes: dict
+    audit: dict
     sections: tuple
     source_path: str | None
     raw: dict
@@ -224,6 +228,7 @@ def job_from_dict(d: Mapping, *, base_dir=None, path_for_errors=None) -> Job:
         grains=copy.deepcopy(doc["grains"]),
         traces=copy.deepcopy(doc["traces"]),
         planes=copy.deepcopy(doc["planes"]),
+        audit=copy.deepcopy(doc["audit"]),
         sections=tuple(sections),
         source_path=None if path_for_errors is None else str(path_for_errors),
         raw=doc,

@@ -62,7 +62,7 @@ __all__ = [
 ]
 
 _CUBIC_LAUE = ("m-3m", "m-3")
-_HEXAGONAL_LAUE = ("6/mmm", "6/m")
+_HEXAGONAL_LAUE = ("6/mmm", "6/m", "-3m", "-3")
 # The four {111} planes up to sign, and the six {10-12} planes up to sign.
 _CUBIC_TWIN_PLANES = ((1, 1, 1), (-1, 1, 1), (1, -1, 1), (1, 1, -1))
 _HEXAGONAL_TWIN_PLANES = (
@@ -169,8 +169,8 @@ def twin_planes_crystal(phase: Phase) -> tuple[np.ndarray, tuple[str, ...]]:
     """The twin planes of a phase: unit normals in its crystal frame C and their indices.
 
     Cubic phases (Laue m-3m, m-3) twin on {111} (four planes up to sign); hexagonal
-    phases (6/mmm, 6/m) on {10-12} (six planes up to sign). The twin is the parent
-    turned 180° about the plane normal.
+    and trigonal phases (6/mmm, 6/m, -3m, -3) on {10-12} (six planes up to sign). The
+    twin is the parent turned 180° about the plane normal.
 
     Parameters
     ----------

@@ -54,3 +54,32 @@ def test_audit_command_writes_a_valid_audit(scenario, tmp_path, capsys):
     assert doc["hypotheses"][doc["best"]]["relation"] == "z90"
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "data_frame_rotation" in err[0] and "z90" in err[0]
+
+
+def test_job_audit_thresholds_reach_the_audit(scenario):
+    raw = json.loads(scenario["job_z90"].read_text())
+    default = _run(scenario["job_z90"], raw).audit
+    # The defaults written out give the audit as the job without the block.
+    spelled = dict(raw, audit={"outlier_fraction": 0.3, "min_voters": 5, "min_margin_log10": 2})
+    assert _run(scenario["job_z90"], spelled).audit.as_dict() == default.as_dict()
+    voters = default.best_hypothesis.fit.n_voters
+    strict = dict(raw, audit={"min_voters": voters + 1})
+    audit = _run(scenario["job_z90"], strict).audit
+    assert audit.declared_is_best == "undecided"
+    assert f"only {voters} segment(s)" in audit.reason
+    assert f"at least {voters + 1} are needed" in audit.reason
+    assert audit.patch_is_empty
+    # A margin (odds of 10^x to 1) beyond the vote's own is a tie.
+    top, rival = default.reason.split("log-likelihood ")[1].split(" for")[0].split(" against ")
+    odds_log10 = (float(top) - float(rival)) / 2.302585
+    tie = dict(raw, audit={"min_margin_log10": odds_log10 + 1})
+    audit = _run(scenario["job_z90"], tie).audit
+    assert audit.declared_is_best == "undecided" and audit.reason.startswith("tie")
+
+
+def test_job_audit_out_of_range_is_refused(scenario):
+    from inclination.errors import InputError
+
+    raw = json.loads(scenario["job_z90"].read_text())
+    with pytest.raises(InputError, match="outlier_fraction"):
+        _run(scenario["job_z90"], dict(raw, audit={"outlier_fraction": 1.0}))
