@@ -387,8 +387,13 @@ def _figures(analysis, out_dir, boundaries):
     normals_c = quat_apply(quat, normals_s[has]) if has.any() else np.zeros((0, 3))
     phases = list(analysis.job.phases.values())
     plot_normals_stereogram(normals_c, classes[has], _poles(phases[0]) if phases else (), ax=ax_s)
+    # Only identified planes have a predicted dip; ambiguous rows are left out.
     plot_dip_comparison(
-        p_dip, m_dip, _by_segment(measured, ids, "measured_dip_sigma_deg"), classes, ax=ax_d
+        np.where(unique, p_dip, np.nan),
+        m_dip,
+        _by_segment(measured, ids, "measured_dip_sigma_deg"),
+        classes,
+        ax=ax_d,
     )
     fig.tight_layout()
     save(fig, "planes", "Stereogram of measured normals; predicted against measured dip")
