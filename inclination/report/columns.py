@@ -454,7 +454,8 @@ PAPER_COLUMNS = (
         "predicted_dip",
         "str",
         0,
-        "dip of the best candidate plane, 0 parallel to the surface, 90 vertical; whole degrees",
+        "dip of the identified plane (empty if ambiguous), 0 parallel to the surface, "
+        "90 vertical; whole degrees",
         "Pred. dip",
         "°",
     ),
