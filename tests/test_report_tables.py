@@ -195,3 +195,41 @@ def test_long_tables_become_longtable(tmp_path):
     assert r"\begin{table}" in short.read_text()
     text = long.read_text()
     assert r"\begin{longtable}" in text and r"\endhead" in text and "longtable}." in text
+
+
+def test_ambiguous_rows_give_a_dip_range_not_a_dip(demo_run):
+    # Ground truth: the candidates table the same run writes (candidates.jsonl), read back
+    # independently; the measured normal is compared as an axis (conventions §5).
+    text = (demo_run / "results" / "boundaries.csv").read_text(encoding="utf-8")
+    rows = list(csv.DictReader(text.splitlines()))
+    lines = (demo_run / "results" / "candidates.jsonl").read_text(encoding="utf-8").splitlines()
+    names = [c["name"] for c in json.loads(lines[0])["columns"]]
+    cands = [dict(zip(names, json.loads(line), strict=True)) for line in lines[1:]]
+    fitting = {}
+    for c in cands:
+        if c["fits"]:
+            fitting.setdefault(c["segment_id"], []).append(c)
+    ambiguous = [r for r in rows if r["identification"] == "ambiguous"]
+    assert ambiguous and all(r["predicted_dip_deg"] == "" for r in ambiguous)
+    for r in ambiguous:
+        dips = [c["dip_deg"] for c in fitting[int(r["boundary_id"])]]
+        assert float(r["predicted_dip_min_deg"]) == pytest.approx(min(dips), abs=1e-3)
+        assert float(r["predicted_dip_max_deg"]) == pytest.approx(max(dips), abs=1e-3)
+    for r in rows:
+        if r["identification"] in ("identified", "coherent_twin"):
+            assert (
+                r["predicted_dip_min_deg"] == r["predicted_dip_deg"] == r["predicted_dip_max_deg"]
+            )
+    supported = [r for r in rows if r["measured_supports"]]
+    assert supported and all(r["measured_dip_deg"] for r in supported)
+    for r in supported:
+        side, plane = r["measured_supports"].split(" ", 1)
+        (c,) = [
+            c for c in fitting[int(r["boundary_id"])] if c["side"] == side and c["plane"] == plane
+        ]
+        # The declared axes of the demo are S's (x right, y down), so normals compare as is.
+        m = np.array([float(r[f"normal_{k}"]) for k in "xyz"])
+        n = np.array([c[f"normal_{k}"] for k in "xyz"])
+        angle = np.degrees(np.arccos(min(1.0, abs(m @ n) / np.linalg.norm(m) / np.linalg.norm(n))))
+        sigma = np.hypot(float(r["measured_dip_sigma_deg"]), c["tolerance_deg"] / 2.0)
+        assert angle <= 3.0 * sigma + 1e-3

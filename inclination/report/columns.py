@@ -191,7 +191,8 @@ BOUNDARY_COLUMNS = (
             "str",
             0,
             "plane whose trace fits best, in grain a's indices (a plane both grains share first; "
-            "empty when it is grain b's alone); if ambiguous, the closest of several",
+            "empty when it is grain b's alone); if ambiguous, only the closest-fitting trace of "
+            "several candidates, not an identified plane",
             "Plane (grain a)",
             "",
         ),
@@ -199,7 +200,8 @@ BOUNDARY_COLUMNS = (
             "plane_b",
             "str",
             0,
-            "the same plane in grain b's indices; empty when it is grain a's alone",
+            "the same plane in grain b's indices; empty when it is grain a's alone; if ambiguous, "
+            "only the closest-fitting trace of several candidates",
             "Plane (grain b)",
             "",
         ),
@@ -241,8 +243,8 @@ BOUNDARY_COLUMNS = (
             "predicted_dip_deg",
             "float",
             3,
-            "dip of that plane (0 parallel to surface, 90 vertical); for an ambiguous boundary "
-            "only that candidate's dip, not an answer",
+            "dip of the identified plane (0 parallel to surface, 90 vertical); empty for an "
+            "ambiguous boundary, which has no predicted plane (see predicted_dip_min_deg/max)",
             "Predicted dip",
             "°",
         ),
@@ -250,9 +252,34 @@ BOUNDARY_COLUMNS = (
             "predicted_dip_azimuth_deg",
             "float",
             3,
-            "dip direction of that plane, declared axes",
+            "dip direction of the identified plane, declared axes; empty if ambiguous",
             "Predicted dip direction",
             "°",
+        ),
+        _c(
+            "predicted_dip_min_deg",
+            "float",
+            3,
+            "smallest dip of the candidate planes within tolerance (the prediction if identified)",
+            "Predicted dip, min",
+            "°",
+        ),
+        _c(
+            "predicted_dip_max_deg",
+            "float",
+            3,
+            "largest dip of the candidate planes within tolerance (the prediction if identified)",
+            "Predicted dip, max",
+            "°",
+        ),
+        _c(
+            "measured_supports",
+            "str",
+            0,
+            "candidate within tolerance the measured plane supports, 'a (hkl)' or 'b (hkl)' in "
+            "that grain's indices: closest normal, within 3σ and closer than the next; else empty",
+            "Measured supports",
+            "",
         ),
         _c(
             "measured_dip_deg",
@@ -427,7 +454,8 @@ PAPER_COLUMNS = (
         "predicted_dip",
         "str",
         0,
-        "dip of the best candidate plane, 0 parallel to the surface, 90 vertical; whole degrees",
+        "dip of the identified plane (empty if ambiguous), 0 parallel to the surface, "
+        "90 vertical; whole degrees",
         "Pred. dip",
         "°",
     ),

@@ -120,6 +120,57 @@ def _aligned(table, segment_ids):
     return column
 
 
+def _candidate_dips(analysis, ids):
+    """Per boundary: the dip range of its candidates within tolerance, and the one the
+    measured plane supports.
+
+    The supported candidate is the one whose normal (sample frame S, conventions §5)
+    lies closest to the measured normal, taken as an axis so the 180° sense does not
+    enter, in units of σ = hypot(σ measured dip, tolerance / 2); it is named only when
+    within 3σ and strictly closer than the next candidate. Labels are ``a (hkl)`` or
+    ``b (hkl)``: the plane in that grain's indices.
+    """
+    n = len(ids)
+    low, high = np.full(n, np.nan), np.full(n, np.nan)
+    supports = np.full(n, "", dtype=object)
+    cands = getattr(analysis, "candidates", None)
+    if cands is None or not len(cands["segment_id"]) or n == 0:
+        return low, high, supports
+    fits = np.asarray(cands["fits"], bool)
+    # A plane both grains share is one candidate: keep its grain-a row only.
+    shared = np.asarray(cands["shared_with"], dtype=object) != ""
+    side = np.asarray(cands["side"], dtype=object)
+    keep = fits & ~((side == "b") & shared)
+    seg = np.asarray(cands["segment_id"])[keep]
+    dip = np.asarray(cands["dip_deg"], float)[keep]
+    normal = np.stack([np.asarray(cands[f"normal_{c}"], float)[keep] for c in "xyz"], -1)
+    tol = np.asarray(cands["tolerance_deg"], float)[keep]
+    label = side[keep].astype(object) + " " + np.asarray(cands["plane"], dtype=object)[keep]
+    measured = analysis.measured
+    from_measured = _aligned(measured, ids)
+    m_normal = np.stack([from_measured(f"normal_{c}", np.nan) for c in "xyz"], -1)
+    m_sigma = from_measured("measured_dip_sigma_deg", np.nan) if measured is not None else None
+    row = {int(s): k for k, s in enumerate(np.asarray(ids).tolist())}
+    groups = {}
+    for k, s in enumerate(seg.tolist()):
+        groups.setdefault(int(s), []).append(k)
+    for s, ks in groups.items():
+        r = row.get(s)
+        if r is None:
+            continue
+        low[r], high[r] = dip[ks].min(), dip[ks].max()
+        if m_sigma is None or not np.all(np.isfinite(m_normal[r])):
+            continue
+        cos = np.abs(normal[ks] @ m_normal[r]) / np.linalg.norm(m_normal[r])
+        angle = np.rad2deg(np.arccos(np.clip(cos, 0.0, 1.0)))
+        z = angle / np.hypot(m_sigma[r], tol[ks] / 2.0)
+        order = np.argsort(z)
+        best = z[order[0]]
+        if best <= 3.0 and (len(ks) == 1 or z[order[1]] > best):
+            supports[r] = label[ks[order[0]]]
+    return low, high, supports
+
+
 def boundaries_table(analysis) -> dict:
     """The per-boundary table (one row per segment long enough for planes), declared axes."""
     seg = segments_table(analysis)
@@ -155,6 +206,15 @@ def boundaries_table(analysis) -> dict:
     out["predicted_dip_azimuth_deg"] = axes.angle_to_declared_deg(
         from_ident("predicted_dip_azimuth_deg", np.nan), kind="azimuth"
     )
+    # An ambiguous boundary has no predicted plane: its dip is only a range over the
+    # candidates within tolerance, never a single value that reads as an answer.
+    unique = np.isin(out["identification"], ("coherent_twin", "identified"))
+    low, high, supports = _candidate_dips(analysis, ids)
+    out["predicted_dip_min_deg"] = np.where(unique, out["predicted_dip_deg"], low)
+    out["predicted_dip_max_deg"] = np.where(unique, out["predicted_dip_deg"], high)
+    out["predicted_dip_deg"] = np.where(unique, out["predicted_dip_deg"], np.nan)
+    out["predicted_dip_azimuth_deg"] = np.where(unique, out["predicted_dip_azimuth_deg"], np.nan)
+    out["measured_supports"] = supports
     out["measured_dip_deg"] = from_measured("measured_dip_deg", np.nan)
     out["measured_dip_sigma_deg"] = from_measured("measured_dip_sigma_deg", np.nan)
     out["measured_dip_azimuth_deg"] = axes.angle_to_declared_deg(
@@ -327,8 +387,13 @@ def _figures(analysis, out_dir, boundaries):
     normals_c = quat_apply(quat, normals_s[has]) if has.any() else np.zeros((0, 3))
     phases = list(analysis.job.phases.values())
     plot_normals_stereogram(normals_c, classes[has], _poles(phases[0]) if phases else (), ax=ax_s)
+    # Only identified planes have a predicted dip; ambiguous rows are left out.
     plot_dip_comparison(
-        p_dip, m_dip, _by_segment(measured, ids, "measured_dip_sigma_deg"), classes, ax=ax_d
+        np.where(unique, p_dip, np.nan),
+        m_dip,
+        _by_segment(measured, ids, "measured_dip_sigma_deg"),
+        classes,
+        ax=ax_d,
     )
     fig.tight_layout()
     save(fig, "planes", "Stereogram of measured normals; predicted against measured dip")

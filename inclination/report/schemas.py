@@ -37,6 +37,8 @@ _RANGES = {
     "predicted_dip_azimuth_deg": (0, 360, True),
     "measured_dip_azimuth_deg": (0, 360, True),
     "predicted_dip_deg": (0, 90, False),
+    "predicted_dip_min_deg": (0, 90, False),
+    "predicted_dip_max_deg": (0, 90, False),
     "measured_dip_deg": (0, 90, False),
     "misorientation_deg": (0, 180, False),
     "chance_fit": (0, 1, False),
