@@ -127,7 +127,7 @@ def _candidate_dips(analysis, ids):
     The supported candidate is the one whose normal (sample frame S, conventions §5)
     lies closest to the measured normal, taken as an axis so the 180° sense does not
     enter, in units of σ = hypot(σ measured dip, tolerance / 2); it is named only when
-    within 3σ and strictly closer than the next candidate. Labels are ``a (hkl)`` or
+    within 3σ while every other candidate lies beyond 3σ. Labels are ``a (hkl)`` or
     ``b (hkl)``: the plane in that grain's indices.
     """
     n = len(ids)
@@ -166,7 +166,9 @@ def _candidate_dips(analysis, ids):
         z = angle / np.hypot(m_sigma[r], tol[ks] / 2.0)
         order = np.argsort(z)
         best = z[order[0]]
-        if best <= 3.0 and (len(ks) == 1 or z[order[1]] > best):
+        # The measurement supports a candidate only when it agrees with it (≤ 3σ) and
+        # rules out every other one (> 3σ): being merely the closer of two is no support.
+        if best <= 3.0 and (len(ks) == 1 or z[order[1]] > 3.0):
             supports[r] = label[ks[order[0]]]
     return low, high, supports
 
