@@ -277,7 +277,8 @@ BOUNDARY_COLUMNS = (
             "str",
             0,
             "candidate within tolerance the measured plane supports, 'a (hkl)' or 'b (hkl)' in "
-            "that grain's indices: the one normal within 3σ of the measured normal, every other candidate beyond 3σ; else empty",
+            "that grain's indices: the one normal within 3σ of the measured normal, every other "
+            "candidate beyond 3σ; else empty",
             "Measured supports",
             "",
         ),
