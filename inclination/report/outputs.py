@@ -279,6 +279,21 @@ def _by_segment(table, ids, name, fill=np.nan):
     return out
 
 
+def _settled_by_segment(table, ids):
+    """Whether each segment's identification settled on one plane (coherent twin, identified)."""
+    out = np.zeros(len(ids), dtype=bool)
+    if table is None or not len(table["segment_id"]):
+        return out
+    settled = np.isin(
+        np.asarray(table["identification"]).astype(str), ("coherent_twin", "identified")
+    )
+    index = {int(s): k for k, s in enumerate(np.asarray(table["segment_id"]).tolist())}
+    rows = np.array([index.get(int(s), -1) for s in ids], dtype=int)
+    found = rows >= 0
+    out[found] = settled[rows[found]]
+    return out
+
+
 def _cross_sections(analysis):
     """(name, CrossSection record, table) of each cross-section of the job, in S."""
     from ..sections import CrossSection
@@ -420,6 +435,9 @@ def _figures(analysis, out_dir, boundaries):
         )
         pdip = _by_segment(ident, sid, "predicted_dip_deg")
         paz = _by_segment(ident, sid, "predicted_dip_azimuth_deg")
+        # Only a settled plane has one predicted line; an ambiguous boundary's closest
+        # candidate would read as an answer (as in the boundary table).
+        pdip = np.where(_settled_by_segment(ident, sid), pdip, np.nan)
         pr = np.where(np.isfinite(pdip), signed(np.nan_to_num(pdip), np.nan_to_num(paz)), np.nan)
         art = plot_section_sketch(
             np.asarray(table["along_um"], float)[ok], m, pr, sid, length_um=length, name=name
