@@ -435,7 +435,7 @@ def quat_apply(quat, vectors) -> np.ndarray:
 
     Examples
     --------
-    >>> quat_apply(quat_from_euler_deg([90.0, 0.0, 0.0]), [1.0, 0.0, 0.0]).round(6).tolist()
+    >>> (quat_apply(quat_from_euler_deg([90.0, 0.0, 0.0]), [1.0, 0.0, 0.0]).round(6) + 0.0).tolist()
     [0.0, -1.0, 0.0]
     """
     q = _check_quat(quat)
