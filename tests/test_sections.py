@@ -103,6 +103,31 @@ def _segments_for(normals, line, along, half_length=20.0):
     }
 
 
+def _listed_section(normals, line, viewer, along, *, axes=SAMPLE_AXES, tilt_deg, face_deg):
+    """The job entry of a face showing ``normals`` crossing ``line`` at ``along``.
+
+    Traces within 15° of the line are ill-conditioned and left out (tested on their own);
+    returns the entry and the indices of the normals it lists.
+    """
+    keep = []
+    entries = []
+    e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
+    for k, n in enumerate(normals):
+        alpha, side = _face_view(n, line, viewer, tilt_deg, face_deg)
+        t = np.cross(Z, n)[:2]
+        if abs(e[0] * t[1] - e[1] * t[0]) / np.linalg.norm(t) > math.sin(math.radians(15)):
+            keep.append(k)
+            entries.append({"along_um": along[k], "image_angle_deg": alpha, "descends": side})
+    section = {
+        "line_um": axes.points_to_declared(line).tolist(),
+        "viewer_at_um": axes.points_to_declared(viewer).tolist(),
+        "imaging_tilt_deg": tilt_deg,
+        "face_inclination_deg": face_deg,
+        "boundaries": entries,
+    }
+    return section, keep
+
+
 def _random_normals(gen, n, min_dip=15.0, max_dip=80.0):
     dip = np.deg2rad(gen.uniform(min_dip, max_dip, n))
     az = gen.uniform(0, 2 * np.pi, n)
@@ -188,22 +213,7 @@ def test_cross_section_matching_among_many_distant_segments():
         "trace_sigma_deg": np.full(m, 0.5),
     }
     segments = {key: np.concatenate([near[key], far[key]]) for key in near}
-    entries = []
-    keep = []
-    for k, n in enumerate(normals):
-        alpha, side = _face_view(n, line, viewer, 52.0, 90.0)
-        e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
-        t = np.cross(Z, n)[:2]
-        if abs(e[0] * t[1] - e[1] * t[0]) / np.linalg.norm(t) > math.sin(math.radians(15)):
-            keep.append(k)
-            entries.append({"along_um": along[k], "image_angle_deg": alpha, "descends": side})
-    section = {
-        "line_um": SAMPLE_AXES.points_to_declared(line).tolist(),
-        "viewer_at_um": SAMPLE_AXES.points_to_declared(viewer).tolist(),
-        "imaging_tilt_deg": 52.0,
-        "face_inclination_deg": 90.0,
-        "boundaries": entries,
-    }
+    section, keep = _listed_section(normals, line, viewer, along, tilt_deg=52.0, face_deg=90.0)
     out = _measure(section, segments, step_um=0.5, bounds_um=BOUNDS)
     assert out["status"].tolist() == ["measured"] * len(keep)
     assert out["segment_id"].tolist() == keep
@@ -225,23 +235,9 @@ def test_cross_section_recovers_known_planes(axes, tilt_deg, face_deg):
     viewer = np.array([100.0, 70.0])
     along = np.linspace(10.0, 150.0, 8)
     segments = _segments_for(normals, line, along)
-    keep = []
-    entries = []
-    for k, n in enumerate(normals):
-        alpha, side = _face_view(n, line, viewer, tilt_deg, face_deg)
-        e = (line[1] - line[0]) / np.linalg.norm(line[1] - line[0])
-        t = np.cross(Z, n)[:2]
-        # Traces within 15° of the line are ill-conditioned; tested on their own below.
-        if abs(e[0] * t[1] - e[1] * t[0]) / np.linalg.norm(t) > math.sin(math.radians(15)):
-            keep.append(k)
-            entries.append({"along_um": along[k], "image_angle_deg": alpha, "descends": side})
-    section = {
-        "line_um": axes.points_to_declared(line).tolist(),
-        "viewer_at_um": axes.points_to_declared(viewer).tolist(),
-        "imaging_tilt_deg": tilt_deg,
-        "face_inclination_deg": face_deg,
-        "boundaries": entries,
-    }
+    section, keep = _listed_section(
+        normals, line, viewer, along, axes=axes, tilt_deg=tilt_deg, face_deg=face_deg
+    )
     out = _measure(section, segments, axes=axes, step_um=0.5, bounds_um=BOUNDS)
     assert out["status"].tolist() == ["measured"] * len(keep)
     assert out["segment_id"].tolist() == keep
