@@ -22,7 +22,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .crystal.csl import cubic_csl_relations, hexagonal_twins, max_deviation_deg
+from .crystal.csl import (
+    TWIN_MAX_DEVIATION_DEG,
+    cubic_csl_relations,
+    half_turn_disorientations,
+    hexagonal_twins,
+    max_deviation_deg,
+)
 from .crystal.families import expand_family
 from .crystal.lattice import plane_normals_crystal
 from .crystal.phases import Phase
@@ -382,27 +388,25 @@ def _trigonal_twins(phase: Phase) -> list[_Relation]:
     the class, not a twin, and is dropped; so is a family whose half turn repeats one kept.
     """
     from .crystal.indices import parse_indices
-    from .crystal.symmetry import disorientation
 
-    limit = 5.0  # As hexagonal_twins: no Brandon-like rule for twins (common practice).
+    planes = [parse_indices(text) for text in phase.families]
+    planes = [p.values for p in planes if p.kind == "plane"]
+    if not planes:
+        return []
+    dis = half_turn_disorientations(phase.lattice, planes, phase.laue)
     out, seen = [], []
-    for text in phase.families:
-        idx = parse_indices(text)
-        if idx.kind != "plane":
+    for plane, angle, quat in zip(
+        planes, np.atleast_1d(dis.angle_deg), np.reshape(dis.quat, (-1, 4)), strict=True
+    ):
+        if float(angle) < 0.5:
             continue
-        rows = expand_family(phase.lattice, idx.values, phase.laue)
-        normals = plane_normals_crystal(phase.lattice, rows)
-        half_turn = quat_from_axis_angle_deg(normals[0], 180.0)
-        dis = disorientation(
-            np.array([1.0, 0.0, 0.0, 0.0]), half_turn, phase.laue, setting=phase.setting
-        )
-        if float(dis.angle_deg) < 0.5:
-            continue
-        q = np.asarray(dis.quat, float).reshape(4)
+        q = np.asarray(quat, float)
         if any(abs(float(np.dot(q, k))) > 1 - 1e-9 for k in seen):
             continue
         seen.append(q)
-        out.append(_Relation(q, limit, normals))
+        rows = expand_family(phase.lattice, plane, phase.laue)
+        normals = plane_normals_crystal(phase.lattice, rows)
+        out.append(_Relation(q, TWIN_MAX_DEVIATION_DEG, normals))
     return out
 
 

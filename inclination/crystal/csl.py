@@ -49,6 +49,8 @@ __all__ = [
     "relation_deviation_deg",
     "classify_misorientation",
     "classify_misorientation_quat",
+    "TWIN_MAX_DEVIATION_DEG",
+    "half_turn_disorientations",
     "hexagonal_twins",
     "classify_hexagonal_misorientation",
 ]
@@ -512,8 +514,51 @@ def _bravais_direction(axis_crystal: np.ndarray, structure: np.ndarray) -> tuple
     return tuple(sign * i for i in ints)
 
 
+#: Classification tolerance of a twin relation (common practice: there is no Brandon-like
+#: rule for twins).
+TWIN_MAX_DEVIATION_DEG = 5.0
+
+
+def half_turn_disorientations(lattice, planes, laue: str):
+    """The 180° rotations about the normals of ``planes``, reduced under ``laue`` (§4).
+
+    The reflection twin on a plane K1, composed with the inversion every Laue class holds,
+    is the half turn about K1's normal; reduced to its disorientation it is the twin's
+    misorientation. A half turn that reduces to about 0° is a symmetry of the class.
+
+    Parameters
+    ----------
+    lattice : Lattice
+        The phase's lattice; its ``setting`` is the Cartesian setting of the result.
+    planes : array_like of int, shape (N, 3) or (N, 4)
+        Miller or Miller–Bravais indices of K1.
+    laue : str
+        Laue class symbol.
+
+    Returns
+    -------
+    Disorientation
+        One row per plane (:func:`inclination.crystal.symmetry.disorientation`).
+
+    Examples
+    --------
+    >>> from inclination.crystal.lattice import Lattice
+    >>> hexagonal = Lattice.from_parameters(1.0, 1.0, 1.587, 90, 90, 120, setting="x_parallel_a")
+    >>> half_turn_disorientations(hexagonal, [[1, 0, -1, 2]], "6/mmm").angle_deg.round(1)
+    array([85.])
+    """
+    from .lattice import plane_normals_crystal
+
+    normals = plane_normals_crystal(lattice, np.asarray(planes))
+    half_turns = quat_from_axis_angle_deg(normals, np.full(len(normals), 180.0))
+    return disorientation(np.array([1.0, 0.0, 0.0, 0.0]), half_turns, laue, setting=lattice.setting)
+
+
 def hexagonal_twins(
-    c_over_a: float, *, setting: str = "x_parallel_a", max_deviation_deg: float = 5.0
+    c_over_a: float,
+    *,
+    setting: str = "x_parallel_a",
+    max_deviation_deg: float = TWIN_MAX_DEVIATION_DEG,
 ) -> tuple[TwinRelation, ...]:
     """The {10-12}, {10-11}, {11-22} and {11-21} twins of a hexagonal phase.
 
@@ -548,7 +593,7 @@ def hexagonal_twins(
     {1 1 -2 1} 34.97 (1, 0, -1, 0)
     """
     from .indices import format_indices
-    from .lattice import Lattice, plane_normals_crystal
+    from .lattice import Lattice
 
     c_over_a = float(as_float_array(c_over_a, "c_over_a"))
     if not np.isfinite(c_over_a) or c_over_a <= 0:
@@ -559,9 +604,7 @@ def hexagonal_twins(
             f"Expected `max_deviation_deg` to be between 0 and 90, got {max_deviation_deg!r}."
         )
     lattice = Lattice.from_parameters(1.0, 1.0, c_over_a, 90, 90, 120, setting=setting)
-    normals = plane_normals_crystal(lattice, np.array(_HEX_TWIN_PLANES))
-    half_turns = quat_from_axis_angle_deg(normals, np.full(len(normals), 180.0))
-    dis = disorientation(np.array([1.0, 0.0, 0.0, 0.0]), half_turns, "6/mmm", setting=setting)
+    dis = half_turn_disorientations(lattice, _HEX_TWIN_PLANES, "6/mmm")
     twins = []
     for i, plane in enumerate(_HEX_TWIN_PLANES):
         axis = np.asarray(dis.axis_crystal[i])
