@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy.ndimage import uniform_filter
+from scipy.spatial import cKDTree
 
 from .._validation import as_float_array, check_finite
 from ..crystal.symmetry import disorientation_angle_deg
@@ -107,6 +108,16 @@ def _disorientation_deg(qa, qb, phase):
     if isinstance(phase, str):
         return disorientation_angle_deg(qa, qb, phase)
     return disorientation_angle_deg(qa, qb, phase.laue, setting=phase.setting)
+
+
+def _pair_disorientations_deg(qa, qb, phase_ids, use, laue_by_phase):
+    """Disorientation (degrees) of each pair ``qa[k]``, ``qb[k]`` of one phase ``phase_ids[k]``,
+    for the pairs marked by ``use``; inf for the others."""
+    angle = np.full(len(phase_ids), np.inf)
+    for phase_id in np.unique(phase_ids[use]):
+        sel = use & (phase_ids == phase_id)
+        angle[sel] = _disorientation_deg(qa[sel], qb[sel], laue_by_phase[int(phase_id)])
+    return angle
 
 
 def match_grains(
@@ -208,13 +219,8 @@ def match_grains(
     s_phase = np.asarray(s_tab["phase"])[s_row]
     d_phase = np.asarray(d_tab["phase"])[d_row]
     ok = (s_phase == d_phase) & (fraction >= min_overlap)
-    angle = np.full(len(pairs), np.inf)
     s_quat, d_quat = np.asarray(s_tab["quat"], float), np.asarray(d_tab["quat"], float)
-    for phase_id in np.unique(s_phase[ok]):
-        sel = ok & (s_phase == phase_id)
-        angle[sel] = _disorientation_deg(
-            s_quat[s_row[sel]], d_quat[d_row[sel]], laue_by_phase[int(phase_id)]
-        )
+    angle = _pair_disorientations_deg(s_quat[s_row], d_quat[d_row], s_phase, ok, laue_by_phase)
     ok &= angle < threshold_deg
     all_fraction = fraction
     pair_d, pair_s, fraction, angle = pair_d[ok], pair_s[ok], fraction[ok], angle[ok]
@@ -276,23 +282,25 @@ def _nearest_like_grains(
     s_xy = np.stack(
         [np.asarray(s_tab["centroid_x_um"], float), np.asarray(s_tab["centroid_y_um"], float)], -1
     )
-    dist = np.hypot(*(d_xy[:, None, :] - s_xy[None, :, :]).transpose(2, 0, 1))
+    # Candidate pairs from a k-d tree of the surface centroids: no (wanted × all) matrix.
+    near = cKDTree(s_xy).query_ball_point(d_xy, r=max_shift_um)
+    a = np.repeat(np.arange(len(near)), [len(n) for n in near])
+    b = np.concatenate([np.asarray(n, dtype=np.int64) for n in near]) if len(a) else a
     d_phase = np.asarray(d_tab["phase"])[d_row]
     s_phase = np.asarray(s_tab["phase"])
-    a, b = np.nonzero((dist <= max_shift_um) & (d_phase[:, None] == s_phase[None, :]))
+    same = d_phase[a] == s_phase[b]
+    a, b = a[same], b[same]
     if len(a) == 0:
         return none
-    angle = np.full(len(a), np.inf)
     s_quat, d_quat = np.asarray(s_tab["quat"], float), np.asarray(d_tab["quat"], float)
-    for phase_id in np.unique(s_phase[b]):
-        sel = s_phase[b] == phase_id
-        angle[sel] = _disorientation_deg(
-            s_quat[b[sel]], d_quat[d_row[a[sel]]], laue_by_phase[int(phase_id)]
-        )
+    angle = _pair_disorientations_deg(
+        s_quat[b], d_quat[d_row[a]], s_phase[b], np.ones(len(a), bool), laue_by_phase
+    )
     like = angle < threshold_deg
     a, b, angle = a[like], b[like], angle[like]
+    dist = np.hypot(*(d_xy[a] - s_xy[b]).T)
     # The nearest per deeper grain: sort by (deeper row, distance), keep first.
-    order = np.lexsort((dist[a, b], a))
+    order = np.lexsort((dist, a))
     first = np.ones(len(order), bool)
     first[1:] = a[order][1:] != a[order][:-1]
     pick = order[first]
