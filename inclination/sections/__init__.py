@@ -40,6 +40,7 @@ from .formulas import (
     section_line_frame,
     serial_dip_deg,
     serial_dip_sigma_deg,
+    serial_offset_um,
     true_dip_from_apparent_deg,
 )
 from .registration import Registration, match_grains, register_sections
@@ -85,6 +86,7 @@ __all__ = [
     "section_depth",
     "section_line_frame",
     "serial_dip_deg",
+    "serial_offset_um",
     "serial_dip_sigma_deg",
     "true_dip_from_apparent_deg",
 ]

@@ -33,6 +33,7 @@ __all__ = [
     "depth_from_indent_um",
     "serial_dip_deg",
     "serial_dip_sigma_deg",
+    "serial_offset_um",
 ]
 
 #: Depth of a Vickers indent per unit of diagonal: 2·√2·tan 68° (136° pyramid, §8).
@@ -336,6 +337,36 @@ def serial_dip_deg(depth_um: ArrayLike, offset_um: ArrayLike) -> np.ndarray:
     h = as_float_array(depth_um, "depth_um")
     d = as_float_array(offset_um, "offset_um")
     return np.rad2deg(np.arctan2(h, np.abs(d)))
+
+
+def serial_offset_um(depth_um: ArrayLike, dip_deg: ArrayLike) -> np.ndarray:
+    """How far a plane's trace moves between two sections: ``Δ = h / tan δ`` (§8).
+
+    The inverse of :func:`serial_dip_deg`; with the least dip of interest it bounds the
+    search for a boundary's trace on the deeper section.
+
+    Parameters
+    ----------
+    depth_um : array_like
+        Layer thickness h, µm.
+    dip_deg : array_like
+        Dip δ, degrees, (0, 90].
+
+    Returns
+    -------
+    ndarray
+        Perpendicular offset Δ, µm.
+
+    Examples
+    --------
+    >>> serial_offset_um(1.0, 60.0).round(4).tolist()
+    0.5774
+    >>> serial_dip_deg(5.0, serial_offset_um(5.0, 10.0)).round(9).tolist()
+    10.0
+    """
+    h = as_float_array(depth_um, "depth_um")
+    dip = as_float_array(dip_deg, "dip_deg")
+    return h / np.tan(np.deg2rad(dip))
 
 
 def serial_dip_sigma_deg(

@@ -30,7 +30,7 @@ from ..errors import InputError
 from ..frames import DeclaredAxes
 from ..planes.geometry import surface_geometry
 from ._settings import setting_positive
-from .formulas import depth_from_indent_um, serial_dip_sigma_deg
+from .formulas import depth_from_indent_um, serial_dip_sigma_deg, serial_offset_um
 from .registration import Registration, match_grains, register_sections
 
 if TYPE_CHECKING:
@@ -532,7 +532,7 @@ def measure_serial_section(
             grid=grid,
         )
     if max_offset_um is None:
-        max_offset_um = depth_um / math.tan(math.radians(5.0)) + 2.0 * step_um
+        max_offset_um = float(serial_offset_um(depth_um, 5.0)) + 2.0 * step_um
     grain_pairs = match_grains(
         surface_grains,
         deeper_grains,
@@ -542,7 +542,7 @@ def measure_serial_section(
         threshold_deg=threshold_deg,
         # A boundary dipping δ moves h·cot δ between the sections (§8); a lamella moved
         # by more than its width is found by its centroid down to δ = 10°.
-        max_shift_um=depth_um / math.tan(math.radians(10.0)),
+        max_shift_um=float(serial_offset_um(depth_um, 10.0)),
         grid=grid,
     )
     paired = match_segments(

@@ -24,6 +24,7 @@ from ..compare.sense import reversal_probability
 from ..errors import SettingError
 from ..planes.geometry import surface_geometry
 from ._settings import setting_positive
+from .formulas import serial_offset_um
 from .registration import Registration, match_grains, register_sections
 from .serial import check_section_phases, match_segments, segment_ends, trace_position_sigma_um
 
@@ -235,10 +236,10 @@ def measure_stack(
             threshold_deg=threshold_deg,
             # As in measure_serial_section: a lamella moved by more than its width is
             # found by its centroid down to δ = 10° (§8).
-            max_shift_um=float(h) / math.tan(math.radians(10.0)),
+            max_shift_um=float(serial_offset_um(h, 10.0)),
             grid=grid,
         )
-        max_offset = float(h) / math.tan(math.radians(5.0)) + 2.0 * step_um
+        max_offset = float(serial_offset_um(h, 5.0)) + 2.0 * step_um
         paired = match_segments(
             surface_segments,
             segs,
