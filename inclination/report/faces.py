@@ -17,6 +17,7 @@ import re
 import numpy as np
 
 from .._validation import as_float_array
+from ..compare.comparison import TRUSTED_IDENTIFICATIONS
 
 __all__ = [
     "face_images_section_html",
@@ -31,8 +32,6 @@ _MEASURED = "#E69F00"
 _PREDICTED = "#56B4E9"
 _UNSURE = "#CC79A7"
 _SURFACE = "#009E73"
-#: Identification classes with one plane (conventions: the boundaries table).
-_SETTLED = ("coherent_twin", "identified")
 
 
 def _file_stem(name: str) -> str:
@@ -140,7 +139,7 @@ def _predicted_directions(analysis, record, table, first):
         seg = int(table["segment_id"][first + j])
         i = row_of.get(seg)
         # Only a plane the identification settled on has one line to show.
-        if i is None or str(ident["identification"][i]) not in _SETTLED:
+        if i is None or str(ident["identification"][i]) not in TRUSTED_IDENTIFICATIONS:
             continue
         n = np.array([ident[f"predicted_normal_{c}"][i] for c in "xyz"], float)
         if np.all(np.isfinite(n)):

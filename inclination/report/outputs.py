@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..compare.comparison import TRUSTED_IDENTIFICATIONS
 from .atomic import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
@@ -210,7 +211,7 @@ def boundaries_table(analysis) -> dict:
     )
     # An ambiguous boundary has no predicted plane: its dip is only a range over the
     # candidates within tolerance, never a single value that reads as an answer.
-    unique = np.isin(out["identification"], ("coherent_twin", "identified"))
+    unique = np.isin(out["identification"], TRUSTED_IDENTIFICATIONS)
     low, high, supports = _candidate_dips(analysis, ids)
     out["predicted_dip_min_deg"] = np.where(unique, out["predicted_dip_deg"], low)
     out["predicted_dip_max_deg"] = np.where(unique, out["predicted_dip_deg"], high)
@@ -276,21 +277,6 @@ def _by_segment(table, ids, name, fill=np.nan):
     rows = np.array([index.get(int(s), -1) for s in ids], dtype=int)
     found = rows >= 0
     out[found] = np.asarray(table[name], float)[rows[found]]
-    return out
-
-
-def _settled_by_segment(table, ids):
-    """Whether each segment's identification settled on one plane (coherent twin, identified)."""
-    out = np.zeros(len(ids), dtype=bool)
-    if table is None or not len(table["segment_id"]):
-        return out
-    settled = np.isin(
-        np.asarray(table["identification"]).astype(str), ("coherent_twin", "identified")
-    )
-    index = {int(s): k for k, s in enumerate(np.asarray(table["segment_id"]).tolist())}
-    rows = np.array([index.get(int(s), -1) for s in ids], dtype=int)
-    found = rows >= 0
-    out[found] = settled[rows[found]]
     return out
 
 
@@ -361,7 +347,7 @@ def _figures(analysis, out_dir, boundaries):
     m_az = _by_segment(measured, ids, "dip_direction_azimuth_deg")
     p_dip = _by_segment(ident, ids, "predicted_dip_deg")
     p_az = _by_segment(ident, ids, "predicted_dip_azimuth_deg")
-    unique = np.isin(classes, ("coherent_twin", "identified"))
+    unique = np.isin(classes, TRUSTED_IDENTIFICATIONS)
     use_m = np.isfinite(m_dip) & np.isfinite(m_az)
     dips = {
         "dip_deg": np.where(use_m, m_dip, np.where(unique, p_dip, np.nan)),
@@ -437,7 +423,8 @@ def _figures(analysis, out_dir, boundaries):
         paz = _by_segment(ident, sid, "predicted_dip_azimuth_deg")
         # Only a settled plane has one predicted line; an ambiguous boundary's closest
         # candidate would read as an answer (as in the boundary table).
-        pdip = np.where(_settled_by_segment(ident, sid), pdip, np.nan)
+        settled = np.isin(_aligned(ident, sid)("identification", ""), TRUSTED_IDENTIFICATIONS)
+        pdip = np.where(settled, pdip, np.nan)
         pr = np.where(np.isfinite(pdip), signed(np.nan_to_num(pdip), np.nan_to_num(paz)), np.nan)
         art = plot_section_sketch(
             np.asarray(table["along_um"], float)[ok], m, pr, sid, length_um=length, name=name

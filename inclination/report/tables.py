@@ -25,6 +25,7 @@ from decimal import ROUND_HALF_UP, Decimal
 
 import numpy as np
 
+from ..compare.comparison import TRUSTED_IDENTIFICATIONS
 from ..errors import InputError
 from .atomic import json_ready, write_text_atomic
 from .columns import CLASS_DESCRIPTIONS, CLASS_SYMBOLS, PAPER_COLUMNS, SOURCE_SYMBOLS, header_text
@@ -387,7 +388,7 @@ class PaperTable:
 def _paper_selection(boundaries, max_rows: int) -> tuple[np.ndarray, str]:
     ident = np.asarray(boundaries["identification"], dtype=object)
     measured = np.isfinite(np.asarray(boundaries["measured_dip_deg"], float))
-    unique = np.isin(ident, ("coherent_twin", "identified"))
+    unique = np.isin(ident, TRUSTED_IDENTIFICATIONS)
     pick = np.flatnonzero(measured | unique)
     rule = "boundaries with a measured dip or a uniquely identified plane"
     if len(pick) > max_rows:
