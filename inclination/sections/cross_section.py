@@ -24,6 +24,7 @@ import shapely
 from numpy.typing import ArrayLike
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
 from scipy.special import ndtr
 
 from .._validation import as_float_array
@@ -649,8 +650,9 @@ def measure_cross_section(
             at = line[0] + along[:, None] * along_dir[None, :]
             near = np.zeros(k, dtype=bool)
             if len(junctions):
-                gap = np.hypot(*(at[:, None, :] - junctions[None, :, :]).transpose(2, 0, 1))
-                near = gap.min(axis=1) <= tolerance
+                # A k-d tree: a map of 10⁴ grains has tens of thousands of junctions.
+                bound = np.nextafter(tolerance, np.inf)  # the query's bound is strict
+                near = cKDTree(junctions).query(at, distance_upper_bound=bound)[0] <= tolerance
             status[matched & near] = "near_junction"
 
     # Reversed dip direction (§6): a steep plane whose true dip lies beyond 90°, or a
