@@ -7,10 +7,15 @@ Run by hand (not by CI):
 For each (size, grains) it builds a synthetic sample with ``inclination.synthetic``
 (0.5 µm step, 1 % non-indexed points, mis-indexed clusters, a serial section 5 µm down
 and two cross-sections across the map), writes the maps and a job, and runs the
-commands ``grains``, ``traces``, ``planes`` and ``analyse`` each in a fresh process.
-Each command runs every stage before it, so a stage's time is the difference between
-two consecutive commands (including the writing of that stage's outputs), and its peak
-is the child's maximum resident set size. In the same run it times the plain
+command ``analyse`` once in a fresh process. Each stage's time is measured directly in
+that one run: the child wraps the library functions of each stage in a timer that counts
+exclusive time (time inside a nested wrapped call belongs to the inner one only), so the
+stage times are disjoint parts of the run, never negative, and sum to its wall time.
+Stages: ``read`` (Job.read_surface_map), ``grains`` (segment_grains, on every map the job
+reads, the serial section's too), ``traces`` (boundary_network, fit_segments), ``planes``
+(match_planes, twin_test_summary), ``write`` (write_outputs) and ``sections and rest``
+(everything else: the sections, serial-map reading, start-up, glue). The peak is the
+child's maximum resident set size over the whole run. In the same run it times the plain
 numpy/scipy floor of the same work (read both maps, orientations, links, labels, grain
 statistics, boundary pairs, line fits, plane predictions, a CSV) and prints the ratio.
 With several sizes (grains scaled as size²) or several grain counts at one size, it
@@ -48,7 +53,17 @@ PHASE = {
     "lattice": {"a": 3.59, "b": 3.59, "c": 3.59, "alpha": 90, "beta": 90, "gamma": 90},
     "families": ["{1 1 1}"],
 }
-COMMANDS = ("grains", "traces", "planes", "analyse")
+STAGES = ("read", "grains", "traces", "planes", "write", "sections and rest")
+#: (module, attribute, stage) of the wrapped functions; a class attribute as "Class.name".
+TIMED = (
+    ("inclination.io.job", "Job.read_surface_map", "read"),
+    ("inclination.grains", "segment_grains", "grains"),
+    ("inclination.network", "boundary_network", "traces"),
+    ("inclination.traces", "fit_segments", "traces"),
+    ("inclination.planes", "match_planes", "planes"),
+    ("inclination.planes", "twin_test_summary", "planes"),
+    ("inclination.pipeline", "write_outputs", "write"),
+)
 
 
 def _map_entry(path):
@@ -122,22 +137,53 @@ def build_sample(folder: Path, size: int, n_grains: int, seed: int) -> Path:
     return path
 
 
-def run_command(command: str, job: Path, out: Path) -> tuple[float, float]:
-    """Wall time (s) and peak RSS (bytes) of one CLI command in a fresh process."""
-    code = (
-        "import resource, sys, time\n"
-        "t = time.perf_counter()\n"
-        "from inclination.cli import main\n"
-        f"rc = main([{command!r}, {str(job)!r}, '--out', {str(out)!r}, '--quiet'])\n"
-        "dt = time.perf_counter() - t\n"
-        "print(dt, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)\n"
-        "sys.exit(rc)\n"
-    )
+CHILD = """
+import functools, importlib, json, resource, sys, time
+t0 = time.perf_counter()
+spent, stack = {}, []
+
+def timed(fn, stage):
+    @functools.wraps(fn)
+    def inner(*args, **kwargs):
+        # Exclusive time: the outer wrapped call pauses while an inner one runs.
+        now = time.perf_counter()
+        if stack:
+            outer, since = stack[-1]
+            spent[outer] = spent.get(outer, 0.0) + now - since
+        stack.append([stage, now])
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            end = time.perf_counter()
+            spent[stage] = spent.get(stage, 0.0) + end - stack.pop()[1]
+            if stack:
+                stack[-1][1] = end
+    return inner
+
+for module, name, stage in TIMED:
+    owner = importlib.import_module(module)
+    *cls, attr = name.split(".")
+    if cls:
+        owner = getattr(owner, cls[0])
+    setattr(owner, attr, timed(getattr(owner, attr), stage))
+from inclination.cli import main
+rc = main(["analyse", JOB, "--out", OUT, "--quiet"])
+total = time.perf_counter() - t0
+spent["sections and rest"] = total - sum(spent.values())
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(json.dumps({"stages": spent, "total": total, "peak": peak}))
+sys.exit(rc)
+"""
+
+
+def run_analyse(job: Path, out: Path) -> tuple[dict, float, float]:
+    """Per-stage exclusive times (s), wall time (s) and peak RSS (bytes) of one run."""
+    code = f"TIMED = {TIMED!r}\nJOB = {str(job)!r}\nOUT = {str(out)!r}\n" + CHILD
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     if done.returncode != 0:
-        raise RuntimeError(f"{command} failed: {done.stderr.strip()[-500:]}")
-    dt, rss = done.stdout.split()[-2:]
-    return float(dt), float(rss)
+        raise RuntimeError(f"analyse failed: {done.stderr.strip()[-500:]}")
+    found = json.loads(done.stdout.strip().splitlines()[-1])
+    return found["stages"], found["total"], found["peak"]
 
 
 def floor_seconds(folder: Path) -> float:
@@ -210,30 +256,28 @@ def main(argv=None) -> int:
         with tempfile.TemporaryDirectory() as tmp:
             folder = Path(tmp)
             job = build_sample(folder, size, n_grains, args.seed)
-            previous = 0.0
-            stages = {}
-            for command in COMMANDS:
-                dt, rss = run_command(command, job, folder / f"out-{command}")
-                stages[command] = (dt - previous, rss)
-                previous = dt
-                print(
-                    f"| {size}² | {n_grains} | {command} | {stages[command][0]:.2f} | "
-                    f"{rss / 2**30:.2f} | {rss / size**2:.0f} |"
-                )
+            spent, total, rss = run_analyse(job, folder / "out")
+            stages = {name: spent.get(name, 0.0) for name in STAGES}
+            for name in STAGES:
+                print(f"| {size}² | {n_grains} | {name} | {stages[name]:.2f} | | |")
+            print(
+                f"| {size}² | {n_grains} | analyse (total) | {total:.2f} | "
+                f"{rss / 2**30:.2f} | {rss / size**2:.0f} |"
+            )
             floor = floor_seconds(folder)
             print(
                 f"| {size}² | {n_grains} | floor (numpy/scipy) | {floor:.2f} | | |\n"
-                f"| {size}² | {n_grains} | analyse / floor | {previous / floor:.1f}× | | |"
+                f"| {size}² | {n_grains} | analyse / floor | {total / floor:.1f}× | | |"
             )
-            results.append((size, n_grains, stages, previous, floor))
+            results.append((size, n_grains, stages, total, floor))
         print(f"resources: {resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss} KiB")
     if len(results) > 1:
         x = [r[0] ** 2 for r in results] if len(args.sizes) > 1 else [r[1] for r in results]
         what = "points" if len(args.sizes) > 1 else "grains"
         print(f"\nexponents against {what}:")
-        for command in COMMANDS:
-            y = [max(r[2][command][0], 1e-3) for r in results]
-            print(f"  {command}: {fit_exponent(x, y):.2f}")
+        for name in STAGES:
+            y = [max(r[2][name], 1e-3) for r in results]
+            print(f"  {name}: {fit_exponent(x, y):.2f}")
         print(f"  analyse total: {fit_exponent(x, [r[3] for r in results]):.2f}")
     return 0
 
