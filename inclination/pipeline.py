@@ -321,11 +321,31 @@ def _face_note(face, record, table, segments, first):
     }
 
 
-def _sections(job, omap, grain_map, segments, progress, network=None):
+def _depth_note(estimate) -> dict:
+    """The sections note of a depth estimated from the coherent twins (§8)."""
+    d = estimate.depth
+    return {
+        "n_twins": estimate.n_used,
+        "n_rejected": estimate.n_rejected,
+        "scatter_ratio": round(estimate.scatter_ratio, 3),
+        "note": (
+            f"No depth was given: h = {d.depth_um:.3g} ± {d.depth_sigma_um:.2g} µm was estimated "
+            f"from {estimate.n_used} identified coherent twins, fitted to their trace offsets "
+            f"Δ = h cot δ of their predicted dips δ (outliers set aside: "
+            f"{estimate.n_rejected}). "
+            "Those twins' measured dips agree with their predictions by construction and "
+            "are no evidence for their planes; all dip directions (senses) are unaffected."
+        ),
+        "segment_ids": [int(i) for i in estimate.segment_ids],
+    }
+
+
+def _sections(job, omap, grain_map, segments, progress, network=None, identification=None):
     """Measure every section of the job; returns (tables, notes)."""
     from .sections import (
         CrossSection,
         SerialLayer,
+        estimate_depth_from_twins,
         measure_cross_section,
         measure_serial_section,
         measure_stack,
@@ -422,7 +442,24 @@ def _sections(job, omap, grain_map, segments, progress, network=None):
                 path=job.source_path,
                 pointer=pointer,
             )
-            depth = layer.depth
+            depth, estimate, registration = layer.depth, None, None
+            if depth is None:
+                # No depth given: the coherent twins' known planes measure it (§8).
+                estimate = estimate_depth_from_twins(
+                    segments,
+                    grain_map,
+                    deeper_segments,
+                    deeper_grains,
+                    identification,
+                    step_um=step,
+                    laue_by_phase=laue_by_phase,
+                    fiducials_um=layer.fiducials_um,
+                    threshold_deg=job.grains["threshold_deg"],
+                    grid=omap.grid,
+                    path=job.source_path,
+                    pointer=pointer,
+                )
+                depth, registration = estimate.depth, estimate.registration
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
                 result = measure_serial_section(
@@ -434,6 +471,7 @@ def _sections(job, omap, grain_map, segments, progress, network=None):
                     depth_sigma_um=depth.depth_sigma_um,
                     step_um=step,
                     laue_by_phase=laue_by_phase,
+                    registration=registration,
                     fiducials_um=layer.fiducials_um,
                     threshold_deg=job.grains["threshold_deg"],
                     grid=omap.grid,
@@ -450,6 +488,7 @@ def _sections(job, omap, grain_map, segments, progress, network=None):
                     "depth_um": depth.depth_um,
                     "depth_sigma_um": depth.depth_sigma_um,
                     "depth_source": depth.source,
+                    **({} if estimate is None else {"depth_estimate": _depth_note(estimate)}),
                     "registration": {
                         "shift_x_um": reg.shift_x_um,
                         "shift_y_um": reg.shift_y_um,
@@ -567,7 +606,9 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
         return _with_features(replace(analysis, audit=_frame_audit(analysis)))
     from .compare import DEFAULT_BLUNDER_RATE, best_measurements, compare_map
 
-    tables, notes, faces = _sections(job, omap, grain_map, segments, progress, network)
+    tables, notes, faces = _sections(
+        job, omap, grain_map, segments, progress, network, identification
+    )
     comparison = compare_map(
         best_measurements(*tables),
         identification,

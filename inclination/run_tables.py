@@ -15,11 +15,45 @@ from collections.abc import Iterator, Mapping
 
 import numpy as np
 
-__all__ = ["RunTable", "run_tables"]
+__all__ = ["RunTable", "rows_by_id", "run_tables"]
 
 # Column kind (inclination.report.columns.Column.kind) -> pandas dtype. Nullable integer and
 # string dtypes keep the CSV's empty cells as missing values instead of made-up numbers.
 _PANDAS_DTYPES = {"int": "Int64", "float": "float64", "str": "string", "bool": "bool"}
+
+
+def rows_by_id(wanted_ids, table_ids) -> np.ndarray:
+    """Row of each wanted id in a table's id column, -1 where the table has none.
+
+    The run's tables share ids (``segment_id``, ``grain_id``) but not row order; this is
+    the one lookup between them (ids unique within a table).
+
+    Parameters
+    ----------
+    wanted_ids, table_ids : array_like of int
+        The ids looked up, and the table's id column.
+
+    Returns
+    -------
+    ndarray of int64, shape of ``wanted_ids``
+
+    Examples
+    --------
+    >>> rows_by_id([7, 3, 9], [3, 5, 7]).tolist()
+    [2, 0, -1]
+    >>> rows_by_id([1], []).tolist()
+    [-1]
+    """
+    wanted = np.asarray(wanted_ids, np.int64)
+    ids = np.asarray(table_ids, np.int64)
+    rows = np.full(wanted.shape, -1, np.int64)
+    if ids.size == 0 or wanted.size == 0:
+        return rows
+    order = np.argsort(ids, kind="stable")
+    pos = np.minimum(np.searchsorted(ids[order], wanted), ids.size - 1)
+    hit = ids[order][pos] == wanted
+    rows[hit] = order[pos[hit]]
+    return rows
 
 
 class RunTable(Mapping):

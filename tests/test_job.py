@@ -316,10 +316,13 @@ def test_duplicate_phase_ids(folder):
 def test_section_errors(folder):
     doc = copy.deepcopy(DESIGN_EXAMPLE)
     doc["sections"][1]["indent"] = {"diagonal_before_um": 30, "diagonal_after_um": 20}
-    expect(folder, doc, r"/sections/1: Expected exactly one of \('depth_um', 'indent'\), got both")
+    expect(folder, doc, r"/sections/1: Expected at most one of \('depth_um', 'indent'\), got both")
+    # Neither is allowed (the depth is then estimated from the coherent twins), but a σ
+    # with no depth to qualify is refused.
     doc = copy.deepcopy(DESIGN_EXAMPLE)
     del doc["sections"][1]["depth_um"]
-    expect(folder, doc, r"/sections/1: Expected exactly one of .* got neither")
+    doc["sections"][1]["depth_sigma_um"] = 0.2
+    expect(folder, doc, r"/sections/1/depth_sigma_um: Expected depth_um or indent beside")
     doc = copy.deepcopy(DESIGN_EXAMPLE)
     del doc["sections"][1]["depth_um"]
     doc["sections"][1]["indent"] = {"diagonal_before_um": 20, "diagonal_after_um": 25}

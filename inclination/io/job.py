@@ -457,6 +457,8 @@ def _schema_error(err, path) -> InputError:
         present = [n for n in names if isinstance(inst, Mapping) and n in inst]
         got = "both" if len(present) > 1 else "neither"
         message = f"Expected exactly one of {tuple(names)}, got {got}."
+    elif kind == "not" and set(value) == {"required"}:
+        message = f"Expected at most one of {tuple(value['required'])}, got both."
     elif kind == "dependentRequired":
         pairs = [(k, v) for k, v in value.items() if k in inst]
         first, needs = pairs[0]

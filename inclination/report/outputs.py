@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from ..compare.comparison import TRUSTED_IDENTIFICATIONS
+from ..run_tables import rows_by_id
 from .atomic import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
@@ -106,10 +107,7 @@ def _aligned(table, segment_ids):
 
     ``column(name, fill)`` returns the column with ``fill`` where a segment is absent.
     """
-    rows = np.full(len(segment_ids), -1, dtype=int)
-    if table is not None and len(table["segment_id"]):
-        index = {int(s): i for i, s in enumerate(table["segment_id"])}
-        rows = np.array([index.get(int(s), -1) for s in segment_ids], dtype=int)
+    rows = rows_by_id(segment_ids, [] if table is None else table["segment_id"])
     found = rows >= 0
 
     def column(name, fill):

@@ -241,3 +241,25 @@ def test_quiet_keeps_the_summary_and_silent_prints_nothing(demo_run, tmp_path, c
     assert captured.out == "" and captured.err == ""
     assert run_cli(["report", str(tmp_path / "missing"), "--silent"]) == 2
     assert "output folder of an earlier run" in capsys.readouterr().err
+
+
+def test_serial_depth_estimated_from_twins_when_the_job_gives_none(scenario, tmp_path):
+    # The demo's serial section is 5 µm below the surface (its oracle, the synthetic
+    # scenario); without depth_um the run measures h from the identified coherent twins
+    # and says so in the section's notes (conventions §8).
+    def drop_depth(doc):
+        for section in doc["sections"]:
+            if section["kind"] == "serial":
+                section.pop("depth_um")
+                section.pop("depth_sigma_um", None)
+
+    job = _bad_job(scenario, tmp_path, drop_depth)
+    assert main(["analyse", str(job), "--out", str(tmp_path / "out"), "--quiet"]) == 0
+    notes = json.loads((tmp_path / "out" / "sections.json").read_text())
+    serial = [s["note"] for s in notes["sections"] if s["note"].get("kind") == "serial"]
+    assert len(serial) == 1 and serial[0]["depth_source"] == "coherent twins"
+    estimate = serial[0]["depth_estimate"]
+    assert estimate["n_twins"] >= 5 and "no evidence for their planes" in estimate["note"]
+    assert abs(serial[0]["depth_um"] - 5.0) <= 3.0 * serial[0]["depth_sigma_um"]
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["frame_verdict"]["verdict"] == "as_declared"
