@@ -17,6 +17,7 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import logging
 import os
 import threading
 import uuid
@@ -331,6 +332,18 @@ def _connect(distributed, scheduler, workers, notify):
     return client, None
 
 
+class _QuietLogs:
+    """A logger held at ERROR until ``restore()``."""
+
+    def __init__(self, name: str):
+        self._logger = logging.getLogger(name)
+        self._level = self._logger.level
+        self._logger.setLevel(logging.ERROR)
+
+    def restore(self) -> None:
+        self._logger.setLevel(self._level)
+
+
 def _lost(name: str, job_path: str, out: Path, exc: BaseException) -> dict:
     rec = _job_record(name, job_path, out)
     kind = type(exc).__name__
@@ -390,8 +403,9 @@ def run_batch(
     Raises
     ------
     InputError
-        dask.distributed is not installed, two jobs share a name, a job file is
-        missing, or the scheduler cannot be reached.
+        dask.distributed is not installed, two jobs share a name, the batch folder
+        cannot be written, or the scheduler cannot be reached. A bad job file is not
+        raised: its record says why it failed.
     """
     try:
         import distributed
@@ -409,10 +423,9 @@ def run_batch(
         raise InputError(f"Expected --workers to be a whole number >= 1, got {workers!r}.")
     if not job_paths:
         raise InputError("Expected at least one job file, got none.")
+    # A missing or unreadable job file fails as its task (recorded, exit status 2), as
+    # any other bad input does, without stopping the others.
     paths = [str(Path(p).resolve()) for p in job_paths]
-    for p in paths:
-        if not Path(p).is_file():
-            raise InputError("Expected a job file, got no file at this path.", path=p)
     names = job_names(paths)
     out = Path(os.path.abspath(out_dir))
     if out.exists() and not out.is_dir():
@@ -438,6 +451,10 @@ def run_batch(
     cluster = None
     if todo:
         own = client is None
+        # The local cluster's nannies log in this process; their notes on shutting down
+        # slow worker processes ("still alive after 4.0 seconds, killing") are not the
+        # user's concern. Errors still show.
+        quiet = _QuietLogs("distributed") if own and scheduler is None else None
         if own:
             client, cluster = _connect(distributed, scheduler, workers, notify)
         # A key of its own per batch: a client that ran this job before may still hold it.
@@ -467,6 +484,8 @@ def run_batch(
                 client.close()
                 if cluster is not None:
                     cluster.close()
+            if quiet is not None:
+                quiet.restore()
     if bar is not None:
         bar.close()
     ordered = tuple(records[n] for n in names)

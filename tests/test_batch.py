@@ -209,10 +209,13 @@ def test_a_bad_job_fails_alone_with_status_2(jobs, tmp_path, client):
     spec["map"]["path"] = "missing.npz"
     bad.write_text(json.dumps(spec))
     out = tmp_path / "batch"
-    result = run_batch([jobs[0], bad, jobs[1]], out, client=client)
+    result = run_batch([jobs[0], bad, tmp_path / "absent.json", jobs[1]], out, client=client)
     assert result.exit_status == 2
     doc = _validate(out / "batch.json")
     by_name = {j["name"]: j for j in doc["jobs"]}
+    absent = by_name["absent"]
+    assert (absent["status"], absent["exit_status"], absent["inputs"]) == ("failed", 2, [])
+    assert "absent.json" in absent["error"]
     failed = by_name["sample50"]
     assert (failed["status"], failed["exit_status"]) == ("failed", 2)
     assert "\n" not in failed["error"]
@@ -292,7 +295,23 @@ def test_a_rerun_skips_unchanged_jobs_and_reruns_changed_ones(jobs, tmp_path, cl
     out = tmp_path / "batch"
     assert {r["status"] for r in run_batch(paths, out, client=client).jobs} == {"ran"}
     before = (out / "sample0" / "summary.json").stat().st_mtime_ns
-    assert {r["status"] for r in run_batch(paths, out, client=client).jobs} == {"skipped"}
+    bars = []
+
+    class Bar:  # the command line's tqdm bar, as far as the batch uses it
+        def __init__(self, total, desc):
+            self.total, self.desc, self.n, self.closed = total, desc, 0, False
+            bars.append(self)
+
+        def update(self, n):
+            self.n += n
+
+        def close(self):
+            self.closed = True
+
+    second = run_batch(paths, out, client=client, progress=Bar)
+    assert {r["status"] for r in second.jobs} == {"skipped"}
+    # One bar for the batch as a whole, the skipped jobs counted at once.
+    assert [(b.total, b.desc, b.n, b.closed) for b in bars] == [(3, "batch", 3, True)]
     assert (out / "sample0" / "summary.json").stat().st_mtime_ns == before
 
     # A changed map (input hash) and a changed setting (job file and settings hash).
@@ -336,3 +355,11 @@ def test_committed_schema_is_the_rendering():
 
     committed = (ROOT / "schemas" / "batch.schema.json").read_text(encoding="utf-8")
     assert committed == render_schema(), "schemas/batch.schema.json is stale"
+
+
+def test_workers_must_be_a_positive_whole_number(jobs, tmp_path, capsys):
+    pytest.importorskip("distributed", reason=NEEDS_DASK)
+    status = main(["batch", str(jobs[0]), "--out", str(tmp_path / "b"), "--workers", "0"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == 2
+    assert err == ["inclination: error: Expected --workers to be a whole number >= 1, got 0."]
