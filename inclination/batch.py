@@ -141,6 +141,24 @@ def input_hashes(job) -> list[dict]:
     ------
     InputError
         A file cannot be read.
+
+    Examples
+    --------
+    >>> import json, tempfile
+    >>> from inclination.io.job import load_job
+    >>> from inclination.io.writers import write_npz
+    >>> from inclination.maps import OrientationMap
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> _ = (folder / "job.json").write_text(json.dumps(spec))
+    >>> [Path(h["path"]).name for h in input_hashes(load_job(folder / "job.json"))]
+    ['job.json', 'm.npz']
     """
     from .pipeline import input_files
 
@@ -223,6 +241,29 @@ def run_job(job_path: str, name: str, out_dir: str) -> dict:
     -------
     dict
         The job's record (see schemas/batch.schema.json, ``jobs`` items).
+
+    Examples
+    --------
+    >>> import json, tempfile
+    >>> from inclination.io.job import load_job
+    >>> from inclination.io.writers import write_npz
+    >>> from inclination.maps import OrientationMap
+    >>> folder = Path(tempfile.mkdtemp())
+    >>> euler = np.zeros((20, 20, 3)); euler[:, 10:, 0] = 40.0  # two grains, 40° about Z
+    >>> _ = write_npz(folder / "m.npz", OrientationMap.from_euler_deg(
+    ...     euler, np.ones((20, 20), int), grid="square", step_x_um=1.0))
+    >>> spec = {"phases": [{"id": 1, "name": "Cu", "laue": "m-3m", "lattice": {
+    ...     "a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90}}],
+    ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
+    ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
+    >>> _ = (folder / "job.json").write_text(json.dumps(spec))
+    >>> rec = run_job(str(folder / "job.json"), "job", str(folder / "batch"))
+    >>> rec["status"], rec["exit_status"], rec["counts"]["grains"]
+    ('ran', 0, 2)
+    >>> sorted(p.name for p in (folder / "batch" / ".batch").iterdir())
+    ['job.json', 'job.npz']
+    >>> run_job(str(folder / "none.json"), "none", str(folder / "batch"))["exit_status"]
+    2
     """
     from .io.job import load_job
     from .pipeline import analyse
@@ -399,6 +440,11 @@ def run_batch(
     Returns
     -------
     BatchResult
+
+    Notes
+    -----
+    No doctest: it needs the optional extra ``cluster``, which the oldest-versions CI
+    step leaves out; tests/test_batch.py runs it on a local cluster.
 
     Raises
     ------

@@ -584,6 +584,19 @@ def write_batch_outputs(out_dir, records, *, exit_status: int) -> list[str]:
     -------
     list of str
         Lines for the command line.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> out = Path(tempfile.mkdtemp())
+    >>> rec = {"name": "a", "job_file": "/x/a.json", "output_folder": str(out / "a"),
+    ...        "status": "failed", "exit_status": 2, "error": "inclination: error: bad",
+    ...        "inputs": [], "settings_sha256": None, "inclination": "0", "frame_verdict": None,
+    ...        "audit": None, "counts": None, "identified": None, "twin_test": None}
+    >>> write_batch_outputs(out, [rec], exit_status=2)[0]
+    'a: inclination: error: bad'
+    >>> json.loads((out / "batch.json").read_text())["status_counts"]
+    {'ran': 0, 'skipped': 0, 'failed': 1, 'lost': 0}
     """
     from jsonschema import Draft202012Validator
 
