@@ -363,3 +363,26 @@ def test_workers_must_be_a_positive_whole_number(jobs, tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert status == 2
     assert err == ["inclination: error: Expected --workers to be a whole number >= 1, got 0."]
+
+
+def test_the_hashed_inputs_include_section_maps_and_face_images(tmp_path):
+    from types import SimpleNamespace
+
+    from inclination.batch import input_hashes
+
+    files = {}
+    for name in ("job.json", "m.npz", "m.json", "serial.npz", "face.png"):
+        files[name] = tmp_path / name
+        files[name].write_bytes(name.encode())
+    job = SimpleNamespace(
+        source_path=str(files["job.json"]),
+        map={"path": str(files["m.npz"]), "sidecar": str(files["m.json"])},
+        sections=(
+            {"kind": "serial", "map": {"path": str(files["serial.npz"])}},
+            {"kind": "cross-section", "image": {"path": str(files["face.png"])}},
+            {"kind": "cross-section", "boundaries": []},
+        ),
+    )
+    got = input_hashes(job)
+    assert [Path(h["path"]).name for h in got] == list(files)
+    assert [h["sha256"] for h in got] == [_sha256(p) for p in files.values()]
