@@ -386,3 +386,13 @@ def test_the_hashed_inputs_include_section_maps_and_face_images(tmp_path):
     got = input_hashes(job)
     assert [Path(h["path"]).name for h in got] == list(files)
     assert [h["sha256"] for h in got] == [_sha256(p) for p in files.values()]
+
+
+def test_a_running_scheduler_by_its_address(tmp_path, client):
+    from inclination.batch import run_batch
+
+    # The path of `--scheduler ADDRESS --workers N`: connect, wait for N workers, submit.
+    address = client.scheduler.address
+    result = run_batch([tmp_path / "absent.json"], tmp_path / "b", scheduler=address, workers=2)
+    assert [(r["status"], r["exit_status"]) for r in result.jobs] == [("failed", 2)]
+    assert client.scheduler_info()["workers"], "the batch must not close the cluster it found"
