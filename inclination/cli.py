@@ -118,6 +118,28 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     stereology.add_argument("job", help="job file (JSON)")
     _add_common(stereology, default_out="inclination-stereology")
+    batch = sub.add_parser(
+        "batch",
+        help="many jobs at once on a dask cluster (local unless --scheduler), one folder each",
+        description="Run each job as one task into OUT/<job name>/ (the files of analyse), "
+        "skip jobs finished before with unchanged inputs and settings, and write batch.json, "
+        "boundaries_all.csv, summary.md and the pooled stereology/. Needs the extra "
+        "inclination[cluster]. See docs/batch.md.",
+    )
+    batch.add_argument("jobs", nargs="+", metavar="JOB", help="job files (JSON)")
+    batch.add_argument("--out", required=True, help="the batch folder")
+    batch.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="a running dask scheduler (tcp://host:8786); default: a local cluster",
+    )
+    batch.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help="worker processes of the local cluster; with --scheduler, workers to wait for",
+    )
+    _add_output_level(batch)
     return parser
 
 
@@ -144,6 +166,8 @@ def _dispatch(args) -> int:
         return _init(args)
     silent = getattr(args, "silent", False)
     progress = _progress(getattr(args, "quiet", False) or silent)
+    if args.command == "batch":
+        return _batch(args, progress, silent)
     if args.command == "demo":
         result = pipeline.demo(
             args.out, seed=args.seed, overwrite=args.overwrite, progress=progress
@@ -174,6 +198,27 @@ def _dispatch(args) -> int:
     for line in result.warnings:
         print(line, file=sys.stderr)
     return 0
+
+
+def _batch(args, progress, silent: bool) -> int:
+    from .batch import run_batch
+
+    say = (lambda _line: None) if silent else (lambda line: print(line, flush=True))
+    result = run_batch(
+        args.jobs,
+        args.out,
+        scheduler=args.scheduler,
+        workers=args.workers,
+        progress=progress,
+        notify=say,
+    )
+    for line in result.messages:
+        # A failed job's line is an error, as analyse's would be: stderr, even with --silent.
+        if ": inclination:" in line:
+            print(line, file=sys.stderr)
+        elif not silent:
+            print(line)
+    return result.exit_status
 
 
 def _init(args) -> int:

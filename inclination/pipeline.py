@@ -137,6 +137,9 @@ class RunResult:
     warnings : tuple of str
         Lines for stderr (the frame audit's finding and patch, when the declared frame
         is not the best beyond doubt).
+    analysis : Analysis or None
+        The run itself, for :func:`analyse` (``inclination.batch`` pools its traces);
+        None for the other commands.
     """
 
     out_dir: Path
@@ -144,6 +147,7 @@ class RunResult:
     messages: tuple[str, ...] = field(default=())
     summary: dict | None = None
     warnings: tuple[str, ...] = field(default=())
+    analysis: Analysis | None = field(default=None, repr=False, compare=False)
 
 
 def _stage_index(stage: str) -> int:
@@ -780,7 +784,7 @@ def analyse(
     out = Path(out_dir)
     notes: list = []
     with staged_output_dir(
-        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+        out, overwrite=overwrite, inputs=input_files(job), notes=notes
     ) as stage_dir:
         analysis = run(job, stage=stage, progress=progress)
         files, summary = write_outputs(
@@ -794,16 +798,24 @@ def analyse(
         tuple(notes + _messages(summary, out)),
         summary,
         warnings=_audit_warnings(analysis),
+        analysis=analysis,
     )
 
 
-def _input_files(job) -> list:
-    """Every file the job reads: the output folder must not be or hold their folders."""
+def input_files(job) -> list:
+    """Every file the job reads, the job file first.
+
+    The output folder must not be or hold their folders (report.atomic), and
+    ``inclination batch`` hashes them to tell a changed job from a finished one.
+    """
     files = [job.source_path, job.map.get("path"), job.map.get("sidecar")]
     for section in job.sections:
         spec = section.get("map")
         if isinstance(spec, dict):
             files += [spec.get("path"), spec.get("sidecar")]
+        image = section.get("image")
+        if isinstance(image, dict):
+            files.append(image.get("path"))
     return [f for f in files if f]
 
 
@@ -826,7 +838,7 @@ def audit(
     out = Path(out_dir)
     notes: list = []
     with staged_output_dir(
-        out, overwrite=overwrite, inputs=_input_files(job), notes=notes
+        out, overwrite=overwrite, inputs=input_files(job), notes=notes
     ) as stage_dir:
         analysis = run(job, stage="sections", progress=progress)
         write_json_atomic(stage_dir / "audit.json", analysis.audit.as_dict())
@@ -1153,7 +1165,7 @@ def stereology(job_path, out_dir, *, overwrite: bool = False, progress=None) -> 
     out = Path(out_dir)
     lines: list = []
     with staged_output_dir(
-        out, overwrite=overwrite, inputs=_input_files(job), notes=lines
+        out, overwrite=overwrite, inputs=input_files(job), notes=lines
     ) as stage_dir:
         analysis = run(job, stage="traces", progress=progress)
         files = _stereology_outputs(analysis, stage_dir, standalone=True)
