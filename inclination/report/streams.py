@@ -56,38 +56,110 @@ _FIXED_LIMIT = 1e15
 # 10^-d apart never round to the same float, so the fixed-point text is Python's repr.
 _EXACT_LIMIT = float(2**50)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
+
+
 # Entry i: the four ASCII digits of i, zero-padded, as one uint32 (memory order kept).
-_GROUPS4 = np.frombuffer(b"".join(b"%04d" % i for i in range(10_000)), np.uint32)
-_QUOTE, _BACKSLASH, _COMMA = ord('"'), ord("\\"), ord(",")
+def _words(texts) -> np.ndarray:
+    """Byte strings of at most 4 bytes as uint32 words, NUL-padded on the left."""
+    return np.frombuffer(b"".join(t.rjust(4, b"\0") for t in texts), np.uint32)
+
+
+def _words_left(texts) -> np.ndarray:
+    """Byte strings of at most 4 bytes as uint32 words, NUL-padded on the right."""
+    return np.frombuffer(b"".join(t.ljust(4, b"\0") for t in texts), np.uint32)
+
+
+# Integer digits three to a word, so that the leading group has room for the sign; entry
+# q + 1000 * state, state 0: a group after the leading one ("\0ddd"), 1: the leading
+# group ("\0\0dd"), 2: the leading group of a negative number ("\0-dd"), 3: a group
+# above the number (NUL).
+_INT_WORDS = np.concatenate(
+    [
+        _words(b"%03d" % q for q in range(1000)),
+        _words(b"%d" % q for q in range(1000)),
+        _words(b"-%d" % q for q in range(1000)),
+        np.zeros(1000, np.uint32),
+    ]
+)
+# Decimals: the point and up to three digits in the first word, then four to a word.
+# _POINT_WORDS[k, trim] / _DIGIT_WORDS[k]: entry q is the word of k digits of value q, entry
+# 10^k + q the same word when every later digit is zero, its trailing zeros dropped: to
+# nothing (``all``; the point too when q is 0) or to one kept decimal (``keep_one``).
+
+
+def _point_word(q: int, k: int, trim: str) -> bytes:
+    text = b".%0*d" % (k, q)
+    if trim == "none":
+        return text
+    text = text.rstrip(b"0")
+    return text if text != b"." else b"" if trim == "all" else b".0"
+
+
+_POINT_WORDS = {
+    (k, trim): np.concatenate(
+        [
+            _words_left(_point_word(q, k, "none") for q in range(10**k)),
+            _words_left(_point_word(q, k, trim) for q in range(10**k)),
+        ]
+    )
+    for k in (1, 2, 3)
+    for trim in ("none", "all", "keep_one")
+}
+_DIGIT_WORDS = {
+    k: np.concatenate(
+        [
+            _words_left(b"%0*d" % (k, q) for q in range(10**k)),
+            _words_left((b"%0*d" % (k, q)).rstrip(b"0") for q in range(10**k)),
+        ]
+    )
+    for k in (1, 2, 3, 4)
+}
+_QUOTE = ord('"')
+
+
+def _padded(width: int) -> int:
+    return -(-width // 4) * 4
 
 
 class _Cells:
-    """A block of one column: ``mat[i, start[i]:end[i]]`` is the text of row ``i``."""
+    """A block of one column: row ``i`` of ``mat`` with its NUL bytes left out is its text.
 
-    __slots__ = ("mat", "start", "end")
+    ``mat`` is (n, 4k) uint8, C-contiguous, so that it is also k uint32 words a row.
+    ``nul_texts`` holds the few cells whose text itself holds a NUL character (only a
+    CSV string can), by row.
+    """
 
-    def __init__(self, mat: np.ndarray, start: np.ndarray, end: np.ndarray):
-        self.mat, self.start, self.end = mat, start, end
+    __slots__ = ("mat", "nul_texts")
+
+    def __init__(self, mat: np.ndarray):
+        self.mat = mat
+        self.nul_texts: dict[int, bytes] = {}
+
+    def _widen(self, width: int) -> None:
+        width = _padded(width)
+        if width > self.mat.shape[1]:
+            wider = np.zeros((self.mat.shape[0], width), np.uint8)
+            wider[:, : self.mat.shape[1]] = self.mat
+            self.mat = wider
 
     def put(self, rows: np.ndarray, texts: Sequence[str]) -> None:
-        """Replace the cells of ``rows`` by ``texts`` (the fallbacks and absent values)."""
+        """Replace the cells of ``rows`` by ``texts`` (the fallbacks)."""
         if len(rows) == 0:
             return
         block = _from_strings(texts)
-        lengths = np.array([len(t.encode("utf-8")) for t in texts], np.intp)
-        if block.shape[1] > self.mat.shape[1]:
-            wider = np.zeros((self.mat.shape[0], block.shape[1]), np.uint8)
-            wider[:, : self.mat.shape[1]] = self.mat
-            self.mat = wider
+        self._widen(block.shape[1])
+        self.mat[rows] = 0
         self.mat[rows, : block.shape[1]] = block
-        self.start[rows] = 0
-        self.end[rows] = lengths
+        for i, t in zip(rows.tolist(), texts, strict=True):
+            if "\0" in t:
+                self.nul_texts[i] = t.encode("utf-8")
 
     def put_same(self, rows: np.ndarray, text: str) -> None:
-        """Replace the cells of ``rows`` (a boolean mask or indices) by one text."""
-        rows = np.flatnonzero(rows) if rows.dtype == bool else rows
-        if len(rows):
-            self.put(rows, [text] * len(rows))
+        """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
+        raw = text.encode("utf-8")
+        self._widen(len(raw))
+        words = self.mat.view(np.uint32)
+        words[rows] = np.frombuffer(raw.ljust(self.mat.shape[1], b"\0"), np.uint32)
 
 
 def _from_strings(cells: Sequence[str], inverse: np.ndarray | None = None) -> np.ndarray:
@@ -99,22 +171,6 @@ def _from_strings(cells: Sequence[str], inverse: np.ndarray | None = None) -> np
     return mat if inverse is None else mat[inverse]
 
 
-def _digits(v: np.ndarray) -> np.ndarray:
-    """Number of decimal digits of non-negative int64 values (1 for 0)."""
-    return np.maximum(np.searchsorted(_POW10, v, side="right"), 1)
-
-
-def _zero_padded(v: np.ndarray, width: int) -> np.ndarray:
-    """Non-negative int64 values below 10**width as (n, width) zero-padded ASCII digits."""
-    groups = -(-width // 4)
-    out = np.empty((len(v), groups), np.uint32)
-    rest = v.copy()
-    for g in range(groups - 1, -1, -1):
-        out[:, g] = _GROUPS4[rest % 10_000]
-        rest //= 10_000
-    return out.view(np.uint8)[:, 4 * groups - width :]
-
-
 def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) -> _Cells:
     """``scaled`` = |value|·10^decimals (int64 ≥ 0) as fixed-point text, ``-`` where ``neg``.
 
@@ -122,32 +178,39 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     point; ``keep_one`` drops trailing zeros but keeps one decimal (``3.0``).
     """
     n = len(scaled)
-    nd = _digits(scaled)
-    width = max(int(nd.max(initial=1)), decimals + 1)
-    digits = _zero_padded(scaled, width)
-    # Column 0 is room for the sign; the point goes after the integer digits.
-    point = 1 + width - decimals
-    mat = np.empty((n, width + 1 + (1 if decimals else 0)), np.uint8)
-    mat[:, 1:point] = digits[:, : width - decimals]
-    if decimals:
-        mat[:, point] = ord(".")
-        mat[:, point + 1 :] = digits[:, width - decimals :]
-    start = 1 + width - np.maximum(nd, decimals + 1)
-    signed = np.flatnonzero(neg)
-    start[signed] -= 1
-    mat[signed, start[signed]] = ord("-")
-    if decimals == 0 or trim == "none":
-        return _Cells(mat, start, np.full(n, mat.shape[1], np.intp))
-    frac = mat[:, point + 1 :]
-    trailing = np.zeros(n, np.intp)
-    running = np.ones(n, bool)
-    for k in range(decimals - 1, -1, -1):
-        running &= frac[:, k] == ord("0")
-        trailing += running
-    end = mat.shape[1] - trailing
-    whole = trailing == decimals
-    end[whole] = point + (2 if trim == "keep_one" else 0)
-    return _Cells(mat, start, end)
+    unit = _POW10[decimals]
+    whole = scaled // unit
+    frac = scaled - whole * unit
+    groups = max(1, -(-len(str(int(whole.max(initial=0)))) // 3))
+    # The decimals split into words: the first three with the point, then four at a time.
+    cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
+    spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
+    words = np.empty((n, groups + len(spans)), np.uint32)
+    sign = neg.astype(np.int64)
+    rest = whole
+    for g in range(groups - 1, -1, -1):
+        above = rest // 1000
+        q = rest - above * 1000
+        top = above == 0
+        # Leading group: state 1 + sign; a group above the number (never the units): 3.
+        state = top * (1 + sign)
+        if g < groups - 1:
+            state += (top & (q == 0)) * (2 - sign)
+        words[:, g] = _INT_WORDS[q + 1000 * state]
+        rest = above
+    # Trailing zeros are dropped word by word from the last, while every later one is zero.
+    zeros_after = np.ones(n, np.int64) if trim != "none" else np.zeros(n, np.int64)
+    rest = frac
+    for j in range(len(spans) - 1, -1, -1):
+        size = spans[j][1] - spans[j][0]
+        above = rest // _POW10[size]
+        q = rest - above * _POW10[size]
+        table = _POINT_WORDS[size, trim] if j == 0 else _DIGIT_WORDS[size]
+        words[:, groups + j] = table[q + _POW10[size] * zeros_after]
+        if trim != "none":
+            zeros_after &= q == 0
+        rest = above
+    return _Cells(words.view(np.uint8))
 
 
 def _csv_text(text: str) -> str:
@@ -187,35 +250,50 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
     }[style]
     width = arr.dtype.itemsize // 4
     if width == 0:
-        cells = _Cells(np.zeros((n, 1), np.uint8), np.zeros(n, np.intp), np.zeros(n, np.intp))
+        cells = _Cells(np.zeros((n, 4), np.uint8))
         cells.put_same(np.ones(n, bool), null)
         return cells
     codes = np.ascontiguousarray(arr).view(np.uint32).reshape(n, width)
-    length = np.char.str_len(arr).astype(np.intp)
-    inside = np.arange(width) < length[:, None]
-    special = (codes == _QUOTE) | ((codes == _BACKSLASH) if json_like else (codes == _COMMA))
-    bad = ((codes < 0x20) | (codes > 0x7E) | special) & inside
-    plain = ~bad.any(axis=1)
-    offset = 1 if json_like else 0
-    mat = np.empty((n, width + 2 * offset), np.uint8)
-    mat[:, offset : offset + width] = codes
+    # Room for the quotes, and rows of whole 8-byte words, so that a row's flags OR in a
+    # few 1-D passes (a reduction along a short axis is slow in numpy).
+    mat = np.zeros((n, -(-(width + 2) // 8) * 8), np.uint8)
+    mat[:, 1 : 1 + width] = codes
+    needs_quote = (mat == ord('"')) | ((mat - 1) < 0x1F)  # a quote or a control character
     if json_like:
-        mat[:, 0] = _QUOTE
-        mat[np.arange(n), length + 1] = _QUOTE
-    cells = _Cells(mat, np.zeros(n, np.intp), length + 2 * offset)
-    cells.put_same(plain & (length == 0), null)
-    other = np.flatnonzero(~plain)
-    if len(other):
-        uniq, inverse = np.unique(arr[other], return_inverse=True)
+        needs_quote |= mat == ord("\\")
+    flags = needs_quote.view(np.uint8) << 1
+    if not json_like:
+        flags |= (mat == ord(",")).view(np.uint8)
+    seen = np.zeros(n, np.uint64)
+    if flags.any():
+        for column in flags.view(np.uint64).T:
+            seen |= column
+    comma = (seen & np.uint64(0x0101010101010101)) != 0
+    other = (seen & np.uint64(0x0202020202020202)) != 0
+    if codes.max(initial=0) >= 0x7F:
+        other |= (codes >= 0x7F).any(axis=1)  # past printable ASCII: to the reference
+    length = np.char.str_len(arr)
+    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the reference.
+    if np.count_nonzero(codes) != length.sum():
+        other |= np.count_nonzero(codes, axis=1) != length
+    # Quotes around every JSON string, and around CSV text whose only special is a comma
+    # (what csv.writer does to a field holding the delimiter and no quote or line break).
+    mat[:, 0] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
+    mat[:, -1] = mat[:, 0]
+    cells = _Cells(mat)
+    cells.put_same(~other & (length == 0), null)
+    rows = np.flatnonzero(other)
+    if len(rows):
+        uniq, inverse = np.unique(arr[rows], return_inverse=True)
         texts = [quote(u) for u in uniq.tolist()]
-        cells.put(other, [texts[i] for i in inverse.reshape(-1).tolist()])
+        cells.put(rows, [texts[i] for i in inverse.reshape(-1).tolist()])
     return cells
 
 
 def _bool_cells(values: np.ndarray) -> _Cells:
     flags = np.asarray(values).astype(bool)
-    mat = np.frombuffer(b"falsetrue\0", np.uint8).reshape(2, 5)[flags.astype(np.intp)]
-    return _Cells(mat, np.zeros(len(flags), np.intp), np.where(flags, 4, 5))
+    words = np.frombuffer(b"false\0\0\0true\0\0\0\0", np.uint8).reshape(2, 8)
+    return _Cells(words[flags.astype(np.intp)])
 
 
 def _compact_number_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
@@ -334,21 +412,40 @@ def _layout(columns: Sequence, style: str) -> list[str]:
     return [""] + [","] * (len(columns) - 1) + ["\n"]
 
 
+def _literal_words(text: str) -> np.ndarray:
+    raw = text.encode("utf-8")
+    return np.frombuffer(raw.ljust(_padded(len(raw)), b"\0"), np.uint32)
+
+
 def _join(pieces: list, n: int) -> bytes:
-    """Lay literals and cell spans side by side and keep the spans: the rows' bytes."""
-    mats, masks = [], []
-    for p in pieces:
-        if isinstance(p, str):
-            if p:
-                raw = np.frombuffer(p.encode("utf-8"), np.uint8)
-                mats.append(np.broadcast_to(raw, (n, raw.size)))
-                masks.append(np.ones((1, raw.size), bool).repeat(n, axis=0))
+    """Lay literals and cells side by side as words and drop the NUL padding: the rows."""
+    parts = [_literal_words(p) if isinstance(p, str) else p.mat.view(np.uint32) for p in pieces]
+    widths = [p.shape[-1] for p in parts]
+    matrix = np.empty((n, sum(widths)), np.uint32)
+    at = 0
+    # One word column at a time: a 1-D strided copy is several times faster than a 2-D
+    # one a few words wide.
+    for part in parts:
+        for j in range(part.shape[-1]):
+            matrix[:, at] = part[..., j]
+            at += 1
+    overrides = [p.nul_texts for p in pieces if not isinstance(p, str) and p.nul_texts]
+    if not overrides:
+        return matrix.tobytes().translate(None, b"\0")
+    # A text with a NUL of its own (a CSV cell only): the rows that hold one, cell by cell.
+    rows = []
+    for i, line in enumerate(matrix.view(np.uint8)):
+        if not any(i in o for o in overrides):
+            rows.append(line.tobytes().translate(None, b"\0"))
             continue
-        cols = np.arange(p.mat.shape[1])
-        mats.append(p.mat)
-        masks.append((cols >= p.start[:, None]) & (cols < p.end[:, None]))
-    matrix = np.concatenate(mats, axis=1)
-    return matrix[np.concatenate(masks, axis=1)].tobytes()
+        at, cells = 0, []
+        for p, w in zip(pieces, widths, strict=True):
+            cell = line[4 * at : 4 * (at + w)].tobytes()
+            at += w
+            own = None if isinstance(p, str) else p.nul_texts.get(i)
+            cells.append(own if own is not None else cell.translate(None, b"\0"))
+        rows.append(b"".join(cells))
+    return b"".join(rows)
 
 
 def encode_rows(
@@ -417,6 +514,6 @@ def encode_rows(
             cells = _column_cells(arr[start:stop], c.kind, c.decimals, style)
             if style == "fixed_csv" and len(columns) == 1:
                 # csv.writer writes a row of one empty field as "" (else it would be a blank line).
-                cells.put_same(cells.end == cells.start, '""')
+                cells.put_same(~cells.mat.any(axis=1), '""')
             pieces += [cells, after]
         yield _join(pieces, stop - start)
