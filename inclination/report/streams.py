@@ -48,7 +48,7 @@ __all__ = ["STYLES", "encode_rows"]
 #: Closed set of encodings.
 STYLES = ("csv", "jsonl", "fixed_csv", "json_rows")
 
-_BLOCK_ROWS = 65_536
+_BLOCK_ROWS = 16_384
 # Past this magnitude, |x|·10^d no longer fits an int64 exactly (jsonl, csv): such cells
 # fall back to repr.
 _FIXED_LIMIT = 1e15
@@ -348,7 +348,7 @@ def _fixed_csv_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Ce
     rounded = np.rint(y)
     # Python rounds the exact binary value; the product y carries one rounding error, so a
     # cell within a few ulps of a tie (0.0005 at 3 decimals) is left to Python.
-    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= 4 * np.spacing(y)
+    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15  # ≥ 4 ulp of y
     slow = ~absent & ((y >= _EXACT_LIMIT) | near_tie)
     scaled = np.where(slow, 0.0, rounded).astype(np.int64)
     cells = _fixed_cells(scaled, (x < 0) & (scaled != 0), decimals, "none")
