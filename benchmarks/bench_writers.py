@@ -1,4 +1,4 @@
-"""Throughput of the table writers: boundaries.csv, boundaries.json and candidates.jsonl.
+"""Throughput of the table writers: boundaries.csv/.json, segments.csv, candidates.jsonl.
 
 Run by hand (not by CI): python benchmarks/bench_writers.py [--rows 1000000]
 
@@ -6,7 +6,8 @@ Each writer gets a synthetic table with the columns of its output (BOUNDARY_COLU
 CANDIDATE_COLUMNS): floats spread over the ranges the tool writes (angles 0-180°,
 positions up to 10⁴ µm, unit-vector components), a few per cent absent (NaN, -1 ids,
 empty strings), strings drawn from the closed sets and plane indices the tables hold,
-some with commas. MB/s is output bytes over wall time (the file written, atomically,
+some with commas; segments.csv adds its WKT column, a distinct string with commas in
+every row (quoted in every row). MB/s is output bytes over wall time (the file written, atomically,
 into a temporary folder); ``peak MB`` is the growth of the process's maximum resident
 size during the write (an upper bound of what the writer holds, 0 when the write stays
 under an earlier peak); ``cpu MB/s`` is output bytes over the process's CPU time, less
@@ -25,7 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from inclination.report.candidates import CANDIDATE_COLUMNS, write_candidates
-from inclination.report.columns import BOUNDARY_COLUMNS
+from inclination.report.columns import BOUNDARY_COLUMNS, SEGMENT_COLUMNS
 from inclination.report.tables import write_csv, write_table_json
 
 _PLANES = np.array(["(1 1 1)", "(1 -1 1)", "(1 1 -1)", "(-1 1 1)", "(0 0 1)", "(1 -1 0 2)", ""])
@@ -77,6 +78,9 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     boundaries = _table(BOUNDARY_COLUMNS, args.rows)
     candidates = _table(CANDIDATE_COLUMNS, args.rows, seed=1)
+    segments = _table(SEGMENT_COLUMNS, args.rows, seed=2)
+    xy = np.round(np.random.default_rng(3).uniform(0, 1e4, (args.rows, 4)), 3).tolist()
+    segments["wkt"] = np.array([f"LINESTRING ({a} {b}, {c} {d})" for a, b, c, d in xy])
     start = time.perf_counter()
     _ = np.arange(10**7) * 3
     print(
@@ -91,6 +95,7 @@ def main(argv=None) -> int:
                 folder / "b.json", boundaries, BOUNDARY_COLUMNS, schema_version="1", meta={}
             ),
         )
+        _time("segments.csv", lambda: write_csv(folder / "s.csv", segments, SEGMENT_COLUMNS))
         _time(
             "candidates.jsonl (all rows)",
             lambda: write_candidates(folder / "c.jsonl", candidates, meta={}, rows="all"),
