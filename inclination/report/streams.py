@@ -124,7 +124,8 @@ def _padded(width: int) -> int:
 class _Cells:
     """A block of one column: row ``i`` of ``mat`` with its NUL bytes left out is its text.
 
-    ``mat`` is (n, 4k) uint8, C-contiguous, so that it is also k uint32 words a row.
+    ``mat`` is (n, 4k) uint8, C-contiguous, so that it is also k uint32 words a row. Byte
+    0 of every row is NUL: room for a one-byte separator before the cell (:func:`_join`).
     ``nul_texts`` holds the few cells whose text itself holds a NUL character (only a
     CSV string can), by row.
     """
@@ -147,16 +148,16 @@ class _Cells:
         if len(rows) == 0:
             return
         block = _from_strings(texts)
-        self._widen(block.shape[1])
+        self._widen(1 + block.shape[1])
         self.mat[rows] = 0
-        self.mat[rows, : block.shape[1]] = block
+        self.mat[rows, 1 : 1 + block.shape[1]] = block
         for i, t in zip(rows.tolist(), texts, strict=True):
             if "\0" in t:
                 self.nul_texts[i] = t.encode("utf-8")
 
     def put_same(self, rows: np.ndarray, text: str) -> None:
         """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
-        raw = text.encode("utf-8")
+        raw = b"\0" + text.encode("utf-8")
         self._widen(len(raw))
         words = self.mat.view(np.uint32)
         words[rows] = np.frombuffer(raw.ljust(self.mat.shape[1], b"\0"), np.uint32)
@@ -181,7 +182,9 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     unit = _POW10[decimals]
     whole = scaled // unit
     frac = scaled - whole * unit
-    groups = max(1, -(-len(str(int(whole.max(initial=0)))) // 3))
+    # One digit of room in the leading word: with the sign, at most three of its four bytes
+    # are used, and byte 0 of the cell stays free.
+    groups = -(-(len(str(int(whole.max(initial=0)))) + 1) // 3)
     # The decimals split into words: the first three with the point, then four at a time.
     cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
     spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
@@ -256,8 +259,8 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
     codes = np.ascontiguousarray(arr).view(np.uint32).reshape(n, width)
     # Room for the quotes, and rows of whole 8-byte words, so that a row's flags OR in a
     # few 1-D passes (a reduction along a short axis is slow in numpy).
-    mat = np.zeros((n, -(-(width + 2) // 8) * 8), np.uint8)
-    mat[:, 1 : 1 + width] = codes
+    mat = np.zeros((n, -(-(width + 3) // 8) * 8), np.uint8)
+    mat[:, 2 : 2 + width] = codes
     needs_quote = (mat == ord('"')) | ((mat - 1) < 0x1F)  # a quote or a control character
     if json_like:
         needs_quote |= mat == ord("\\")
@@ -278,8 +281,8 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
         other |= np.count_nonzero(codes, axis=1) != length
     # Quotes around every JSON string, and around CSV text whose only special is a comma
     # (what csv.writer does to a field holding the delimiter and no quote or line break).
-    mat[:, 0] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
-    mat[:, -1] = mat[:, 0]
+    mat[:, 1] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
+    mat[:, -1] = mat[:, 1]
     cells = _Cells(mat)
     cells.put_same(~other & (length == 0), null)
     rows = np.flatnonzero(other)
@@ -292,7 +295,7 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
 
 def _bool_cells(values: np.ndarray) -> _Cells:
     flags = np.asarray(values).astype(bool)
-    words = np.frombuffer(b"false\0\0\0true\0\0\0\0", np.uint8).reshape(2, 8)
+    words = np.frombuffer(b"\0false\0\0\0true\0\0\0", np.uint8).reshape(2, 8)
     return _Cells(words[flags.astype(np.intp)])
 
 
@@ -412,24 +415,44 @@ def _layout(columns: Sequence, style: str) -> list[str]:
     return [""] + [","] * (len(columns) - 1) + ["\n"]
 
 
-def _literal_words(text: str) -> np.ndarray:
-    raw = text.encode("utf-8")
+def _literal_words(raw: bytes) -> np.ndarray:
     return np.frombuffer(raw.ljust(_padded(len(raw)), b"\0"), np.uint32)
 
 
 def _join(pieces: list, n: int) -> bytes:
     """Lay literals and cells side by side as words and drop the NUL padding: the rows."""
-    parts = [_literal_words(p) if isinstance(p, str) else p.mat.view(np.uint32) for p in pieces]
-    widths = [p.shape[-1] for p in parts]
-    matrix = np.empty((n, sum(widths)), np.uint32)
+    # A one-byte literal (",", "[") goes into the free byte 0 of the cell after it.
+    plan: list[tuple[object, bytes]] = []
+    k = 0
+    while k < len(pieces):
+        p = pieces[k]
+        if isinstance(p, _Cells):
+            plan.append((p, b""))
+        elif p:
+            raw = p.encode("utf-8")
+            if len(raw) == 1 and k + 1 < len(pieces) and isinstance(pieces[k + 1], _Cells):
+                plan.append((pieces[k + 1], raw))
+                k += 1
+            else:
+                plan.append((raw, b""))
+        k += 1
+    parts = [
+        (item.mat.view(np.uint32) if isinstance(item, _Cells) else _literal_words(item), prefix)
+        for item, prefix in plan
+    ]
+    matrix = np.empty((n, sum(words.shape[-1] for words, _ in parts)), np.uint32)
     at = 0
     # One word column at a time: a 1-D strided copy is several times faster than a 2-D
     # one a few words wide.
-    for part in parts:
-        for j in range(part.shape[-1]):
-            matrix[:, at] = part[..., j]
+    for words, prefix in parts:
+        for j in range(words.shape[-1]):
+            if j == 0 and prefix:
+                byte0 = np.frombuffer(prefix + b"\0\0\0", np.uint32)[0]
+                np.bitwise_or(words[:, 0], byte0, out=matrix[:, at])
+            else:
+                matrix[:, at] = words[..., j]
             at += 1
-    overrides = [p.nul_texts for p in pieces if not isinstance(p, str) and p.nul_texts]
+    overrides = [item.nul_texts for item, _ in plan if isinstance(item, _Cells) and item.nul_texts]
     if not overrides:
         return matrix.tobytes().translate(None, b"\0")
     # A text with a NUL of its own (a CSV cell only): the rows that hold one, cell by cell.
@@ -439,11 +462,11 @@ def _join(pieces: list, n: int) -> bytes:
             rows.append(line.tobytes().translate(None, b"\0"))
             continue
         at, cells = 0, []
-        for p, w in zip(pieces, widths, strict=True):
-            cell = line[4 * at : 4 * (at + w)].tobytes()
-            at += w
-            own = None if isinstance(p, str) else p.nul_texts.get(i)
-            cells.append(own if own is not None else cell.translate(None, b"\0"))
+        for (item, prefix), (words, _) in zip(plan, parts, strict=True):
+            cell = line[4 * at : 4 * (at + words.shape[-1])].tobytes()
+            at += words.shape[-1]
+            own = item.nul_texts.get(i) if isinstance(item, _Cells) else None
+            cells.append(prefix + own if own is not None else cell.translate(None, b"\0"))
         rows.append(b"".join(cells))
     return b"".join(rows)
 
