@@ -2,13 +2,14 @@
 
 A table (a dict of equal-length 1-D arrays, with the column definitions of
 :mod:`inclination.report.columns`) becomes text bytes a block of rows at a time.
-Each column of a block turns into a byte matrix and, per row, the span of it that
-holds the cell: numbers in a few numpy passes (the digits four at a time from a
-table of the 10,000 four-digit groups), text by copying the code points of the
-strings that need no quoting or escaping and one Python call per *distinct*
-other string. The matrices are laid side by side with the separators and the
-spans cut out in one pass. Memory stays a few tens of MB whatever the table's
-length, and the throughput is that of numpy, not of ``str.format``.
+Each column of a block turns into a byte matrix, a row per cell, whose NUL bytes
+are padding: numbers in a few numpy passes (digits three or four to a uint32
+word, each word one gather from a table of ASCII words), text by copying the code
+points of the strings that need no escaping and one call of the reference per
+*distinct* other string. The matrices are laid side by side with the separators
+and the NUL bytes deleted in one ``bytes.translate``. Memory stays a few tens of MB
+whatever the table's length, and the throughput is that of numpy, not of
+``str.format`` (docs/performance.md, "Table writers").
 
 The encodings (:data:`STYLES`):
 
