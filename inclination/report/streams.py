@@ -50,8 +50,7 @@ __all__ = ["STYLES", "encode_rows"]
 STYLES = ("csv", "jsonl", "fixed_csv", "json_rows")
 
 _BLOCK_ROWS = 16_384
-# Past this magnitude, |x|·10^d no longer fits an int64 exactly (jsonl, csv): such cells
-# fall back to repr.
+# csv / jsonl write |x| from this magnitude on as Python's repr (the styles' rule).
 _FIXED_LIMIT = 1e15
 # |value·10^d| below 2^50: the int64 digits are exact, and for json_rows two numbers
 # 10^-d apart never round to the same float, so the fixed-point text is Python's repr.
@@ -59,7 +58,7 @@ _EXACT_LIMIT = float(2**50)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
 
 
-# Entry i: the four ASCII digits of i, zero-padded, as one uint32 (memory order kept).
+# A word is 4 bytes of text viewed as one uint32 (memory order kept, whatever the endianness).
 def _words(texts) -> np.ndarray:
     """Byte strings of at most 4 bytes as uint32 words, NUL-padded on the left."""
     return np.frombuffer(b"".join(t.rjust(4, b"\0") for t in texts), np.uint32)
@@ -164,13 +163,14 @@ class _Cells:
         words[rows] = np.frombuffer(raw.ljust(self.mat.shape[1], b"\0"), np.uint32)
 
 
-def _from_strings(cells: Sequence[str], inverse: np.ndarray | None = None) -> np.ndarray:
+def _from_strings(cells: Sequence[str]) -> np.ndarray:
+    """UTF-8 of each text as a row of a NUL-padded (n, width) uint8 matrix."""
     encoded = [c.encode("utf-8") for c in cells]
     width = max((len(e) for e in encoded), default=0)
     mat = np.zeros((len(encoded), max(width, 1)), np.uint8)
     for i, e in enumerate(encoded):
         mat[i, : len(e)] = np.frombuffer(e, np.uint8)
-    return mat if inverse is None else mat[inverse]
+    return mat
 
 
 def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) -> _Cells:
