@@ -1,20 +1,44 @@
 """Tables encoded row by row in blocks, without a Python call per cell.
 
 A table (a dict of equal-length 1-D arrays, with the column definitions of
-:mod:`inclination.report.columns`) becomes CSV or JSON-lines bytes a block of
-rows at a time: each column turns into a byte matrix in a few numpy passes
-(fixed-point digits for numbers, one Python call per *distinct* string), the
-matrices are laid side by side with the separators, and the padding bytes are
-dropped. Memory stays a few tens of MB whatever the table's length, and the
-throughput is that of numpy, not of ``str.format``.
+:mod:`inclination.report.columns`) becomes text bytes a block of rows at a time.
+Each column of a block turns into a byte matrix, a row per cell, whose NUL bytes
+are padding: numbers in a few numpy passes (digits three or four to a uint32
+word, each word one gather from a table of ASCII words), text by copying the code
+points of the strings that need no escaping and one call of the reference per
+*distinct* other string. The matrices are laid side by side with the separators
+and the NUL bytes deleted in one ``bytes.translate``. Memory stays a few tens of MB
+whatever the table's length, and the throughput is that of numpy, not of
+``str.format`` (docs/performance.md, "Table writers").
 
-Numbers are written with the column's decimals and trailing zeros dropped
-(``90.25``, ``3``, never ``-0``); absent values (NaN, a negative id, an empty
-string) are ``null`` in JSON lines and an empty cell in CSV.
+The encodings (:data:`STYLES`):
+
+``csv``, ``jsonl``
+    Numbers with the column's decimals and trailing zeros dropped (``90.25``,
+    ``3``, never ``-0``); absent values (NaN, a negative id, an empty string) are
+    an empty cell in CSV and ``null`` in JSON lines, where each row is a JSON array.
+``fixed_csv``
+    The CSV of :func:`inclination.report.tables.write_csv`: every float with all
+    of its column's decimals, as Python's ``f"{x:.{decimals}f}"`` writes it
+    (correctly rounded) but never ``-0.000``; text quoted exactly as Python's
+    :func:`csv.writer` quotes it (the module itself quotes every distinct string
+    that might need it).
+``json_rows``
+    The rows of :func:`inclination.report.tables.write_table_json`: one JSON
+    object per line, ``{"name": value, ...}`` as :func:`json.dumps` writes it with
+    ``ensure_ascii=False``; floats rounded with :func:`numpy.round` to the
+    column's decimals + 3 and written as Python's ``repr`` writes them (the
+    shortest text that reads back to the same float).
+
+Where the fast path cannot promise the same bytes as those references (a value
+too large for exact int64 digits, a float within a rounding error of a tie, a
+``repr`` in exponent form), that cell alone is written by the reference.
 """
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 from collections.abc import Iterator, Mapping, Sequence
 
@@ -23,63 +47,174 @@ import numpy as np
 __all__ = ["STYLES", "encode_rows"]
 
 #: Closed set of encodings.
-STYLES = ("csv", "jsonl")
+STYLES = ("csv", "jsonl", "fixed_csv", "json_rows")
 
-_BLOCK_ROWS = 65_536
-# Past this magnitude, |x|·10^d no longer fits an int64 exactly: such cells fall back to repr.
+_BLOCK_ROWS = 16_384
+# csv / jsonl write |x| from this magnitude on as Python's repr (the styles' rule).
 _FIXED_LIMIT = 1e15
+# |value·10^d| below 2^50: the int64 digits are exact, and for json_rows two numbers
+# 10^-d apart never round to the same float, so the fixed-point text is Python's repr.
+_EXACT_LIMIT = float(2**50)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
 
 
-def _literal(text: str, n: int) -> np.ndarray:
-    return np.broadcast_to(np.frombuffer(text.encode(), np.uint8), (n, len(text)))
+# A word is 4 bytes of text viewed as one uint32 (memory order kept, whatever the endianness).
+def _words(texts) -> np.ndarray:
+    """Byte strings of at most 4 bytes as uint32 words, NUL-padded on the left."""
+    return np.frombuffer(b"".join(t.rjust(4, b"\0") for t in texts), np.uint32)
 
 
-def _digits(v: np.ndarray) -> np.ndarray:
-    """Number of decimal digits of non-negative int64 values (1 for 0)."""
-    return np.maximum(np.searchsorted(_POW10, v, side="right"), 1)
+def _words_left(texts) -> np.ndarray:
+    """Byte strings of at most 4 bytes as uint32 words, NUL-padded on the right."""
+    return np.frombuffer(b"".join(t.ljust(4, b"\0") for t in texts), np.uint32)
 
 
-def _fixed(x: np.ndarray, decimals: int) -> np.ndarray:
-    """Finite floats as fixed-point text, trailing zeros dropped; (n, width) uint8, 0-padded."""
-    n = x.size
-    scaled = np.rint(np.abs(x) * 10.0**decimals).astype(np.int64)
-    neg = (x < 0) & (scaled != 0)
-    ip, fp = np.divmod(scaled, _POW10[decimals])
-    nd = _digits(ip)
-    w_int = int(nd.max(initial=1)) + 1
-    width = w_int + (decimals + 1 if decimals else 0)
-    out = np.zeros((n, width), np.uint8)
-    rest = ip.copy()
-    for k in range(w_int - 1):
-        col = w_int - 1 - k
-        live = k < nd
-        out[:, col] = np.where(live, 48 + rest % 10, 0)
-        rest //= 10
-    rows = np.flatnonzero(neg)
-    out[rows, w_int - 1 - nd[rows]] = ord("-")
-    if decimals:
-        frac = np.empty((n, decimals), np.uint8)
-        rest = fp.copy()
-        for k in range(decimals - 1, -1, -1):
-            frac[:, k] = 48 + rest % 10
-            rest //= 10
-        trailing = np.ones(n, bool)
-        for k in range(decimals - 1, -1, -1):
-            trailing &= frac[:, k] == 48
-            frac[trailing, k] = 0
-        out[:, w_int + 1 :] = frac
-        out[:, w_int] = np.where(fp != 0, ord("."), 0)
-    return out
+# Integer digits three to a word, so that the leading group has room for the sign; entry
+# q + 1000 * state, state 0: a group after the leading one ("\0ddd"), 1: the leading
+# group ("\0\0dd"), 2: the leading group of a negative number ("\0-dd"), 3: a group
+# above the number (NUL).
+_INT_WORDS = np.concatenate(
+    [
+        _words(b"%03d" % q for q in range(1000)),
+        _words(b"%d" % q for q in range(1000)),
+        _words(b"-%d" % q for q in range(1000)),
+        np.zeros(1000, np.uint32),
+    ]
+)
+# Decimals: the point and up to three digits in the first word, then four to a word.
+# _POINT_WORDS[k, trim] / _DIGIT_WORDS[k]: entry q is the word of k digits of value q, entry
+# 10^k + q the same word when every later digit is zero, its trailing zeros dropped: to
+# nothing (``all``; the point too when q is 0) or to one kept decimal (``keep_one``).
 
 
-def _from_strings(cells: Sequence[str], inverse: np.ndarray | None = None) -> np.ndarray:
+def _point_word(q: int, k: int, trim: str) -> bytes:
+    text = b".%0*d" % (k, q)
+    if trim == "none":
+        return text
+    text = text.rstrip(b"0")
+    return text if text != b"." else b"" if trim == "all" else b".0"
+
+
+_POINT_WORDS = {
+    (k, trim): np.concatenate(
+        [
+            _words_left(_point_word(q, k, "none") for q in range(10**k)),
+            _words_left(_point_word(q, k, trim) for q in range(10**k)),
+        ]
+    )
+    for k in (1, 2, 3)
+    for trim in ("none", "all", "keep_one")
+}
+_DIGIT_WORDS = {
+    k: np.concatenate(
+        [
+            _words_left(b"%0*d" % (k, q) for q in range(10**k)),
+            _words_left((b"%0*d" % (k, q)).rstrip(b"0") for q in range(10**k)),
+        ]
+    )
+    for k in (1, 2, 3, 4)
+}
+_QUOTE = ord('"')
+
+
+def _padded(width: int) -> int:
+    return -(-width // 4) * 4
+
+
+class _Cells:
+    """A block of one column: row ``i`` of ``mat`` with its NUL bytes left out is its text.
+
+    ``mat`` is (n, 4k) uint8, C-contiguous, so that it is also k uint32 words a row. Byte
+    0 of every row is NUL: room for a one-byte separator before the cell (:func:`_join`).
+    ``nul_texts`` holds the few cells whose text itself holds a NUL character (only a
+    CSV string can), by row.
+    """
+
+    __slots__ = ("mat", "nul_texts")
+
+    def __init__(self, mat: np.ndarray):
+        self.mat = mat
+        self.nul_texts: dict[int, bytes] = {}
+
+    def _widen(self, width: int) -> None:
+        width = _padded(width)
+        if width > self.mat.shape[1]:
+            wider = np.zeros((self.mat.shape[0], width), np.uint8)
+            wider[:, : self.mat.shape[1]] = self.mat
+            self.mat = wider
+
+    def put(self, rows: np.ndarray, texts: Sequence[str]) -> None:
+        """Replace the cells of ``rows`` by ``texts`` (the fallbacks)."""
+        if len(rows) == 0:
+            return
+        block = _from_strings(texts)
+        self._widen(1 + block.shape[1])
+        self.mat[rows] = 0
+        self.mat[rows, 1 : 1 + block.shape[1]] = block
+        for i, t in zip(rows.tolist(), texts, strict=True):
+            if "\0" in t:
+                self.nul_texts[i] = t.encode("utf-8")
+
+    def put_same(self, rows: np.ndarray, text: str) -> None:
+        """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
+        raw = b"\0" + text.encode("utf-8")
+        self._widen(len(raw))
+        words = self.mat.view(np.uint32)
+        words[rows] = np.frombuffer(raw.ljust(self.mat.shape[1], b"\0"), np.uint32)
+
+
+def _from_strings(cells: Sequence[str]) -> np.ndarray:
+    """UTF-8 of each text as a row of a NUL-padded (n, width) uint8 matrix."""
     encoded = [c.encode("utf-8") for c in cells]
     width = max((len(e) for e in encoded), default=0)
     mat = np.zeros((len(encoded), max(width, 1)), np.uint8)
     for i, e in enumerate(encoded):
         mat[i, : len(e)] = np.frombuffer(e, np.uint8)
-    return mat if inverse is None else mat[inverse]
+    return mat
+
+
+def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) -> _Cells:
+    """``scaled`` = |value|·10^decimals (int64 ≥ 0) as fixed-point text, ``-`` where ``neg``.
+
+    ``trim``: ``none`` keeps every decimal; ``all`` drops trailing zeros and a bare
+    point; ``keep_one`` drops trailing zeros but keeps one decimal (``3.0``).
+    """
+    n = len(scaled)
+    unit = _POW10[decimals]
+    whole = scaled // unit
+    frac = scaled - whole * unit
+    # One digit of room in the leading word: with the sign, at most three of its four bytes
+    # are used, and byte 0 of the cell stays free.
+    groups = -(-(len(str(int(whole.max(initial=0)))) + 1) // 3)
+    # The decimals split into words: the first three with the point, then four at a time.
+    cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
+    spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
+    words = np.empty((n, groups + len(spans)), np.uint32)
+    sign = neg.astype(np.int64)
+    rest = whole
+    for g in range(groups - 1, -1, -1):
+        above = rest // 1000
+        q = rest - above * 1000
+        top = above == 0
+        # Leading group: state 1 + sign; a group above the number (never the units): 3.
+        state = top * (1 + sign)
+        if g < groups - 1:
+            state += (top & (q == 0)) * (2 - sign)
+        words[:, g] = _INT_WORDS[q + 1000 * state]
+        rest = above
+    # Trailing zeros are dropped word by word from the last, while every later one is zero.
+    zeros_after = np.ones(n, np.int64) if trim != "none" else np.zeros(n, np.int64)
+    rest = frac
+    for j in range(len(spans) - 1, -1, -1):
+        size = spans[j][1] - spans[j][0]
+        above = rest // _POW10[size]
+        q = rest - above * _POW10[size]
+        table = _POINT_WORDS[size, trim] if j == 0 else _DIGIT_WORDS[size]
+        words[:, groups + j] = table[q + _POW10[size] * zeros_after]
+        if trim != "none":
+            zeros_after &= q == 0
+        rest = above
+    return _Cells(words.view(np.uint8))
 
 
 def _csv_text(text: str) -> str:
@@ -88,35 +223,253 @@ def _csv_text(text: str) -> str:
     return text
 
 
-def _column_bytes(values: np.ndarray, kind: str, decimals: int, style: str) -> np.ndarray:
+def _csv_module_text(text: str) -> str:
+    """One field as Python's csv.writer writes it (its quoting rules differ by version)."""
+    buf = io.StringIO()
+    csv.writer(buf, lineterminator="\n").writerow([text, ""])
+    return buf.getvalue()[:-2]
+
+
+def _json_text(text: str) -> str:
+    return json.dumps(text, ensure_ascii=False)
+
+
+def _text_cells(values: np.ndarray, style: str) -> _Cells:
+    """Text cells: printable ASCII that needs no quoting is copied, the rest quoted once."""
     n = len(values)
+    if values.dtype.kind == "U":
+        arr = values
+    elif style in ("fixed_csv", "json_rows"):
+        # As write_csv / write_table_json have always read a cell: str() of any object.
+        arr = np.array(["" if v is None else str(v) for v in values.tolist()], dtype=str)
+    else:
+        arr = values.astype(str)
+    json_like = style in ("jsonl", "json_rows")
+    null = "null" if json_like else ""
+    quote = {
+        "csv": _csv_text,
+        "jsonl": json.dumps,
+        "fixed_csv": _csv_module_text,
+        "json_rows": _json_text,
+    }[style]
+    width = arr.dtype.itemsize // 4
+    if width == 0:
+        cells = _Cells(np.zeros((n, 4), np.uint8))
+        cells.put_same(np.ones(n, bool), null)
+        return cells
+    codes = np.ascontiguousarray(arr).view(np.uint32).reshape(n, width)
+    # Room for the quotes, and rows of whole 8-byte words, so that a row's flags OR in a
+    # few 1-D passes (a reduction along a short axis is slow in numpy).
+    mat = np.zeros((n, -(-(width + 3) // 8) * 8), np.uint8)
+    mat[:, 2 : 2 + width] = codes
+    needs_quote = (mat == ord('"')) | ((mat - 1) < 0x1F)  # a quote or a control character
+    if json_like:
+        needs_quote |= mat == ord("\\")
+    flags = needs_quote.view(np.uint8) << 1
+    if not json_like:
+        flags |= (mat == ord(",")).view(np.uint8)
+    seen = np.zeros(n, np.uint64)
+    if flags.any():
+        for column in flags.view(np.uint64).T:
+            seen |= column
+    comma = (seen & np.uint64(0x0101010101010101)) != 0
+    other = (seen & np.uint64(0x0202020202020202)) != 0
+    if codes.max(initial=0) >= 0x7F:
+        other |= (codes >= 0x7F).any(axis=1)  # past printable ASCII: to the reference
+    length = np.char.str_len(arr)
+    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the reference.
+    if np.count_nonzero(codes) != length.sum():
+        other |= np.count_nonzero(codes, axis=1) != length
+    # Quotes around every JSON string, and around CSV text whose only special is a comma
+    # (what csv.writer does to a field holding the delimiter and no quote or line break).
+    mat[:, 1] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
+    mat[:, -1] = mat[:, 1]
+    cells = _Cells(mat)
+    cells.put_same(~other & (length == 0), null)
+    rows = np.flatnonzero(other)
+    if len(rows):
+        uniq, inverse = np.unique(arr[rows], return_inverse=True)
+        texts = [quote(u) for u in uniq.tolist()]
+        cells.put(rows, [texts[i] for i in inverse.reshape(-1).tolist()])
+    return cells
+
+
+def _bool_cells(values: np.ndarray) -> _Cells:
+    flags = np.asarray(values).astype(bool)
+    words = np.frombuffer(b"\0false\0\0\0true\0\0\0", np.uint8).reshape(2, 8)
+    return _Cells(words[flags.astype(np.intp)])
+
+
+def _compact_number_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
+    """csv / jsonl numbers: |x|·10^d rounded, trailing zeros dropped, big values as repr."""
     null = "null" if style == "jsonl" else ""
-    if kind == "bool":
-        cells = ["false", "true"]
-        return _from_strings(cells, np.asarray(values, bool).astype(np.intp))
-    if kind == "str":
-        uniq, inverse = np.unique(np.asarray(values).astype(str), return_inverse=True)
-        quote = json.dumps if style == "jsonl" else _csv_text
-        cells = [quote(u) if u != "" else null for u in uniq.tolist()]
-        return _from_strings(cells, inverse.reshape(-1))
     x = np.asarray(values, float if kind == "float" else np.int64)
+    d = decimals if kind == "float" else 0
     absent = ~np.isfinite(x) if kind == "float" else x < 0
     big = ~absent & (np.abs(x) >= _FIXED_LIMIT)
     ok = ~(absent | big)
-    body = _fixed(np.where(ok, x, 0.0), decimals if kind == "float" else 0)
-    if ok.all():
-        return body
-    extra = [null] + [repr(float(v)) for v in x[big]]
-    special = _from_strings(extra)
-    width = max(body.shape[1], special.shape[1])
-    out = np.zeros((n, width), np.uint8)
-    out[:, : body.shape[1]] = body
-    out[absent] = 0
-    out[absent, : special.shape[1]] = special[0]
+    y = np.abs(np.where(ok, x, 0.0)) * 10.0**d
+    # |x| < 1e15 but |x|·10^d past int64 exactness: the digits the rounding intends, in Python.
+    huge = y >= _EXACT_LIMIT
+    scaled = np.rint(np.where(huge, 0.0, y)).astype(np.int64)
+    neg = (x < 0) & (scaled != 0)
+    cells = _fixed_cells(scaled, neg, d, "all")
+    cells.put_same(absent, null)
     rows = np.flatnonzero(big)
-    out[rows] = 0
-    out[rows, : special.shape[1]] = special[1:]
-    return out
+    cells.put(rows, [repr(float(v)) for v in x[rows].tolist()])
+    rows = np.flatnonzero(huge)
+    cells.put(rows, [_trimmed(v, d) for v in x[rows].tolist()])
+    return cells
+
+
+def _trimmed(value: float, decimals: int) -> str:
+    digits = str(int(np.rint(abs(value) * 10.0**decimals))).rjust(decimals + 1, "0")
+    text = digits
+    if decimals:
+        text = (digits[:-decimals] + "." + digits[-decimals:]).rstrip("0").rstrip(".")
+    return ("-" if value < 0 and text != "0" else "") + text
+
+
+def _csv_float(value: float, decimals: int) -> str:
+    text = f"{value:.{decimals}f}"
+    # "-0.000" reads as a sign that is not there.
+    return text[1:] if text == f"{-0.0:.{decimals}f}" else text
+
+
+def _fixed_csv_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
+    """write_csv numbers: ints as str(), floats as f"{x:.{d}f}" (never -0), absent empty."""
+    if kind == "int":
+        x = np.asarray(values).astype(np.int64)
+        absent = x < 0
+        cells = _fixed_cells(np.where(absent, 0, x), np.zeros(len(x), bool), 0, "none")
+        cells.put_same(absent, "")
+        return cells
+    x = np.asarray(values).astype(float)
+    absent = ~np.isfinite(x)
+    with np.errstate(over="ignore", invalid="ignore"):
+        # A finite x past 1e305 overflows here; such cells take the slow path below.
+        y = np.abs(np.where(absent, 0.0, x)) * 10.0**decimals
+    rounded = np.rint(y)
+    # Python rounds the exact binary value; the product y carries one rounding error, so a
+    # cell within a few ulps of a tie (0.0005 at 3 decimals) is left to Python.
+    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15  # ≥ 4 ulp of y
+    slow = ~absent & ((y >= _EXACT_LIMIT) | near_tie)
+    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
+    cells = _fixed_cells(scaled, (x < 0) & (scaled != 0), decimals, "none")
+    cells.put_same(absent, "")
+    rows = np.flatnonzero(slow)
+    cells.put(rows, [_csv_float(v, decimals) for v in x[rows].tolist()])
+    return cells
+
+
+def _json_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
+    """write_table_json numbers: ints as str(), floats as repr(np.round(x, d + 3))."""
+    if kind == "int":
+        x = np.asarray(values).astype(np.int64)
+        absent = x < 0
+        cells = _fixed_cells(np.where(absent, 0, x), np.zeros(len(x), bool), 0, "none")
+        cells.put_same(absent, "null")
+        return cells
+    k = decimals + 3
+    x = np.asarray(values).astype(float)
+    # As write_table_json has always done: rounded first, then absent if not finite.
+    with np.errstate(over="ignore", invalid="ignore"):
+        rounded = np.round(x, k)
+    absent = ~np.isfinite(rounded)
+    x0 = np.where(absent, 0.0, x)
+    r = np.rint(x0 * 10.0**k)
+    magnitude = np.abs(r)
+    # repr switches to exponent form below 1e-4 (|r| < 10^(k-4)); and np.round's own
+    # arithmetic is checked, not assumed.
+    slow = ~absent & (
+        (magnitude >= _EXACT_LIMIT)
+        | ((magnitude < 10.0 ** (k - 4)) & (r != 0))
+        | (r / 10.0**k != rounded)
+    )
+    scaled = np.where(slow, 0.0, magnitude).astype(np.int64)
+    cells = _fixed_cells(scaled, np.signbit(r), k, "keep_one")
+    cells.put_same(absent, "null")
+    rows = np.flatnonzero(slow)
+    cells.put(rows, [repr(v) for v in rounded[rows].tolist()])
+    return cells
+
+
+def _column_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
+    if kind == "bool":
+        return _bool_cells(values)
+    if kind == "str":
+        return _text_cells(np.asarray(values), style)
+    if style == "fixed_csv":
+        return _fixed_csv_number_cells(values, kind, decimals)
+    if style == "json_rows":
+        return _json_number_cells(values, kind, decimals)
+    return _compact_number_cells(values, kind, decimals, style)
+
+
+def _layout(columns: Sequence, style: str) -> list[str]:
+    """The literal text before each column and after the last (len(columns) + 1 pieces)."""
+    if style == "jsonl":
+        return ["["] + [","] * (len(columns) - 1) + ["]\n"]
+    if style == "json_rows":
+        keys = [json.dumps(c.name, ensure_ascii=False) + ": " for c in columns]
+        return ["{" + keys[0]] + [", " + k for k in keys[1:]] + ["}\n"] if keys else ["{}\n"]
+    return [""] + [","] * (len(columns) - 1) + ["\n"]
+
+
+def _literal_words(raw: bytes) -> np.ndarray:
+    return np.frombuffer(raw.ljust(_padded(len(raw)), b"\0"), np.uint32)
+
+
+def _join(pieces: list, n: int) -> bytes:
+    """Lay literals and cells side by side as words and drop the NUL padding: the rows."""
+    # A one-byte literal (",", "[") goes into the free byte 0 of the cell after it.
+    plan: list[tuple[object, bytes]] = []
+    k = 0
+    while k < len(pieces):
+        p = pieces[k]
+        if isinstance(p, _Cells):
+            plan.append((p, b""))
+        elif p:
+            raw = p.encode("utf-8")
+            if len(raw) == 1 and k + 1 < len(pieces) and isinstance(pieces[k + 1], _Cells):
+                plan.append((pieces[k + 1], raw))
+                k += 1
+            else:
+                plan.append((raw, b""))
+        k += 1
+    parts = [
+        (item.mat.view(np.uint32) if isinstance(item, _Cells) else _literal_words(item), prefix)
+        for item, prefix in plan
+    ]
+    matrix = np.empty((n, sum(words.shape[-1] for words, _ in parts)), np.uint32)
+    at = 0
+    # One word column at a time: a 1-D strided copy is several times faster than a 2-D
+    # one a few words wide.
+    for words, prefix in parts:
+        for j in range(words.shape[-1]):
+            if j == 0 and prefix:
+                byte0 = np.frombuffer(prefix + b"\0\0\0", np.uint32)[0]
+                np.bitwise_or(words[:, 0], byte0, out=matrix[:, at])
+            else:
+                matrix[:, at] = words[..., j]
+            at += 1
+    overrides = [item.nul_texts for item, _ in plan if isinstance(item, _Cells) and item.nul_texts]
+    if not overrides:
+        return matrix.tobytes().translate(None, b"\0")
+    # A text with a NUL of its own (a CSV cell only): the rows that hold one, cell by cell.
+    rows = []
+    for i, line in enumerate(matrix.view(np.uint8)):
+        if not any(i in o for o in overrides):
+            rows.append(line.tobytes().translate(None, b"\0"))
+            continue
+        at, cells = 0, []
+        for (item, prefix), (words, _) in zip(plan, parts, strict=True):
+            cell = line[4 * at : 4 * (at + words.shape[-1])].tobytes()
+            at += words.shape[-1]
+            own = item.nul_texts.get(i) if isinstance(item, _Cells) else None
+            cells.append(prefix + own if own is not None else cell.translate(None, b"\0"))
+        rows.append(b"".join(cells))
+    return b"".join(rows)
 
 
 def encode_rows(
@@ -135,9 +488,11 @@ def encode_rows(
     columns : sequence of Column
         Name, kind (``int``, ``float``, ``str``, ``bool``) and decimals of each column,
         in output order.
-    style : {'csv', 'jsonl'}, optional
-        ``csv``: comma-separated cells, text quoted only when it holds a comma, a quote
-        or a line break. ``jsonl``: each row a JSON array, one per line.
+    style : {'csv', 'jsonl', 'fixed_csv', 'json_rows'}, optional
+        See the module docstring. ``csv``: comma-separated cells, text quoted only
+        when it holds a comma, a quote or a line break. ``jsonl``: each row a JSON
+        array, one per line. ``fixed_csv``: the rows of ``write_csv``. ``json_rows``:
+        each row a JSON object, one per line.
     block_rows : int, optional
         Rows encoded per block (the memory bound).
 
@@ -158,6 +513,12 @@ def encode_rows(
     '[1,0,true,"(1 1 1)"]\\n[2,null,false,null]\\n'
     >>> b"".join(encode_rows(t, cols, style="csv")).decode()
     '1,0,true,(1 1 1)\\n2,,false,\\n'
+    >>> b"".join(encode_rows(t, cols, style="fixed_csv")).decode()
+    '1,0.000,true,(1 1 1)\\n2,,false,\\n'
+    >>> print(b"".join(encode_rows(t, cols, style="json_rows", block_rows=1)).decode())
+    {"id": 1, "a_deg": -0.0001, "ok": true, "plane": "(1 1 1)"}
+    {"id": 2, "a_deg": null, "ok": false, "plane": null}
+    <BLANKLINE>
     """
     if style not in STYLES:
         raise ValueError(f"Expected `style` to be one of {STYLES}, got {style!r}.")
@@ -168,16 +529,15 @@ def encode_rows(
     if len(lengths) > 1:
         raise ValueError(f"Expected columns of equal length, got lengths {sorted(lengths)}.")
     n_rows = lengths.pop() if lengths else 0
-    sep = ","
+    literals = _layout(columns, style)
+    arrays = [np.asarray(table[c.name]) for c in columns]
     for start in range(0, n_rows, block_rows):
         stop = min(start + block_rows, n_rows)
-        n = stop - start
-        parts = [_literal("[", n)] if style == "jsonl" else []
-        for i, c in enumerate(columns):
-            if i:
-                parts.append(_literal(sep, n))
-            block = np.asarray(table[c.name])[start:stop]
-            parts.append(_column_bytes(block, c.kind, c.decimals, style))
-        parts.append(_literal("]\n" if style == "jsonl" else "\n", n))
-        matrix = np.concatenate(parts, axis=1)
-        yield matrix[matrix != 0].tobytes()
+        pieces: list = [literals[0]]
+        for c, arr, after in zip(columns, arrays, literals[1:], strict=True):
+            cells = _column_cells(arr[start:stop], c.kind, c.decimals, style)
+            if style == "fixed_csv" and len(columns) == 1:
+                # csv.writer writes a row of one empty field as "" (else it would be a blank line).
+                cells.put_same(~cells.mat.any(axis=1), '""')
+            pieces += [cells, after]
+        yield _join(pieces, stop - start)

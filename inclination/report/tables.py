@@ -27,8 +27,9 @@ import numpy as np
 
 from ..compare.comparison import TRUSTED_IDENTIFICATIONS
 from ..errors import InputError
-from .atomic import json_ready, write_text_atomic
+from .atomic import json_ready, write_chunks_atomic, write_text_atomic
 from .columns import CLASS_DESCRIPTIONS, CLASS_SYMBOLS, PAPER_COLUMNS, SOURCE_SYMBOLS, header_text
+from .streams import encode_rows
 
 __all__ = [
     "format_cell",
@@ -123,33 +124,52 @@ def table_rows(table, columns) -> list[dict]:
     return [dict(zip(names, row, strict=True)) for row in zip(*values, strict=True)]
 
 
-def _text_column(values, column) -> list[str]:
-    """One column as text cells, as :func:`format_cell` writes them, in one pass."""
-    arr = np.asarray(values)
-    if column.kind == "float":
-        fmt = f"{{:.{column.decimals}f}}"
-        negative_zero = fmt.format(-0.0)
-        cells = [fmt.format(v) if math.isfinite(v) else "" for v in arr.astype(float).tolist()]
-        return [c[1:] if c == negative_zero else c for c in cells]
-    if column.kind == "int":
-        return ["" if v < 0 else str(v) for v in arr.astype(np.int64).tolist()]
-    if column.kind == "bool":
-        return ["true" if v else "false" for v in arr.astype(bool).tolist()]
-    return ["" if v is None else str(v) for v in arr.tolist()]
-
-
 def write_csv(path, table, columns):
-    """Write a table as CSV with a header row; returns the path."""
+    """Write a table as CSV with a header row, streamed a block of rows at a time.
+
+    The cells are those of :func:`format_cell`, quoted as :func:`csv.writer` quotes
+    them (:mod:`inclination.report.streams`, style ``fixed_csv``); returns the path.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> from inclination.report.columns import Column
+    >>> p = write_csv(Path(tempfile.mkdtemp()) / "t.csv",
+    ...               {"a": np.array([1.5, np.nan]), "b": np.array(["x, y", ""])},
+    ...               [Column("a", "float", 2), Column("b", "str")])
+    >>> p.read_text()
+    'a,b\\n1.50,"x, y"\\n,\\n'
+    """
     _check_table(table, columns)
     buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow([c.name for c in columns])
-    writer.writerows(zip(*[_text_column(table[c.name], c) for c in columns], strict=True))
-    return write_text_atomic(path, buf.getvalue())
+    csv.writer(buf, lineterminator="\n").writerow([c.name for c in columns])
+    header = buf.getvalue().encode("utf-8")
+
+    def chunks():
+        yield header
+        yield from encode_rows(table, columns, style="fixed_csv")
+
+    return write_chunks_atomic(path, chunks())
 
 
 def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
-    """Write ``{"schema_version", "meta", "columns", "rows"}``; returns the path."""
+    """Write ``{"schema_version", "meta", "columns", "rows"}``, streamed; returns the path.
+
+    Each row is the :func:`json.dumps` of its :func:`table_rows` dict, one per line
+    (encoded a block at a time by :mod:`inclination.report.streams`, style ``json_rows``).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from pathlib import Path
+    >>> from inclination.report.columns import Column
+    >>> p = write_table_json(Path(tempfile.mkdtemp()) / "t.json", {"a": np.array([1.5, np.nan])},
+    ...                      [Column("a", "float", 1)], schema_version="1", meta={})
+    >>> json.loads(p.read_text())["rows"]
+    [{'a': 1.5}, {'a': None}]
+    """
+    _check_table(table, columns)
     head = json_ready(
         {
             "schema_version": schema_version,
@@ -159,12 +179,20 @@ def write_table_json(path, table, columns, *, schema_version: str, meta: dict):
             ],
         }
     )
-    # Rows are built JSON-ready column by column and written one per line: large tables
-    # stay fast to write and still readable.
-    rows = [json.dumps(r, ensure_ascii=False, allow_nan=False) for r in table_rows(table, columns)]
     text = json.dumps(head, indent=2, ensure_ascii=False, allow_nan=False)[:-2]
-    body = ("\n    " + ",\n    ".join(rows) + "\n  ") if rows else ""
-    return write_text_atomic(path, text + ',\n  "rows": [' + body + "]\n}\n")
+
+    def chunks():
+        yield (text + ',\n  "rows": [').encode("utf-8")
+        # A JSON row never holds a raw line break (json.dumps escapes it), so every one in a
+        # block ends a row: the rows become ",\n    "-separated in one bytes pass.
+        lead = b"\n    "
+        wrote = False
+        for block in encode_rows(table, columns, style="json_rows"):
+            yield lead + block[:-1].replace(b"\n", b",\n    ")
+            lead, wrote = b",\n    ", True
+        yield b"\n  ]\n}\n" if wrote else b"]\n}\n"
+
+    return write_chunks_atomic(path, chunks())
 
 
 def write_markdown(path, table, columns, *, title: str, notes: str = ""):

@@ -1,0 +1,107 @@
+"""Throughput of the table writers: boundaries.csv/.json, segments.csv, candidates.jsonl.
+
+Run by hand (not by CI): python benchmarks/bench_writers.py [--rows 1000000]
+
+Each writer gets a synthetic table with the columns of its output (BOUNDARY_COLUMNS,
+CANDIDATE_COLUMNS): floats spread over the ranges the tool writes (angles 0-180°,
+positions up to 10⁴ µm, unit-vector components), a few per cent absent (NaN, -1 ids,
+empty strings), strings drawn from the closed sets and plane indices the tables hold,
+some with commas; segments.csv adds its WKT column, a distinct string with commas in
+every row (quoted in every row). MB/s is output bytes over wall time (the file written, atomically,
+into a temporary folder); ``peak MB`` is the growth of the process's maximum resident
+size during the write (an upper bound of what the writer holds, 0 when the write stays
+under an earlier peak); ``cpu MB/s`` is output bytes over the process's CPU time, less
+sensitive to other jobs on the machine than the wall time. The first line times
+``np.arange(10**7) * 3`` (about 0.02 s on a quiet core) to record how loaded the machine was.
+"""
+
+from __future__ import annotations
+
+import argparse
+import resource
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from inclination.report.candidates import CANDIDATE_COLUMNS, write_candidates
+from inclination.report.columns import BOUNDARY_COLUMNS, SEGMENT_COLUMNS
+from inclination.report.tables import write_csv, write_table_json
+
+_PLANES = np.array(["(1 1 1)", "(1 -1 1)", "(1 1 -1)", "(-1 1 1)", "(0 0 1)", "(1 -1 0 2)", ""])
+_WORDS = np.array(["identified", "ambiguous", "none", "coherent_twin", "a (1 1 1)", "3", "13b"])
+
+
+def _column(c, n: int, rng) -> np.ndarray:
+    if c.kind == "float":
+        scale = 1.0 if c.name.startswith("normal") else 180.0 if "deg" in c.name else 1e4
+        x = rng.uniform(-scale, scale, n)
+        x[rng.random(n) < 0.05] = np.nan
+        return x
+    if c.kind == "int":
+        x = rng.integers(1, 200_000, n)
+        x[rng.random(n) < 0.02] = -1
+        return x
+    if c.kind == "bool":
+        return rng.random(n) < 0.3
+    words = _PLANES if "plane" in c.name or c.name == "shared_with" else _WORDS
+    out = rng.choice(words, n).astype(object)
+    out[rng.random(n) < 0.001] = "a, b"  # a comma: quoted in CSV
+    return out.astype(str)
+
+
+def _table(columns, n: int, seed: int = 0) -> dict:
+    rng = np.random.default_rng(seed)
+    return {c.name: _column(c, n, rng) for c in columns}
+
+
+def _peak_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def _time(label: str, write) -> None:
+    before = _peak_mb()
+    start, cpu = time.perf_counter(), time.process_time()
+    path = write()
+    dt, dt_cpu = time.perf_counter() - start, time.process_time() - cpu
+    size = path.stat().st_size
+    print(
+        f"{label:<28} {size / 1e6:8.1f} MB {dt:7.2f} s {size / dt / 1e6:8.1f} MB/s "
+        f"cpu {size / dt_cpu / 1e6:6.1f} MB/s peak +{_peak_mb() - before:6.0f} MB"
+    )
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--rows", type=int, default=1_000_000)
+    args = parser.parse_args(argv)
+    boundaries = _table(BOUNDARY_COLUMNS, args.rows)
+    candidates = _table(CANDIDATE_COLUMNS, args.rows, seed=1)
+    segments = _table(SEGMENT_COLUMNS, args.rows, seed=2)
+    xy = np.round(np.random.default_rng(3).uniform(0, 1e4, (args.rows, 4)), 3).tolist()
+    segments["wkt"] = np.array([f"LINESTRING ({a} {b}, {c} {d})" for a, b, c, d in xy])
+    start = time.perf_counter()
+    _ = np.arange(10**7) * 3
+    print(
+        f"rows: {args.rows}; load probe np.arange(10**7) * 3: {time.perf_counter() - start:.3f} s"
+    )
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        _time("boundaries.csv", lambda: write_csv(folder / "b.csv", boundaries, BOUNDARY_COLUMNS))
+        _time(
+            "boundaries.json",
+            lambda: write_table_json(
+                folder / "b.json", boundaries, BOUNDARY_COLUMNS, schema_version="1", meta={}
+            ),
+        )
+        _time("segments.csv", lambda: write_csv(folder / "s.csv", segments, SEGMENT_COLUMNS))
+        _time(
+            "candidates.jsonl (all rows)",
+            lambda: write_candidates(folder / "c.jsonl", candidates, meta={}, rows="all"),
+        )
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
