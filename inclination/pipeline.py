@@ -446,41 +446,29 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                 path=job.source_path,
                 pointer=pointer,
             )
+            pair = (segments, grain_map, deeper_segments, deeper_grains)
+            settings = {
+                "step_um": step,
+                "laue_by_phase": laue_by_phase,
+                "fiducials_um": layer.fiducials_um,
+                "threshold_deg": job.grains["threshold_deg"],
+                "grid": omap.grid,
+                "path": job.source_path,
+                "pointer": pointer,
+            }
             depth, estimate, registration = layer.depth, None, None
             if depth is None:
                 # No depth given: the coherent twins' known planes measure it (§8).
-                estimate = estimate_depth_from_twins(
-                    segments,
-                    grain_map,
-                    deeper_segments,
-                    deeper_grains,
-                    identification,
-                    step_um=step,
-                    laue_by_phase=laue_by_phase,
-                    fiducials_um=layer.fiducials_um,
-                    threshold_deg=job.grains["threshold_deg"],
-                    grid=omap.grid,
-                    path=job.source_path,
-                    pointer=pointer,
-                )
+                estimate = estimate_depth_from_twins(*pair, identification, **settings)
                 depth, registration = estimate.depth, estimate.registration
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
                 result = measure_serial_section(
-                    segments,
-                    grain_map,
-                    deeper_segments,
-                    deeper_grains,
+                    *pair,
                     depth_um=depth.depth_um,
                     depth_sigma_um=depth.depth_sigma_um,
-                    step_um=step,
-                    laue_by_phase=laue_by_phase,
                     registration=registration,
-                    fiducials_um=layer.fiducials_um,
-                    threshold_deg=job.grains["threshold_deg"],
-                    grid=omap.grid,
-                    path=job.source_path,
-                    pointer=pointer,
+                    **settings,
                 )
             stack.append((deeper_segments, deeper_grains, depth.depth_um, result.registration))
             table = result.boundaries
