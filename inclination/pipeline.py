@@ -10,6 +10,7 @@ file is complete. The command line calls these and nothing else.
 
 from __future__ import annotations
 
+import math
 import os
 import platform
 import warnings
@@ -325,23 +326,41 @@ def _face_note(face, record, table, segments, first):
     }
 
 
-def _depth_note(estimate) -> dict:
-    """The sections note of a depth estimated from the coherent twins (§8)."""
+def _depth_note(estimate, given=None) -> dict:
+    """The sections note of the coherent twins' fit of a serial section (§8).
+
+    ``given`` is the job's depth (a LayerDepth) when it gave one: the twins then refined
+    the registration and their depth is a check on the given one.
+    """
     d = estimate.depth
-    return {
+    fit = (
+        f"{estimate.n_used} identified coherent twins, fitted to their trace offsets "
+        f"Δ = h cot δ of their predicted dips δ (outliers set aside: {estimate.n_rejected})"
+    )
+    if given is None:
+        note = (
+            f"No depth was given: h = {d.depth_um:.3g} ± {d.depth_sigma_um:.2g} µm was "
+            f"estimated from {fit}. Those twins' measured dips agree with their predictions "
+            "by construction and are no evidence for their planes; all dip directions "
+            "(senses) are unaffected."
+        )
+    else:
+        z = (d.depth_um - given.depth_um) / math.hypot(d.depth_sigma_um, given.depth_sigma_um)
+        note = (
+            f"The registration on the grain structure was refined by {fit}, which also "
+            f"imply h = {d.depth_um:.3g} ± {d.depth_sigma_um:.2g} µm against the "
+            f"{given.depth_um:g} µm given ({z:+.1f} σ)."
+        )
+    out = {
         "n_twins": estimate.n_used,
         "n_rejected": estimate.n_rejected,
         "scatter_ratio": round(estimate.scatter_ratio, 3),
-        "note": (
-            f"No depth was given: h = {d.depth_um:.3g} ± {d.depth_sigma_um:.2g} µm was estimated "
-            f"from {estimate.n_used} identified coherent twins, fitted to their trace offsets "
-            f"Δ = h cot δ of their predicted dips δ (outliers set aside: "
-            f"{estimate.n_rejected}). "
-            "Those twins' measured dips agree with their predictions by construction and "
-            "are no evidence for their planes; all dip directions (senses) are unaffected."
-        ),
+        "note": note,
         "segment_ids": [int(i) for i in estimate.segment_ids],
     }
+    if given is not None:
+        out |= {"twins_depth_um": d.depth_um, "twins_depth_sigma_um": d.depth_sigma_um}
+    return out
 
 
 def _sections(job, omap, grain_map, segments, progress, network=None, identification=None):
@@ -461,6 +480,14 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                 # No depth given: the coherent twins' known planes measure it (§8).
                 estimate = estimate_depth_from_twins(*pair, identification, **settings)
                 depth, registration = estimate.depth, estimate.registration
+            elif layer.fiducials_um is None:
+                # A registration on the grain structure is off by the boundaries' net move;
+                # the coherent twins' offsets measure that shift (§8). Too few twins: as is.
+                try:
+                    estimate = estimate_depth_from_twins(*pair, identification, **settings)
+                    registration = estimate.registration
+                except InputError:
+                    estimate = None
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
                 result = measure_serial_section(
@@ -480,7 +507,11 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                     "depth_um": depth.depth_um,
                     "depth_sigma_um": depth.depth_sigma_um,
                     "depth_source": depth.source,
-                    **({} if estimate is None else {"depth_estimate": _depth_note(estimate)}),
+                    **(
+                        {}
+                        if estimate is None
+                        else {"depth_estimate": _depth_note(estimate, layer.depth)}
+                    ),
                     "registration": {
                         "shift_x_um": reg.shift_x_um,
                         "shift_y_um": reg.shift_y_um,

@@ -921,6 +921,19 @@ def estimate_depth_from_twins(
         gain = np.array([np.sum(w * np.cos(az_rad[used])), np.sum(w * np.sin(az_rad[used]))])
         gain /= float(np.sum(x[used] ** 2 / sigma[used] ** 2))
         variance += first.registration.shift_sigma_um**2 * float(gain @ gain)
+    registration = first.registration
+    if free_shift:
+        # The fitted e is the placement's error along the offsets (Δ grows by e·u when the
+        # deeper map is placed e too far, p_surface = R p_deeper + shift): take it off.
+        fit = design[used] @ coef - y[used]
+        registration = Registration(
+            registration.shift_x_um - float(coef[1]),
+            registration.shift_y_um - float(coef[2]),
+            registration.rotation_deg,
+            float(np.sqrt(np.mean(fit**2))),
+            int(used.sum()),
+            "grain structure and coherent twins",
+        )
     return TwinDepth(
         depth=LayerDepth(
             depth_um=abs(h), depth_sigma_um=math.sqrt(variance), source="coherent twins"
@@ -929,5 +942,5 @@ def estimate_depth_from_twins(
         n_rejected=int(n_twins - used.sum()),
         scatter_ratio=float(ratio),
         segment_ids=seg_id[use][used],
-        registration=first.registration,
+        registration=registration,
     )
