@@ -43,13 +43,13 @@ def test_overlay_labels_only_used_lines_and_skips_low_contrast():
     from inclination.sections import measure_face_image
 
     # Cap over two grains split by a 45° line (by construction, as in test_face_image),
-    # plus a step of half the noise SD at col 30: kept apart by the region merging (large
-    # regions), below the 1.5 SD of a sure line, so a low-contrast line.
+    # plus a step of two noise SDs at col 30: kept apart by the region merging (over its
+    # 1.5 SD floor), under the 3 SD asked of a sure line here, so a low-contrast line.
     img = np.full((60, 120), 0.3)
     img[:12] = 0.95
     cols, rows = np.meshgrid(np.arange(120), np.arange(60))
     img[(rows >= 12) & (cols > 60 + (rows - 12))] = 0.7
-    img[(rows >= 12) & (cols < 30)] = 0.31
+    img[(rows >= 12) & (cols < 30)] = 0.34
     img = img + np.random.default_rng(0).normal(0, 0.02, img.shape)
     m = measure_face_image(
         img,
@@ -59,6 +59,7 @@ def test_overlay_labels_only_used_lines_and_skips_low_contrast():
         right_along_line=True,
         tilt_deg=90.0,
         window_um=(0.3, 3.0),
+        min_contrast=3.0,
     )
     assert "low_contrast" in m.lines["status"].tolist()
     artists = plot_face_overlay(img, m)

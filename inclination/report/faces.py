@@ -270,8 +270,12 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
         files.append(write_json_atomic(folder / f"{stem}_entries.json", doc))
         # Each used line by its place in 'boundaries', with the trace it matched.
         labels = [""] * len(seg_of_line)
+        flagged = np.asarray(face.get("grey_check", []), dtype=str) == "inconsistent"
         for k, i in enumerate(used):
             labels[i] = f"{k + 1}" + (f"→{seg_of_line[i]}" if seg_of_line[i] >= 0 else "")
+            # The grey check's doubt shows on the figure; its reason is in the entries file.
+            if k < len(flagged) and flagged[k]:
+                labels[i] += " ?"
         height, width = face["image"].shape
         # A face is far wider than deep: show it in strips of at most six heights.
         chunk = max(200, 6 * height)
@@ -288,8 +292,8 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
             if c1 < width:
                 ax.axvspan(c1 - 0.5, c0 + chunk - 0.5, color="white", zorder=5)
         axes[0, 0].set_title(
-            f"{face['name']}: entry number→trace id; measured (solid), identified plane "
-            f"(dashed), unsure (faint dotted; listed in {stem}_entries.json)",
+            f"{face['name']}: entry→trace id; measured solid, identified plane dashed, "
+            f"unsure faint; ? grey check flag (why: {stem}_entries.json)",
             fontsize=7,
         )
         import io

