@@ -71,3 +71,14 @@ def test_overlay_labels_only_used_lines_and_skips_low_contrast():
     # low-contrast one.
     shown = np.isin(m.lines["status"], ["used", "short", "curved"]).sum()
     assert len(drawn) == 1 + shown
+
+
+def test_report_block_embeds_the_overlay_so_the_page_stands_alone():
+    png = b"\x89PNG\r\n\x1a\n-not-a-real-image"
+    html = "".join(
+        face_images_section_html(_summary([]), overlays={"sections/trench_A_overlay.png": png})
+    )
+    # base64 of the bytes above (Python's base64 module, RFC 4648).
+    assert 'src="data:image/png;base64,iVBORw0KGgotbm90LWEtcmVhbC1pbWFnZQ=="' in html
+    # Without the bytes the overlay is linked by its path in the run folder.
+    assert 'src="sections/trench_A_overlay.png"' in "".join(face_images_section_html(_summary([])))

@@ -12,6 +12,8 @@ reads only ``summary.json``. matplotlib is imported inside the functions.
 
 from __future__ import annotations
 
+import base64
+import html
 import re
 
 import numpy as np
@@ -316,10 +318,12 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
     return files, notes
 
 
-def face_images_section_html(summary: dict) -> list:
-    """HTML lines of the report's face-image block (empty without face images)."""
-    import html
+def face_images_section_html(summary: dict, *, overlays=None) -> list:
+    """HTML lines of the report's face-image block (empty without face images).
 
+    ``overlays`` maps an overlay's file name (as the summary gives it) to its PNG
+    bytes, embedded as data so the page stands alone; one not given is linked.
+    """
     faces = summary.get("face_images") or []
     if not faces:
         return []
@@ -332,9 +336,17 @@ def face_images_section_html(summary: dict) -> list:
             f'<a href="{esc(f["entries"])}">{esc(f["entries"])}</a>.</p>'
             + "".join(f"<p>Grey check flags: {esc(r)}.</p>" for r in f.get("grey_flagged", []))
             + f'<p><img alt="face image of {esc(f["name"])} with measured lines" '
-            f'style="max-width:100%" src="{esc(f["overlay"])}"></p>'
+            f'style="max-width:100%" src="{_image_src(f["overlay"], overlays)}"></p>'
         )
     return parts
+
+
+def _image_src(name, overlays):
+    """An overlay's PNG as data when its bytes are given (a page that stands alone)."""
+    data = (overlays or {}).get(name)
+    if data is None:
+        return html.escape(name)
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
 def face_images_section_markdown(summary: dict) -> list:
