@@ -13,8 +13,12 @@ sample frame S of conventions §2):
 - ``surface.npz``: the surface map, step 0.5 µm, square grid, 0.5° noise, 1 %
   non-indexed points, a few mis-indexed clusters;
 - ``serial_5um.npz``: the same area after removing 5 µm (§8);
-- ``job.json``: phases, map, grain and trace settings, two cross-sections (§7,
-  image angles with 1° noise, imaging tilt 52°) and the serial section;
+- ``face_a.tif``, ``face_b.tif``: the face images of the two cross-sections (§7),
+  rendered by :func:`inclination.synthetic.render_face_image` (imaging tilt 52°,
+  0.1 µm pixels, every grain at its own grey level, a bright cap, dark trench walls,
+  blur and noise); the tool measures the boundaries on them;
+- ``job.json``: phases, map, grain and trace settings, the two cross-sections (each
+  an ``image`` entry: path, pixel size, start pixel) and the serial section;
 - ``surface_z180.npz``, ``serial_5um_z180.npz``, ``job_z180.json``: the same
   sample recorded by an instrument whose data frame is turned 180° about Z_S (§6),
   the job unaware of it: traces agree, every predicted dip direction is reversed;
@@ -30,6 +34,7 @@ sample frame S of conventions §2):
 
 from __future__ import annotations
 
+import io
 import os
 from pathlib import Path
 
@@ -37,7 +42,7 @@ import numpy as np
 
 from .crystal.phases import Phase
 from .io.writers import write_npz
-from .report.atomic import write_json_atomic
+from .report.atomic import write_bytes_atomic, write_json_atomic
 from .synthetic import (
     Microstructure,
     SampledMap,
@@ -46,8 +51,8 @@ from .synthetic import (
     ground_truth,
     make_microstructure,
     recorded_in_frame,
+    render_face_image,
     sample_map,
-    simulate_cross_section,
 )
 
 __all__ = ["DEMO_SEED", "write_demo_scenario"]
@@ -67,6 +72,11 @@ _BOX_UM = (200.0, 150.0, 30.0)
 _STEP_UM = 0.5
 _SERIAL_DEPTH_UM = 5.0
 _TILT_DEG = 52.0
+# The face images (invented microscope settings): 0.1 µm pixels, 4 µm of face shown,
+# noise SD 0.02 of the grey range, as the synthetic face-image tests use.
+_FACE_PIXEL_UM = 0.1
+_FACE_DEPTH_UM = 4.0
+_FACE_NOISE_SD = 0.02
 
 
 def _trench_lines(micro: Microstructure, surface: SampledMap) -> tuple[dict, dict]:
@@ -90,15 +100,26 @@ def _trench_lines(micro: Microstructure, surface: SampledMap) -> tuple[dict, dic
     return (
         {
             "name": "trench A",
+            "key": "a",
             "line_um": ((10.0, y), (lx - 10.0, y)),
             "viewer_at_um": (lx / 2, y + 6),
         },
         {
             "name": "trench B",
+            "key": "b",
             "line_um": ((x, 10.0), (x, ly - 10.0)),
             "viewer_at_um": (x - 7, ly / 2),
         },
     )
+
+
+def _write_face_tiff(path: Path, image: np.ndarray) -> Path:
+    # 16-bit greyscale, as a microscope exports it; read back by sections.read_face_image.
+    import tifffile
+
+    buf = io.BytesIO()
+    tifffile.imwrite(buf, np.round(np.clip(image, 0.0, 1.0) * 65535).astype(np.uint16))
+    return write_bytes_atomic(path, buf.getvalue())
 
 
 def _map_entry(path: str) -> dict:
@@ -155,7 +176,7 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     dict of str to Path
         ``surface``, ``serial``, ``job``, ``surface_z180``, ``serial_z180``,
         ``job_z180``, ``truth``, ``surface_z90``, ``serial_z90``, ``job_z90``,
-        ``survey``, ``job_survey``.
+        ``survey``, ``job_survey``, ``face_a``, ``face_b``.
 
     Examples
     --------
@@ -163,8 +184,8 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     >>> with tempfile.TemporaryDirectory() as folder:
     ...     paths = write_demo_scenario(folder)
     >>> sorted(paths)  # doctest: +NORMALIZE_WHITESPACE
-    ['job', 'job_survey', 'job_z180', 'job_z90', 'serial', 'serial_z180', 'serial_z90',
-     'surface', 'surface_z180', 'surface_z90', 'survey', 'truth']
+    ['face_a', 'face_b', 'job', 'job_survey', 'job_z180', 'job_z90', 'serial', 'serial_z180',
+     'serial_z90', 'surface', 'surface_z180', 'surface_z90', 'survey', 'truth']
     """
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer):
         raise TypeError(f"Expected `seed` to be an integer, got {type(seed).__name__}.")
@@ -183,7 +204,7 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
     surface = sample_map(micro, rng=gen, misindexed_clusters=3, **options)
     serial = sample_map(micro, rng=gen, depth_um=_SERIAL_DEPTH_UM, **options)
 
-    sections, section_truth = [], []
+    sections, section_truth, faces = [], [], {}
     for spec in _trench_lines(micro, surface):
         geometry = {
             "line_um": spec["line_um"],
@@ -191,16 +212,20 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
             "imaging_tilt_deg": _TILT_DEG,
             "max_depth_um": 3.0,
         }
-        found = simulate_cross_section(micro, rng=gen, angle_noise_deg=1.0, **geometry)
-        # Read off an image as a person would: positions to 0.01 µm, angles to 0.1°.
-        found = [
-            {
-                "along_um": round(entry["along_um"], 2),
-                "image_angle_deg": max(round(entry["image_angle_deg"], 1), 0.1),
-                "descends": entry["descends"],
-            }
-            for entry in found
-        ]
+        # The face as the microscope shows it (conventions §7): grains at their own grey
+        # levels, bright cap, dark trench walls, blur and noise; the tool measures it.
+        face = render_face_image(
+            micro,
+            line_um=spec["line_um"],
+            viewer_at_um=spec["viewer_at_um"],
+            imaging_tilt_deg=_TILT_DEG,
+            pixel_um=_FACE_PIXEL_UM,
+            depth_um=_FACE_DEPTH_UM,
+            rng=gen,
+            noise_sd=_FACE_NOISE_SD,
+        )
+        image_name = f"face_{spec['key']}.tif"
+        faces[f"face_{spec['key']}"] = _write_face_tiff(out / image_name, face.image)
         sections.append(
             {
                 "kind": "cross-section",
@@ -208,13 +233,20 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
                 "line_um": [list(p) for p in spec["line_um"]],
                 "viewer_at_um": list(spec["viewer_at_um"]),
                 "imaging_tilt_deg": _TILT_DEG,
-                "boundaries": found,
+                "image": {
+                    "path": image_name,
+                    "pixel_um": _FACE_PIXEL_UM,
+                    "line_start_px": [round(v, 3) for v in face.line_start_px],
+                },
             }
         )
         table = cross_section_crossings(micro, **geometry)
+        grey = face.grey_by_region
         section_truth.append(
             {
                 "name": spec["name"],
+                "image": image_name,
+                "noise_sd": _FACE_NOISE_SD,
                 "crossings": [
                     {
                         "along_um": float(table["along_um"][i]),
@@ -224,6 +256,11 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
                         "beta_deg": float(table["beta_deg"][i]),
                         "image_angle_deg": float(table["image_angle_deg"][i]),
                         "descends": str(table["descends"][i]),
+                        # The grey step the image shows across it, in noise SDs.
+                        "contrast": float(
+                            abs(grey[table["region_a"][i]] - grey[table["region_b"][i]])
+                            / _FACE_NOISE_SD
+                        ),
                     }
                     for i in range(len(table["along_um"]))
                 ],
@@ -231,6 +268,7 @@ def write_demo_scenario(out_dir: str | os.PathLike, *, seed: int = DEMO_SEED) ->
         )
 
     paths = {
+        **faces,
         "surface": _write_npz(out / "surface.npz", surface),
         "serial": _write_npz(out / "serial_5um.npz", serial),
         "surface_z180": _write_npz(

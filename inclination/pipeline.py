@@ -79,7 +79,9 @@ class Analysis:
         ``record`` (the :class:`~inclination.sections.CrossSection` measured),
         ``table`` (its section table), ``first_image_entry`` (rows from there on
         came from the image), ``image`` (the grey levels, for the overlay),
-        ``grey_check`` (per image entry, :func:`inclination.sections.neighbour_check`).
+        ``grey_check`` (per image entry, :func:`inclination.sections.neighbour_check`),
+        ``grey_check_notes`` (why each flagged pair is flagged,
+        :func:`inclination.sections.neighbour_check_notes`).
     audit : FrameAudit or None
         The frame audit (inclination.audit), from the planes stage on.
 
@@ -282,9 +284,14 @@ def _face_image(section, record, job_path, pointer):
     return face, image
 
 
-def _grey_check(face, table, segments, first):
-    """The image's grey regions against the matched traces' grains, per used line."""
-    from .sections import neighbour_check
+def _grey_check(face, table, segments, first, crossings):
+    """The image's grey regions against the matched traces' grains, per used line.
+
+    Returns ``(check, notes)``: the notes say why each flagged pair is flagged, from the
+    map's ``crossings`` of the section line (None without a network: none between
+    traces; :func:`.sections.neighbour_check_notes`).
+    """
+    from .sections import neighbour_check, neighbour_check_notes
 
     used = face.lines["status"] == "used"
     seg_ids = np.asarray(table["segment_id"])[first:]
@@ -295,13 +302,24 @@ def _grey_check(face, table, segments, first):
         if s >= 0:
             ga[j] = int(segments["grain_a"][row_of[int(s)]])
             gb[j] = int(segments["grain_b"][row_of[int(s)]])
-    return neighbour_check(
-        face.lines["region_left"][used], face.lines["region_right"][used], ga, gb
+    left, right = face.lines["region_left"][used], face.lines["region_right"][used]
+    if crossings is None:
+        crossings = {
+            "along_um": np.zeros(0),
+            "grain_a": np.zeros(0, np.int64),
+            "grain_b": np.zeros(0, np.int64),
+        }
+    notes = neighbour_check_notes(
+        face.lines["along_um"][used], left, right, ga, gb, crossings=crossings
     )
+    return neighbour_check(left, right, ga, gb), notes
 
 
-def _face_note(face, record, table, segments, first):
-    """What summary.json says of a face image: lines found, used, and the match offset."""
+def _face_note(face, record, table, segments, first, grey):
+    """What summary.json says of a face image: lines found, used, and the match offset.
+
+    ``grey`` is the ``(check, notes)`` pair of :func:`_grey_check`.
+    """
     from .sections import along_offsets_um
 
     lines = face.lines
@@ -310,9 +328,14 @@ def _face_note(face, record, table, segments, first):
     offsets = along_offsets_um(
         record, segments, table["segment_id"][matched], np.asarray(table["along_um"])[matched]
     )
-    check = _grey_check(face, table, segments, first)
+    check, why = grey
     return {
-        "grey_check": {k: int(np.sum(check == k)) for k in ("consistent", "inconsistent")},
+        "grey_check": {
+            **{k: int(np.sum(check == k)) for k in ("consistent", "inconsistent")},
+            # Each flagged pair of lines and why (the map shows a boundary the face
+            # hides, or a line matched to the wrong trace).
+            "flagged": why,
+        },
         "lines_found": int(len(lines["status"])),
         "lines_used": int(np.sum(lines["status"] == "used")),
         "unsure": {
@@ -406,20 +429,20 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                 )
             # Matches come from where the network itself crosses the line, and entries
             # at a triple junction are flagged (conventions §7).
+            crossings = None if network is None else network_crossings(network, record.line_sample)
             table = measure_cross_section(
                 record,
                 segments,
                 step_um=step,
                 bounds_um=_map_bounds_um(omap),
-                crossings=None
-                if network is None
-                else network_crossings(network, record.line_sample),
+                crossings=crossings,
                 junctions_um=None if network is None else junctions,
                 path=job.source_path,
                 pointer=pointer,
             )
             if face is not None:
                 table["dip_source"][listed:] = "cross-section image"
+                grey = _grey_check(face, table, segments, listed, crossings)
                 faces.append(
                     {
                         "name": name,
@@ -429,7 +452,8 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                         "table": table,
                         "first_image_entry": listed,
                         "image": face_grey,
-                        "grey_check": _grey_check(face, table, segments, listed),
+                        "grey_check": grey[0],
+                        "grey_check_notes": grey[1],
                     }
                 )
             notes.append(
@@ -441,7 +465,7 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                     **(
                         {}
                         if face is None
-                        else {"image": _face_note(face, record, table, segments, listed)}
+                        else {"image": _face_note(face, record, table, segments, listed, grey)}
                     ),
                 }
             )

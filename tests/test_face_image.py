@@ -179,3 +179,59 @@ def test_measure_errors():
         _measure(np.zeros((40, 40)))
     with pytest.raises(ValueError, match="fewer than 16"):
         _measure(img, line_length_um=0.5)
+
+
+def _pinched_wedge(*, wedge=True, noise_sd=0.02, rng=0, shape=(60, 120)):
+    """Grain | lamella | wedge | grain, the wedge pinching out 0.8 µm below the surface.
+
+    By construction (90° tilt, 0.1 µm pixels): the lamella's left boundary leaves the
+    surface at col 40 and runs down at 63° (slope 0.5 px per row); the boundary between
+    the lamella and the right grain leaves the surface at col 75 (along 6.5 µm from the
+    start col 10), but with ``wedge`` a grain between them from col 65 to col 75 at the
+    surface closes 8 rows down, so that boundary only begins there.
+    """
+    img = np.full(shape, 0.3)
+    cols, rows = np.meshgrid(np.arange(shape[1]), np.arange(shape[0]))
+    d = rows - 12
+    img[(d >= 0) & (cols > 75 - 0.5 * d)] = 0.45
+    img[(d >= 0) & (cols > 40 + 0.5 * d) & (cols <= 75 - 0.5 * d)] = 0.75
+    if wedge:
+        img[(d >= 0) & (cols > 65 + 0.75 * d) & (cols <= 75 - 0.5 * d)] = 0.6
+    img[:12] = 0.95
+    return img + np.random.default_rng(rng).normal(0, noise_sd, shape)
+
+
+def test_line_under_a_grain_pinching_out_is_not_used():
+    # The boundary under the wedge does not meet the surface where its line would: its
+    # points start 8 px down, not at the top of the window (a line the grey check flags
+    # when used, matched to the wedge's trace), so it is short, not used.
+    m = _measure(_pinched_wedge())
+    used = m.lines["status"] == "used"
+    assert not np.any(np.abs(m.lines["along_um"][used] - 6.5) < 0.5), m.lines["along_um"][used]
+    np.testing.assert_allclose(m.lines["along_um"][used], [3.0], rtol=0, atol=0.1)
+    # Without the wedge the same boundary meets the surface and is measured.
+    plain = _measure(_pinched_wedge(wedge=False))
+    used = plain.lines["status"] == "used"
+    np.testing.assert_allclose(plain.lines["along_um"][used], [3.0, 6.5], rtol=0, atol=0.1)
+
+
+def test_neighbour_check_notes_say_why():
+    # Two lines bound one grey region (2) but their traces share no grain: the map shows
+    # boundary 43|44 between them, a grain (44) the face hides.
+    from inclination.sections import neighbour_check, neighbour_check_notes
+
+    crossings = {
+        "along_um": np.array([10.0, 12.5, 14.0, 30.0]),
+        "grain_a": np.array([40, 43, 44, 31]),
+        "grain_b": np.array([43, 44, 31, 50]),
+    }
+    args = ([1, 2, 3], [2, 3, 4], [40, 31, 31], [43, 44, 50])
+    assert neighbour_check(*args).tolist() == ["inconsistent", "inconsistent", "consistent"]
+    notes = neighbour_check_notes([10.0, 13.8, 30.0], *args, crossings=crossings)
+    assert len(notes) == 1 and notes[0]["lines"] == [0, 1]
+    assert notes[0]["between"] == [{"along_um": 12.5, "grains": [43, 44]}]
+    assert "43|44 at 12.50 µm" in notes[0]["reason"] and "pinches out" in notes[0]["reason"]
+    # Without a boundary between them on the map, one of the lines is matched wrongly.
+    bare = {k: v[[0, 2, 3]] for k, v in crossings.items()}
+    notes = neighbour_check_notes([10.0, 13.8, 30.0], *args, crossings=bare)
+    assert notes[0]["between"] == [] and "matched to the wrong trace" in notes[0]["reason"]

@@ -891,11 +891,20 @@ def test_demo_scenario_files(tmp_path):
     grains = 60 <= sum(g["kind"] == "grain" for g in truth["grains"]) <= 150
     assert grains and len(truth["lamellae"]) >= 5
     crossings = [c for s in truth["scenario"]["cross_sections"] for c in s["crossings"]]
-    listed = [
-        b for s in jobs["job"]["sections"] if s["kind"] == "cross-section" for b in s["boundaries"]
-    ]
-    assert len(crossings) == len(listed) >= 6 and any(c["is_twin"] for c in crossings)
-    assert [b["descends"] for b in listed] == [c["descends"] for c in crossings]
+    assert len(crossings) >= 6 and any(c["is_twin"] for c in crossings)
+    # The cross-sections come as face images for the tool to measure, never as typed
+    # boundary lists (conventions §7); each image reads back as a greyscale face.
+    from inclination.sections import read_face_image
+
+    faces = [s for s in jobs["job"]["sections"] if s["kind"] == "cross-section"]
+    assert len(faces) == len(truth["scenario"]["cross_sections"]) == 2
+    for section, known in zip(faces, truth["scenario"]["cross_sections"], strict=True):
+        assert "boundaries" not in section and section["image"]["path"] == known["image"]
+        image = read_face_image(tmp_path / section["image"]["path"])
+        col, row = section["image"]["line_start_px"]
+        assert 0 <= col < image.shape[1] and 0 <= row < image.shape[0]
+        # The bright cap above the surface edge, the darker face below it.
+        assert image[: int(row) - 2].mean() > image[int(row) + 3 :].mean() + 0.2
     again = write_demo_scenario(tmp_path / "again", seed=3)
     assert again["job"].read_text() == paths["job"].read_text()
 

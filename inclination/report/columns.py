@@ -312,7 +312,8 @@ BOUNDARY_COLUMNS = (
             "dip_source",
             "str",
             0,
-            "cross-section, serial-section or serial-stack; empty if not measured",
+            "cross-section (entries typed in the job), cross-section image (measured on the "
+            "face image), serial-section or serial-stack; empty if not measured",
             "Dip source",
             "",
             "fixed",
@@ -420,7 +421,12 @@ CLASS_DESCRIPTIONS = {
 }
 
 #: Symbols of the dip sources in the paper table.
-SOURCE_SYMBOLS = {"cross-section": "X", "serial-section": "S", "serial-stack": "K"}
+SOURCE_SYMBOLS = {
+    "cross-section": "X",
+    "cross-section image": "XI",
+    "serial-section": "S",
+    "serial-stack": "K",
+}
 
 #: The paper table: one row per selected boundary, every cell a rounded string.
 PAPER_COLUMNS = (

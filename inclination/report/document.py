@@ -239,10 +239,12 @@ def render_markdown(summary: dict, table: dict) -> str:
     return "\n".join(lines)
 
 
-def render_html(summary: dict, table: dict, *, figures=()) -> str:
+def render_html(summary: dict, table: dict, *, figures=(), face_overlays=None) -> str:
     """The report as one self-contained HTML page.
 
-    ``figures`` is a sequence of ``(title, png_bytes)``, embedded as data.
+    ``figures`` is a sequence of ``(title, png_bytes)``, embedded as data;
+    ``face_overlays`` maps each face image's overlay file (as ``summary`` names it)
+    to its PNG bytes, embedded too (a missing one is linked by its path).
 
     Examples
     --------
@@ -287,7 +289,7 @@ def render_html(summary: dict, table: dict, *, figures=()) -> str:
             )
         parts.append("</section>")
     parts += features_section_html(summary)
-    parts += face_images_section_html(summary)
+    parts += face_images_section_html(summary, overlays=face_overlays)
     paper = paper_table(table)
     parts += [
         '<section id="boundaries"><h2>Boundaries</h2>',
@@ -306,8 +308,9 @@ def render_html(summary: dict, table: dict, *, figures=()) -> str:
 def write_report(out_dir, summary: dict, table: dict):
     """Write ``report.html`` and ``report.md`` into ``out_dir``; returns their paths.
 
-    The figures listed in ``summary["figures"]`` are read from ``out_dir`` and
-    embedded; a listed figure that is missing is left out of the HTML page.
+    The figures listed in ``summary["figures"]`` and the face overlays of
+    ``summary["face_images"]`` are read from ``out_dir`` and embedded; a listed
+    figure that is missing is left out of the HTML page.
     """
     out = Path(out_dir)
     figures = []
@@ -318,7 +321,15 @@ def write_report(out_dir, summary: dict, table: dict):
         if os.path.lexists(path):
             check_regular_file(path, kind="run")
             figures.append((f["title"], path.read_bytes()))
+    overlays = {}
+    for f in summary.get("face_images") or []:
+        # The same rule for the face overlays, files of this folder's sections/.
+        path = out / "sections" / Path(str(f["overlay"])).name
+        if os.path.lexists(path):
+            check_regular_file(path, kind="run")
+            overlays[f["overlay"]] = path.read_bytes()
+    page = render_html(summary, table, figures=figures, face_overlays=overlays)
     return [
-        write_text_atomic(out / "report.html", render_html(summary, table, figures=figures)),
+        write_text_atomic(out / "report.html", page),
         write_text_atomic(out / "report.md", render_markdown(summary, table)),
     ]

@@ -12,6 +12,8 @@ reads only ``summary.json``. matplotlib is imported inside the functions.
 
 from __future__ import annotations
 
+import base64
+import html
 import re
 
 import numpy as np
@@ -29,7 +31,7 @@ __all__ = [
 # Okabe & Ito (2008) colour-blind-safe hues: measured lines, predicted lines, unsure
 # lines and the surface edge.
 _MEASURED = "#E69F00"
-_PREDICTED = "#56B4E9"
+_PREDICTED = "#0072B2"
 _UNSURE = "#CC79A7"
 _SURFACE = "#009E73"
 
@@ -49,6 +51,10 @@ def plot_face_overlay(
 ):
     """Draw a face image with its surface edge and measured lines.
 
+    The used lines are drawn solid with their labels, the identified plane's line
+    dashed beside each; short and curved lines faintly, unlabelled; low-contrast lines
+    not at all (they are listed in the entries file).
+
     Parameters
     ----------
     image : array_like, shape (H, W)
@@ -56,7 +62,8 @@ def plot_face_overlay(
     measurement : FaceMeasurement
         From :func:`inclination.sections.measure_face_image`.
     labels : sequence of str, optional
-        Text beside each line of ``measurement.lines`` (default its number).
+        Text beside each line of ``measurement.lines`` (an empty string: none).
+        Default: each used line's number in the entries list, 1 upwards.
     predicted_uv : array_like, shape (K, 2), optional
         Image direction ``(du, dv)`` of the identified plane's line for each line
         (NaN rows are not drawn), from
@@ -91,36 +98,56 @@ def plot_face_overlay(
     artists += ax.plot(s[:, 0], s[:, 1], color=_SURFACE, lw=0.8)
     t = measurement.lines
     n = len(t["status"])
-    names = [str(i + 1) for i in range(n)] if labels is None else list(labels)
+    used = t["status"] == "used"
+    if labels is None:
+        # The used lines by their place in the entries list (FaceMeasurement.entries).
+        labels = [""] * n
+        for k, i in enumerate(np.flatnonzero(used)):
+            labels[i] = str(k + 1)
+    names = list(labels)
     pred = None if predicted_uv is None else np.asarray(predicted_uv, float)
     rho = np.deg2rad(measurement.rotation_deg)
     e_u = np.array([np.cos(rho), -np.sin(rho)])
     e_v = np.array([np.sin(rho), np.cos(rho)])
-    for i in range(n):
-        used = t["status"][i] == "used"
+    for i in np.flatnonzero(~used):
+        # Unsure lines stay in the entries file's list; low-contrast ones (mostly the
+        # noise splitting one grain) are not drawn, the short and curved ones faintly,
+        # so that the measured lines stay readable.
+        if t["status"][i] == "low_contrast":
+            continue
         x = [t["col0_px"][i], t["col1_px"][i]]
         y = [t["row0_px"][i], t["row1_px"][i]]
-        artists += ax.plot(
-            x, y, color=_MEASURED if used else _UNSURE, lw=1.0, ls="-" if used else ":"
-        )
-        artists.append(
-            ax.text(
-                x[0],
-                y[0] - 2,
-                names[i],
-                color=_MEASURED if used else _UNSURE,
-                fontsize=6,
-                ha="center",
-                va="bottom",
-                clip_on=True,
-            )
-        )
+        artists += ax.plot(x, y, color=_UNSURE, lw=0.8, ls=":", alpha=0.7)
+    for k, i in enumerate(np.flatnonzero(used)):
+        x = [t["col0_px"][i], t["col1_px"][i]]
+        y = [t["row0_px"][i], t["row1_px"][i]]
+        artists += ax.plot(x, y, color=_MEASURED, lw=1.2, ls="-")
         if pred is not None and np.all(np.isfinite(pred[i])):
             depth = np.hypot(x[1] - x[0], y[1] - y[0])
             d = pred[i, 0] * e_u + pred[i, 1] * e_v
-            # Beside the measured line, from the same point on the surface edge.
-            end = np.array([x[0], y[0]]) + d * depth
-            artists += ax.plot([x[0], end[0]], [y[0], end[1]], color=_PREDICTED, lw=1.0, ls="--")
+            # From the same point on the surface edge, drawn over the measured line and
+            # half as far again below it: where the plane is right the two coincide, and
+            # the dashes and the end beyond show both.
+            end = np.array([x[0], y[0]]) + d * 1.5 * depth
+            artists += ax.plot(
+                [x[0], end[0]], [y[0], end[1]], color=_PREDICTED, lw=1.2, ls=(0, (3, 2))
+            )
+        if names[i]:
+            # Neighbouring lines a few pixels apart: their labels alternate in height.
+            # A dark box keeps the orange label legible on the bright cap.
+            artists.append(
+                ax.text(
+                    x[0],
+                    y[0] - 2 - 8 * (k % 2),
+                    names[i],
+                    color=_MEASURED,
+                    fontsize=7,
+                    ha="center",
+                    va="bottom",
+                    clip_on=True,
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "black", "ec": "none", "alpha": 0.7},
+                )
+            )
     ax.set_axis_off()
     return artists
 
@@ -151,6 +178,23 @@ def _predicted_directions(analysis, record, table, first):
                 face_inclination_deg=record.face_inclination_deg,
             )[0]
     return out
+
+
+def _strip_starts(width, chunk, label_cols, *, clear_px=30):
+    """First column of each strip of a wide face, no break within ``clear_px`` of a label.
+
+    A strip ends at most ``chunk`` columns after its start, earlier where a used line's
+    label would be cut by the break.
+    """
+    cols = np.asarray(label_cols, dtype=float)
+    starts = [0]
+    while starts[-1] + chunk < width:
+        end = starts[-1] + chunk
+        # Walk the break back from the strip's end until no label is near it.
+        while end > starts[-1] + chunk // 2 and np.any(np.abs(cols - end) < clear_px):
+            end -= 5
+        starts.append(int(end))
+    return starts
 
 
 def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
@@ -213,6 +257,11 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
             # The image's grey regions against the matched traces' grains, per entry
             # (a second check of the match; inclination.sections.neighbour_check).
             "grey_check": [str(c) for c in face.get("grey_check", [])],
+            # Why each flagged pair of entries is flagged (entry numbers from 1).
+            "grey_check_notes": [
+                {**n, "entries": [i + 1 for i in n["lines"]]}
+                for n in face.get("grey_check_notes", [])
+            ],
             "unsure": unsure,
             "surface": {
                 "rotation_deg": round(m.rotation_deg, 4),
@@ -221,24 +270,32 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
             },
         }
         files.append(write_json_atomic(folder / f"{stem}_entries.json", doc))
-        labels = [
-            f"{i + 1}" + (f"→{seg_of_line[i]}" if seg_of_line[i] >= 0 else "")
-            for i in range(len(seg_of_line))
-        ]
+        # Each used line by its place in 'boundaries', with the trace it matched.
+        labels = [""] * len(seg_of_line)
+        flagged = np.asarray(face.get("grey_check", []), dtype=str) == "inconsistent"
+        for k, i in enumerate(used):
+            labels[i] = f"{k + 1}" + (f"→{seg_of_line[i]}" if seg_of_line[i] >= 0 else "")
+            # The grey check's doubt shows on the figure; its reason is in the entries file.
+            if k < len(flagged) and flagged[k]:
+                labels[i] += " ?"
         height, width = face["image"].shape
         # A face is far wider than deep: show it in strips of at most six heights.
         chunk = max(200, 6 * height)
-        starts = list(range(0, width, chunk))
+        starts = _strip_starts(width, chunk, m.lines["col0_px"][used])
+        ends = [*starts[1:], width]
         fig, axes = plt.subplots(
             len(starts), 1, figsize=(9.0, 0.3 + 9.0 * height / chunk * len(starts)), squeeze=False
         )
-        for ax, c0 in zip(axes[:, 0], starts, strict=True):
+        for ax, c0, c1 in zip(axes[:, 0], starts, ends, strict=True):
             plot_face_overlay(face["image"], m, labels=labels, predicted_uv=pred, ax=ax)
-            ax.set_xlim(c0 - 0.5, min(width, c0 + chunk) - 0.5)
+            ax.set_xlim(c0 - 0.5, c0 + chunk - 0.5)
             ax.set_ylim(height - 0.5, -0.5)
+            # Past the strip's end the next strip shows the face; leave it blank here.
+            if c1 < width:
+                ax.axvspan(c1 - 0.5, c0 + chunk - 0.5, color="white", zorder=5)
         axes[0, 0].set_title(
-            f"{face['name']}: line number→trace id; measured (solid), identified plane "
-            "(dashed), unsure (dotted)",
+            f"{face['name']}: entry→trace id; measured solid, identified plane dashed, "
+            f"unsure faint; ? grey check flag (why: {stem}_entries.json)",
             fontsize=7,
         )
         import io
@@ -255,15 +312,18 @@ def write_face_outputs(analysis, out_dir) -> tuple[list, list[dict]]:
                 "lines_found": int(len(m.lines["status"])),
                 "lines_used": int(len(used)),
                 "matched": int(np.sum(seg_of_line >= 0)),
+                "grey_flagged": [n["reason"] for n in face.get("grey_check_notes", [])],
             }
         )
     return files, notes
 
 
-def face_images_section_html(summary: dict) -> list:
-    """HTML lines of the report's face-image block (empty without face images)."""
-    import html
+def face_images_section_html(summary: dict, *, overlays=None) -> list:
+    """HTML lines of the report's face-image block (empty without face images).
 
+    ``overlays`` maps an overlay's file name (as the summary gives it) to its PNG
+    bytes, embedded as data so the page stands alone; one not given is linked.
+    """
     faces = summary.get("face_images") or []
     if not faces:
         return []
@@ -274,10 +334,19 @@ def face_images_section_html(summary: dict) -> list:
             f"<p>{esc(f['name'])}: {f['lines_used']} of {f['lines_found']} lines used, "
             f"{f['matched']} matched to traces; entries to copy into the job: "
             f'<a href="{esc(f["entries"])}">{esc(f["entries"])}</a>.</p>'
-            f'<p><img alt="face image of {esc(f["name"])} with measured lines" '
-            f'style="max-width:100%" src="{esc(f["overlay"])}"></p>'
+            + "".join(f"<p>Grey check flags: {esc(r)}.</p>" for r in f.get("grey_flagged", []))
+            + f'<p><img alt="face image of {esc(f["name"])} with measured lines" '
+            f'style="max-width:100%" src="{_image_src(f["overlay"], overlays)}"></p>'
         )
     return parts
+
+
+def _image_src(name, overlays):
+    """An overlay's PNG as data when its bytes are given (a page that stands alone)."""
+    data = (overlays or {}).get(name)
+    if data is None:
+        return html.escape(name)
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
 def face_images_section_markdown(summary: dict) -> list:
@@ -290,6 +359,7 @@ def face_images_section_markdown(summary: dict) -> list:
         lines += [
             f"- {f['name']}: {f['lines_used']} of {f['lines_found']} lines used, "
             f"{f['matched']} matched; entries: `{f['entries']}`",
+            *(f"  - grey check flags: {r}" for r in f.get("grey_flagged", [])),
             f"  ![{f['name']}]({f['overlay']})",
         ]
     return lines

@@ -18,7 +18,7 @@ SCHEMA_VERSION = "1.0"
 _INDICES = r"^[\(\[\{<]-?\d+( -?\d+){2,3}[\)\]\}>]$"
 _ENUMS = {
     "sense": ["agrees", "opposite", "undecided"],
-    "dip_source": ["cross-section", "serial-section", "serial-stack"],
+    "dip_source": ["cross-section", "cross-section image", "serial-section", "serial-stack"],
     "identification": ["coherent_twin", "identified", "ambiguous", "none"],
     "twin_test": ["pass", "fail"],
     "measured_coherent_twin": ["yes", "no", "cannot_tell"],

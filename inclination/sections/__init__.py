@@ -26,6 +26,7 @@ from .face_image import (
     along_offsets_um,
     measure_face_image,
     neighbour_check,
+    neighbour_check_notes,
     predicted_image_direction,
     read_face_image,
 )
@@ -84,6 +85,7 @@ __all__ = [
     "measure_serial_section",
     "measure_stack",
     "neighbour_check",
+    "neighbour_check_notes",
     "predicted_image_direction",
     "read_face_image",
     "register_sections",

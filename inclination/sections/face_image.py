@@ -21,15 +21,23 @@ Segmentation method: a watershed of the gradient of the Gaussian-smoothed image
 steepest) over-segments the noisy face into small basins; adjacent basins are then
 merged, least different first, while their mean grey levels (of the raw image,
 whose noise is independent pixel to pixel) differ by less than ``merge_z`` standard
-errors — a statistical region merging — or by less than a quarter of the noise SD.
-Noise decides what is merged, not a fixed grey step, so a weak but real contrast
-between two large grains survives (and is then reported as low contrast) while
-noise inside one grain never does.
+errors — a statistical region merging — or by less than 1.5 noise SDs (a step no
+line is trusted on). Noise decides what is merged, not a fixed grey step. The floor
+matters along real boundaries: the strip of blurred edge pixels beside one has a
+mean a noise SD or so off its grain's, and with a floor of a quarter SD it stood as
+a region of its own, cutting the real boundary short (and leaving low-contrast
+lines inside grains). Two grains less than 1.5 noise SDs apart in grey are one
+region: their boundary is not measured, and the grey check of the lines either side
+(:func:`neighbour_check`) then flags them, with the map's boundary between them
+named (:func:`neighbour_check_notes`).
 
-Measured 2026-12 on synthetic faces (tests/end_to_end/test_face_images_synthetic.py:
-three samples, 15 faces, 0.1 µm pixels, noise SD 0.02, blur 1 px, 52° tilt): image
-angle error median 0.66°, 90th percentile 2.0° (85 lines); dip error median 0.54°,
-90th percentile 1.6° (73 boundaries, β > 30°); RMS of angle error over σ 0.84.
+Measured 2026-12 on synthetic faces (the faces of
+tests/end_to_end/test_face_images_synthetic.py: three samples, 15 faces, 0.1 µm
+pixels, noise SD 0.02, blur 1 px, 52° tilt): image angle error median 0.48°, 90th
+percentile 1.7° (110 lines); dip error median 0.47°, 90th percentile 1.2° (86
+boundaries, β > 30°); RMS of angle error over σ 0.79; 39 of the 42 visible twin
+boundaries used. With the former floor of a quarter SD: 84 lines (0.66°, 2.0°), 68
+dips (0.54°, 1.65°), 27 of 42 twins.
 """
 
 from __future__ import annotations
@@ -54,10 +62,22 @@ __all__ = [
     "FaceMeasurement",
     "along_offsets_um",
     "neighbour_check",
+    "neighbour_check_notes",
     "read_face_image",
     "measure_face_image",
     "predicted_image_direction",
 ]
+
+# A boundary that meets the surface has points from the top of the fitting window
+# down (the region mask starts there, so the first row of pixel pairs lies half a
+# pixel below it). One whose points start deeper runs under a grain that pinches out
+# just below the surface: its line belongs to other grains than the trace at that
+# place (the grey check then flags the pair), so it is short, not used.
+_MAX_TOP_GAP_PX = 2.0
+
+# Adjacent regions whose mean greys differ by less than this many noise SDs are merged
+# (module docstring); a line then needs ``min_contrast`` SDs (default the same) to be used.
+_MERGE_FLOOR_SD = 1.5
 
 #: Closed set of the ``status`` of a line found on a face image.
 FACE_LINE_STATUSES = ("used", "low_contrast", "short", "curved")
@@ -312,10 +332,11 @@ def _merge_regions(labels, image, *, noise_sd, merge_z):
         a, b = edges[:, 0], edges[:, 1]
         step = np.abs(sums[a] / counts[a] - sums[b] / counts[b])
         z = step / (noise_sd * np.sqrt(1.0 / counts[a] + 1.0 / counts[b]))
-        # A step under a quarter of the noise SD is no boundary a reader could see,
-        # however large the regions; merging it keeps the blurred strips along real
-        # boundaries from standing as regions of their own.
-        z[step < 0.25 * noise_sd] = 0.0
+        # A step under _MERGE_FLOOR_SD noise SDs is no boundary to trust, however large
+        # the regions. Merging it keeps the strips of blurred edge pixels along a real
+        # boundary (their mean pulled a noise SD or so toward the neighbour's grey) from
+        # standing as regions of their own, which cut the real boundary short.
+        z[step < _MERGE_FLOOR_SD * noise_sd] = 0.0
         ok = z < merge_z
         if not ok.any():
             break
@@ -377,7 +398,9 @@ def measure_face_image(
     ``window_um``. Its σ adds the fit's own to the pixel staircase's,
     ``pixel / (span·√12)`` rad. A line is unsure — listed, not used — when the
     grey step across it is below ``min_contrast`` noise SDs (``low_contrast``), its
-    points span less than ``min_span_fraction`` of the window (``short``), or they
+    points span less than ``min_span_fraction`` of the window or start more than 2 px
+    below its top (``short``: a boundary under a grain that pinches out just below the
+    surface does not meet the surface where its line would), or they
     stray from the line by more than ``max_residual_px`` RMS (``curved``).
 
     Parameters
@@ -407,7 +430,9 @@ def measure_face_image(
     smooth_px, merge_z, min_contrast, max_residual_px, min_span_fraction : float, optional
         Smoothing σ (pixels) for the gradient, the merge threshold (standard errors
         of the difference of two region means), and the three thresholds of an
-        unsure line.
+        unsure line. Regions less than 1.5 noise SDs apart are merged whatever
+        ``merge_z`` says, so ``low_contrast`` lines occur only with a
+        ``min_contrast`` above 1.5.
 
     Returns
     -------
@@ -587,7 +612,10 @@ def measure_face_image(
         )
         if contrast < min_contrast:
             status = "low_contrast"
-        elif span_v < min_span_fraction * (hi_px - max(lo_px, edge_px)):
+        elif (
+            span_v < min_span_fraction * (hi_px - max(lo_px, edge_px))
+            or p[:, 1].min() > max(lo_px, edge_px) + _MAX_TOP_GAP_PX
+        ):
             status = "short"
         elif fit.residual_um > max_residual_px:
             status = "curved"
@@ -803,3 +831,105 @@ def neighbour_check(
             elif out[m] == "unchecked":
                 out[m] = "consistent"
     return out
+
+
+def neighbour_check_notes(
+    along_um: ArrayLike,
+    region_left: ArrayLike,
+    region_right: ArrayLike,
+    grain_a: ArrayLike,
+    grain_b: ArrayLike,
+    *,
+    crossings: dict,
+) -> list[dict]:
+    """Why :func:`neighbour_check` flags each pair of lines it finds inconsistent.
+
+    A flagged pair bounds one grey region of the face, yet its matched traces share no
+    grain. Either the map shows a boundary between the two traces on the section line
+    that the face does not (a grain that pinches out just below the surface, or a
+    boundary too faint on the image: the line below it belongs to another pair of
+    grains than the trace it was matched to), or it shows none, and one line is matched
+    to the wrong trace.
+
+    Parameters
+    ----------
+    along_um : array_like, shape (K,)
+        Position of each line along the section line, µm, in order along image-right.
+    region_left, region_right, grain_a, grain_b : array_like of int, shape (K,)
+        As in :func:`neighbour_check`.
+    crossings : mapping
+        Where the map's boundary network crosses the section line
+        (:func:`.cross_section.network_crossings`: ``along_um, grain_a, grain_b``).
+
+    Returns
+    -------
+    list of dict
+        One per flagged pair: ``lines`` (the two indices), ``along_um``, ``grains``
+        (each line's matched pair), ``between`` (the map's crossings between the two
+        traces, each ``{"along_um", "grains"}``) and ``reason`` (a sentence).
+
+    Examples
+    --------
+    >>> crossings = {"along_um": np.array([10.0, 12.5, 14.0]),
+    ...              "grain_a": np.array([40, 43, 44]), "grain_b": np.array([43, 44, 31])}
+    >>> notes = neighbour_check_notes([10.0, 13.7], [12, 15], [15, 11], [40, 31], [43, 44],
+    ...                               crossings=crossings)
+    >>> notes[0]["between"]
+    [{'along_um': 12.5, 'grains': [43, 44]}]
+    """
+    along = np.asarray(along_um, dtype=float)
+    left = np.asarray(region_left, dtype=np.int64)
+    right = np.asarray(region_right, dtype=np.int64)
+    ga = np.asarray(grain_a, dtype=np.int64)
+    gb = np.asarray(grain_b, dtype=np.int64)
+    c_along = np.asarray(crossings["along_um"], dtype=float)
+    c_pair = [
+        sorted((int(a), int(b)))
+        for a, b in zip(crossings["grain_a"], crossings["grain_b"], strict=True)
+    ]
+    notes = []
+    for i in range(len(left) - 1):
+        j = i + 1
+        if right[i] != left[j] or ga[i] < 0 or ga[j] < 0:
+            continue
+        mine = [sorted((int(ga[i]), int(gb[i]))), sorted((int(ga[j]), int(gb[j])))]
+        if set(mine[0]) & set(mine[1]):
+            continue
+        # The two matched traces' own crossings bound the stretch; any other crossing
+        # of the line between them is a boundary the face image does not show.
+        ends = [c_along[[p == m for p in c_pair]] for m in mine]
+        lo = min([along[i], *ends[0]], key=lambda x: abs(x - along[i]))
+        hi = min([along[j], *ends[1]], key=lambda x: abs(x - along[j]))
+        lo, hi = min(lo, hi), max(lo, hi)
+        between = [
+            {"along_um": round(float(c_along[k]), 2), "grains": c_pair[k]}
+            for k in np.flatnonzero((c_along > lo) & (c_along < hi))
+            if c_pair[k] not in mine
+        ]
+        seen = f"lines at {along[i]:.2f} and {along[j]:.2f} µm bound one grey region of the face"
+        traces = f"their traces (grains {mine[0][0]}|{mine[0][1]} and {mine[1][0]}|{mine[1][1]})"
+        if between:
+            listed = ", ".join(
+                f"{b['grains'][0]}|{b['grains'][1]} at {b['along_um']:.2f} µm" for b in between
+            )
+            reason = (
+                f"{seen}, but the map shows boundary {listed} between {traces}, which the "
+                "face does not show: a grain that pinches out just below the surface (or a "
+                "boundary too faint to see), so the line found beneath it belongs to other "
+                "grains than the trace it was matched to"
+            )
+        else:
+            reason = (
+                f"{seen}, but {traces} share no grain and the map shows no boundary between "
+                "them: one of the two lines is matched to the wrong trace"
+            )
+        notes.append(
+            {
+                "lines": [i, j],
+                "along_um": [round(float(along[i]), 2), round(float(along[j]), 2)],
+                "grains": mine,
+                "between": between,
+                "reason": reason,
+            }
+        )
+    return notes

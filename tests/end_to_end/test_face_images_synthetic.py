@@ -244,10 +244,16 @@ def test_grey_regions_agree_with_the_matched_grains(runs):
         analysis, _ = runs[(seed, "declared")]
         for rec in analysis.faces:
             checks += rec["grey_check"].tolist()
+            # Every flagged line is in a note that says why (neighbour_check_notes).
+            noted = {i for n in rec["grey_check_notes"] for i in n["lines"]}
+            assert noted == set(np.flatnonzero(rec["grey_check"] == "inconsistent").tolist())
+            assert all(n["reason"] for n in rec["grey_check_notes"])
     consistent, inconsistent = checks.count("consistent"), checks.count("inconsistent")
     assert consistent >= 5
     # The check flags a pair whose traces share no grain; on these samples it flags a
-    # few (a trace fitted across a junction, a lamella split in the map), never most.
+    # few (a grain pinching out just below the surface, a trace fitted across a
+    # junction, a lamella split in the map), never most: measured 2026-12, 4 flagged
+    # lines against 40 consistent over seeds 1 to 3 of this sample.
     assert inconsistent <= 0.25 * consistent
 
 
