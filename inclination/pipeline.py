@@ -372,7 +372,7 @@ def _depth_note(estimate, given=None) -> dict:
         note = (
             f"The registration on the grain structure was refined by {fit}, which also "
             f"imply h = {d.depth_um:.3g} ± {d.depth_sigma_um:.2g} µm against the "
-            f"{given.depth_um:g} µm given ({z:+.1f} σ)."
+            f"{given.depth_um:g} µm given ({z:+.2f} σ)."
         )
     out = {
         "n_twins": estimate.n_used,
