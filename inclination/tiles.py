@@ -62,11 +62,15 @@ if TYPE_CHECKING:
 
 __all__ = [
     "BYTES_PER_POINT",
+    "DEFAULT_TILE_PX",
     "TiledMap",
     "boundary_network_tiled",
     "needs_tiles",
     "segment_grains_tiled",
 ]
+
+#: Tile size (points a side) of a map tiled for the memory budget without a ``tile_px``.
+DEFAULT_TILE_PX = 2048
 
 #: Memory of the whole-map path per map point (bytes), for the job's memory budget: the
 #: float32 quaternion planes (16), phase and validity (5), labels and row runs (8), the
@@ -113,6 +117,7 @@ class TiledMap:
     rotation_sense: str
     provenance: Mapping
     reader: Callable[[slice, slice], OrientationMap] = field(repr=False)
+    valid: object = field(default=None, repr=False)
 
     @classmethod
     def from_orientation_map(cls, omap: OrientationMap, *, tile_px) -> TiledMap:
@@ -151,6 +156,7 @@ class TiledMap:
             rotation_sense=omap.rotation_sense,
             provenance=dict(omap.provenance),
             reader=reader,
+            valid=omap.valid,
         )
 
     @property
@@ -162,6 +168,15 @@ class TiledMap:
     def row_pitch_um(self) -> float:
         """Distance between rows (µm), :func:`inclination.maps.row_pitch_um`."""
         return row_pitch_um(self.grid, self.step_y_um)
+
+    def positions_sample_um(self) -> np.ndarray:
+        """Positions of every grid point in S, shape (H, W, 2), µm (§1); a full-size array."""
+        h, w = self.shape
+        x = np.broadcast_to(np.arange(w) * self.step_x_um, (h, w)).astype(np.float64)
+        if self.grid == "hexagonal":
+            x = x + 0.5 * self.step_x_um * (np.arange(h) % 2)[:, None]
+        y = np.broadcast_to((np.arange(h) * self.row_pitch_um)[:, None], (h, w))
+        return np.stack([x, y], axis=-1)
 
     @property
     def quality(self) -> Mapping:
@@ -361,6 +376,8 @@ def read_zarr_map(
         rotation_sense=sense,
         provenance=provenance,
         reader=reader,
+        # Counted only when asked (the run summary): a dask expression, not an array.
+        valid=(arrays.phase != 0) & np.isfinite(arrays.euler).all(axis=-1),
     )
 
 

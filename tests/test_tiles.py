@@ -9,6 +9,8 @@ scikit-image's labelling in tests/test_grains.py and tests/test_network.py.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 from numpy.testing import assert_allclose, assert_array_equal
@@ -16,6 +18,7 @@ from numpy.testing import assert_allclose, assert_array_equal
 pytest.importorskip("zarr", reason="the optional extra 'tiles' (zarr) is not installed")
 pytest.importorskip("dask", reason="the optional extra 'tiles' (dask) is not installed")
 
+from inclination.cli import main  # noqa: E402
 from inclination.crystal.lattice import Lattice  # noqa: E402
 from inclination.crystal.phases import Phase  # noqa: E402
 from inclination.grains import segment_grains  # noqa: E402
@@ -74,9 +77,7 @@ def pair(request, tmp_path_factory):
 def _same_partition(a, b):
     """Labels a and b split the map the same way (a bijection between their ids)."""
     pairs = np.unique(np.stack([a.ravel(), b.ravel()]), axis=1)
-    return (
-        np.unique(pairs[0]).size == pairs.shape[1] and np.unique(pairs[1]).size == pairs.shape[1]
-    )
+    return np.unique(pairs[0]).size == pairs.shape[1] and np.unique(pairs[1]).size == pairs.shape[1]
 
 
 def test_zarr_reader_gives_the_npz_map_bit_for_bit(pair):
@@ -151,3 +152,127 @@ def test_tiles_of_a_map_in_memory_match_odd_tile_sizes(pair):
     whole = segment_grains(omap, [CU], min_pixels=8)
     tiled = segment_grains_tiled(TiledMap.from_orientation_map(omap, tile_px=(17, 23)), [CU])
     assert_array_equal(tiled.labels, whole.labels)
+
+
+# ----------------------------------------------------------------------------- the pipeline
+
+
+def _job(folder, map_path, fmt, grid, **top):
+    job = {
+        "phases": [
+            {
+                "id": 1,
+                "name": "Cu",
+                "laue": "m-3m",
+                "lattice": {"a": 3.6, "b": 3.6, "c": 3.6, "alpha": 90, "beta": 90, "gamma": 90},
+                "families": ["{1 1 1}"],
+            }
+        ],
+        "map": _spec(map_path, fmt, grid),
+        **top,
+    }
+    path = folder / f"job_{fmt}_{len(top)}.json"
+    path.write_text(json.dumps(job))
+    return path
+
+
+@pytest.fixture(scope="module")
+def square_files(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("jobs")
+    npz, zarr_path = _write_pair(folder, "square", shape=(96, 100), seed=11)
+    return folder, npz, zarr_path
+
+
+@pytest.mark.parametrize("tiles", [None, {"tile_px": 40}])
+def test_pipeline_on_a_zarr_map_matches_the_npz_run(square_files, tiles):
+    # The whole pipeline up to the planes: zarr (its chunks or 40-point tiles) against npz.
+    from inclination.io.job import load_job
+    from inclination.pipeline import run
+
+    folder, npz, zarr_path = square_files
+    extra = {} if tiles is None else {"tiles": tiles}
+    a = run(load_job(_job(folder, npz, "npz", "square")), stage="planes")
+    b = run(load_job(_job(folder, zarr_path, "zarr", "square", **extra)), stage="planes")
+    assert_array_equal(b.grain_map.labels, a.grain_map.labels)
+    assert b.segments["segment_id"].size == a.segments["segment_id"].size > 20
+    for end in ("x0_um", "y0_um", "x1_um", "y1_um"):
+        assert_allclose(b.segments[end], a.segments[end], rtol=0, atol=0.5 * STEP)
+    assert_array_equal(b.identification["identification"], a.identification["identification"])
+    assert b.omap.provenance["reader"] == "zarr arrays"
+
+
+def test_tiles_setting_tiles_an_npz_map(square_files):
+    from inclination.io.job import load_job
+    from inclination.pipeline import run
+
+    folder, npz, _ = square_files
+    a = run(load_job(_job(folder, npz, "npz", "square")), stage="traces")
+    b = run(load_job(_job(folder, npz, "npz", "square", tiles={"tile_px": 32})), stage="traces")
+    assert isinstance(b.omap, TiledMap) and b.omap.tile_px == (32, 32)
+    assert_array_equal(b.grain_map.labels, a.grain_map.labels)
+    assert_allclose(b.segments["x0_um"], a.segments["x0_um"], rtol=0, atol=0.5 * STEP)
+
+
+# ----------------------------------------------------------------------------- bad input
+
+
+def _one_line_exit_2(job_path, capsys):
+    status = main(["grains", str(job_path), "--out", str(job_path.parent / "out")])
+    err = capsys.readouterr().err.strip()
+    assert status == 2
+    assert len(err.splitlines()) == 1 and "Traceback" not in err
+    return err
+
+
+def test_missing_zarr_store_exits_2_with_one_line(tmp_path, capsys):
+    err = _one_line_exit_2(_job(tmp_path, tmp_path / "absent.zarr", "zarr", "square"), capsys)
+    assert "absent.zarr" in err and "folder" in err
+
+
+def test_zarr_with_a_wrong_dtype_exits_2_with_one_line(tmp_path, capsys):
+    import zarr
+
+    group = zarr.open_group(str(tmp_path / "m.zarr"), mode="w")
+    group.create_array("euler_deg", shape=(8, 8, 3), chunks=(4, 4, 3), dtype="f8")[...] = 0.0
+    group.create_array("phase", shape=(8, 8), chunks=(4, 4), dtype=bool)[...] = True
+    err = _one_line_exit_2(_job(tmp_path, tmp_path / "m.zarr", "zarr", "square"), capsys)
+    assert "m.zarr" in err and "'phase'" in err and "bool" in err
+
+
+def test_zarr_with_a_wrong_shape_exits_2_with_one_line(tmp_path, capsys):
+    write_zarr_map(
+        tmp_path / "m.zarr", np.zeros((8, 8, 2)), np.ones((8, 8), np.int32), chunks_px=(4, 4)
+    )
+    err = _one_line_exit_2(_job(tmp_path, tmp_path / "m.zarr", "zarr", "square"), capsys)
+    assert "'euler_deg'" in err and "(H, W, 3)" in err and "(8, 8, 2)" in err
+
+
+def test_zarr_with_an_undeclared_phase_exits_2_naming_the_point(tmp_path, capsys):
+    phase = np.ones((8, 8), np.int32)
+    phase[5, 6] = 7
+    write_zarr_map(tmp_path / "m.zarr", np.zeros((8, 8, 3)), phase, chunks_px=(4, 4))
+    err = _one_line_exit_2(_job(tmp_path, tmp_path / "m.zarr", "zarr", "square"), capsys)
+    assert "row 5, column 6" in err and "7" in err
+
+
+def test_subgrain_network_on_the_tiled_path_exits_2(tmp_path, capsys):
+    e = np.zeros((8, 8, 3))
+    e[:, 4:, 0] = 40.0
+    write_zarr_map(tmp_path / "m.zarr", e, np.ones((8, 8), np.int32), chunks_px=(4, 4))
+    job = _job(tmp_path, tmp_path / "m.zarr", "zarr", "square", grains={"subgrain_network": True})
+    status = main(["traces", str(job), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err.strip()
+    assert status == 2 and len(err.splitlines()) == 1 and "subgrain_network" in err
+
+
+def test_analyse_of_a_zarr_map_writes_the_npz_runs_tables(square_files):
+    # The whole command, report included: the tables are byte for byte those of the npz run.
+    folder, npz, zarr_path = square_files
+    out_a, out_b = folder / "run_npz", folder / "run_zarr"
+    assert main(["analyse", str(_job(folder, npz, "npz", "square")), "--out", str(out_a)]) == 0
+    job_b = _job(folder, zarr_path, "zarr", "square")
+    assert main(["analyse", str(job_b), "--out", str(out_b)]) == 0
+    for name in ("grains.csv", "segments.csv", "boundaries.csv"):
+        assert (out_b / name).read_bytes() == (out_a / name).read_bytes(), name
+    summary = json.loads((out_b / "summary.json").read_text())
+    assert summary["provenance"]["map"]["reader"] == "zarr arrays"
