@@ -10,8 +10,10 @@ file is complete. The command line calls these and nothing else.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import platform
+import tempfile
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -172,8 +174,34 @@ def _phases_by_id(job):
     return job.phases
 
 
+@contextlib.contextmanager
+def _work_map(omap, progress):
+    """The map the grain and network stages read: a zarr map converted once into a store.
+
+    Those stages read each tile several times; converting Euler angles costs about ten
+    times reading float32 quaternions (docs/performance.md, maps by tiles).
+    """
+    if not _is_tiled(omap) or omap.provenance.get("reader") != "zarr arrays":
+        yield omap
+        return
+    from .tiles import cache_tiles
+
+    with tempfile.TemporaryDirectory(prefix="inclination-tiles-") as folder:
+        update, close = _progress_callback(progress, "surface: convert tiles")
+        try:
+            work = cache_tiles(omap, folder, progress=update)
+        finally:
+            close()
+        yield work
+
+
 def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
     """Grains, network and straight segments of one map; the sub-grain segments on request."""
+    with _work_map(omap, progress) as work:
+        return _grains_and_segments_of(work, job, stage_i, progress, label, subgrains=subgrains)
+
+
+def _grains_and_segments_of(omap, job, stage_i, progress, label, *, subgrains):
     from .grains import segment_grains
     from .network import boundary_network
     from .traces import fit_segments
