@@ -425,13 +425,17 @@ def cache_tiles(tmap: TiledMap, folder, *, progress=None) -> TiledMap:
     phase = group.create_array("phase", shape=(h, w), chunks=(tr, tc), dtype="i4", compressors=None)
     valid = group.create_array("valid", shape=(h, w), chunks=(tr, tc), dtype=bool, compressors=None)
     tiles = list(tmap.tiles())
-    for t, (rows, cols) in enumerate(tiles):
+
+    def convert(rows, cols):
+        # Each tile is whole chunks of the store: tiles written at once never share one.
         sub = tmap.read(rows, cols)
         quat[rows, cols] = np.asarray(sub.quat)
         phase[rows, cols] = np.asarray(sub.phase)
         valid[rows, cols] = np.asarray(sub.valid)
-        if progress is not None:
-            progress((t + 1) / len(tiles))
+
+    # dask's threaded scheduler runs the tiles on the machine's cores (numpy's trigonometry
+    # releases the GIL), a few tiles in memory at a time.
+    _on_tiles(convert, tiles, progress=progress)
 
     def reader(r, c):
         return OrientationMap(
@@ -517,58 +521,110 @@ def _halo_region(rows: slice, cols: slice, shape, grid) -> tuple[slice, slice]:
     return slice(rows.start, min(rows.stop + 1, h)), slice(c0, min(cols.stop + 1, w))
 
 
+@dataclass(frozen=True)
+class _TileLabels:
+    """What labelling one tile leaves besides its labels (written into the label image)."""
+
+    n_labels: int  # labels 1..n of the extended tile
+    first: np.ndarray  # (n,) first own point (flat index of the map) of each label, -1 none
+    code: np.ndarray  # (n,) uint8 phase code there
+    quat: np.ndarray  # (n, 4) float32 quaternion there
+    halo_flat: np.ndarray  # flat indices of the halo points that have a label
+    halo_label: np.ndarray  # their labels in this tile
+
+
+def _label_one_tile(tmap, rows, cols, labels, code_of, phases, threshold_deg) -> _TileLabels:
+    """Components of one tile with its halo; own points' labels written into ``labels``."""
+    w = tmap.shape[1]
+    er, ec = _halo_region(rows, cols, tmap.shape, tmap.grid)
+    sub = tmap.read(er, ec)
+    ext = link_labels(sub, phases, threshold_deg=threshold_deg)
+    n_ext = int(ext.max())
+    r_own = slice(0, rows.stop - rows.start)
+    c_own = slice(cols.start - ec.start, cols.stop - ec.start)
+    own = ext[r_own, c_own]
+    labels[rows, cols] = own
+    # Each label's first own point in the tile's raster order, which within one tile is
+    # the map's raster order.
+    uniq, idx = np.unique(own.reshape(-1), return_index=True)
+    keep = uniq > 0
+    uniq, idx = uniq[keep] - 1, idx[keep]
+    first = np.full(n_ext, -1, np.int64)
+    code = np.zeros(n_ext, np.uint8)
+    quat = np.zeros((n_ext, 4), np.float32)
+    i, j = np.divmod(idx, own.shape[1])
+    first[uniq] = (rows.start + i) * w + cols.start + j
+    code[uniq] = code_of[np.asarray(sub.phase)[r_own, c_own][i, j]]
+    quat[uniq] = np.asarray(sub.quat)[r_own, c_own][i, j]
+    # Halo points: points of the neighbouring tiles, labelled here too.
+    halo = ext > 0
+    halo[r_own, c_own] = False
+    hi, hj = np.nonzero(halo)
+    halo_flat = (er.start + hi).astype(np.int64) * w + ec.start + hj
+    return _TileLabels(n_ext, first, code, quat, halo_flat, ext[hi, hj])
+
+
+def _on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
+    """``[fn(rows, cols) for rows, cols in tiles]`` on dask's threaded scheduler.
+
+    A batch of tiles at a time (the memory of a few tiles, a progress report per batch).
+    Every task of a batch finishes before an error is raised, so that no task still
+    writes into a store its caller is about to remove; the first error is raised as it
+    came (an InputError naming the map point stays one).
+    """
+    import dask
+
+    def guarded(rows, cols):
+        try:
+            return fn(rows, cols), None
+        except Exception as exc:  # re-raised below, once the batch is done
+            return None, exc
+
+    out = []
+    for t in range(0, len(tiles), batch):
+        done = dask.compute(*[dask.delayed(guarded)(r, c) for r, c in tiles[t : t + batch]])
+        for _, exc in done:
+            if exc is not None:
+                raise exc
+        out.extend(value for value, _ in done)
+        if progress is not None:
+            progress(min(t + batch, len(tiles)) / len(tiles))
+    return out
+
+
 def _label_tiles(tmap: TiledMap, infos, phases, threshold_deg, progress):
-    """Provisional labels (int32 (H, W)) joined across tiles, and the per-label records."""
+    """Provisional labels (int32 (H, W)) joined across tiles, and the per-label records.
+
+    The tiles are labelled on dask's threaded scheduler, a batch at a time (each task
+    writes its own tile of the label image); the labels are then made distinct by adding
+    each tile's offset, and joined by union-find over the halo points.
+    """
     h, w = tmap.shape
     labels = np.zeros((h, w), np.int32)
     code_of = np.zeros(max(p.id for p in infos) + 1, np.uint8)
     for p in infos:
         code_of[p.id] = p.code
-    offset = 0
-    firsts, codes, quats = [np.full(1, -1, np.int64)], [np.zeros(1, np.uint8)], [np.zeros((1, 4))]
-    halo_k, halo_lab = [], []
     tiles = list(tmap.tiles())
-    for t, (rows, cols) in enumerate(tiles):
-        er, ec = _halo_region(rows, cols, tmap.shape, tmap.grid)
-        sub = tmap.read(er, ec)
-        ext = link_labels(sub, phases, threshold_deg=threshold_deg)
-        n_ext = int(ext.max())
-        ext = np.where(ext > 0, ext + offset, 0).astype(np.int32)
-        r_own = slice(0, rows.stop - rows.start)
-        c_own = slice(cols.start - ec.start, cols.stop - ec.start)
-        own = ext[r_own, c_own]
-        labels[rows, cols] = own
-        # Each label's first own point in the tile's raster order, which within one tile
-        # is the map's raster order.
-        flat_own = own.reshape(-1)
-        uniq, idx = np.unique(flat_own, return_index=True)
-        keep = uniq > 0
-        uniq, idx = uniq[keep], idx[keep]
-        first = np.full(n_ext, -1, np.int64)
-        code = np.zeros(n_ext, np.uint8)
-        quat = np.zeros((n_ext, 4), np.float32)
-        i, j = np.divmod(idx, own.shape[1])
-        first[uniq - offset - 1] = (rows.start + i) * w + cols.start + j
-        sub_phase = np.asarray(sub.phase)[r_own, c_own]
-        code[uniq - offset - 1] = code_of[sub_phase[i, j]]
-        quat[uniq - offset - 1] = np.asarray(sub.quat)[r_own, c_own][i, j]
-        firsts.append(first)
-        codes.append(code)
-        quats.append(quat)
-        # Halo points: points of the neighbouring tiles, labelled here too.
-        halo = np.ones(ext.shape, bool)
-        halo[r_own, c_own] = False
-        hi, hj = np.nonzero(halo & (ext > 0))
-        halo_k.append((er.start + hi).astype(np.int64) * w + ec.start + hj)
-        halo_lab.append(ext[hi, hj])
-        offset += n_ext
-        if progress is not None:
-            progress(0.5 * (t + 1) / len(tiles))
-    records = _Provisional(
-        np.concatenate(firsts), np.concatenate(codes), np.concatenate(quats).astype(np.float32)
+    results = _on_tiles(
+        lambda r, c: _label_one_tile(tmap, r, c, labels, code_of, phases, threshold_deg),
+        tiles,
+        progress=None if progress is None else (lambda f: progress(0.5 * f)),
     )
-    hk = np.concatenate(halo_k) if halo_k else np.zeros(0, np.int64)
-    hl = np.concatenate(halo_lab) if halo_lab else np.zeros(0, np.int32)
+    offset = 0
+    halo_k, halo_lab = [], []
+    for (rows, cols), res in zip(tiles, results, strict=True):
+        block = labels[rows, cols]
+        block[block > 0] += offset
+        halo_k.append(res.halo_flat)
+        halo_lab.append(res.halo_label + offset)
+        offset += res.n_labels
+    records = _Provisional(
+        np.concatenate([np.full(1, -1, np.int64)] + [r.first for r in results]),
+        np.concatenate([np.zeros(1, np.uint8)] + [r.code for r in results]),
+        np.concatenate([np.zeros((1, 4), np.float32)] + [r.quat for r in results]),
+    )
+    hk = np.concatenate(halo_k)
+    hl = np.concatenate(halo_lab)
     # Union-find over the halo pairs: a halo point's label here and in its own tile.
     a = labels.reshape(-1)[hk]
     graph = coo_matrix((np.ones(a.size, np.int8), (a, hl)), shape=(offset + 1, offset + 1)).tocsr()
