@@ -276,3 +276,19 @@ def test_analyse_of_a_zarr_map_writes_the_npz_runs_tables(square_files):
         assert (out_b / name).read_bytes() == (out_a / name).read_bytes(), name
     summary = json.loads((out_b / "summary.json").read_text())
     assert summary["provenance"]["map"]["reader"] == "zarr arrays"
+
+
+def test_a_map_over_the_memory_budget_is_tiled(square_files):
+    # 96 × 100 points at about 40 bytes each is ~0.37 MiB: over a 0.1 MiB budget, under 1.
+    from inclination.io.job import load_job
+    from inclination.pipeline import run
+
+    folder, npz, _ = square_files
+    over = run(
+        load_job(_job(folder, npz, "npz", "square", tiles={"memory_mib": 0.1})), stage="grains"
+    )
+    under = run(
+        load_job(_job(folder, npz, "npz", "square", tiles={"memory_mib": 1.0})), stage="grains"
+    )
+    assert isinstance(over.omap, TiledMap) and not isinstance(under.omap, TiledMap)
+    assert_array_equal(over.grain_map.labels, under.grain_map.labels)
