@@ -11,14 +11,18 @@ link of the map lies inside at least one extended tile; the tile's components co
 project's own link kernels (:func:`inclination.grains.link_labels`). A halo point is also a
 point of the neighbouring tile: its two provisional labels are joined by union-find
 (``scipy.sparse.csgraph.connected_components`` over the halo pairs), the approach of chunked
-connected-component labelling (dask-image's ``ndmeasure.label`` joins labels across chunk
-faces the same way). The components are then numbered in raster order of their first point,
-as :func:`inclination.grains.segment_grains` numbers them; the clean-up of small grains runs
-on the grain adjacency (counts of neighbour pairs between grains, summed over the tiles),
-and the statistics are cross-tile sums: area, centroid, edge contact, the quaternion sum of
-each grain's points aligned to its first point, then the spread about the mean. The result
-is the same :class:`~inclination.grains.GrainMap` the whole map gives (same partition, same
-ids, statistics to float rounding).
+connected-component labelling: dask-image's ``ndmeasure.label`` labels each block, pairs the
+labels of the two slices that meet at every block face, and relabels the blocks by the
+connected components of those pairs. Here whether two points across a face join is the
+link test of their orientations, not a foreground mask, so each tile is labelled with its
+halo and the halo points' labels are paired with their own tile's. The components are then
+numbered in raster order of their first point, as :func:`inclination.grains.segment_grains`
+numbers them; the clean-up of small grains runs on the grain adjacency (counts of neighbour
+pairs between grains, summed over the tiles), and the statistics are cross-tile sums: area,
+centroid, edge contact, the quaternion sum of each grain's points aligned to its first
+point, then the spread about the mean. The result is the same
+:class:`~inclination.grains.GrainMap` the whole map gives (same partition, same ids,
+statistics to float rounding).
 
 Boundaries. The edges between grains are found in full-width bands of rows with a halo of
 two rows (:func:`inclination.network.boundary_edges`), and the chains are assembled from the
@@ -106,6 +110,10 @@ class TiledMap:
         starts on an even row (odd rows are the shifted ones, §1).
     grid, step_x_um, step_y_um, axes, data_frame_rotation, rotation_sense, provenance
         As :class:`~inclination.maps.OrientationMap`.
+    reader : callable
+        ``reader(rows, cols)`` → OrientationMap of that rectangle (use :meth:`read`).
+    valid : array_like of bool, shape (H, W)
+        Indexed points; a lazy dask expression for a zarr map (counted only when asked).
     """
 
     shape: tuple

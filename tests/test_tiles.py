@@ -87,6 +87,11 @@ def test_zarr_reader_gives_the_npz_map_bit_for_bit(pair):
     assert whole.quat.tobytes() == omap.quat.tobytes()
     assert_array_equal(whole.valid, omap.valid)
     assert whole.axes.origin_um == omap.axes.origin_um
+    # read_map reads the same store whole (a serial section's map, say): the same map too.
+    zarr_path = tmap.provenance["source_path"]
+    read_whole = read_map(_spec(zarr_path, "zarr", omap.grid))
+    assert read_whole.quat.tobytes() == omap.quat.tobytes()
+    assert read_whole.provenance["reader"] == "zarr arrays"
 
 
 @pytest.mark.parametrize(
