@@ -791,7 +791,10 @@ def segment_grains_tiled(
     if min_pixels < 1:
         raise SettingError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
     check_one_of(small_grains, "small_grains", SMALL_GRAIN_MODES)
-    h, w = tmap.shape
+    if progress is not None and not callable(progress):
+        raise TypeError(f"Expected `progress` to be callable, got {type(progress).__name__}.")
+    if not isinstance(tmap, TiledMap):
+        raise TypeError(f"Expected `tmap` to be a TiledMap, got {type(tmap).__name__}.")
     labels, comp, prov = _label_tiles(tmap, infos, phases, threshold_deg, progress)
     # The components that hold points, numbered in raster order of their first point.
     n_comp = int(comp.max()) + 1

@@ -21,6 +21,7 @@ pytest.importorskip("dask", reason="the optional extra 'tiles' (dask) is not ins
 from inclination.cli import main  # noqa: E402
 from inclination.crystal.lattice import Lattice  # noqa: E402
 from inclination.crystal.phases import Phase  # noqa: E402
+from inclination.errors import InputError, SettingError  # noqa: E402
 from inclination.grains import segment_grains  # noqa: E402
 from inclination.io.chunked import write_zarr_map  # noqa: E402
 from inclination.io.writers import write_npz  # noqa: E402
@@ -297,3 +298,92 @@ def test_a_map_over_the_memory_budget_is_tiled(square_files):
     )
     assert isinstance(over.omap, TiledMap) and not isinstance(under.omap, TiledMap)
     assert_array_equal(over.grain_map.labels, under.grain_map.labels)
+
+
+# ----------------------------------------------------------------------------- every raise
+
+
+def _identity_map(shape):
+    from inclination.maps import OrientationMap
+
+    quat = np.zeros((*shape, 4))
+    quat[..., 0] = 1.0
+    return OrientationMap(quat, np.ones(shape, int))
+
+
+def _small_tiles(tile_px=2):
+    return TiledMap.from_orientation_map(_identity_map((4, 4)), tile_px=tile_px)
+
+
+@pytest.mark.parametrize(
+    ("options", "error", "match"),
+    [
+        ({"min_pixels": 0}, SettingError, "min_pixels"),
+        ({"min_pixels": 2.5}, TypeError, "min_pixels"),
+        ({"small_grains": "drop"}, SettingError, "small_grains"),
+        ({"progress": "bar"}, TypeError, "progress"),
+        ({"threshold_deg": -1.0}, SettingError, "threshold_deg"),
+    ],
+)
+def test_segment_grains_tiled_refuses_bad_options(options, error, match):
+    with pytest.raises(error, match=match):
+        segment_grains_tiled(_small_tiles(), [CU], **options)
+
+
+def test_tiled_functions_refuse_bad_records():
+    with pytest.raises(TypeError, match="TiledMap"):
+        segment_grains_tiled(np.zeros((4, 4)), [CU])
+    with pytest.raises(SettingError, match="tile_px"):
+        _small_tiles(tile_px=1)
+    gm = segment_grains_tiled(_small_tiles(), [CU], min_pixels=1)
+    wide = TiledMap.from_orientation_map(_identity_map((4, 6)), tile_px=2)
+    with pytest.raises(InputError, match="map's shape"):
+        boundary_network_tiled(wide, gm, [CU])
+
+
+def test_a_map_with_no_indexed_point_is_refused():
+    from inclination.maps import OrientationMap
+
+    quat = np.zeros((4, 4, 4))
+    quat[..., 0] = 1.0
+    empty = OrientationMap(quat, np.zeros((4, 4), int))
+    with pytest.raises(InputError, match="at least one valid indexed point"):
+        segment_grains_tiled(TiledMap.from_orientation_map(empty, tile_px=2), [CU])
+
+
+def test_zarr_store_errors_name_the_array(tmp_path):
+    import zarr
+
+    from inclination.io.chunked import open_zarr_arrays
+
+    with pytest.raises(InputError, match="no folder"):
+        open_zarr_arrays(tmp_path / "none.zarr", angles="deg")
+    (tmp_path / "plain").mkdir()
+    (tmp_path / "plain" / "zarr.json").write_text("not json")
+    with pytest.raises(InputError, match="zarr cannot open"):
+        open_zarr_arrays(tmp_path / "plain", angles="deg")
+    write_zarr_map(
+        tmp_path / "m.zarr", np.zeros((4, 4, 3)), np.ones((4, 4), np.int32), chunks_px=(2, 2)
+    )
+    with pytest.raises(InputError, match="'euler_rad'"):
+        open_zarr_arrays(tmp_path / "m.zarr", angles="rad")
+    group = zarr.open_group(str(tmp_path / "short.zarr"), mode="w")
+    group.create_array("euler_deg", shape=(4, 4, 3), chunks=(2, 2, 3), dtype="f4")
+    group.create_array("phase", shape=(4, 5), chunks=(2, 2), dtype="i4")
+    with pytest.raises(InputError, match="'phase' to have shape"):
+        open_zarr_arrays(tmp_path / "short.zarr", angles="deg")
+
+
+@pytest.mark.parametrize(
+    ("change", "match"),
+    [({"grid": None}, "'grid'"), ({"step_um": None}, "step_um")],
+)
+def test_read_zarr_map_refuses_a_spec_without_grid_or_step(tmp_path, change, match):
+    write_zarr_map(
+        tmp_path / "m.zarr", np.zeros((4, 4, 3)), np.ones((4, 4), np.int32), chunks_px=(2, 2)
+    )
+    spec = _spec(tmp_path / "m.zarr", "zarr", "square")
+    spec.update(change)
+    spec = {k: v for k, v in spec.items() if v is not None}
+    with pytest.raises(InputError, match=match):
+        read_zarr_map(spec, phase_ids=(1,))
