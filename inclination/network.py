@@ -709,9 +709,16 @@ def concat_edges(parts: Iterable[BoundaryEdges]) -> BoundaryEdges:
     """
     parts = list(parts)
     names = list(BoundaryEdges.__dataclass_fields__)
-    cols = {n: np.concatenate([getattr(p, n) for p in parts]) for n in names}
-    order = np.lexsort((cols["first"], cols["direction"]))
-    return BoundaryEdges(**{n: c[order] for n, c in cols.items()})
+    first = np.concatenate([p.first for p in parts])
+    direction = np.concatenate([p.direction for p in parts])
+    order = np.lexsort((first, direction))
+    # Column by column, so that one column's copies are alive at a time, not the table's.
+    cols = {"first": first[order], "direction": direction[order]}
+    del first, direction
+    for n in names:
+        if n not in cols:
+            cols[n] = np.concatenate([getattr(p, n) for p in parts])[order]
+    return BoundaryEdges(**cols)
 
 
 def chain_edges(edges: BoundaryEdges, grain_map: GrainMap) -> BoundaryNetwork:

@@ -1104,4 +1104,8 @@ def boundary_network_tiled(
                 row_offset=lo,
             )
         )
-    return chain_edges(concat_edges(parts), grain_map)
+    edges = concat_edges(parts)
+    # The bands' tables go before the chains are built: the edge table is the largest
+    # array of this stage after the labels.
+    del parts
+    return chain_edges(edges, grain_map)
