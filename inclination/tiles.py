@@ -578,9 +578,18 @@ def _on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
     A batch of tiles at a time (the memory of a few tiles, a progress report per batch).
     Every task of a batch finishes before an error is raised, so that no task still
     writes into a store its caller is about to remove; the first error is raised as it
-    came (an InputError naming the map point stays one).
+    came (an InputError naming the map point stays one). Without dask (a map in memory
+    tiled on request, the extra not installed) the tiles run one after another.
     """
-    import dask
+    try:
+        import dask
+    except ImportError:
+        out = []
+        for t, (rows, cols) in enumerate(tiles):
+            out.append(fn(rows, cols))
+            if progress is not None:
+                progress((t + 1) / len(tiles))
+        return out
 
     def guarded(rows, cols):
         try:
