@@ -838,3 +838,118 @@ def _grain_table(
         "spread_max_deg": np.rad2deg(spread_max[1:]),
         "touches_edge": touches[1:],
     }
+
+
+# ----------------------------------------------------------------------------- tiles
+
+
+def link_labels(
+    omap: OrientationMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
+    *,
+    threshold_deg: float = 5.0,
+) -> np.ndarray:
+    """Connected components of the neighbour links, before any clean-up (§1).
+
+    The first stage of :func:`segment_grains` (same link test, same kernels), for
+    callers that join the components of several pieces of a map themselves
+    (:mod:`inclination.tiles`).
+
+    Parameters
+    ----------
+    omap : OrientationMap
+    phases : sequence or mapping of Phase
+    threshold_deg : float
+        The link threshold (degrees), as in :func:`segment_grains`.
+
+    Returns
+    -------
+    ndarray of int32, shape (H, W)
+        Component 1..n of each usable point, numbered in raster order of each
+        component's first point; 0 where a point is not valid or not indexed. A map
+        with no usable point gives all zeros (not an error).
+
+    Raises
+    ------
+    SettingError, InputError, TypeError
+        As :func:`segment_grains` for the threshold and the phases.
+
+    Examples
+    --------
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
+    >>> from inclination.maps import OrientationMap
+    >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
+    >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))
+    >>> quat = np.zeros((2, 3, 4)); quat[..., 0] = 1.0
+    >>> quat[:, 1:] = [0.92388, 0.0, 0.0, 0.382683]  # 45° about Z
+    >>> phase = np.ones((2, 3), int); phase[0, 2] = 0
+    >>> link_labels(OrientationMap(quat, phase), [cu]).tolist()
+    [[1, 2, 0], [1, 2, 2]]
+    """
+    planes = map_planes(omap)
+    infos = phase_infos(phases)
+    threshold = _check_threshold(threshold_deg, infos)
+    code = _phase_codes(omap, infos)
+    usable = code > 0
+    n = planes.height * planes.width
+    shifts = neighbour_shifts(planes.grid, planes.width)
+    cos_half = float(np.cos(np.deg2rad(threshold) / 2))
+    links = []
+    for m, (shift, parity) in enumerate(shifts):
+        out = np.empty(n, bool)
+        _link_kernel(
+            planes,
+            code,
+            usable,
+            infos,
+            cos_half=cos_half,
+            shift=shift,
+            parity=parity,
+            out=out,
+            progress=None,
+            horizontal=m == 0,
+        )
+        links.append(out)
+    run_id, rows = _runs(usable, links[0])
+    n_runs = rows.pos.size - 1
+    ea, eb = [], []
+    for (shift, _parity), link in zip(shifts[1:], links[1:], strict=True):
+        a, b = _run_edges(run_id, links[0], link, shift)
+        ea.append(a)
+        eb.append(b)
+    del links
+    run_comp = _components(n_runs, ea, eb)[1:]
+    # Components numbered in the order of their first run (runs are in raster order).
+    uniq, first = np.unique(run_comp, return_index=True)
+    lut = np.zeros(n_runs + 1, np.int32)
+    if uniq.size:
+        number = np.zeros(uniq.max() + 1, np.int32)
+        number[uniq[np.argsort(first, kind="stable")]] = np.arange(1, uniq.size + 1)
+        lut[1:] = number[run_comp]
+    return lut[run_id].reshape(planes.height, planes.width)
+
+
+def isolated_points(labels: np.ndarray, grid: str) -> tuple[np.ndarray, np.ndarray]:
+    """Points with no grain whose every neighbour lies in one grain (``fill_isolated``).
+
+    Parameters
+    ----------
+    labels : ndarray of int, shape (H, W)
+        Grain labels, 0 = no grain.
+    grid : {'square', 'hexagonal'}
+
+    Returns
+    -------
+    flat : ndarray of int64, shape (n,)
+        Flat indices ``row·W + col`` of the points (never on the map's edge).
+    grain : ndarray, shape (n,)
+        The grain of their neighbours.
+
+    Examples
+    --------
+    >>> labels = np.ones((3, 3), np.int32); labels[1, 1] = 0
+    >>> [a.tolist() for a in isolated_points(labels, "square")]
+    [[4], [1]]
+    """
+    return _fill_isolated(np.asarray(labels), grid)

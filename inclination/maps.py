@@ -49,7 +49,7 @@ __all__ = [
 ]
 
 GRIDS = ("square", "hexagonal")
-MAP_FORMATS = ("csv", "tsv", "text", "npz", "tiff", "hdf5")
+MAP_FORMATS = ("csv", "tsv", "text", "npz", "tiff", "hdf5", "zarr")
 _ANGLE_UNITS = ("deg", "rad")
 _ROLES = ("x_um", "y_um", "phi1", "Phi", "phi2", "phase")
 # Names a quality channel may not take: they are the written files' own columns/arrays.
@@ -585,7 +585,7 @@ def read_map(
     ----------
     spec : mapping
         The job's map entry (schemas/job.schema.json ``$defs/map``): ``path``,
-        ``format`` ('csv', 'tsv', 'text', 'npz', 'tiff'), ``angles`` ('deg',
+        ``format`` ('csv', 'tsv', 'text', 'npz', 'tiff', 'hdf5', 'zarr'), ``angles`` ('deg',
         'rad'), ``axes`` ({"x": ..., "y": ...}), optional ``step_um`` (or
         ``step_x_um`` and ``step_y_um``, along the declared axes), ``grid``,
         ``data_frame_rotation``, ``columns``, ``delimiter``, ``sidecar``.
@@ -650,7 +650,14 @@ def read_map(
     path = Path(spec["path"])
     if base_dir is not None and not path.is_absolute():
         path = Path(base_dir) / path
-    if not path.is_file():
+    # A zarr map is a folder of chunks (inclination.io.chunked), not a file.
+    if fmt == "zarr" and not path.is_dir():
+        raise InputError(
+            f"Expected an existing zarr map (a folder), got no folder at {str(path)!r}.",
+            path=job_path,
+            pointer=f"{pointer}/path",
+        )
+    if fmt != "zarr" and not path.is_file():
         raise InputError(
             f"Expected an existing map file, got no file at {str(path)!r}.",
             path=job_path,
@@ -691,6 +698,15 @@ def read_map(
         if fmt == "npz":
             euler, phase_raw, quality = read_npz_arrays(path, angles=angles)
             reader = "npz arrays"
+        elif fmt == "zarr":
+            # Read whole here (a section map, or a surface map within the memory budget);
+            # inclination.tiles reads the same store tile by tile.
+            from .io.chunked import open_zarr_arrays
+
+            chunked = open_zarr_arrays(path, angles=angles)
+            euler, phase_raw, quality = np.asarray(chunked.euler), np.asarray(chunked.phase), {}
+            settings["chunks_px"] = list(chunked.chunks_px)
+            reader = "zarr arrays"
         elif fmt == "hdf5":
             from .io.hdf5 import read_hdf5_arrays
 
@@ -732,7 +748,7 @@ def read_map(
     reader = omap_args.pop("provenance_reader")
     provenance = {
         "source_path": str(path.resolve()),
-        "sha256": omap_args.pop("sha256", None) or _sha256(path),
+        "sha256": omap_args.pop("sha256", None) or (None if fmt == "zarr" else _sha256(path)),
         "reader": reader,
         "settings": settings,
     }

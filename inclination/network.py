@@ -41,7 +41,15 @@ if TYPE_CHECKING:
     from .grains import GrainMap
     from .maps import OrientationMap
 
-__all__ = ["BoundaryNetwork", "CHAIN_COLUMNS", "boundary_network"]
+__all__ = [
+    "BoundaryEdges",
+    "BoundaryNetwork",
+    "CHAIN_COLUMNS",
+    "boundary_edges",
+    "boundary_network",
+    "chain_edges",
+    "concat_edges",
+]
 
 #: Per-chain columns of :class:`BoundaryNetwork`.
 CHAIN_COLUMNS = (
@@ -243,8 +251,8 @@ def _is_junction(grid, labels, vid, w):
 
 
 def _grain_edges(labels_flat, shifts, h, w):
-    """Flat index k and shift of every edge between two different grains."""
-    ks, ss = [], []
+    """Flat index k, shift and direction index of every edge between two different grains."""
+    ks, ss, ms = [], [], []
     n = labels_flat.size
     for m, (shift, parity) in enumerate(shifts):
         stop = max(n - shift, 0)
@@ -256,9 +264,10 @@ def _grain_edges(labels_flat, shifts, h, w):
             k = k[forward_pair_mask(k, shift, parity, (h, w), horizontal=m == 0)]
             ks.append(k)
             ss.append(np.full(k.size, shift, np.int64))
+            ms.append(np.full(k.size, m, np.int64))
     if not ks:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64)
-    return np.concatenate(ks), np.concatenate(ss)
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64)
+    return np.concatenate(ks), np.concatenate(ss), np.concatenate(ms)
 
 
 def _low_angle_edges(lm: _LabelledMap, shifts, *, low_deg, high_deg):
@@ -369,12 +378,12 @@ def _order_chains(nxt: np.ndarray) -> _Chains:
     return _Chains(chain, position, length, closed)
 
 
-def _assemble(edge_a, edge_b, chains: _Chains, *, labels_flat, mid, angle):
+def _assemble(edge_a, edge_b, chains: _Chains, *, grain_a, grain_b, mid, angle):
     """Gather per-edge arrays into the ragged chains, ordered by grain pair then raster."""
     chain, position, length, closed = chains.chain, chains.position, chains.length, chains.closed
     n_comp = length.size
-    ga_e = labels_flat[edge_a]
-    gb_e = labels_flat[edge_b]
+    ga_e = grain_a
+    gb_e = grain_b
     start_edge = np.zeros(n_comp, np.int64)
     start_edge[chain[position == 0]] = np.flatnonzero(position == 0)
     ga = ga_e[start_edge]
@@ -523,23 +532,140 @@ def boundary_network(
                 f"Expected `low_angle_deg` to lie between 0 and the segmentation threshold "
                 f"({threshold}°), got {low_angle_deg!r}."
             )
-    labels_flat = labels.reshape(-1)
-    phase_of = np.asarray(grain_map.grains["phase"])
-    grain_phase = np.r_[0, phase_of].astype(np.int64)
-    code_of_id = {p.id: p.code for p in infos}
-    grain_code = np.array([0] + [code_of_id.get(int(p), 0) for p in phase_of], np.int64)
-    valid = np.asarray(omap.valid, dtype=bool).reshape(-1)
+    lm = _labelled_map(omap, labels, grain_map, infos)
     shifts = neighbour_shifts(grid, w)
-    lm = _LabelledMap(planes, labels, grain_code, grain_phase, infos, valid)
 
     low_net = None
     if low_angle_deg is not None:
         low_net = _low_angle_network(omap, lm, shifts, low_deg=low, high_deg=threshold)
 
-    k, shift = _grain_edges(labels_flat, shifts, h, w)
-    if k.size == 0:
-        net = _empty_network("grain")
-        return net if low_net is None else _with_low(net, low_net)
+    edges = _edges_of(omap, lm, shifts, own_rows=(0, h), row_offset=0)
+    net = _chains_of(edges, lm.grain_phase)
+    return net if low_net is None else _with_low(net, low_net)
+
+
+@dataclass(frozen=True)
+class BoundaryEdges:
+    """The edges between grains of a map or of a band of its rows, before chaining.
+
+    One row per edge, in the order the whole map lists them (by neighbour direction, then
+    by first point in the raster); indices are of the whole map.
+
+    Attributes
+    ----------
+    direction, first : ndarray of int64, shape (E,)
+        Index of the neighbour direction (:func:`inclination.links.neighbour_shifts`) and
+        flat index of the pair's first point (before the lower grain is put first).
+    edge_a, edge_b : ndarray of int64, shape (E,)
+        Flat indices of the two points, the lower grain first.
+    grain_a, grain_b : ndarray of int64, shape (E,)
+    tail, head : ndarray of int64, shape (E,)
+        Vertex ids of the dual segment, oriented with grain_a on its one side.
+    through : ndarray of bool, shape (E,)
+        The head vertex is not a junction: the chain goes on there.
+    x_um, y_um : ndarray, shape (E,)
+        Edge midpoints in S (§2).
+    misorientation_deg : ndarray, shape (E,)
+        Disorientation of the pair; NaN across phases.
+    """
+
+    direction: np.ndarray
+    first: np.ndarray
+    edge_a: np.ndarray
+    edge_b: np.ndarray
+    grain_a: np.ndarray
+    grain_b: np.ndarray
+    tail: np.ndarray
+    head: np.ndarray
+    through: np.ndarray
+    x_um: np.ndarray
+    y_um: np.ndarray
+    misorientation_deg: np.ndarray
+
+
+def _labelled_map(omap, labels, grain_map, phases):
+    planes = map_planes(omap)
+    infos = (
+        phases
+        if isinstance(phases, tuple) and all(isinstance(p, PhaseInfo) for p in phases)
+        else phase_infos(phases)
+    )
+    phase_of = np.asarray(grain_map.grains["phase"])
+    grain_phase = np.r_[0, phase_of].astype(np.int64)
+    code_of_id = {p.id: p.code for p in infos}
+    grain_code = np.array([0] + [code_of_id.get(int(p), 0) for p in phase_of], np.int64)
+    valid = np.asarray(omap.valid, dtype=bool).reshape(-1)
+    return _LabelledMap(planes, np.asarray(labels), grain_code, grain_phase, infos, valid)
+
+
+def boundary_edges(
+    omap: OrientationMap,
+    labels: np.ndarray,
+    grain_map: GrainMap,
+    phases: Iterable[Phase] | Mapping[int, Phase],
+    *,
+    own_rows: tuple[int, int],
+    row_offset: int = 0,
+) -> BoundaryEdges:
+    """The edges between grains whose first point lies in rows ``own_rows`` of a band.
+
+    For maps read a band of rows at a time (:mod:`inclination.tiles`): ``omap`` and
+    ``labels`` are rows ``row_offset ...`` of the whole map, full width, holding at least
+    one row above and below ``own_rows`` where the map has them (the cells round an edge's
+    vertices). :func:`concat_edges` then :func:`chain_edges` give
+    :func:`boundary_network`'s chains.
+
+    Parameters
+    ----------
+    omap : OrientationMap
+        The band (its row 0 is map row ``row_offset``, an even row on a hexagonal grid).
+    labels : ndarray of int, shape of the band
+        The whole map's grain labels on the band's rows.
+    grain_map : GrainMap
+        The whole map's grains (their phases).
+    phases : sequence or mapping of Phase
+    own_rows : (int, int)
+        Band rows [r0, r1) whose edges are returned.
+    row_offset : int
+        Map row of the band's first row.
+
+    Returns
+    -------
+    BoundaryEdges
+
+    Examples
+    --------
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
+    >>> from inclination.maps import OrientationMap
+    >>> from inclination.grains import segment_grains
+    >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
+    >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))
+    >>> quat = np.zeros((3, 4, 4)); quat[..., 0] = 1.0
+    >>> quat[:, 2:] = [0.92388, 0.0, 0.0, 0.382683]  # 45°
+    >>> omap = OrientationMap(quat, np.ones((3, 4), int))
+    >>> gm = segment_grains(omap, [cu], min_pixels=1)
+    >>> e = boundary_edges(omap, gm.labels, gm, [cu], own_rows=(1, 2))
+    >>> e.edge_a.tolist(), e.y_um.tolist()
+    ([5], [1.0])
+    """
+    h, w = np.shape(labels)
+    if np.shape(omap.phase) != (h, w):
+        raise InputError(
+            f"Expected `labels` to have the band's shape {np.shape(omap.phase)}, got {(h, w)}."
+        )
+    lm = _labelled_map(omap, labels, grain_map, phases)
+    shifts = neighbour_shifts(omap.grid, w)
+    return _edges_of(omap, lm, shifts, own_rows=own_rows, row_offset=int(row_offset))
+
+
+def _edges_of(omap, lm: _LabelledMap, shifts, *, own_rows, row_offset):
+    grid = lm.planes.grid
+    h, w = lm.labels.shape
+    labels, labels_flat = lm.labels, lm.labels_flat
+    k, shift, m = _grain_edges(labels_flat, shifts, h, w)
+    keep = (k >= own_rows[0] * w) & (k < own_rows[1] * w)
+    k, shift, m = k[keep], shift[keep], m[keep]
     a, b = k, k + shift
     la, lb = labels_flat[a], labels_flat[b]
     flip = la > lb
@@ -548,23 +674,99 @@ def boundary_network(
     tail, head = np.where(flip, head, tail), np.where(flip, tail, head)
     # The lower grain first in each pair.
     edge_a, edge_b = np.where(flip, b, a), np.where(flip, a, b)
+    through = ~_is_junction(grid, labels, head, w)
+    angle = _edge_angles(lm, edge_a, edge_b)
+    x, y = _edge_midpoints_um(omap, i + row_offset, j, shift, w)
+    # Band-local ids to the whole map's: points, and vertices (rows of W + 1 corners, or
+    # of W + 2 hexagonal cells with two vertices each).
+    point_off = row_offset * w
+    vertex_off = row_offset * (w + 1) if grid == "square" else row_offset * (w + 2) * 2
+    return BoundaryEdges(
+        direction=np.asarray(m, np.int64),
+        first=k + point_off,
+        edge_a=edge_a + point_off,
+        edge_b=edge_b + point_off,
+        grain_a=labels_flat[edge_a].astype(np.int64),
+        grain_b=labels_flat[edge_b].astype(np.int64),
+        tail=tail + vertex_off,
+        head=head + vertex_off,
+        through=through,
+        x_um=np.broadcast_to(x, k.shape).astype(np.float64),
+        y_um=np.broadcast_to(y, k.shape).astype(np.float64),
+        misorientation_deg=angle,
+    )
 
+
+def concat_edges(parts: Iterable[BoundaryEdges]) -> BoundaryEdges:
+    """The edges of several bands as one table, in the order of the whole map.
+
+    Examples
+    --------
+    >>> z = np.zeros(0, np.int64)
+    >>> e = BoundaryEdges(*([z] * 8), np.zeros(0, bool), *([np.zeros(0)] * 3))
+    >>> concat_edges([e, e]).edge_a.size
+    0
+    """
+    parts = list(parts)
+    names = list(BoundaryEdges.__dataclass_fields__)
+    first = np.concatenate([p.first for p in parts])
+    direction = np.concatenate([p.direction for p in parts])
+    order = np.lexsort((first, direction))
+    # Column by column, so that one column's copies are alive at a time, not the table's.
+    cols = {"first": first[order], "direction": direction[order]}
+    del first, direction
+    for n in names:
+        if n not in cols:
+            cols[n] = np.concatenate([getattr(p, n) for p in parts])[order]
+    return BoundaryEdges(**cols)
+
+
+def chain_edges(edges: BoundaryEdges, grain_map: GrainMap) -> BoundaryNetwork:
+    """Chains of the edges of a whole map (:func:`boundary_network`'s grain network).
+
+    Examples
+    --------
+    >>> from inclination.crystal.lattice import Lattice
+    >>> from inclination.crystal.phases import Phase
+    >>> from inclination.maps import OrientationMap
+    >>> from inclination.grains import segment_grains
+    >>> cell = Lattice.from_parameters(3.6, 3.6, 3.6, 90, 90, 90)
+    >>> cu = Phase(1, "copper", "m-3m", cell, ("{1 1 1}",))
+    >>> quat = np.zeros((3, 4, 4)); quat[..., 0] = 1.0
+    >>> quat[:, 2:] = [0.92388, 0.0, 0.0, 0.382683]  # 45°
+    >>> omap = OrientationMap(quat, np.ones((3, 4), int))
+    >>> gm = segment_grains(omap, [cu], min_pixels=1)
+    >>> bands = [boundary_edges(omap, gm.labels, gm, [cu], own_rows=(r, r + 1))
+    ...          for r in range(3)]
+    >>> chain_edges(concat_edges(bands), gm).n_edges.tolist()
+    [3]
+    """
+    grain_phase = np.r_[0, np.asarray(grain_map.grains["phase"])].astype(np.int64)
+    return _chains_of(edges, grain_phase)
+
+
+def _chains_of(edges: BoundaryEdges, grain_phase) -> BoundaryNetwork:
+    tail, head = edges.tail, edges.head
+    if tail.size == 0:
+        return _empty_network("grain")
     order = np.argsort(tail, kind="stable")
     tail_sorted = tail[order]
-    through = ~_is_junction(grid, labels, head, w)
-    nxt = np.full(a.size, -1, np.int64)
-    idx = np.flatnonzero(through)
+    nxt = np.full(tail.size, -1, np.int64)
+    idx = np.flatnonzero(edges.through)
     pos = np.searchsorted(tail_sorted, head[idx])
     pos = np.minimum(pos, tail_sorted.size - 1)
     found = tail_sorted[pos] == head[idx]
     nxt[idx[found]] = order[pos[found]]
-
-    angle = _edge_angles(lm, edge_a, edge_b)
-    mid = _edge_midpoints_um(omap, i, j, shift, w)
     parts = _assemble(
-        edge_a, edge_b, _order_chains(nxt), labels_flat=labels_flat, mid=mid, angle=angle
+        edges.edge_a,
+        edges.edge_b,
+        _order_chains(nxt),
+        grain_a=edges.grain_a,
+        grain_b=edges.grain_b,
+        mid=(edges.x_um, edges.y_um),
+        angle=edges.misorientation_deg,
     )
-    return _finish(parts, grain_phase, "grain", low_net)
+    return _finish(parts, grain_phase, "grain")
 
 
 def _with_low(net, low_net):
@@ -610,7 +812,13 @@ def _low_angle_network(omap, lm: _LabelledMap, shifts, *, low_deg, high_deg):
     nxt_state = _undirected_successors(omap.grid, labels, tail, head, w)
     mid = _edge_midpoints_um(omap, i, j, shift, w)
     parts = _assemble(
-        a, b, _pick_direction(nxt_state, a.size), labels_flat=labels_flat, mid=mid, angle=angle
+        a,
+        b,
+        _pick_direction(nxt_state, a.size),
+        grain_a=labels_flat[a],
+        grain_b=labels_flat[b],
+        mid=mid,
+        angle=angle,
     )
     return _finish(parts, lm.grain_phase, "low_angle")
 

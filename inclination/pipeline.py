@@ -10,9 +10,11 @@ file is complete. The command line calls these and nothing else.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import platform
+import tempfile
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -179,16 +181,53 @@ def _phases_by_id(job):
     return job.phases
 
 
+@contextlib.contextmanager
+def _work_map(omap, progress):
+    """The map the grain and network stages read: a zarr map converted once into a store.
+
+    Those stages read each tile several times; converting Euler angles costs about ten
+    times reading float32 quaternions (docs/performance.md, maps by tiles).
+    """
+    if not _is_tiled(omap) or omap.provenance.get("reader") != "zarr arrays":
+        yield omap
+        return
+    from .tiles import cache_tiles
+
+    with tempfile.TemporaryDirectory(prefix="inclination-tiles-") as folder:
+        update, close = _progress_callback(progress, "surface: convert tiles")
+        try:
+            work = cache_tiles(omap, folder, progress=update)
+        finally:
+            close()
+        yield work
+
+
 def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
     """Grains, network and straight segments of one map; the sub-grain segments on request."""
+    with _work_map(omap, progress) as work:
+        return _grains_and_segments_of(work, job, stage_i, progress, label, subgrains=subgrains)
+
+
+def _grains_and_segments_of(omap, job, stage_i, progress, label, *, subgrains):
     from .grains import segment_grains
     from .network import boundary_network
     from .traces import fit_segments
 
     g = job.grains
+    tiled = _is_tiled(omap)
+    if tiled and subgrains and g.get("subgrain_network"):
+        raise InputError(
+            "Expected subgrain_network false for a map segmented by tiles, got true; the "
+            "tiled path builds the grain-boundary network only.",
+            path=job.source_path,
+            pointer="/grains/subgrain_network",
+        )
     update, close = _progress_callback(progress, f"{label}: grains")
     try:
-        grain_map = segment_grains(
+        segment = segment_grains
+        if tiled:
+            from .tiles import segment_grains_tiled as segment
+        grain_map = segment(
             omap,
             job.phases,
             threshold_deg=g["threshold_deg"],
@@ -215,7 +254,12 @@ def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
     if stage_i < 1:
         return grain_map, None, None, None
     low_angle = g["low_angle_deg"] if subgrains and g.get("subgrain_network") else None
-    network = boundary_network(omap, grain_map, job.phases, low_angle_deg=low_angle)
+    if tiled:
+        from .tiles import boundary_network_tiled
+
+        network = boundary_network_tiled(omap, grain_map, job.phases)
+    else:
+        network = boundary_network(omap, grain_map, job.phases, low_angle_deg=low_angle)
     step = float(min(omap.step_x_um, omap.step_y_um))
     t = job.traces
     segments = fit_segments(
@@ -238,14 +282,44 @@ def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
     return grain_map, network, segments, subgrain
 
 
+def _is_tiled(omap) -> bool:
+    return not isinstance(omap, OrientationMap)
+
+
+def _read_surface(job, *, progress=None):
+    """The surface map: an OrientationMap, or a TiledMap (the job's ``tiles``, a zarr map).
+
+    A zarr map is read tile by tile (inclination.tiles); any other map is read whole and
+    tiled when the job gives ``tiles.tile_px`` or the map exceeds ``tiles.memory_mib``.
+    """
+    spec = job.raw.get("tiles") or {}
+    tile_px, memory_mib = spec.get("tile_px"), spec.get("memory_mib")
+    if job.map.get("format") == "zarr":
+        from .tiles import read_zarr_map
+
+        return read_zarr_map(
+            job.map,
+            phase_ids=job.phase_ids,
+            path_for_errors=job.source_path,
+            pointer="/map",
+            tile_px=tile_px,
+        )
+    omap = job.read_surface_map(progress=progress)
+    from .tiles import DEFAULT_TILE_PX, TiledMap, needs_tiles
+
+    if needs_tiles(omap.shape, format=job.map["format"], tile_px=tile_px, memory_mib=memory_mib):
+        return TiledMap.from_orientation_map(omap, tile_px=tile_px or DEFAULT_TILE_PX)
+    return omap
+
+
 def _map_bounds_um(omap):
-    xy = omap.positions_sample_um()
-    return (
-        float(xy[..., 0].min()),
-        float(xy[..., 1].min()),
-        float(xy[..., 0].max()),
-        float(xy[..., 1].max()),
-    )
+    # From the grid (§1), not from a full-size array of positions: the first point is at
+    # the origin, odd rows of a hexagonal grid shift by half a step.
+    h, w = omap.shape
+    x_max = (w - 1) * float(omap.step_x_um)
+    if omap.grid == "hexagonal" and h > 1:
+        x_max += 0.5 * float(omap.step_x_um)
+    return (0.0, 0.0, float(x_max), float((h - 1) * float(omap.row_pitch_um)))
 
 
 def _status_counts(table) -> dict:
@@ -618,7 +692,7 @@ def run(job: Job, *, stage: str = "sections", progress: ProgressFactory | None =
     stage_i = _stage_index(stage)
     update, close = _progress_callback(progress, "surface: read map")
     try:
-        omap = job.read_surface_map(progress=update)
+        omap = _read_surface(job, progress=update)
     finally:
         close()
     grain_map, network, segments, subgrain = _grains_and_segments(

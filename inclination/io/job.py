@@ -277,7 +277,15 @@ def _declared_step(map_spec) -> float | None:
 def _resolve_map(spec, base: Path, path, pointer) -> dict:
     out = copy.deepcopy(spec)
     target = base / spec["path"]
-    if not target.is_file():
+    if spec["format"] == "zarr":
+        # A zarr map is a folder of chunks (inclination.io.chunked).
+        if not target.is_dir():
+            raise InputError(
+                f"Expected an existing zarr map (a folder), got no folder at {str(target)!r}.",
+                path=path,
+                pointer=f"{pointer}/path",
+            )
+    elif not target.is_file():
         raise InputError(
             f"Expected an existing map file, got no file at {str(target)!r}.",
             path=path,
