@@ -29,6 +29,14 @@ The encodings (:data:`STYLES`):
     ``ensure_ascii=False``; floats rounded with :func:`numpy.round` to the
     column's decimals + 3 and written as Python's ``repr`` writes them (the
     shortest text that reads back to the same float).
+``printf``
+    Numbers only, as Python's ``%`` operator writes them (the map export of
+    :func:`inclination.io.writers.write_csv`): ``float`` columns as ``%.{decimals}f``
+    (``-0.00000`` kept), ``int`` columns as ``%d``, ``general`` columns as
+    ``%.{decimals}g`` (``decimals`` significant digits, trailing zeros dropped, an
+    exponent below 1e-4 and from 10^decimals on); NaN and ±inf as ``nan``, ``inf``,
+    ``-inf``. Cells are separated by the ``delimiter`` of :func:`encode_rows`, any one
+    character.
 
 Where the fast path cannot promise the same bytes as those references (a value
 too large for exact int64 digits, a float within a rounding error of a tie, a
@@ -47,7 +55,7 @@ import numpy as np
 __all__ = ["STYLES", "encode_rows"]
 
 #: Closed set of encodings.
-STYLES = ("csv", "jsonl", "fixed_csv", "json_rows")
+STYLES = ("csv", "jsonl", "fixed_csv", "json_rows", "printf")
 
 _BLOCK_ROWS = 16_384
 # csv / jsonl write |x| from this magnitude on as Python's repr (the styles' rule).
@@ -56,6 +64,8 @@ _FIXED_LIMIT = 1e15
 # 10^-d apart never round to the same float, so the fixed-point text is Python's repr.
 _EXACT_LIMIT = float(2**50)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
+# Powers of ten a float64 holds exactly (10^22 is the last), from Python's exact integers.
+_POW10_FLOAT = np.array([float(10**k) for k in range(23)])
 
 
 # A word is 4 bytes of text viewed as one uint32 (memory order kept, whatever the endianness).
@@ -394,7 +404,117 @@ def _json_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     return cells
 
 
+def _put_non_finite(cells: _Cells, x: np.ndarray) -> None:
+    """``nan``, ``inf`` and ``-inf``, as Python's ``%`` writes them (the sign of a NaN is not)."""
+    if np.isfinite(x).all():
+        return
+    for mask, text in ((np.isnan(x), "nan"), (x == np.inf, "inf"), (x == -np.inf, "-inf")):
+        if mask.any():
+            cells.put_same(mask, text)
+
+
+def _printf_int_cells(values: np.ndarray) -> _Cells:
+    """``%d``: the integer with its sign (a float is cut toward zero, as ``%d`` does)."""
+    x = np.asarray(values).astype(np.int64)
+    # -2^63 has no int64 magnitude: Python writes it.
+    slow = x == np.iinfo(np.int64).min
+    cells = _fixed_cells(np.abs(np.where(slow, 0, x)), x < 0, 0, "none")
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%d" % v for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+def _printf_fixed_cells(values: np.ndarray, decimals: int) -> _Cells:
+    """``%.{decimals}f``: correctly rounded, the sign of a negative zero kept (``-0.000``)."""
+    x = np.asarray(values).astype(float)
+    finite = np.isfinite(x)
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(np.where(finite, x, 0.0)) * 10.0**decimals
+    rounded = np.rint(y)
+    # As in fixed_csv: a cell within a few ulps of a decimal tie, or past exact int64
+    # digits, is left to Python, which rounds the exact binary value.
+    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15
+    slow = finite & ((y >= _EXACT_LIMIT) | near_tie)
+    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
+    cells = _fixed_cells(scaled, finite & np.signbit(x), decimals, "none")
+    _put_non_finite(cells, x)
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%.*f" % (decimals, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+# The exponent of %g as one word, "e+dd" / "e-dd", for the exponents of the fast path.
+_EXPONENT_MIN = -23
+_EXPONENT_WORDS = _words_left(b"e%+03d" % e for e in range(_EXPONENT_MIN, 24 + 23))
+
+
+def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
+    """``%.{digits}g``: ``digits`` significant digits, fixed or exponent form, zeros dropped.
+
+    For a finite x ≠ 0 with decimal exponent e (after rounding to ``digits`` digits),
+    Python writes the fixed form with ``digits - 1 - e`` decimals if -4 ≤ e < digits,
+    else the mantissa and ``e±dd``; trailing zeros and a bare point are dropped in both.
+    The mantissa m = |x|·10^(digits-1-e0) rounded, one multiplication or division by an
+    exact power of ten, so one rounding error; a cell near a tie or with a wrong guess
+    e0 of the exponent (near a power of ten) is left to Python.
+    """
+    x = np.asarray(values).astype(float)
+    n = len(x)
+    digits = max(digits, 1)  # %.0g writes one digit, as %.1g
+    nonzero = np.isfinite(x) & (x != 0)
+    a = np.abs(np.where(nonzero, x, 1.0))
+    e0 = np.floor(np.log10(a)).astype(np.int64)
+    k = (digits - 1) - e0
+    fast = nonzero & (np.abs(k) <= 22)
+    k = np.where(fast, k, 0)
+    y = np.where(k >= 0, a * _POW10_FLOAT[np.maximum(k, 0)], a / _POW10_FLOAT[np.maximum(-k, 0)])
+    m = np.rint(y)
+    low, high = float(10 ** (digits - 1)), float(10**digits)
+    near_tie = np.abs(np.abs(y - m) - 0.5) <= y * 1e-15
+    slow = nonzero & (~fast | near_tie | (y < low) | (y >= high) | (high > _EXACT_LIMIT))
+    carry = m == high  # 9999999.6 -> 1000000, one exponent up
+    e = e0 + carry
+    m = np.where(carry, low, m)
+    m = np.where(nonzero & ~slow, m, 0.0).astype(np.int64)
+    neg = np.signbit(x) & np.isfinite(x)
+    fixed = nonzero & ~slow & (e >= -4) & (e < digits)
+    exponent = nonzero & ~slow & ~fixed
+    parts: list[tuple[np.ndarray, np.ndarray]] = []
+    # Zero (and every other cell until it is replaced): "0", or "-0" for a negative zero.
+    parts.append((np.ones(n, bool), _fixed_cells(np.zeros(n, np.int64), neg, 0, "none").mat))
+    for d in np.unique(digits - 1 - e[fixed]).tolist():
+        rows = fixed & (e == digits - 1 - d)
+        parts.append((rows, _fixed_cells(m[rows], neg[rows], d, "all").mat))
+    if exponent.any():
+        mantissa = _fixed_cells(m[exponent], neg[exponent], digits - 1, "all").mat
+        words = _EXPONENT_WORDS[e[exponent] - _EXPONENT_MIN].view(np.uint8).reshape(-1, 4)
+        parts.append((exponent, np.concatenate([mantissa, words], axis=1)))
+    width = max(mat.shape[1] for _, mat in parts)
+    mat = np.zeros((n, width), np.uint8)
+    for rows, part in parts:
+        mat[rows, : part.shape[1]] = part
+    cells = _Cells(mat)
+    _put_non_finite(cells, x)
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+def _printf_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
+    if kind == "int":
+        return _printf_int_cells(values)
+    if kind == "float":
+        return _printf_fixed_cells(values, decimals)
+    if kind == "general":
+        return _printf_general_cells(values, decimals)
+    raise ValueError(f"Expected a printf column of kind int, float or general, got {kind!r}.")
+
+
 def _column_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
+    if style == "printf":
+        return _printf_cells(values, kind, decimals)
+    if kind == "general":
+        raise ValueError(f"Expected a column of kind general in the printf style, got {style!r}.")
     if kind == "bool":
         return _bool_cells(values)
     if kind == "str":
@@ -406,14 +526,14 @@ def _column_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _
     return _compact_number_cells(values, kind, decimals, style)
 
 
-def _layout(columns: Sequence, style: str) -> list[str]:
+def _layout(columns: Sequence, style: str, delimiter: str = ",") -> list[str]:
     """The literal text before each column and after the last (len(columns) + 1 pieces)."""
     if style == "jsonl":
         return ["["] + [","] * (len(columns) - 1) + ["]\n"]
     if style == "json_rows":
         keys = [json.dumps(c.name, ensure_ascii=False) + ": " for c in columns]
         return ["{" + keys[0]] + [", " + k for k in keys[1:]] + ["}\n"] if keys else ["{}\n"]
-    return [""] + [","] * (len(columns) - 1) + ["\n"]
+    return [""] + [delimiter] * (len(columns) - 1) + ["\n"]
 
 
 def _literal_words(raw: bytes) -> np.ndarray:
@@ -478,6 +598,7 @@ def encode_rows(
     *,
     style: str = "csv",
     block_rows: int = _BLOCK_ROWS,
+    delimiter: str = ",",
 ) -> Iterator[bytes]:
     """Encode the rows of a table, a block at a time.
 
@@ -488,13 +609,18 @@ def encode_rows(
     columns : sequence of Column
         Name, kind (``int``, ``float``, ``str``, ``bool``) and decimals of each column,
         in output order.
-    style : {'csv', 'jsonl', 'fixed_csv', 'json_rows'}, optional
+    style : {'csv', 'jsonl', 'fixed_csv', 'json_rows', 'printf'}, optional
         See the module docstring. ``csv``: comma-separated cells, text quoted only
         when it holds a comma, a quote or a line break. ``jsonl``: each row a JSON
         array, one per line. ``fixed_csv``: the rows of ``write_csv``. ``json_rows``:
-        each row a JSON object, one per line.
+        each row a JSON object, one per line. ``printf``: numbers as Python's ``%``
+        writes them (column kinds ``int``: ``%d``, ``float``: ``%.{decimals}f``,
+        ``general``: ``%.{decimals}g``).
     block_rows : int, optional
         Rows encoded per block (the memory bound).
+    delimiter : str, optional
+        The one character between cells of the ``printf`` style (the other styles
+        take only ``,``).
 
     Yields
     ------
@@ -519,9 +645,18 @@ def encode_rows(
     {"id": 1, "a_deg": -0.0001, "ok": true, "plane": "(1 1 1)"}
     {"id": 2, "a_deg": null, "ok": false, "plane": null}
     <BLANKLINE>
+    >>> cols = [Column("a_deg", "float", 3), Column("id", "int"), Column("q", "general", 7)]
+    >>> t = {"a_deg": np.array([-0.0001, np.nan]), "id": np.array([1, -2]),
+    ...      "q": np.array([1e16, 0.125])}
+    >>> b"".join(encode_rows(t, cols, style="printf", delimiter=";")).decode()
+    '-0.000;1;1e+16\\nnan;-2;0.125\\n'
     """
     if style not in STYLES:
         raise ValueError(f"Expected `style` to be one of {STYLES}, got {style!r}.")
+    if len(delimiter) != 1 or (delimiter != "," and style != "printf"):
+        raise ValueError(
+            f"Expected `delimiter` to be one character (',' unless printf), got {delimiter!r}."
+        )
     missing = [c.name for c in columns if c.name not in table]
     if missing:
         raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
@@ -529,7 +664,9 @@ def encode_rows(
     if len(lengths) > 1:
         raise ValueError(f"Expected columns of equal length, got lengths {sorted(lengths)}.")
     n_rows = lengths.pop() if lengths else 0
-    literals = _layout(columns, style)
+    # A NUL separator would go with the padding: a byte no printf cell holds stands in for it.
+    nul = delimiter == "\0"
+    literals = _layout(columns, style, "\1" if nul else delimiter)
     arrays = [np.asarray(table[c.name]) for c in columns]
     for start in range(0, n_rows, block_rows):
         stop = min(start + block_rows, n_rows)
@@ -540,4 +677,5 @@ def encode_rows(
                 # csv.writer writes a row of one empty field as "" (else it would be a blank line).
                 cells.put_same(~cells.mat.any(axis=1), '""')
             pieces += [cells, after]
-        yield _join(pieces, stop - start)
+        rows = _join(pieces, stop - start)
+        yield rows.replace(b"\1", b"\0") if nul else rows
