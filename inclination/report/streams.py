@@ -165,6 +165,12 @@ class _Cells:
             if "\0" in t:
                 self.nul_texts[i] = t.encode("utf-8")
 
+    def put_mat(self, rows: np.ndarray, mat: np.ndarray) -> None:
+        """Replace the cells of ``rows`` (indices) by the rows of another cell matrix."""
+        self._widen(mat.shape[1])
+        self.mat[rows] = 0
+        self.mat[rows, : mat.shape[1]] = mat
+
     def put_same(self, rows: np.ndarray, text: str) -> None:
         """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
         raw = b"\0" + text.encode("utf-8")
@@ -461,39 +467,52 @@ def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
     x = np.asarray(values).astype(float)
     n = len(x)
     digits = max(digits, 1)  # %.0g writes one digit, as %.1g
-    nonzero = np.isfinite(x) & (x != 0)
+    finite = np.isfinite(x)
+    nonzero = finite & (x != 0)
     a = np.abs(np.where(nonzero, x, 1.0))
     e0 = np.floor(np.log10(a)).astype(np.int64)
     k = (digits - 1) - e0
-    fast = nonzero & (np.abs(k) <= 22)
-    k = np.where(fast, k, 0)
-    y = np.where(k >= 0, a * _POW10_FLOAT[np.maximum(k, 0)], a / _POW10_FLOAT[np.maximum(-k, 0)])
+    # Mostly k ≥ 0 (|x| < 10^(digits-1)): a product; the rest a division, never by an
+    # inexact power (|k| > 22 goes to Python).
+    y = a * _POW10_FLOAT[np.clip(k, 0, 22)]
+    down = k < 0
+    if down.any():
+        y[down] = a[down] / _POW10_FLOAT[np.minimum(-k[down], 22)]
     m = np.rint(y)
     low, high = float(10 ** (digits - 1)), float(10**digits)
-    near_tie = np.abs(np.abs(y - m) - 0.5) <= y * 1e-15
-    slow = nonzero & (~fast | near_tie | (y < low) | (y >= high) | (high > _EXACT_LIMIT))
+    gap = np.abs(y - m)
+    gap -= 0.5
+    slow = np.abs(gap) <= y * 1e-15  # near a tie
+    slow |= (y < low) | (y >= high) | (np.abs(k) > 22)
+    slow &= nonzero
+    if high > _EXACT_LIMIT:
+        slow = nonzero
     carry = m == high  # 9999999.6 -> 1000000, one exponent up
     e = e0 + carry
-    m = np.where(carry, low, m)
-    m = np.where(nonzero & ~slow, m, 0.0).astype(np.int64)
-    neg = np.signbit(x) & np.isfinite(x)
+    m[carry] = low
+    m[~nonzero | slow] = 0.0
+    m = m.astype(np.int64)
+    neg = np.signbit(x) & finite
     fixed = nonzero & ~slow & (e >= -4) & (e < digits)
     exponent = nonzero & ~slow & ~fixed
-    parts: list[tuple[np.ndarray, np.ndarray]] = []
-    # Zero (and every other cell until it is replaced): "0", or "-0" for a negative zero.
-    parts.append((np.ones(n, bool), _fixed_cells(np.zeros(n, np.int64), neg, 0, "none").mat))
-    for d in np.unique(digits - 1 - e[fixed]).tolist():
-        rows = fixed & (e == digits - 1 - d)
-        parts.append((rows, _fixed_cells(m[rows], neg[rows], d, "all").mat))
+    # The fixed form has digits - 1 - e decimals. Written with the block's most decimals
+    # (top), m·10^(top - d), in one pass: the zeros this appends are dropped with the
+    # other trailing zeros. Zero, and every cell replaced below, is m = 0: "0" or "-0".
+    d = digits - 1 - e
+    top = int(d[fixed].max(initial=0))
+    if digits + top <= 18:  # m·10^(top - d) < 10^(digits + top) fits int64
+        shift = _POW10[np.clip(top - d, 0, 18)]
+        cells = _fixed_cells(np.where(fixed, m * shift, 0), neg, top, "all")
+    else:  # one pass per number of decimals
+        cells = _fixed_cells(np.zeros(n, np.int64), neg, 0, "none")
+        for k in np.unique(d[fixed]).tolist():
+            rows = np.flatnonzero(fixed & (d == k))
+            cells.put_mat(rows, _fixed_cells(m[rows], neg[rows], k, "all").mat)
     if exponent.any():
-        mantissa = _fixed_cells(m[exponent], neg[exponent], digits - 1, "all").mat
-        words = _EXPONENT_WORDS[e[exponent] - _EXPONENT_MIN].view(np.uint8).reshape(-1, 4)
-        parts.append((exponent, np.concatenate([mantissa, words], axis=1)))
-    width = max(mat.shape[1] for _, mat in parts)
-    mat = np.zeros((n, width), np.uint8)
-    for rows, part in parts:
-        mat[rows, : part.shape[1]] = part
-    cells = _Cells(mat)
+        rows = np.flatnonzero(exponent)
+        mantissa = _fixed_cells(m[rows], neg[rows], digits - 1, "all").mat
+        words = _EXPONENT_WORDS[e[rows] - _EXPONENT_MIN].view(np.uint8).reshape(-1, 4)
+        cells.put_mat(rows, np.concatenate([mantissa, words], axis=1))
     _put_non_finite(cells, x)
     rows = np.flatnonzero(slow)
     cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
