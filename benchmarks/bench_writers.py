@@ -120,6 +120,13 @@ def main(argv=None) -> int:
         folder = Path(tmp)
         if args.only != "tables":
             _time(f"map.csv ({args.map_side}²)", lambda: write_map_csv(folder / "m.csv", omap))
+            # The part of it that is not text: quaternions to declared Euler angles (maps).
+            start, cpu = time.perf_counter(), time.process_time()
+            omap.euler_deg_declared()
+            print(
+                f"{'  of which Euler angles':<28} {time.perf_counter() - start:7.2f} s wall "
+                f"{time.process_time() - cpu:7.2f} s cpu"
+            )
         if args.only == "map":
             return 0
         _time("boundaries.csv", lambda: write_csv(folder / "b.csv", boundaries, BOUNDARY_COLUMNS))

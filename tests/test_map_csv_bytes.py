@@ -173,3 +173,15 @@ def test_printf_style_refuses_text_and_other_styles_refuse_a_delimiter():
         list(encode_rows(t, [Column("s", "str")], style="printf"))
     with pytest.raises(ValueError, match="delimiter"):
         list(encode_rows(t, [Column("s", "str")], style="csv", delimiter=";"))
+
+
+def test_declared_euler_angles_do_not_depend_on_the_block(monkeypatch):
+    # maps.OrientationMap.euler_deg_declared converts a block of points at a time
+    # (conventions §2–§3); each point on its own, so a block of 7 gives the same bits.
+    import inclination.maps as maps
+
+    omap = _map(7, (23, 19), "hexagonal", axes=DeclaredAxes("down", "right"))
+    whole = omap.euler_deg_declared()
+    monkeypatch.setattr(maps, "_EULER_BLOCK", 7)
+    assert np.array_equal(omap.euler_deg_declared(), whole, equal_nan=True)
+    assert np.isnan(whole[~np.asarray(omap.valid)]).all()
