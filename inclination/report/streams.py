@@ -199,9 +199,12 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     unit = _POW10[decimals]
     whole = scaled // unit
     frac = scaled - whole * unit
-    # One digit of room in the leading word: with the sign, at most three of its four bytes
-    # are used, and byte 0 of the cell stays free.
-    groups = -(-(len(str(int(whole.max(initial=0)))) + 1) // 3)
+    # Byte 0 of the cell stays free: a group of three digits fills the last three bytes of
+    # its word, so only a negative number needs a digit of room for its sign ("-dd").
+    longest = len(str(int(whole.max(initial=0))))
+    if neg.any():
+        longest = max(longest, len(str(int(whole[neg].max()))) + 1)
+    groups = -(-longest // 3)
     # The decimals split into words: the first three with the point, then four at a time.
     cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
     spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
