@@ -182,6 +182,6 @@ def test_declared_euler_angles_do_not_depend_on_the_block(monkeypatch):
 
     omap = _map(7, (23, 19), "hexagonal", axes=DeclaredAxes("down", "right"))
     whole = omap.euler_deg_declared()
-    monkeypatch.setattr(maps, "_EULER_BLOCK", 7)
+    monkeypatch.setattr(maps, "_BLOCK", 7)
     assert np.array_equal(omap.euler_deg_declared(), whole, equal_nan=True)
     assert np.isnan(whole[~np.asarray(omap.valid)]).all()
