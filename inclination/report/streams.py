@@ -202,8 +202,8 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     # Byte 0 of the cell stays free: a group of three digits fills the last three bytes of
     # its word, so only a negative number needs a digit of room for its sign ("-dd").
     longest = len(str(int(whole.max(initial=0))))
-    if neg.any():
-        longest = max(longest, len(str(int(whole[neg].max()))) + 1)
+    if longest % 3 == 0 and neg.any():  # else the sign fits in the leading word anyway
+        longest = max(longest, len(str(int(np.max(whole, where=neg, initial=0)))) + 1)
     groups = -(-longest // 3)
     # The decimals split into words: the first three with the point, then four at a time.
     cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
