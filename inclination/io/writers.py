@@ -22,8 +22,14 @@ import numpy as np
 
 from ..errors import SettingError
 from ..maps import OrientationMap
+from ..report.columns import Column
+from ..report.streams import encode_rows
 
 __all__ = ["write_npz", "write_tiff", "write_csv"]
+
+# The text table's cells as Python's % writes them: %.6f coordinates, %.5f angles, %d
+# phase (the quality channels follow as %.7g), encoded column-wise by report.streams.
+_MAP_FORMATS = [("float", 6)] * 2 + [("float", 5)] * 3 + [("int", 0)]
 
 
 def _atomic(path: str | os.PathLike, write: Callable[[BinaryIO], object]) -> Path:
@@ -134,8 +140,11 @@ def write_csv(path: str | os.PathLike, omap: OrientationMap, *, delimiter: str =
     quality channels. Coordinates are the declared coordinates of each grid
     point (``omap.axes``, with its origin), to 1e-6 µm; angles are Bunge, in
     degrees, in the map's data frame, to 1e-5° (the float32 storage's own
-    precision). Every grid point is written;
-    non-indexed points have ``nan`` angles and phase 0. Written atomically.
+    precision); quality channels to 7 significant digits (``%.7g``). Every grid
+    point is written; non-indexed points have ``nan`` angles and phase 0. The
+    rows are encoded a block at a time, column by column
+    (:func:`inclination.report.streams.encode_rows`, style ``printf``: the bytes of
+    Python's ``%`` operator), and streamed into the file. Written atomically.
 
     Returns
     -------
@@ -157,22 +166,29 @@ def write_csv(path: str | os.PathLike, omap: OrientationMap, *, delimiter: str =
         )
     xy = omap.positions_declared_um().reshape(-1, 2)
     euler = omap.euler_deg_declared().reshape(-1, 3)
-    columns = [xy[:, 0], xy[:, 1], euler[:, 0], euler[:, 1], euler[:, 2]]
-    columns += [np.asarray(q, dtype=np.float64).ravel() for q in omap.quality.values()]
-    header = ["x_um", "y_um", "phi1_deg", "Phi_deg", "phi2_deg", "phase", *omap.quality]
-    phase = np.asarray(omap.phase).ravel()
-    n_float = len(columns)
-    fmt_row = delimiter.join(["%.6f"] * 2 + ["%.5f"] * 3 + ["%d"] + ["%.7g"] * (n_float - 5))
-    fmt_row += "\n"
-    table = np.column_stack(columns)
+    table = {
+        "x_um": xy[:, 0],
+        "y_um": xy[:, 1],
+        "phi1_deg": euler[:, 0],
+        "Phi_deg": euler[:, 1],
+        "phi2_deg": euler[:, 2],
+        "phase": np.asarray(omap.phase).ravel(),
+    }
+    # Quality channels by position: a channel may be named like a fixed column.
+    columns = [Column(f"#{k}", kind, d) for k, (kind, d) in enumerate(_MAP_FORMATS)]
+    cells = dict(zip((c.name for c in columns), table.values(), strict=True))
+    for k, q in enumerate(omap.quality.values()):
+        columns.append(Column(f"#q{k}", "general", 7))
+        cells[f"#q{k}"] = np.asarray(q, dtype=np.float64).ravel()
+    header = [*table, *omap.quality]
 
     def write(fh):
         fh.write((delimiter.join(header) + "\n").encode("utf-8"))
-        block = 65536
-        for start in range(0, len(table), block):
-            rows = table[start : start + block].tolist()
-            ids = phase[start : start + block].tolist()
-            text = "".join(fmt_row % (*r[:5], p, *r[5:]) for r, p in zip(rows, ids, strict=True))
-            fh.write(text.encode("utf-8"))
+        # 65,536 rows a block (about 10 MB of words): fewer numpy calls per byte than the
+        # tables' 16,384, for a table of eight or nine short number columns.
+        for block in encode_rows(
+            cells, columns, style="printf", delimiter=delimiter, block_rows=65_536
+        ):
+            fh.write(block)
 
     return _atomic(path, write)

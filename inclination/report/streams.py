@@ -29,6 +29,14 @@ The encodings (:data:`STYLES`):
     ``ensure_ascii=False``; floats rounded with :func:`numpy.round` to the
     column's decimals + 3 and written as Python's ``repr`` writes them (the
     shortest text that reads back to the same float).
+``printf``
+    Numbers only, as Python's ``%`` operator writes them (the map export of
+    :func:`inclination.io.writers.write_csv`): ``float`` columns as ``%.{decimals}f``
+    (``-0.00000`` kept), ``int`` columns as ``%d``, ``general`` columns as
+    ``%.{decimals}g`` (``decimals`` significant digits, trailing zeros dropped, an
+    exponent below 1e-4 and from 10^decimals on); NaN and ±inf as ``nan``, ``inf``,
+    ``-inf``. Cells are separated by the ``delimiter`` of :func:`encode_rows`, any one
+    character.
 
 Where the fast path cannot promise the same bytes as those references (a value
 too large for exact int64 digits, a float within a rounding error of a tie, a
@@ -47,7 +55,7 @@ import numpy as np
 __all__ = ["STYLES", "encode_rows"]
 
 #: Closed set of encodings.
-STYLES = ("csv", "jsonl", "fixed_csv", "json_rows")
+STYLES = ("csv", "jsonl", "fixed_csv", "json_rows", "printf")
 
 _BLOCK_ROWS = 16_384
 # csv / jsonl write |x| from this magnitude on as Python's repr (the styles' rule).
@@ -56,6 +64,8 @@ _FIXED_LIMIT = 1e15
 # 10^-d apart never round to the same float, so the fixed-point text is Python's repr.
 _EXACT_LIMIT = float(2**50)
 _POW10 = 10 ** np.arange(19, dtype=np.int64)
+# Powers of ten a float64 holds exactly (10^22 is the last), from Python's exact integers.
+_POW10_FLOAT = np.array([float(10**k) for k in range(23)])
 
 
 # A word is 4 bytes of text viewed as one uint32 (memory order kept, whatever the endianness).
@@ -155,6 +165,12 @@ class _Cells:
             if "\0" in t:
                 self.nul_texts[i] = t.encode("utf-8")
 
+    def put_mat(self, rows: np.ndarray, mat: np.ndarray) -> None:
+        """Replace the cells of ``rows`` (indices) by the rows of another cell matrix."""
+        self._widen(mat.shape[1])
+        self.mat[rows] = 0
+        self.mat[rows, : mat.shape[1]] = mat
+
     def put_same(self, rows: np.ndarray, text: str) -> None:
         """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
         raw = b"\0" + text.encode("utf-8")
@@ -183,9 +199,12 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     unit = _POW10[decimals]
     whole = scaled // unit
     frac = scaled - whole * unit
-    # One digit of room in the leading word: with the sign, at most three of its four bytes
-    # are used, and byte 0 of the cell stays free.
-    groups = -(-(len(str(int(whole.max(initial=0)))) + 1) // 3)
+    # Byte 0 of the cell stays free: a group of three digits fills the last three bytes of
+    # its word, so only a negative number needs a digit of room for its sign ("-dd").
+    longest = len(str(int(whole.max(initial=0))))
+    if longest % 3 == 0 and neg.any():  # else the sign fits in the leading word anyway
+        longest = max(longest, len(str(int(np.max(whole, where=neg, initial=0)))) + 1)
+    groups = -(-longest // 3)
     # The decimals split into words: the first three with the point, then four at a time.
     cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
     spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
@@ -394,7 +413,130 @@ def _json_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     return cells
 
 
+def _put_non_finite(cells: _Cells, x: np.ndarray) -> None:
+    """``nan``, ``inf`` and ``-inf``, as Python's ``%`` writes them (the sign of a NaN is not)."""
+    if np.isfinite(x).all():
+        return
+    for mask, text in ((np.isnan(x), "nan"), (x == np.inf, "inf"), (x == -np.inf, "-inf")):
+        if mask.any():
+            cells.put_same(mask, text)
+
+
+def _printf_int_cells(values: np.ndarray) -> _Cells:
+    """``%d``: the integer with its sign (a float is cut toward zero, as ``%d`` does)."""
+    x = np.asarray(values).astype(np.int64)
+    # -2^63 has no int64 magnitude: Python writes it.
+    slow = x == np.iinfo(np.int64).min
+    cells = _fixed_cells(np.abs(np.where(slow, 0, x)), x < 0, 0, "none")
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%d" % v for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+def _printf_fixed_cells(values: np.ndarray, decimals: int) -> _Cells:
+    """``%.{decimals}f``: correctly rounded, the sign of a negative zero kept (``-0.000``)."""
+    x = np.asarray(values).astype(float)
+    finite = np.isfinite(x)
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(np.where(finite, x, 0.0)) * 10.0**decimals
+    rounded = np.rint(y)
+    # As in fixed_csv: a cell within a few ulps of a decimal tie, or past exact int64
+    # digits, is left to Python, which rounds the exact binary value.
+    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15
+    slow = finite & ((y >= _EXACT_LIMIT) | near_tie)
+    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
+    cells = _fixed_cells(scaled, finite & np.signbit(x), decimals, "none")
+    _put_non_finite(cells, x)
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%.*f" % (decimals, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+# The exponent of %g as one word, "e+dd" / "e-dd", for the exponents of the fast path.
+_EXPONENT_MIN = -23
+_EXPONENT_WORDS = _words_left(b"e%+03d" % e for e in range(_EXPONENT_MIN, 24 + 23))
+
+
+def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
+    """``%.{digits}g``: ``digits`` significant digits, fixed or exponent form, zeros dropped.
+
+    For a finite x ≠ 0 with decimal exponent e (after rounding to ``digits`` digits),
+    Python writes the fixed form with ``digits - 1 - e`` decimals if -4 ≤ e < digits,
+    else the mantissa and ``e±dd``; trailing zeros and a bare point are dropped in both.
+    The mantissa m = |x|·10^(digits-1-e0) rounded, one multiplication or division by an
+    exact power of ten, so one rounding error; a cell near a tie or with a wrong guess
+    e0 of the exponent (near a power of ten) is left to Python.
+    """
+    x = np.asarray(values).astype(float)
+    n = len(x)
+    digits = max(digits, 1)  # %.0g writes one digit, as %.1g
+    finite = np.isfinite(x)
+    nonzero = finite & (x != 0)
+    a = np.abs(np.where(nonzero, x, 1.0))
+    e0 = np.floor(np.log10(a)).astype(np.int64)
+    k = (digits - 1) - e0
+    # Mostly k ≥ 0 (|x| < 10^(digits-1)): a product; the rest a division, never by an
+    # inexact power (|k| > 22 goes to Python).
+    y = a * _POW10_FLOAT[np.clip(k, 0, 22)]
+    down = k < 0
+    if down.any():
+        y[down] = a[down] / _POW10_FLOAT[np.minimum(-k[down], 22)]
+    m = np.rint(y)
+    low, high = float(10 ** (digits - 1)), float(10**digits)
+    gap = np.abs(y - m)
+    gap -= 0.5
+    slow = np.abs(gap) <= y * 1e-15  # near a tie
+    slow |= (y < low) | (y >= high) | (np.abs(k) > 22)
+    slow &= nonzero
+    if high > _EXACT_LIMIT:
+        slow = nonzero
+    carry = m == high  # 9999999.6 -> 1000000, one exponent up
+    e = e0 + carry
+    m[carry] = low
+    m[~nonzero | slow] = 0.0
+    m = m.astype(np.int64)
+    neg = np.signbit(x) & finite
+    fixed = nonzero & ~slow & (e >= -4) & (e < digits)
+    exponent = nonzero & ~slow & ~fixed
+    # The fixed form has digits - 1 - e decimals. Written with the block's most decimals
+    # (top), m·10^(top - d), in one pass: the zeros this appends are dropped with the
+    # other trailing zeros. Zero, and every cell replaced below, is m = 0: "0" or "-0".
+    d = digits - 1 - e
+    top = int(d[fixed].max(initial=0))
+    if digits + top <= 18:  # m·10^(top - d) < 10^(digits + top) fits int64
+        shift = _POW10[np.clip(top - d, 0, 18)]
+        cells = _fixed_cells(np.where(fixed, m * shift, 0), neg, top, "all")
+    else:  # one pass per number of decimals
+        cells = _fixed_cells(np.zeros(n, np.int64), neg, 0, "none")
+        for k in np.unique(d[fixed]).tolist():
+            rows = np.flatnonzero(fixed & (d == k))
+            cells.put_mat(rows, _fixed_cells(m[rows], neg[rows], k, "all").mat)
+    if exponent.any():
+        rows = np.flatnonzero(exponent)
+        mantissa = _fixed_cells(m[rows], neg[rows], digits - 1, "all").mat
+        words = _EXPONENT_WORDS[e[rows] - _EXPONENT_MIN].view(np.uint8).reshape(-1, 4)
+        cells.put_mat(rows, np.concatenate([mantissa, words], axis=1))
+    _put_non_finite(cells, x)
+    rows = np.flatnonzero(slow)
+    cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    return cells
+
+
+def _printf_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
+    if kind == "int":
+        return _printf_int_cells(values)
+    if kind == "float":
+        return _printf_fixed_cells(values, decimals)
+    if kind == "general":
+        return _printf_general_cells(values, decimals)
+    raise ValueError(f"Expected a printf column of kind int, float or general, got {kind!r}.")
+
+
 def _column_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
+    if style == "printf":
+        return _printf_cells(values, kind, decimals)
+    if kind == "general":
+        raise ValueError(f"Expected a column of kind general in the printf style, got {style!r}.")
     if kind == "bool":
         return _bool_cells(values)
     if kind == "str":
@@ -406,14 +548,14 @@ def _column_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _
     return _compact_number_cells(values, kind, decimals, style)
 
 
-def _layout(columns: Sequence, style: str) -> list[str]:
+def _layout(columns: Sequence, style: str, delimiter: str = ",") -> list[str]:
     """The literal text before each column and after the last (len(columns) + 1 pieces)."""
     if style == "jsonl":
         return ["["] + [","] * (len(columns) - 1) + ["]\n"]
     if style == "json_rows":
         keys = [json.dumps(c.name, ensure_ascii=False) + ": " for c in columns]
         return ["{" + keys[0]] + [", " + k for k in keys[1:]] + ["}\n"] if keys else ["{}\n"]
-    return [""] + [","] * (len(columns) - 1) + ["\n"]
+    return [""] + [delimiter] * (len(columns) - 1) + ["\n"]
 
 
 def _literal_words(raw: bytes) -> np.ndarray:
@@ -478,6 +620,7 @@ def encode_rows(
     *,
     style: str = "csv",
     block_rows: int = _BLOCK_ROWS,
+    delimiter: str = ",",
 ) -> Iterator[bytes]:
     """Encode the rows of a table, a block at a time.
 
@@ -488,13 +631,18 @@ def encode_rows(
     columns : sequence of Column
         Name, kind (``int``, ``float``, ``str``, ``bool``) and decimals of each column,
         in output order.
-    style : {'csv', 'jsonl', 'fixed_csv', 'json_rows'}, optional
+    style : {'csv', 'jsonl', 'fixed_csv', 'json_rows', 'printf'}, optional
         See the module docstring. ``csv``: comma-separated cells, text quoted only
         when it holds a comma, a quote or a line break. ``jsonl``: each row a JSON
         array, one per line. ``fixed_csv``: the rows of ``write_csv``. ``json_rows``:
-        each row a JSON object, one per line.
+        each row a JSON object, one per line. ``printf``: numbers as Python's ``%``
+        writes them (column kinds ``int``: ``%d``, ``float``: ``%.{decimals}f``,
+        ``general``: ``%.{decimals}g``).
     block_rows : int, optional
         Rows encoded per block (the memory bound).
+    delimiter : str, optional
+        The one character between cells of the ``printf`` style (the other styles
+        take only ``,``).
 
     Yields
     ------
@@ -519,9 +667,18 @@ def encode_rows(
     {"id": 1, "a_deg": -0.0001, "ok": true, "plane": "(1 1 1)"}
     {"id": 2, "a_deg": null, "ok": false, "plane": null}
     <BLANKLINE>
+    >>> cols = [Column("a_deg", "float", 3), Column("id", "int"), Column("q", "general", 7)]
+    >>> t = {"a_deg": np.array([-0.0001, np.nan]), "id": np.array([1, -2]),
+    ...      "q": np.array([1e16, 0.125])}
+    >>> b"".join(encode_rows(t, cols, style="printf", delimiter=";")).decode()
+    '-0.000;1;1e+16\\nnan;-2;0.125\\n'
     """
     if style not in STYLES:
         raise ValueError(f"Expected `style` to be one of {STYLES}, got {style!r}.")
+    if len(delimiter) != 1 or (delimiter != "," and style != "printf"):
+        raise ValueError(
+            f"Expected `delimiter` to be one character (',' unless printf), got {delimiter!r}."
+        )
     missing = [c.name for c in columns if c.name not in table]
     if missing:
         raise ValueError(f"Expected the table to have columns {missing}, got {sorted(table)}.")
@@ -529,7 +686,9 @@ def encode_rows(
     if len(lengths) > 1:
         raise ValueError(f"Expected columns of equal length, got lengths {sorted(lengths)}.")
     n_rows = lengths.pop() if lengths else 0
-    literals = _layout(columns, style)
+    # A NUL separator would go with the padding: a byte no printf cell holds stands in for it.
+    nul = delimiter == "\0"
+    literals = _layout(columns, style, "\1" if nul else delimiter)
     arrays = [np.asarray(table[c.name]) for c in columns]
     for start in range(0, n_rows, block_rows):
         stop = min(start + block_rows, n_rows)
@@ -540,4 +699,5 @@ def encode_rows(
                 # csv.writer writes a row of one empty field as "" (else it would be a blank line).
                 cells.put_same(~cells.mat.any(axis=1), '""')
             pieces += [cells, after]
-        yield _join(pieces, stop - start)
+        rows = _join(pieces, stop - start)
+        yield rows.replace(b"\1", b"\0") if nul else rows
