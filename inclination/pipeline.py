@@ -422,6 +422,9 @@ def _sections(job, omap, grain_map, segments, progress, network=None):
                 path=job.source_path,
                 pointer=pointer,
             )
+            # The deeper map's planes (21 bytes per point) are not needed past its grains
+            # and segments: freed before the registration and the next section's read.
+            del deeper
             depth = layer.depth
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always")
