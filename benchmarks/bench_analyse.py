@@ -15,7 +15,12 @@ Stages: ``read`` (Job.read_surface_map), ``grains`` (segment_grains, on every ma
 reads, the serial section's too), ``traces`` (boundary_network, fit_segments), ``planes``
 (match_planes, twin_test_summary), ``write`` (write_outputs) and ``sections and rest``
 (everything else: the sections, serial-map reading, start-up, glue). The peak is the
-child's maximum resident set size over the whole run. In the same run it times the plain
+child's own high-water resident set size (``VmHWM`` of ``/proc/self/status``), not
+``getrusage``'s ``ru_maxrss``: a child started by ``subprocess`` (vfork, then exec) carries
+the parent's resident size into ``ru_maxrss``, so it reported the memory of building the
+sample here, not of the run. A thread in the child samples the resident size every 2 ms
+and keeps the largest seen during each stage (short spikes between samples can be missed;
+the whole-run peak cannot). In the same run it times the plain
 numpy/scipy floor of the same work (read both maps, orientations, links, labels, grain
 statistics, boundary pairs, line fits, plane predictions, a CSV) and prints the ratio.
 With several sizes (grains scaled as size²) or several grain counts at one size, it
@@ -26,7 +31,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import resource
 import subprocess
 import sys
 import tempfile
@@ -37,7 +41,6 @@ import numpy as np
 from scipy import ndimage
 
 from inclination.crystal.phases import Phase
-from inclination.io.writers import write_npz
 from inclination.synthetic import (
     as_orientation_map,
     make_microstructure,
@@ -46,6 +49,8 @@ from inclination.synthetic import (
 )
 
 STEP_UM = 0.5
+#: Rows of one sampled strip of the synthetic maps (see write_strips).
+STRIP = 1024
 PHASE = {
     "id": 1,
     "name": "austenite",
@@ -77,6 +82,36 @@ def _map_entry(path):
     }
 
 
+def write_strips(path: Path, micro, gen, size: int, *, depth_um: float, clusters: int) -> None:
+    """Sample a size² map in strips of STRIP rows and write it as one npz.
+
+    ``sample_map`` holds several float64 arrays and a k-d tree per point; sampled whole,
+    an 8192² map would need tens of GiB here, so each strip is sampled on its own rows
+    (``offset_um`` moves it down the microstructure) and placed into the full arrays.
+    The maps are written as ``write_npz`` writes them (compressed, float64 ``euler_deg`` in the data
+    frame, int32 ``phase``); the mis-indexed clusters all fall in the first strip.
+    """
+    euler = np.empty((size, size, 3))
+    phase = np.empty((size, size), np.int32)
+    options = {"step_um": STEP_UM, "noise_deg": 0.5, "nonindexed_fraction": 0.01}
+    for r0 in range(0, size, STRIP):
+        rows = min(STRIP, size - r0)
+        strip = sample_map(
+            micro,
+            rng=gen,
+            depth_um=depth_um,
+            shape=(rows, size),
+            offset_um=(0.0, r0 * STEP_UM),
+            misindexed_clusters=clusters if r0 == 0 else 0,
+            **options,
+        )
+        omap = as_orientation_map(strip)
+        euler[r0 : r0 + rows] = omap.euler_deg_declared()
+        phase[r0 : r0 + rows] = omap.phase
+        del strip, omap
+    np.savez_compressed(path, euler_deg=euler, phase=phase)
+
+
 def build_sample(folder: Path, size: int, n_grains: int, seed: int) -> Path:
     """Write surface.npz, serial.npz and job.json for one sample; returns the job path."""
     gen = np.random.default_rng(seed)
@@ -88,11 +123,8 @@ def build_sample(folder: Path, size: int, n_grains: int, seed: int) -> Path:
         phases=[Phase.from_dict(PHASE)],
         twins=max(1, n_grains // 10),
     )
-    options = {"step_um": STEP_UM, "noise_deg": 0.5, "nonindexed_fraction": 0.01}
-    surface = sample_map(micro, rng=gen, misindexed_clusters=3, shape=(size, size), **options)
-    serial = sample_map(micro, rng=gen, depth_um=5.0, shape=(size, size), **options)
-    write_npz(folder / "surface.npz", as_orientation_map(surface))
-    write_npz(folder / "serial.npz", as_orientation_map(serial))
+    write_strips(folder / "surface.npz", micro, gen, size, depth_um=0.0, clusters=3)
+    write_strips(folder / "serial.npz", micro, gen, size, depth_um=5.0, clusters=0)
     sections = []
     for k, frac in enumerate((1 / 3, 2 / 3)):
         y = frac * side_um
@@ -138,9 +170,32 @@ def build_sample(folder: Path, size: int, n_grains: int, seed: int) -> Path:
 
 
 CHILD = """
-import functools, importlib, json, resource, sys, time
+import functools, importlib, json, os, resource, sys, threading, time
 t0 = time.perf_counter()
-spent, stack = {}, []
+spent, stack, high = {}, [], {}
+PAGE = os.sysconf("SC_PAGE_SIZE")
+
+def sample():
+    # Resident size now, kept as the largest seen in the stage running now.
+    with open("/proc/self/statm") as f:
+        rss = int(f.read().split()[1]) * PAGE
+    stage = stack[-1][0] if stack else "sections and rest"
+    high[stage] = max(high.get(stage, 0), rss)
+
+def sampler():
+    while True:
+        sample()
+        time.sleep(0.002)
+
+def hwm():
+    # This process's own high-water mark; ru_maxrss would include the parent's (vfork).
+    with open("/proc/self/status") as f:
+        for line in f:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) * 1024
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+
+threading.Thread(target=sampler, daemon=True).start()
 
 def timed(fn, stage):
     @functools.wraps(fn)
@@ -154,6 +209,7 @@ def timed(fn, stage):
         try:
             return fn(*args, **kwargs)
         finally:
+            sample()
             end = time.perf_counter()
             spent[stage] = spent.get(stage, 0.0) + end - stack.pop()[1]
             if stack:
@@ -170,20 +226,20 @@ from inclination.cli import main
 rc = main(["analyse", JOB, "--out", OUT, "--quiet"])
 total = time.perf_counter() - t0
 spent["sections and rest"] = total - sum(spent.values())
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-print(json.dumps({"stages": spent, "total": total, "peak": peak}))
+peak = hwm()
+print(json.dumps({"stages": spent, "total": total, "peak": peak, "high": high}))
 sys.exit(rc)
 """
 
 
-def run_analyse(job: Path, out: Path) -> tuple[dict, float, float]:
-    """Per-stage exclusive times (s), wall time (s) and peak RSS (bytes) of one run."""
+def run_analyse(job: Path, out: Path) -> tuple[dict, float, float, dict]:
+    """Per-stage exclusive times (s), wall time (s), peak RSS and per-stage peak RSS (bytes)."""
     code = f"TIMED = {TIMED!r}\nJOB = {str(job)!r}\nOUT = {str(out)!r}\n" + CHILD
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     if done.returncode != 0:
         raise RuntimeError(f"analyse failed: {done.stderr.strip()[-500:]}")
     found = json.loads(done.stdout.strip().splitlines()[-1])
-    return found["stages"], found["total"], found["peak"]
+    return found["stages"], found["total"], found["peak"], found["high"]
 
 
 def floor_seconds(folder: Path) -> float:
@@ -256,10 +312,14 @@ def main(argv=None) -> int:
         with tempfile.TemporaryDirectory() as tmp:
             folder = Path(tmp)
             job = build_sample(folder, size, n_grains, args.seed)
-            spent, total, rss = run_analyse(job, folder / "out")
+            spent, total, rss, high = run_analyse(job, folder / "out")
             stages = {name: spent.get(name, 0.0) for name in STAGES}
             for name in STAGES:
-                print(f"| {size}² | {n_grains} | {name} | {stages[name]:.2f} | | |")
+                top = high.get(name, 0)
+                print(
+                    f"| {size}² | {n_grains} | {name} | {stages[name]:.2f} | "
+                    f"{top / 2**30:.2f} | {top / size**2:.0f} |"
+                )
             print(
                 f"| {size}² | {n_grains} | analyse (total) | {total:.2f} | "
                 f"{rss / 2**30:.2f} | {rss / size**2:.0f} |"
@@ -270,7 +330,6 @@ def main(argv=None) -> int:
                 f"| {size}² | {n_grains} | analyse / floor | {total / floor:.1f}× | | |"
             )
             results.append((size, n_grains, stages, total, floor))
-        print(f"resources: {resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss} KiB")
     if len(results) > 1:
         x = [r[0] ** 2 for r in results] if len(args.sizes) > 1 else [r[1] for r in results]
         what = "points" if len(args.sizes) > 1 else "grains"

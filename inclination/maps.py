@@ -186,11 +186,16 @@ class OrientationMap:
             raise TypeError(f"Expected `phase` to be integers, got dtype {phase.dtype}.")
         if phase.size and (phase.min() < 0 or phase.max() > np.iinfo(np.int32).max):
             raise SettingError("Expected `phase` to hold ids >= 0, got a negative id.")
-        phase = np.array(phase, dtype=np.int32, order="C", copy=True)
+        # Sealed int32 / bool arrays (as the readers hand over) are adopted like the
+        # planes: nothing can write to them, so a copy would only cost 5 bytes per point.
+        if not (phase.dtype == np.int32 and phase.flags.c_contiguous and _sealed(phase)):
+            phase = np.array(phase, dtype=np.int32, order="C", copy=True)
         if self.valid is None:
             valid = phase != 0
         else:
-            valid = np.array(self.valid, order="C", copy=True)
+            valid = np.asarray(self.valid)
+            if not (valid.dtype == bool and valid.flags.c_contiguous and _sealed(valid)):
+                valid = np.array(valid, order="C", copy=True)
             if valid.dtype != bool or valid.shape != shape:
                 raise SettingError(
                     f"Expected `valid` to be bool of shape {shape}, "
@@ -753,6 +758,9 @@ def read_map(
             path,
             progress=progress,
         )
+        # The file's arrays (float64 angles: 24 bytes per point) are dropped before the
+        # map record is built, so they are never alive beside its planes and checks.
+        del euler, phase_raw, quality
         omap_args["provenance_reader"] = reader
     settings.update(omap_args.pop("settings", {}))
     reader = omap_args.pop("provenance_reader")
@@ -856,7 +864,8 @@ def _assemble(
         # Arrays already in grid order (npz, TIFF): no scatter, no second full-size copy.
         quat = q_rows
         valid = valid_rows
-        phase = np.where(valid_rows, phase_rows, 0).astype(np.int32)
+        # One int32 array (np.where of int32 ids is int32 already: no second copy).
+        phase = np.where(valid_rows, phase_rows, 0).astype(np.int32, copy=False)
         quality = {name: np.asarray(rows).reshape(shape) for name, rows in quality_rows.items()}
     else:
         quat = np.zeros((4, n), dtype=np.float32)
@@ -872,10 +881,11 @@ def _assemble(
             plane = np.full(n, np.nan, dtype=np.float32)
             plane[linear] = rows
             quality[name] = plane.reshape(shape)
+    # Sealed (read-only, owning their memory): OrientationMap adopts them without a copy.
     args = dict(
         quat=np.moveaxis(_read_only(quat.reshape((4, *shape))), 0, -1),
-        phase=phase.reshape(shape),
-        valid=valid.reshape(shape),
+        phase=_read_only(phase.reshape(shape)),
+        valid=_read_only(valid.reshape(shape)),
         quality=quality,
     )
     return args, extra

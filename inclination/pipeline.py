@@ -563,6 +563,9 @@ def _sections(job, omap, grain_map, segments, progress, network=None, identifica
                 path=job.source_path,
                 pointer=pointer,
             )
+            # The deeper map's planes (21 bytes per point) are not needed past its grains
+            # and segments: freed before the registration and the next section's read.
+            del deeper
             pair = (segments, grain_map, deeper_segments, deeper_grains)
             settings = {
                 "step_um": step,

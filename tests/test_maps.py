@@ -111,6 +111,33 @@ def test_record_is_immutable_and_copies_inputs():
     assert omap.shape == (2, 3) and omap.n_points == 6
 
 
+def test_record_adopts_sealed_phase_and_valid_but_copies_writeable_ones():
+    # Sealed arrays (read-only and owning their memory, as the readers hand over) cannot
+    # change under the record, so it keeps them; a writeable caller's array is copied.
+    q = np.zeros((2, 3, 4))
+    q[..., 0] = 1.0
+    phase = np.array([[1, 1, 0], [1, 2, 1]], dtype=np.int32)
+    valid = phase != 0
+    mine = OrientationMap(q, phase, valid=valid, grid="square", step_x_um=1)
+    assert not np.shares_memory(mine.phase, phase) and not np.shares_memory(mine.valid, valid)
+    phase[0, 0] = 2  # the caller's arrays stay the caller's
+    valid[0, 0] = False
+    assert mine.phase[0, 0] == 1 and mine.valid[0, 0]
+    phase[0, 0] = 1
+    valid[0, 0] = True
+    phase.flags.writeable = False
+    valid.flags.writeable = False
+    sealed = OrientationMap(q, phase, valid=valid, grid="square", step_x_um=1)
+    assert np.shares_memory(sealed.phase, phase) and np.shares_memory(sealed.valid, valid)
+    assert_array_equal(sealed.phase, mine.phase)
+    assert_array_equal(sealed.valid, mine.valid)
+    # A sealed view of a writeable owner is not sealed: copied.
+    owner = np.array([[1, 1, 0], [1, 2, 1]], dtype=np.int32)
+    view = owner[:]
+    view.flags.writeable = False
+    assert not np.shares_memory(OrientationMap(q, view, grid="square", step_x_um=1).phase, owner)
+
+
 def test_invalid_points_hold_identity():
     q = np.full((1, 2, 4), np.nan)
     q[0, 0] = [0.0, 1.0, 0.0, 0.0]
