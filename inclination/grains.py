@@ -569,6 +569,52 @@ def _check_threshold(threshold_deg, infos):
     return value
 
 
+def _linked_runs(planes, code, infos, threshold, progress=None):
+    """Runs of linked points along the rows and the components joining them (§1).
+
+    The link test of every neighbour direction (:func:`_link_kernel`), runs of points
+    linked along a row, the run pairs linked across rows, and their connected
+    components. Returns ``(run_id, rows, comp)``; ``progress`` sees the link tests as the
+    first 60 % of the segmentation.
+    """
+    n = planes.height * planes.width
+    cos_half = float(np.cos(np.deg2rad(threshold) / 2))
+    shifts = neighbour_shifts(planes.grid, planes.width)
+    usable = code > 0
+    links = []
+    for m, (shift, parity) in enumerate(shifts):
+        out = np.empty(n, bool)
+        prog = None
+        if progress is not None:
+
+            def prog(f, m=m):
+                progress(0.6 * (m + f) / len(shifts))
+
+        _link_kernel(
+            planes,
+            code,
+            usable,
+            infos,
+            cos_half=cos_half,
+            shift=shift,
+            parity=parity,
+            out=out,
+            progress=prog,
+            horizontal=m == 0,
+        )
+        links.append(out)
+    h_link = links[0]
+    run_id, rows = _runs(usable, h_link)
+    n_runs = rows.pos.size - 1
+    ea, eb = [], []
+    for (shift, _parity), link in zip(shifts[1:], links[1:], strict=True):
+        a, b = _run_edges(run_id, h_link, link, shift)
+        ea.append(a)
+        eb.append(b)
+    del links, h_link
+    return run_id, rows, _components(n_runs, ea, eb)
+
+
 def segment_grains(
     omap: OrientationMap,
     phases: Iterable[Phase] | Mapping[int, Phase],
@@ -656,41 +702,8 @@ def segment_grains(
     if not code.any():
         raise InputError("Expected the map to hold at least one valid indexed point, got none.")
     n = h * w
-    cos_half = float(np.cos(np.deg2rad(threshold) / 2))
-    shifts = neighbour_shifts(grid, w)
-    usable = code > 0
-    links = []
-    for m, (shift, parity) in enumerate(shifts):
-        out = np.empty(n, bool)
-        prog = None
-        if progress is not None:
-
-            def prog(f, m=m):
-                progress(0.6 * (m + f) / len(shifts))
-
-        _link_kernel(
-            planes,
-            code,
-            usable,
-            infos,
-            cos_half=cos_half,
-            shift=shift,
-            parity=parity,
-            out=out,
-            progress=prog,
-            horizontal=m == 0,
-        )
-        links.append(out)
-    h_link = links[0]
-    run_id, rows = _runs(usable, h_link)
+    run_id, rows, comp = _linked_runs(planes, code, infos, threshold, progress)
     n_runs = rows.pos.size - 1
-    ea, eb = [], []
-    for (shift, _parity), link in zip(shifts[1:], links[1:], strict=True):
-        a, b = _run_edges(run_id, h_link, link, shift)
-        ea.append(a)
-        eb.append(b)
-    del links, h_link
-    comp = _components(n_runs, ea, eb)
     run_comp = comp[1:]
     # Grains numbered in the order of their first run (runs are in raster order).
     uniq, first = np.unique(run_comp, return_index=True)
@@ -891,35 +904,9 @@ def link_labels(
     infos = phase_infos(phases)
     threshold = _check_threshold(threshold_deg, infos)
     code = _phase_codes(omap, infos)
-    usable = code > 0
-    n = planes.height * planes.width
-    shifts = neighbour_shifts(planes.grid, planes.width)
-    cos_half = float(np.cos(np.deg2rad(threshold) / 2))
-    links = []
-    for m, (shift, parity) in enumerate(shifts):
-        out = np.empty(n, bool)
-        _link_kernel(
-            planes,
-            code,
-            usable,
-            infos,
-            cos_half=cos_half,
-            shift=shift,
-            parity=parity,
-            out=out,
-            progress=None,
-            horizontal=m == 0,
-        )
-        links.append(out)
-    run_id, rows = _runs(usable, links[0])
+    run_id, rows, comp = _linked_runs(planes, code, infos, threshold)
     n_runs = rows.pos.size - 1
-    ea, eb = [], []
-    for (shift, _parity), link in zip(shifts[1:], links[1:], strict=True):
-        a, b = _run_edges(run_id, links[0], link, shift)
-        ea.append(a)
-        eb.append(b)
-    del links
-    run_comp = _components(n_runs, ea, eb)[1:]
+    run_comp = comp[1:]
     # Components numbered in the order of their first run (runs are in raster order).
     uniq, first = np.unique(run_comp, return_index=True)
     lut = np.zeros(n_runs + 1, np.int32)
