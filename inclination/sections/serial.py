@@ -384,56 +384,71 @@ def match_segments(
     ma, mb = to_surface[ga_d], to_surface[gb_d]
     valid_d = keep_d & (ma >= 0) & (mb >= 0) & (ma != mb)
     lo, hi = np.minimum(ma, mb), np.maximum(ma, mb)
-    by_pair: dict = {}
-    for j in np.flatnonzero(valid_d):
-        by_pair.setdefault((int(lo[j]), int(hi[j])), []).append(j)
 
     match = np.full(n_s, -1, np.int64)
     offset = np.full(n_s, np.nan)
     t_mean = np.full((n_s, 2), np.nan)
     ambiguous = np.zeros(n_s, bool)
     cos_max = math.cos(math.radians(max_angle_deg))
-    for i in np.flatnonzero(keep_s):
-        key = (int(min(ga_s[i], gb_s[i])), int(max(ga_s[i], gb_s[i])))
-        cand = by_pair.get(key)
-        if not cand:
-            continue
-        cand = np.asarray(cand)
-        len_i = float(np.hypot(*(b_s[i] - a_s[i])))
-        if len_i <= 0:
-            continue
-        t_i = (b_s[i] - a_s[i]) / len_i
-        u_i = np.array([-t_i[1], t_i[0]])
-        d_vec = b_d[cand] - a_d[cand]
-        len_j = np.hypot(d_vec[:, 0], d_vec[:, 1])
-        t_j = d_vec / np.maximum(len_j, 1e-12)[:, None]
-        flip = t_j @ t_i < 0
-        t_j[flip] *= -1.0
-        cos_ij = t_j @ t_i
-        p0 = (a_d[cand] - a_s[i]) @ t_i
-        p1 = (b_d[cand] - a_s[i]) @ t_i
-        start = np.maximum(0.0, np.minimum(p0, p1))
-        stop = np.minimum(len_i, np.maximum(p0, p1))
-        overlap = stop - start
-        mid = 0.5 * (start + stop)
-        lam = (mid - p0) / np.maximum(cos_ij, 1e-12)
-        q = a_d[cand] + lam[:, None] * t_j
-        delta = (q - a_s[i]) @ u_i
-        ok = (cos_ij >= cos_max) & (overlap >= step_um) & (np.abs(delta) <= max_offset_um)
-        if not ok.any():
-            continue
-        order = np.argsort(-np.where(ok, overlap, -np.inf))
-        best = order[0]
-        if ok.sum() > 1:
-            second = order[1]
-            # Collinear pieces of one boundary are one answer; two offsets are two.
-            ambiguous[i] = (overlap[second] >= 0.5 * overlap[best]) and (
-                abs(delta[second] - delta[best]) > 2.0 * step_um
-            )
-        match[i] = cand[best]
-        offset[i] = delta[best]
-        t_sum = len_i * t_i + len_j[best] * t_j[best]
-        t_mean[i] = t_sum / np.hypot(*t_sum)
+    # Every (surface, deeper) candidate pair of one grain pair, as flat arrays: the deeper
+    # segments sorted by grain-pair key (stable, so each key's run keeps segment order).
+    width = int(max(top, ga_s.max(initial=0) + 1, gb_s.max(initial=0) + 1))
+    cand_d = np.flatnonzero(valid_d)
+    key_d = lo[cand_d] * width + hi[cand_d]
+    by_key = np.argsort(key_d, kind="stable")
+    cand_d, key_d = cand_d[by_key], key_d[by_key]
+    len_s = np.hypot(*(b_s - a_s).T) if n_s else np.zeros(0)
+    rows_s = np.flatnonzero(keep_s & (len_s > 0))
+    key_s = np.minimum(ga_s, gb_s)[rows_s] * width + np.maximum(ga_s, gb_s)[rows_s]
+    first = np.searchsorted(key_d, key_s, "left")
+    count = np.searchsorted(key_d, key_s, "right") - first
+    pi = np.repeat(rows_s, count)
+    rank = np.arange(count.sum()) - np.repeat(np.cumsum(count) - count, count)
+    pj = cand_d[np.repeat(first, count) + rank]
+    len_i = len_s[pi]
+    t_i = (b_s[pi] - a_s[pi]) / len_i[:, None]
+    u_i = np.stack([-t_i[:, 1], t_i[:, 0]], -1)
+    d_vec = b_d[pj] - a_d[pj]
+    len_j = np.hypot(d_vec[:, 0], d_vec[:, 1])
+    t_j = d_vec / np.maximum(len_j, 1e-12)[:, None]
+
+    def dot(x, y):
+        return x[:, 0] * y[:, 0] + x[:, 1] * y[:, 1]
+
+    t_j[dot(t_j, t_i) < 0] *= -1.0
+    cos_ij = dot(t_j, t_i)
+    p0 = dot(a_d[pj] - a_s[pi], t_i)
+    p1 = dot(b_d[pj] - a_s[pi], t_i)
+    start = np.maximum(0.0, np.minimum(p0, p1))
+    stop = np.minimum(len_i, np.maximum(p0, p1))
+    overlap = stop - start
+    lam = (0.5 * (start + stop) - p0) / np.maximum(cos_ij, 1e-12)
+    q = a_d[pj] + lam[:, None] * t_j
+    delta = dot(q - a_s[pi], u_i)
+    ok = np.flatnonzero(
+        (cos_ij >= cos_max) & (overlap >= step_um) & (np.abs(delta) <= max_offset_um)
+    )
+    # Per surface segment, its candidates by overlap (largest first, ties in segment order):
+    # the first is the match, the second makes it ambiguous when it overlaps comparably at
+    # an offset more than two steps away (collinear pieces of one boundary are one answer).
+    ok = ok[np.lexsort((rank[ok], -overlap[ok], pi[ok]))]
+    lead = np.ones(ok.size, bool)
+    lead[1:] = pi[ok][1:] != pi[ok][:-1]
+    best = ok[lead]
+    has_second = np.zeros(best.size, bool)
+    at = np.flatnonzero(lead)
+    has_second[:] = (at + 1 < ok.size) & ~np.append(lead, True)[at + 1]
+    second = ok[np.minimum(at + 1, max(ok.size - 1, 0))]
+    rows = pi[best]
+    ambiguous[rows] = (
+        has_second
+        & (overlap[second] >= 0.5 * overlap[best])
+        & (np.abs(delta[second] - delta[best]) > 2.0 * step_um)
+    )
+    match[rows] = pj[best]
+    offset[rows] = delta[best]
+    t_sum = len_i[best, None] * t_i[best] + len_j[best, None] * t_j[best]
+    t_mean[rows] = t_sum / np.hypot(t_sum[:, 0], t_sum[:, 1])[:, None]
     return SegmentMatch(match, offset, t_mean, ambiguous, keep_s, a_d, b_d)
 
 
