@@ -49,7 +49,14 @@ if TYPE_CHECKING:
     from .crystal.phases import Phase
     from .maps import OrientationMap
 
-__all__ = ["BLOCK", "GrainMap", "GRAIN_COLUMNS", "SMALL_GRAIN_MODES", "segment_grains"]
+__all__ = [
+    "BLOCK",
+    "GrainMap",
+    "GRAIN_COLUMNS",
+    "SMALL_GRAIN_MODES",
+    "check_grain_options",
+    "segment_grains",
+]
 
 #: What to do with grains under ``min_pixels``.
 SMALL_GRAIN_MODES = ("merge", "unindex")
@@ -569,6 +576,33 @@ def _check_threshold(threshold_deg, infos):
     return value
 
 
+def check_grain_options(min_pixels, small_grains: str, progress) -> None:
+    """The clean-up and progress options of :func:`segment_grains` (and its tiled twin).
+
+    Raises
+    ------
+    TypeError
+        ``min_pixels`` not an integer, or ``progress`` not callable.
+    SettingError
+        ``min_pixels`` < 1 or ``small_grains`` not one of :data:`SMALL_GRAIN_MODES`.
+
+    Examples
+    --------
+    >>> check_grain_options(8, "merge", None)
+    >>> check_grain_options(0, "merge", None)
+    Traceback (most recent call last):
+    ...
+    inclination.errors.SettingError: Expected `min_pixels` to be an integer >= 1, got 0.
+    """
+    if isinstance(min_pixels, bool) or not isinstance(min_pixels, int | np.integer):
+        raise TypeError(f"Expected `min_pixels` to be an integer, got {min_pixels!r}.")
+    if min_pixels < 1:
+        raise SettingError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
+    check_one_of(small_grains, "small_grains", SMALL_GRAIN_MODES)
+    if progress is not None and not callable(progress):
+        raise TypeError(f"Expected `progress` to be callable, got {type(progress).__name__}.")
+
+
 def _linked_runs(planes, code, infos, threshold, progress=None):
     """Runs of linked points along the rows and the components joining them (§1).
 
@@ -691,13 +725,7 @@ def segment_grains(
     h, w, grid = planes.height, planes.width, planes.grid
     infos = phase_infos(phases)
     threshold = _check_threshold(threshold_deg, infos)
-    if isinstance(min_pixels, bool) or not isinstance(min_pixels, int | np.integer):
-        raise TypeError(f"Expected `min_pixels` to be an integer, got {min_pixels!r}.")
-    if min_pixels < 1:
-        raise SettingError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
-    check_one_of(small_grains, "small_grains", SMALL_GRAIN_MODES)
-    if progress is not None and not callable(progress):
-        raise TypeError(f"Expected `progress` to be callable, got {type(progress).__name__}.")
+    check_grain_options(min_pixels, small_grains, progress)
     code = _phase_codes(omap, infos)
     if not code.any():
         raise InputError("Expected the map to hold at least one valid indexed point, got none.")

@@ -51,7 +51,7 @@ from .crystal import symmetry
 from .crystal.rotations import quat_from_euler_deg, quat_multiply
 from .errors import InputError, SettingError
 from .frames import DeclaredAxes, orientations_to_declared, orientations_to_sample
-from .grains import SMALL_GRAIN_MODES, GrainMap, isolated_points, link_labels
+from .grains import GrainMap, check_grain_options, isolated_points, link_labels
 from .links import (
     disorientation_cos_half,
     forward_pair_mask,
@@ -795,13 +795,7 @@ def segment_grains_tiled(
     ([[1, 1, 1, 1, 1, 1], [1, 2, 2, 2, 2, 1], [1, 2, 2, 2, 2, 1], [1, 1, 1, 1, 1, 1]], [16, 8])
     """
     infos = phase_infos(phases)
-    if isinstance(min_pixels, bool) or not isinstance(min_pixels, int | np.integer):
-        raise TypeError(f"Expected `min_pixels` to be an integer, got {min_pixels!r}.")
-    if min_pixels < 1:
-        raise SettingError(f"Expected `min_pixels` to be an integer >= 1, got {min_pixels}.")
-    check_one_of(small_grains, "small_grains", SMALL_GRAIN_MODES)
-    if progress is not None and not callable(progress):
-        raise TypeError(f"Expected `progress` to be callable, got {type(progress).__name__}.")
+    check_grain_options(min_pixels, small_grains, progress)
     if not isinstance(tmap, TiledMap):
         raise TypeError(f"Expected `tmap` to be a TiledMap, got {type(tmap).__name__}.")
     labels, comp, prov = _label_tiles(tmap, infos, phases, threshold_deg, progress)
