@@ -15,7 +15,7 @@ from collections.abc import Iterator, Mapping
 
 import numpy as np
 
-__all__ = ["RunTable", "rows_by_id", "run_tables"]
+__all__ = ["RunTable", "aligned_columns", "rows_by_id", "run_tables"]
 
 # Column kind (inclination.report.columns.Column.kind) -> pandas dtype. Nullable integer and
 # string dtypes keep the CSV's empty cells as missing values instead of made-up numbers.
@@ -54,6 +54,30 @@ def rows_by_id(wanted_ids, table_ids) -> np.ndarray:
     hit = ids[order][pos] == wanted
     rows[hit] = order[pos[hit]]
     return rows
+
+
+def aligned_columns(table, wanted_ids, id_column: str = "segment_id"):
+    """A getter of ``table``'s columns in the order of ``wanted_ids`` (rows looked up once).
+
+    ``column(name, fill)`` returns the column (object dtype for a text ``fill``, float
+    otherwise) with ``fill`` where an id is absent from the table; ``table`` may be None.
+
+    Examples
+    --------
+    >>> column = aligned_columns({"segment_id": [3, 5], "dip": [10.0, 20.0]}, [5, 4])
+    >>> column("dip", np.nan).tolist()
+    [20.0, nan]
+    """
+    rows = rows_by_id(wanted_ids, [] if table is None else table[id_column])
+    found = rows >= 0
+
+    def column(name, fill):
+        out = np.full(len(rows), fill, dtype=object if isinstance(fill, str) else float)
+        if found.any():
+            out[found] = np.asarray(table[name])[rows[found]]
+        return out
+
+    return column
 
 
 class RunTable(Mapping):

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from ..compare.comparison import TRUSTED_IDENTIFICATIONS
-from ..run_tables import rows_by_id
+from ..run_tables import aligned_columns
 from .atomic import write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
@@ -102,23 +102,6 @@ def segments_table(analysis, segments=None) -> dict:
     return out
 
 
-def _aligned(table, segment_ids):
-    """A getter of ``table``'s columns aligned to ``segment_ids``; the row lookup is done once.
-
-    ``column(name, fill)`` returns the column with ``fill`` where a segment is absent.
-    """
-    rows = rows_by_id(segment_ids, [] if table is None else table["segment_id"])
-    found = rows >= 0
-
-    def column(name, fill):
-        out = np.full(len(segment_ids), fill, dtype=object if isinstance(fill, str) else float)
-        if found.any():
-            out[found] = np.asarray(table[name])[rows[found]]
-        return out
-
-    return column
-
-
 def _candidate_dips(analysis, ids):
     """Per boundary: the dip range of its candidates within tolerance, and the one the
     measured plane supports.
@@ -146,7 +129,7 @@ def _candidate_dips(analysis, ids):
     tol = np.asarray(cands["tolerance_deg"], float)[keep]
     label = side[keep].astype(object) + " " + np.asarray(cands["plane"], dtype=object)[keep]
     measured = analysis.measured
-    from_measured = _aligned(measured, ids)
+    from_measured = aligned_columns(measured, ids)
     m_normal = np.stack([from_measured(f"normal_{c}", np.nan) for c in "xyz"], -1)
     m_sigma = from_measured("measured_dip_sigma_deg", np.nan) if measured is not None else None
     row = {int(s): k for k, s in enumerate(np.asarray(ids).tolist())}
@@ -182,10 +165,10 @@ def boundaries_table(analysis) -> dict:
     out = {"boundary_id": ids}
     for c in GEOMETRY_COLUMNS:
         out[c.name] = seg[c.name][keep]
-    from_ident = _aligned(ident, ids)
-    from_measured = _aligned(analysis.measured, ids)
-    from_senses = _aligned(analysis.senses, ids)
-    from_planes = _aligned(analysis.planes_full, ids)
+    from_ident = aligned_columns(ident, ids)
+    from_measured = aligned_columns(analysis.measured, ids)
+    from_senses = aligned_columns(analysis.senses, ids)
+    from_planes = aligned_columns(analysis.planes_full, ids)
     for name, fill in (
         ("misorientation_deg", np.nan),
         ("axis_a", ""),
@@ -266,18 +249,6 @@ def _paper_files(analysis, out_dir, boundaries) -> list:
     ]
 
 
-def _by_segment(table, ids, name, fill=np.nan):
-    """``table[name]`` aligned to segment ids (fill where absent)."""
-    out = np.full(len(ids), fill, dtype=float)
-    if table is None or not len(table["segment_id"]):
-        return out
-    index = {int(s): k for k, s in enumerate(np.asarray(table["segment_id"]).tolist())}
-    rows = np.array([index.get(int(s), -1) for s in ids], dtype=int)
-    found = rows >= 0
-    out[found] = np.asarray(table[name], float)[rows[found]]
-    return out
-
-
 def _cross_sections(analysis):
     """(name, CrossSection record, table) of each cross-section of the job, in S."""
     from ..sections import CrossSection
@@ -341,10 +312,11 @@ def _figures(analysis, out_dir, boundaries):
     ident, measured = analysis.identification, analysis.measured
     # Dip symbols in S (conventions §5): the measured plane where there is one, else the
     # predicted plane of a uniquely identified boundary.
-    m_dip = _by_segment(measured, ids, "measured_dip_deg")
-    m_az = _by_segment(measured, ids, "dip_direction_azimuth_deg")
-    p_dip = _by_segment(ident, ids, "predicted_dip_deg")
-    p_az = _by_segment(ident, ids, "predicted_dip_azimuth_deg")
+    from_measured, from_ident = aligned_columns(measured, ids), aligned_columns(ident, ids)
+    m_dip = from_measured("measured_dip_deg", np.nan)
+    m_az = from_measured("dip_direction_azimuth_deg", np.nan)
+    p_dip = from_ident("predicted_dip_deg", np.nan)
+    p_az = from_ident("predicted_dip_azimuth_deg", np.nan)
     unique = np.isin(classes, TRUSTED_IDENTIFICATIONS)
     use_m = np.isfinite(m_dip) & np.isfinite(m_az)
     dips = {
@@ -379,7 +351,7 @@ def _figures(analysis, out_dir, boundaries):
     save(art["fig"], "boundaries", "Map: boundaries, ids, section lines, dip ticks")
 
     fig, (ax_s, ax_d) = plt.subplots(1, 2, figsize=(9.2, 4.6))
-    normals_s = np.stack([_by_segment(measured, ids, f"normal_{c}") for c in "xyz"], axis=-1)
+    normals_s = np.stack([from_measured(f"normal_{c}", np.nan) for c in "xyz"], axis=-1)
     has = np.all(np.isfinite(normals_s), axis=1)
     grains = analysis.grain_map.grains
     row_of = {int(g): k for k, g in enumerate(np.asarray(grains["grain_id"]).tolist())}
@@ -392,7 +364,7 @@ def _figures(analysis, out_dir, boundaries):
     plot_dip_comparison(
         np.where(unique, p_dip, np.nan),
         m_dip,
-        _by_segment(measured, ids, "measured_dip_sigma_deg"),
+        from_measured("measured_dip_sigma_deg", np.nan),
         classes,
         ax=ax_d,
     )
@@ -417,11 +389,12 @@ def _figures(analysis, out_dir, boundaries):
             np.asarray(table["measured_dip_deg"], float)[ok],
             np.asarray(table["dip_direction_azimuth_deg"], float)[ok],
         )
-        pdip = _by_segment(ident, sid, "predicted_dip_deg")
-        paz = _by_segment(ident, sid, "predicted_dip_azimuth_deg")
+        from_section = aligned_columns(ident, sid)
+        pdip = from_section("predicted_dip_deg", np.nan)
+        paz = from_section("predicted_dip_azimuth_deg", np.nan)
         # Only a settled plane has one predicted line; an ambiguous boundary's closest
         # candidate would read as an answer (as in the boundary table).
-        settled = np.isin(_aligned(ident, sid)("identification", ""), TRUSTED_IDENTIFICATIONS)
+        settled = np.isin(from_section("identification", ""), TRUSTED_IDENTIFICATIONS)
         pdip = np.where(settled, pdip, np.nan)
         pr = np.where(np.isfinite(pdip), signed(np.nan_to_num(pdip), np.nan_to_num(paz)), np.nan)
         art = plot_section_sketch(

@@ -32,7 +32,7 @@ from scipy.special import ndtr
 from ..errors import InputError
 from ..frames import DeclaredAxes
 from ..planes.geometry import surface_geometry
-from ..run_tables import rows_by_id
+from ..run_tables import aligned_columns, rows_by_id
 from ._settings import setting_positive
 from .formulas import (
     depth_from_indent_um,
@@ -874,14 +874,7 @@ def estimate_depth_from_twins(
         )
     b = first.boundaries
     seg_id = np.asarray(b["segment_id"], np.int64)
-    rows = rows_by_id(seg_id, identification["segment_id"])
-    known = rows >= 0
-
-    def column(name, fill):
-        out = np.full(len(seg_id), fill, dtype=object if isinstance(fill, str) else float)
-        out[known] = np.asarray(identification[name])[rows[known]]
-        return out
-
+    column = aligned_columns(identification, seg_id)
     kind = column("identification", "")
     dip = column("predicted_dip_deg", np.nan)
     azimuth = column("predicted_dip_azimuth_deg", np.nan)
