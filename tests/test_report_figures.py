@@ -13,8 +13,10 @@ import matplotlib.pyplot as plt  # noqa: E402
 
 from inclination.report.figures import (  # noqa: E402
     MAX_IMAGE_PX,
+    MAX_VECTOR_POINTS,
     downsample_labels,
     plot_boundary_map,
+    plot_dip_comparison,
     plot_normals_stereogram,
     save_figure,
 )
@@ -135,3 +137,43 @@ def test_stereogram_marks_poles_in_the_upper_hemisphere():
         atol=1e-12,
     )
     plt.close(art["ax"].figure)
+
+
+def test_saved_box_is_matplotlibs_tight_box(tmp_path, drawn):
+    # save_figure finds the tight box once for both files; matplotlib's own
+    # bbox_inches="tight" (the reference) gives the same PNG size to a pixel.
+    import io
+    import struct
+
+    def size(data):  # width and height from the PNG's IHDR chunk (PNG specification)
+        return struct.unpack(">II", data[16:24])
+
+    art, _ = drawn
+    png, _ = save_figure(art["fig"], tmp_path / "m", dpi=80)
+    buf = io.BytesIO()
+    art["fig"].savefig(buf, format="png", dpi=80, bbox_inches="tight")
+    ours, reference = size(png.read_bytes()), size(buf.getvalue())
+    assert np.all(np.abs(np.subtract(ours, reference)) <= 1), (ours, reference)
+
+
+@pytest.mark.parametrize("n", [50, MAX_VECTOR_POINTS + 500])
+def test_dense_point_layers_are_one_image_in_the_svg(tmp_path, n):
+    g = np.random.default_rng(3)
+    normals = g.normal(size=(n, 3))
+    normals[:, 2] = np.abs(normals[:, 2])
+    classes = g.choice(["coherent_twin", "identified"], n)
+    fig, (ax_s, ax_d) = plt.subplots(1, 2)
+    plot_normals_stereogram(normals, classes, ax=ax_s)
+    dips = g.uniform(0, 90, n)
+    plot_dip_comparison(dips, dips + g.normal(0, 2, n), np.full(n, 1.0), classes, ax=ax_d)
+    _, svg = save_figure(fig, tmp_path / "p", dpi=50)
+    plt.close(fig)
+    text = svg.read_text()
+    # A marker is a <use> of a marker definition (ids "m..."; glyphs are "DejaVuSans-...").
+    markers = len(re.findall(r'<use xlink:href="#m', text))
+    if n <= MAX_VECTOR_POINTS:
+        # Every point a vector marker: n per panel, and two caps per error bar.
+        assert markers >= 2 * n and "<image" not in text
+    else:
+        # The points drawn as images (one per layer); the legend keys stay vectors.
+        assert markers < 50 and text.count("<image") >= 2

@@ -247,7 +247,9 @@ def full_planes(
             cos = np.abs(n_c[sel] @ nc.T)
             best = np.argmax(cos, axis=1)
             dev[sel] = np.rad2deg(np.arccos(np.clip(cos[np.arange(sel.sum()), best], 0, 1)))
-            names[sel] = [_format_plane(hkl[b], phase.lattice) for b in best]
+            # Each low-index plane named once, then gathered: not one format per boundary.
+            labels = np.array([_format_plane(row, phase.lattice) for row in hkl], dtype=object)
+            names[sel] = labels[best]
             if phase.laue in ("m-3m", "m-3"):
                 n111 = plane_normals_crystal(
                     phase.lattice, [[1, 1, 1], [1, 1, -1], [1, -1, 1], [-1, 1, 1]]

@@ -88,6 +88,16 @@ def json_ready(value: object) -> object:
     if isinstance(value, list | tuple):
         return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
+        # Numbers in bulk: a table column of 10⁵ values is not walked value by value.
+        if value.dtype.kind in "biu":
+            return value.tolist()
+        if value.dtype.kind == "f":
+            bad = ~np.isfinite(value)
+            if not bad.any():
+                return value.tolist()
+            cells = value.astype(object)
+            cells[bad] = None
+            return cells.tolist()
         return json_ready(value.tolist())
     if isinstance(value, np.generic):
         value = value.item()
@@ -96,10 +106,68 @@ def json_ready(value: object) -> object:
     return value
 
 
+#: Longest string of a list written on one line: a column of codes is, a list of notes is not.
+_SHORT_TEXT = 32
+
+
+def _is_column(value) -> bool:
+    return isinstance(value, list) and all(
+        v is None or isinstance(v, int | float) or (isinstance(v, str) and len(v) <= _SHORT_TEXT)
+        for v in value
+    )
+
+
+def _indented(value, depth: int, out: list) -> None:
+    """``json.dumps(indent=2)`` of a :func:`json_ready` value, a column on one line."""
+    if isinstance(value, dict) and value:
+        inner = "\n" + "  " * (depth + 1)
+        out.append("{")
+        for k, (key, item) in enumerate(value.items()):
+            out.append(("," if k else "") + inner + json.dumps(key) + ": ")
+            _indented(item, depth + 1, out)
+        out.append("\n" + "  " * depth + "}")
+    elif isinstance(value, list) and value and not _is_column(value):
+        inner = "\n" + "  " * (depth + 1)
+        out.append("[")
+        for k, item in enumerate(value):
+            out.append(("," if k else "") + inner)
+            _indented(item, depth + 1, out)
+        out.append("\n" + "  " * depth + "]")
+    else:
+        # A leaf, an empty container or a column: the C encoder, on one line.
+        out.append(json.dumps(value, default=_json_default, allow_nan=False))
+
+
+def dumps_json(document: object) -> str:
+    """A JSON document as the run's files hold it: indented, a column on one line.
+
+    NaN and infinities become ``null`` (:func:`json_ready`). Indented as
+    ``json.dumps(indent=2)`` indents, except that a list of numbers, booleans, nulls and
+    short strings (a table's column, a vector, a list of codes) is one line: a long
+    column is then written by the C encoder at its speed, not value by value by the
+    indenting one, and a person reads a vector as one. Lists holding a longer string
+    (notes, messages) keep one item per line.
+
+    Examples
+    --------
+    >>> notes = ["The second map was registered on the grain structure."]
+    >>> print(dumps_json({"xy": np.array([1.5, np.nan]), "ok": [True, "yes"], "notes": notes}))
+    {
+      "xy": [1.5, null],
+      "ok": [true, "yes"],
+      "notes": [
+        "The second map was registered on the grain structure."
+      ]
+    }
+    """
+    out: list[str] = []
+    _indented(json_ready(document), 0, out)
+    return "".join(out)
+
+
 def write_json_atomic(path: str | os.PathLike, document: object) -> Path:
-    """Write a JSON document atomically; NaN becomes null."""
-    text = json.dumps(json_ready(document), indent=2, default=_json_default, allow_nan=False)
-    return write_text_atomic(path, text + "\n")
+    """Write a JSON document atomically (:func:`dumps_json`); NaN becomes null."""
+    return write_text_atomic(path, dumps_json(document) + "\n")
 
 
 # ----------------------------------------------------------------------------- output folders

@@ -49,6 +49,10 @@ _SCREEN = {"right": (1.0, 0.0), "left": (-1.0, 0.0), "down": (0.0, 1.0), "up": (
 MAX_IMAGE_PX = 2000
 #: At most this many dip ticks carry their dip value (the longest boundaries).
 MAX_DIP_LABELS = 300
+#: Above this many points a scatter layer is drawn as an image inside the SVG (its axes,
+#: text and lines stay vectors): 20,000 vector markers make a file of megabytes that is
+#: slow to write and to open, and no reader can tell them apart.
+MAX_VECTOR_POINTS = 2000
 
 
 def downsample_labels(labels, *, max_px: int = MAX_IMAGE_PX) -> np.ndarray:
@@ -195,7 +199,9 @@ def plot_boundary_map(
             capstyle="round",
             zorder=2,
         )
-        map_ax.add_patch(patch)
+        # add_artist, not add_patch: the limits are the map's extent, set above, and
+        # add_patch would walk every vertex of the merged path to update them.
+        map_ax.add_artist(patch)
         paths[key] = patch
         handles.append(
             plt.Line2D(
@@ -293,7 +299,7 @@ def _dip_symbols(ax, xy0, xy1, dips, width_um, height_um):
     lc = PathPatch(
         _merged_path(mid, ends), facecolor="none", edgecolor="black", linewidth=1.0, zorder=4
     )
-    ax.add_patch(lc)
+    ax.add_artist(lc)  # the limits are set: no walk over the vertices (add_patch)
     out = [lc]
     # Dip values label the longest boundaries only: a label per boundary on a large map
     # is unreadable and makes drawing slow (one text artist each).
@@ -445,6 +451,7 @@ def plot_normals_stereogram(normals_crystal, classes, poles=(), *, ax=None):
                 linewidth=0.4,
                 label=CLASS_LABELS[key],
                 zorder=3,
+                rasterized=len(normals) > MAX_VECTOR_POINTS,
             )
     ax.set_xlim(-1.08, 1.08)
     ax.set_ylim(-1.08, 1.08)
@@ -483,11 +490,12 @@ def plot_dip_comparison(predicted_deg, measured_deg, measured_sigma_deg, classes
     s = np.asarray(measured_sigma_deg, float)
     classes = np.asarray(classes, dtype=object)
     ok = np.isfinite(p) & np.isfinite(m)
+    dense = int(ok.sum()) > MAX_VECTOR_POINTS
     ax.plot([0, 90], [0, 90], color="0.6", linewidth=0.8, zorder=0, label="measured = predicted")
     for key, colour in IDENTIFICATION_COLOURS.items():
         pick = ok & (classes == key)
         if pick.any():
-            ax.errorbar(
+            drawn = ax.errorbar(
                 p[pick],
                 m[pick],
                 yerr=np.where(np.isfinite(s[pick]), s[pick], 0),
@@ -498,6 +506,9 @@ def plot_dip_comparison(predicted_deg, measured_deg, measured_sigma_deg, classes
                 capsize=1.5,
                 label=CLASS_LABELS[key],
             )
+            if dense:
+                for artist in drawn.get_children():
+                    artist.set_rasterized(True)
     ax.set_xlim(0, 90)
     ax.set_ylim(0, 90)
     ax.set_aspect("equal")
@@ -576,8 +587,12 @@ def save_figure(fig, path_stem, *, dpi: int = 200) -> list:
     # Identical runs give identical bytes: no date in the metadata, and SVG ids from a
     # fixed salt instead of a random one.
     with matplotlib.rc_context({"svg.hashsalt": "inclination"}):
+        # The tight box, found once: ``bbox_inches="tight"`` would lay the figure out again
+        # for each file (a pass over every artist, the map image resampled each time).
+        fig.draw_without_rendering()
+        box = fig.get_tightbbox().padded(matplotlib.rcParams["savefig.pad_inches"])
         for ext, kwargs in (("png", {"dpi": dpi}), ("svg", {})):
             buf = io.BytesIO()
-            fig.savefig(buf, format=ext, bbox_inches="tight", metadata={"Date": None}, **kwargs)
+            fig.savefig(buf, format=ext, bbox_inches=box, metadata={"Date": None}, **kwargs)
             paths.append(write_bytes_atomic(Path(f"{path_stem}.{ext}"), buf.getvalue()))
     return paths

@@ -552,7 +552,7 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, pro
                     "sections": [
                         {
                             "note": note,
-                            "table": {k: np.asarray(v).tolist() for k, v in table.items()},
+                            "table": {k: np.asarray(v) for k, v in table.items()},
                         }
                         for note, table in zip(
                             analysis.section_notes, analysis.section_tables, strict=True
