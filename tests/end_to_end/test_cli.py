@@ -234,6 +234,27 @@ def test_missing_job_file_exit_2(tmp_path, capsys):
     assert "nope.json" in capsys.readouterr().err
 
 
+def test_python_dash_m_runs_the_same_command_line(tmp_path):
+    # `python -m inclination` (Python's -m switch) is the script's twin: same version
+    # as the installed distribution's metadata, same exit status 2 for a missing job.
+    import subprocess
+    import sys
+    from importlib.metadata import version
+
+    done = subprocess.run(
+        [sys.executable, "-m", "inclination", "--version"], capture_output=True, text=True
+    )
+    assert done.returncode == 0 and done.stdout.split() == ["inclination", version("inclination")]
+    missing = tmp_path / "no-such-job.json"
+    done = subprocess.run(
+        [sys.executable, "-m", "inclination", "analyse", str(missing), "--out", str(tmp_path / "o")],
+        capture_output=True,
+        text=True,
+    )
+    assert done.returncode == 2 and "no-such-job.json" in done.stderr
+    assert "Traceback" not in done.stderr
+
+
 def test_no_command_prints_help(capsys):
     assert main([]) == 2
     assert "analyse" in capsys.readouterr().out
