@@ -110,32 +110,40 @@ def json_ready(value: object) -> object:
 _SHORT_TEXT = 32
 
 
-def _is_column(value) -> bool:
-    return isinstance(value, list) and all(
-        v is None or isinstance(v, int | float) or (isinstance(v, str) and len(v) <= _SHORT_TEXT)
+def _is_column(value: list) -> bool:
+    return all(
+        v is None
+        or isinstance(v, int | float | np.number | np.bool_)
+        or (isinstance(v, str) and len(v) <= _SHORT_TEXT)
         for v in value
     )
 
 
-def _indented(value, depth: int, out: list) -> None:
-    """``json.dumps(indent=2)`` of a :func:`json_ready` value, a column on one line."""
+def _pieces(value, depth: int) -> Iterator[str]:
+    """``json.dumps(indent=2)`` of ``value`` in pieces, a column on one line."""
+    ready = isinstance(value, np.ndarray)
+    if ready:
+        value = json_ready(value)  # numbers in bulk, before the column test below
     if isinstance(value, dict) and value:
         inner = "\n" + "  " * (depth + 1)
-        out.append("{")
+        yield "{"
         for k, (key, item) in enumerate(value.items()):
-            out.append(("," if k else "") + inner + json.dumps(key) + ": ")
-            _indented(item, depth + 1, out)
-        out.append("\n" + "  " * depth + "}")
-    elif isinstance(value, list) and value and not _is_column(value):
-        inner = "\n" + "  " * (depth + 1)
-        out.append("[")
-        for k, item in enumerate(value):
-            out.append(("," if k else "") + inner)
-            _indented(item, depth + 1, out)
-        out.append("\n" + "  " * depth + "]")
-    else:
-        # A leaf, an empty container or a column: the C encoder, on one line.
-        out.append(json.dumps(value, default=_json_default, allow_nan=False))
+            yield ("," if k else "") + inner + json.dumps(str(key)) + ": "
+            yield from _pieces(item, depth + 1)
+        yield "\n" + "  " * depth + "}"
+        return
+    if isinstance(value, list | tuple):
+        value = list(value)
+        if value and not _is_column(value):
+            inner = "\n" + "  " * (depth + 1)
+            yield "["
+            for k, item in enumerate(value):
+                yield ("," if k else "") + inner
+                yield from _pieces(item, depth + 1)
+            yield "\n" + "  " * depth + "]"
+            return
+    # A leaf, an empty container or a column: the C encoder, on one line.
+    yield json.dumps(value if ready else json_ready(value), default=_json_default, allow_nan=False)
 
 
 def dumps_json(document: object) -> str:
@@ -160,14 +168,25 @@ def dumps_json(document: object) -> str:
       ]
     }
     """
-    out: list[str] = []
-    _indented(json_ready(document), 0, out)
-    return "".join(out)
+    return "".join(_pieces(document, 0))
+
+
+def _blocks(pieces: Iterable[str], size: int = 1 << 20) -> Iterator[bytes]:
+    """UTF-8 blocks of about ``size`` characters from a stream of text pieces."""
+    held, n = [], 0
+    for piece in pieces:
+        held.append(piece)
+        n += len(piece)
+        if n >= size:
+            yield "".join(held).encode("utf-8")
+            held, n = [], 0
+    held.append("\n")
+    yield "".join(held).encode("utf-8")
 
 
 def write_json_atomic(path: str | os.PathLike, document: object) -> Path:
-    """Write a JSON document atomically (:func:`dumps_json`); NaN becomes null."""
-    return write_text_atomic(path, dumps_json(document) + "\n")
+    """Write a JSON document atomically (:func:`dumps_json`), streamed a column at a time."""
+    return write_chunks_atomic(path, _blocks(_pieces(document, 0)))
 
 
 # ----------------------------------------------------------------------------- output folders
