@@ -55,6 +55,7 @@ from .grains import GrainMap, check_grain_options, isolated_points, link_labels
 from .links import (
     disorientation_cos_half,
     forward_pair_mask,
+    map_planes,
     neighbour_shifts,
     phase_infos,
 )
@@ -83,6 +84,8 @@ DEFAULT_TILE_PX = 2048
 BYTES_PER_POINT = 40
 
 _IDENTITY32 = np.array([1.0, 0.0, 0.0, 0.0], np.float32)
+# Points per block of the Euler-angle conversion (its float64 temporaries: ~1.5 MB).
+_CONVERT_BLOCK = 1 << 16
 # Below this angle to a grain's reference the identity is the nearest symmetric
 # equivalent for every Laue class (the smallest non-identity proper rotation turns 60°);
 # the same bound as the whole-map statistics.
@@ -336,23 +339,35 @@ def read_zarr_map(
 
     def reader(rows, cols):
         raw_phase = np.asarray(arrays.phase[rows, cols])
-        euler = np.asarray(arrays.euler[rows, cols], dtype=np.float64)
+        euler = np.asarray(arrays.euler[rows, cols])
         phase = _phase_ids_checked(raw_phase, known, path, rows.start or 0, cols.start or 0)
         valid = (phase != 0) & np.isfinite(euler).all(axis=-1)
-        euler[~valid] = 0.0
-        # The readers' conversion (inclination.maps): float64 angles, float32 quaternions.
-        q = quat_from_euler_deg(np.rad2deg(euler) if angles == "rad" else euler, dtype=np.float32)
-        if not same_frame:
-            q = orientations_to_sample(q, axes, dfr)
-        if sense == "active":
-            stored = orientations_to_declared(q[valid].astype(np.float64), axes, dfr)
-            q = np.array(q, np.float32)
-            q[valid] = orientations_to_sample(stored, axes, dfr, rotation_sense="active")
-        q = np.array(q, np.float32)
-        q[~valid] = _IDENTITY32
+        planes = np.empty((4, valid.size), np.float32)
+        e_rows, v_rows = euler.reshape(-1, 3), valid.reshape(-1)
+        for s in range(0, v_rows.size, _CONVERT_BLOCK):
+            v = v_rows[s : s + _CONVERT_BLOCK]
+            # The readers' conversion (inclination.maps): float64 angles, float32
+            # quaternions; blocks keep the float64 temporaries in the processor's cache.
+            e = e_rows[s : s + _CONVERT_BLOCK].astype(np.float64)
+            e[~v] = 0.0
+            q = quat_from_euler_deg(np.rad2deg(e) if angles == "rad" else e, dtype=np.float32)
+            if not same_frame:
+                q = orientations_to_sample(q, axes, dfr)
+            if sense == "active":
+                stored = orientations_to_declared(q[v].astype(np.float64), axes, dfr)
+                q = np.array(q, np.float32)
+                q[v] = orientations_to_sample(stored, axes, dfr, rotation_sense="active")
+            q[~v] = _IDENTITY32
+            planes[:, s : s + _CONVERT_BLOCK] = q.T
+        # Contiguous planes (4, h, w), sealed with the phase and validity: OrientationMap
+        # adopts them as they are (no second copy of the tile).
+        planes = planes.reshape(4, *valid.shape)
+        phase = np.where(valid, phase, 0).astype(np.int32)
+        for a in (planes, phase, valid):
+            a.setflags(write=False)
         return OrientationMap(
-            q,
-            np.where(valid, phase, 0).astype(np.int32),
+            np.moveaxis(planes, 0, -1),
+            phase,
             valid=valid,
             grid=grid,
             step_x_um=sx,
@@ -390,31 +405,32 @@ def read_zarr_map(
     )
 
 
-def cache_tiles(tmap: TiledMap, folder, *, progress=None) -> TiledMap:
-    """The map converted once into an uncompressed zarr store in ``folder``, read from there.
+def cache_tiles(tmap: TiledMap, folder) -> TiledMap:
+    """The map with each tile converted once, when first read, and kept in ``folder``.
 
-    Every later stage reads each tile several times (labels, two statistics passes, the
-    boundary bands); converting the Euler angles costs about ten times reading float32
-    quaternions, so a zarr map is converted once, tile by tile, and kept on disk
-    (21 bytes per point: quaternions, phase, validity), never whole in memory.
+    The grain and boundary stages read each tile more than once (the labels and sums, the
+    spread about the grain means, the boundary bands); converting the Euler angles costs
+    several times reading float32 quaternion planes, so each tile of a zarr map is
+    converted the first time it is read (the grains' one pass over the tiles), written as
+    raw ``.npy`` files (21 bytes per point: quaternion planes, phase, validity; never the
+    whole map in memory) and read back from there, through a memory map, afterwards.
 
     Parameters
     ----------
     tmap : TiledMap
     folder : str or Path
-        An existing folder (a temporary one: the store lives as long as the caller keeps it).
-    progress : callable, optional
-        Called with the fraction of tiles done.
+        An existing folder (a temporary one: the files live as long as the caller keeps it).
 
     Returns
     -------
     TiledMap
-        The same map (same tiles, metadata and values), read from the store.
+        The same map (same tiles, metadata and values). A read of exactly one tile not yet
+        kept converts and keeps it; any other read first keeps the tiles it covers. Safe
+        from several threads (a lock per tile).
 
     Examples
     --------
-    >>> import tempfile, pytest
-    >>> _ = pytest.importorskip("zarr", reason="needs the optional extra 'tiles'")
+    >>> import tempfile
     >>> q = np.zeros((4, 6, 4)); q[..., 0] = 1.0; q[:, 3:] = [0.0, 0.0, 0.0, 1.0]
     >>> t = TiledMap.from_orientation_map(OrientationMap(q, np.ones((4, 6), int)), tile_px=2)
     >>> c = cache_tiles(t, tempfile.mkdtemp())
@@ -422,34 +438,70 @@ def cache_tiles(tmap: TiledMap, folder, *, progress=None) -> TiledMap:
     >>> c.read(*everything).quat.tobytes() == t.read(*everything).quat.tobytes()
     True
     """
-    import zarr
+    import threading
+    from pathlib import Path
 
     h, w = tmap.shape
     tr, tc = tmap.tile_px
-    group = zarr.open_group(str(folder), mode="w")
-    quat = group.create_array(
-        "quat", shape=(h, w, 4), chunks=(tr, tc, 4), dtype="f4", compressors=None
-    )
-    phase = group.create_array("phase", shape=(h, w), chunks=(tr, tc), dtype="i4", compressors=None)
-    valid = group.create_array("valid", shape=(h, w), chunks=(tr, tc), dtype=bool, compressors=None)
-    tiles = list(tmap.tiles())
+    base = Path(folder)
+    n_rows, n_cols = -(-h // tr), -(-w // tc)
+    kept = np.zeros((n_rows, n_cols), bool)
+    locks = [[threading.Lock() for _ in range(n_cols)] for _ in range(n_rows)]
 
-    def convert(rows, cols):
-        # Each tile is whole chunks of the store: tiles written at once never share one.
-        sub = tmap.read(rows, cols)
-        quat[rows, cols] = np.asarray(sub.quat)
-        phase[rows, cols] = np.asarray(sub.phase)
-        valid[rows, cols] = np.asarray(sub.valid)
+    def tile_slices(ti, tj):
+        return slice(ti * tr, min((ti + 1) * tr, h)), slice(tj * tc, min((tj + 1) * tc, w))
 
-    # dask's threaded scheduler runs the tiles on the machine's cores (numpy's trigonometry
-    # releases the GIL), a few tiles in memory at a time.
-    _on_tiles(convert, tiles, progress=progress)
+    def files(ti, tj):
+        return [base / f"{name}_{ti}_{tj}.npy" for name in ("quat", "phase", "valid")]
+
+    def keep(ti, tj):
+        sub = tmap.read(*tile_slices(ti, tj))
+        arrays = (np.moveaxis(np.asarray(sub.quat), -1, 0), sub.phase, sub.valid)
+        for f, a in zip(files(ti, tj), arrays, strict=True):
+            np.save(f, np.ascontiguousarray(a))
+        kept[ti, tj] = True
+        return sub
 
     def reader(r, c):
+        r0, r1, _ = r.indices(h)
+        c0, c1, _ = c.indices(w)
+        span_r = range(r0 // tr, max(r1 - 1, r0) // tr + 1)
+        span_c = range(c0 // tc, max(c1 - 1, c0) // tc + 1)
+        if len(span_r) == 1 and len(span_c) == 1:
+            ti, tj = span_r[0], span_c[0]
+            if (slice(r0, r1), slice(c0, c1)) == tile_slices(ti, tj):
+                with locks[ti][tj]:
+                    if not kept[ti, tj]:
+                        return keep(ti, tj)
+        planes = np.empty((4, r1 - r0, c1 - c0), np.float32)
+        phase = np.empty((r1 - r0, c1 - c0), np.int32)
+        valid = np.empty((r1 - r0, c1 - c0), bool)
+        for ti in span_r:
+            for tj in span_c:
+                with locks[ti][tj]:
+                    if not kept[ti, tj]:
+                        keep(ti, tj)
+                rows, cols = tile_slices(ti, tj)
+                lo_r, hi_r = max(r0, rows.start), min(r1, rows.stop)
+                lo_c, hi_c = max(c0, cols.start), min(c1, cols.stop)
+                src = (
+                    slice(lo_r - rows.start, hi_r - rows.start),
+                    slice(lo_c - cols.start, hi_c - cols.start),
+                )
+                dst = (slice(lo_r - r0, hi_r - r0), slice(lo_c - c0, hi_c - c0))
+                # Through a memory map: only the pages of the rows asked for are read.
+                fq, fp, fv = (np.load(f, mmap_mode="r") for f in files(ti, tj))
+                planes[(slice(None), *dst)] = fq[(slice(None), *src)]
+                phase[dst] = fp[src]
+                valid[dst] = fv[src]
+                del fq, fp, fv
+        for a in (planes, phase, valid):
+            # Fresh arrays nothing else holds: sealed, OrientationMap adopts them.
+            a.setflags(write=False)
         return OrientationMap(
-            quat[r, c],
-            phase[r, c],
-            valid=valid[r, c],
+            np.moveaxis(planes, 0, -1),
+            phase,
+            valid=valid,
             grid=tmap.grid,
             step_x_um=tmap.step_x_um,
             step_y_um=tmap.step_y_um,
@@ -514,62 +566,169 @@ def needs_tiles(shape, *, format: str, tile_px=None, memory_mib=None) -> bool:
 
 
 @dataclass(frozen=True)
-class _Provisional:
-    """Per provisional label (index 0 a dummy): first point, its phase code and quaternion."""
+class _Strip:
+    """One edge of a tile, kept for the joins across tile borders (a few rows or columns)."""
 
-    first: np.ndarray  # (n + 1,) int64 flat index of the label's first own point; -1 none
-    code: np.ndarray  # (n + 1,) uint8 phase code there
-    quat: np.ndarray  # (n + 1, 4) float32 quaternion there
-
-
-def _halo_region(rows: slice, cols: slice, shape, grid) -> tuple[slice, slice]:
-    """The tile with one point more below and right (and left on a hexagonal grid)."""
-    h, w = shape
-    c0 = max(cols.start - 1, 0) if grid == "hexagonal" else cols.start
-    return slice(rows.start, min(rows.stop + 1, h)), slice(c0, min(cols.stop + 1, w))
+    quat: np.ndarray  # (4, a, b) float32 planes
+    phase: np.ndarray  # (a, b) int32
+    valid: np.ndarray  # (a, b) bool
+    labels: np.ndarray  # (a, b) int64, the tile's own labels (0 = none)
 
 
 @dataclass(frozen=True)
-class _TileLabels:
-    """What labelling one tile leaves besides its labels (written into the label image)."""
+class _TilePass:
+    """What the one pass over a tile leaves besides its labels (written into the image).
 
-    n_labels: int  # labels 1..n of the extended tile
-    first: np.ndarray  # (n,) first own point (flat index of the map) of each label, -1 none
+    Row k of every array is the tile's label k + 1. Sums of row and column indices are
+    whole numbers held in float64 (exact below 2^53).
+    """
+
+    n_labels: int
+    first: np.ndarray  # (n,) int64 flat index (of the map) of the label's first point
     code: np.ndarray  # (n,) uint8 phase code there
-    quat: np.ndarray  # (n, 4) float32 quaternion there
-    halo_flat: np.ndarray  # flat indices of the halo points that have a label
-    halo_label: np.ndarray  # their labels in this tile
+    ref: np.ndarray  # (n, 4) float32 quaternion there: the label's reference
+    area: np.ndarray  # (n,) int64 points
+    sum_i: np.ndarray  # (n,) float64 sum of the points' map rows
+    sum_j: np.ndarray  # (n,) float64 sum of their map columns
+    sum_odd: np.ndarray  # (n,) float64 points on odd rows (the hexagonal shift, §1)
+    touches: np.ndarray  # (n,) bool a point on the map's edge
+    quat_sum: np.ndarray  # (n, 4) float64 sum of the points aligned to ``ref``
+    min_dot: np.ndarray  # (n,) float64 smallest dot product of an aligned point with ``ref``
+    strips: dict  # "top", "bottom" (two rows), "left", "right" -> _Strip
 
 
-def _label_one_tile(tmap, rows, cols, labels, code_of, phases, threshold_deg) -> _TileLabels:
-    """Components of one tile with its halo; own points' labels written into ``labels``."""
-    w = tmap.shape[1]
-    er, ec = _halo_region(rows, cols, tmap.shape, tmap.grid)
-    sub = tmap.read(er, ec)
-    ext = link_labels(sub, phases, threshold_deg=threshold_deg)
-    n_ext = int(ext.max())
-    r_own = slice(0, rows.stop - rows.start)
-    c_own = slice(cols.start - ec.start, cols.stop - ec.start)
-    own = ext[r_own, c_own]
-    labels[rows, cols] = own
-    # Each label's first own point in the tile's raster order, which within one tile is
-    # the map's raster order.
-    uniq, idx = np.unique(own.reshape(-1), return_index=True)
-    keep = uniq > 0
-    uniq, idx = uniq[keep] - 1, idx[keep]
-    first = np.full(n_ext, -1, np.int64)
-    code = np.zeros(n_ext, np.uint8)
-    quat = np.zeros((n_ext, 4), np.float32)
-    i, j = np.divmod(idx, own.shape[1])
-    first[uniq] = (rows.start + i) * w + cols.start + j
-    code[uniq] = code_of[np.asarray(sub.phase)[r_own, c_own][i, j]]
-    quat[uniq] = np.asarray(sub.quat)[r_own, c_own][i, j]
-    # Halo points: points of the neighbouring tiles, labelled here too.
-    halo = ext > 0
-    halo[r_own, c_own] = False
-    hi, hj = np.nonzero(halo)
-    halo_flat = (er.start + hi).astype(np.int64) * w + ec.start + hj
-    return _TileLabels(n_ext, first, code, quat, halo_flat, ext[hi, hj])
+@dataclass(frozen=True)
+class _Runs:
+    """Runs of equal labels along the rows of a flat (H·W,) label image."""
+
+    start: np.ndarray  # (R,) int64 flat index of the run's first point
+    length: np.ndarray  # (R,) int64
+    label: np.ndarray  # (R,) int64
+
+
+def _label_runs(flat: np.ndarray, w: int) -> _Runs:
+    """Runs of equal values of ``flat`` (an image W wide), none across a row's end.
+
+    The statistics are then sums over runs (a few per grain and row), as the whole map
+    takes them (:mod:`inclination.grains`), rather than per point.
+    """
+    n = flat.size
+    begins = np.empty(n, bool)
+    if n:
+        begins[0] = True
+        np.not_equal(flat[1:], flat[:-1], out=begins[1:])
+        begins[::w] = True
+    start = np.flatnonzero(begins)
+    length = np.diff(np.r_[start, n])
+    return _Runs(start, length, flat[start].astype(np.int64))
+
+
+def _dot_columns(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Dot products of the columns of two (4, n) float32 arrays, in float32."""
+    out = a[0] * b[0]
+    tmp = np.empty_like(out)
+    for c in (1, 2, 3):
+        np.multiply(a[c], b[c], out=tmp)
+        out += tmp
+    return out
+
+
+def _tile_pass(tmap, rows, cols, labels, *, phases, threshold_deg, code_of, ops, cos_safe):
+    """Read one tile once: its components (written into ``labels``) and their sums.
+
+    The components come from :func:`inclination.grains.link_labels` on the tile alone;
+    the links across its borders are tested afterwards on the strips kept here
+    (:func:`_join_tiles`). Each component's quaternions are summed aligned to its first
+    point (the symmetric equivalent nearest it, as the whole map aligns a grain's points
+    to the grain's first point), to be turned onto the grain's first point once the
+    components are joined (:func:`_grain_sums`).
+    """
+    h, w = tmap.shape
+    sub = tmap.read(rows, cols)
+    lab = link_labels(sub, phases, threshold_deg=threshold_deg)
+    labels[rows, cols] = lab
+    th, tw = lab.shape
+    flat = lab.reshape(-1)
+    n = int(flat.max()) if flat.size else 0
+    m = n + 1
+    # link_labels numbers the components in raster order of their first point: component
+    # k first appears where the labels exceed every earlier one.
+    seen = np.maximum.accumulate(flat)
+    idx = np.flatnonzero(flat > np.r_[np.int32(0), seen[:-1]])
+    q = map_planes(sub).quat
+    phase = np.asarray(sub.phase)
+    valid = np.asarray(sub.valid)
+    i0, j0 = np.divmod(idx, tw)
+    ref = np.zeros((4, m), np.float32)
+    ref[:, 1:] = q[:, idx]
+    runs = _label_runs(flat, tw)
+    run_i = runs.start // tw + rows.start
+    run_j = runs.start % tw + cols.start
+    length = runs.length
+
+    def per_label(weights):
+        return np.bincount(runs.label, weights=weights, minlength=m)
+
+    area = per_label(length).astype(np.int64)
+    sum_i = per_label(length * run_i)
+    # Columns j0 .. j0 + len - 1 of a run: len·j0 + len·(len - 1)/2.
+    sum_j = per_label(length * run_j + 0.5 * length * (length - 1))
+    sum_odd = per_label(length * (run_i % 2)) if tmap.grid == "hexagonal" else np.zeros(m)
+    on_edge = (run_i == 0) | (run_i == h - 1) | (run_j == 0) | (run_j + length - 1 == w - 1)
+    touches = per_label(on_edge) > 0
+    # Aligned to each component's reference: the whole map's rule (sign toward the
+    # reference; the full symmetry search beyond 30°).
+    rg = np.repeat(ref[:, runs.label], length, axis=1)
+    d = _dot_columns(q, rg)
+    inside = flat > 0
+    sign = np.copysign(np.float32(1.0), d)
+    sign *= inside
+    aligned = q * sign
+    # The aligned points' dot products with the reference: |d|, or the nearest
+    # equivalent's beyond 30°.
+    dots = np.abs(d)
+    far = np.flatnonzero((dots < cos_safe) & inside)
+    if far.size:
+        code_pad = np.r_[np.uint8(0), code_of[phase.reshape(-1)[idx]]]
+        turned = _aligned(q[:, far].T, rg[:, far].T, flat[far], code_pad, ops, cos_safe)
+        aligned[:, far] = turned.T
+        dots[far] = np.einsum("nc,nc->n", turned, rg[:, far].T)
+    # Row by row: a float64 reduceat along axis 1 of the (4, n) block is twice as slow.
+    quat_sum = np.stack(
+        [per_label(np.add.reduceat(a, runs.start, dtype=np.float64)) for a in aligned], axis=1
+    )
+    min_dot = np.ones(m)
+    np.minimum.at(min_dot, runs.label, np.minimum.reduceat(dots, runs.start))
+    planes = q.reshape(4, th, tw)
+
+    def strip(r, c):
+        return _Strip(
+            np.ascontiguousarray(planes[:, r, c]),
+            np.ascontiguousarray(phase[r, c], dtype=np.int32),
+            valid[r, c].copy(),
+            lab[r, c].astype(np.int64),
+        )
+
+    everything = slice(0, None)
+    return _TilePass(
+        n_labels=n,
+        first=((rows.start + i0) * w + cols.start + j0).astype(np.int64),
+        code=code_of[phase.reshape(-1)[idx]],
+        ref=np.ascontiguousarray(ref[:, 1:].T),
+        area=area[1:].astype(np.int64),
+        sum_i=sum_i[1:],
+        sum_j=sum_j[1:],
+        sum_odd=sum_odd[1:],
+        touches=touches[1:],
+        quat_sum=quat_sum[1:],
+        min_dot=min_dot[1:],
+        strips={
+            "top": strip(slice(0, 1), everything),
+            "bottom": strip(slice(max(th - 2, 0), th), everything),
+            "left": strip(everything, slice(0, 1)),
+            "right": strip(everything, slice(tw - 1, tw)),
+        },
+    )
 
 
 def _on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
@@ -609,44 +768,86 @@ def _on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
     return out
 
 
-def _label_tiles(tmap: TiledMap, infos, phases, threshold_deg, progress):
-    """Provisional labels (int32 (H, W)) joined across tiles, and the per-label records.
+def _tile_grid(tmap: TiledMap) -> tuple[int, int]:
+    """(rows, columns) of tiles, in the order of :meth:`TiledMap.tiles`."""
+    (h, w), (tr, tc) = tmap.shape, tmap.tile_px
+    return -(-h // tr), -(-w // tc)
 
-    The tiles are labelled on dask's threaded scheduler, a batch at a time (each task
-    writes its own tile of the label image); the labels are then made distinct by adding
-    each tile's offset, and joined by union-find over the halo points.
+
+def _join_tiles(tmap, results, offsets, *, phases, threshold_deg) -> np.ndarray:
+    """Component of every provisional label (0 a dummy of its own), across tile borders.
+
+    Every neighbour link that crosses a tile border lies in one of two kinds of strip:
+    three full-width rows round a border between rows of tiles (the two rows above it,
+    so that the strip starts on an even row and keeps the grid's row parity, §1; and
+    the row below), and two columns round a border between tiles of one row of tiles
+    (the tiles start on even rows). Each strip is labelled by the same link test
+    (:func:`inclination.grains.link_labels`); a strip's component joins the provisional
+    labels of its points, by connected components over the (label, strip component)
+    pairs, as a union-find would.
     """
-    h, w = tmap.shape
-    labels = np.zeros((h, w), np.int32)
-    code_of = np.zeros(max(p.id for p in infos) + 1, np.uint8)
-    for p in infos:
-        code_of[p.id] = p.code
-    tiles = list(tmap.tiles())
-    results = _on_tiles(
-        lambda r, c: _label_one_tile(tmap, r, c, labels, code_of, phases, threshold_deg),
-        tiles,
-        progress=None if progress is None else (lambda f: progress(0.5 * f)),
-    )
-    offset = 0
-    halo_k, halo_lab = [], []
-    for (rows, cols), res in zip(tiles, results, strict=True):
-        block = labels[rows, cols]
-        block[block > 0] += offset
-        halo_k.append(res.halo_flat)
-        halo_lab.append(res.halo_label + offset)
-        offset += res.n_labels
-    records = _Provisional(
-        np.concatenate([np.full(1, -1, np.int64)] + [r.first for r in results]),
-        np.concatenate([np.zeros(1, np.uint8)] + [r.code for r in results]),
-        np.concatenate([np.zeros((1, 4), np.float32)] + [r.quat for r in results]),
-    )
-    hk = np.concatenate(halo_k)
-    hl = np.concatenate(halo_lab)
-    # Union-find over the halo pairs: a halo point's label here and in its own tile.
-    a = labels.reshape(-1)[hk]
-    graph = coo_matrix((np.ones(a.size, np.int8), (a, hl)), shape=(offset + 1, offset + 1)).tocsr()
+    n_rows, n_cols = _tile_grid(tmap)
+    grid = [results[r * n_cols : (r + 1) * n_cols] for r in range(n_rows)]
+    offs = [offsets[r * n_cols : (r + 1) * n_cols] for r in range(n_rows)]
+
+    def provisional(strip, offset):
+        lab = strip.labels
+        return np.where(lab > 0, lab + offset, 0)
+
+    def pairs(strips, offsets_, axis):
+        quat = np.concatenate([s.quat for s in strips], axis=axis + 1)
+        omap = OrientationMap(
+            np.moveaxis(quat, 0, -1),
+            np.concatenate([s.phase for s in strips], axis=axis),
+            valid=np.concatenate([s.valid for s in strips], axis=axis),
+            grid=tmap.grid,
+        )
+        prov = np.concatenate(
+            [provisional(s, o) for s, o in zip(strips, offsets_, strict=True)], axis=axis
+        )
+        comp = link_labels(omap, phases, threshold_deg=threshold_deg)
+        on = comp > 0
+        return prov[on], comp[on]
+
+    n_prov = int(offsets[-1])
+    a_parts, b_parts = [], []
+    node = n_prov + 1
+    for r in range(1, n_rows):
+        # Rows of tiles side by side: the strips of one row of tiles concatenate along
+        # the columns, then the rows above and below the border along the rows.
+        above = [t.strips["bottom"] for t in grid[r - 1]]
+        below = [t.strips["top"] for t in grid[r]]
+        row_above = _concat_strips(above, offs[r - 1], axis=1)
+        row_below = _concat_strips(below, offs[r], axis=1)
+        a, b = pairs([row_above, row_below], [0, 0], axis=0)
+        a_parts.append(a)
+        b_parts.append(b + (node - 1))
+        node += int(b.max()) if b.size else 0
+    for r in range(n_rows):
+        for c in range(1, n_cols):
+            left, right = grid[r][c - 1].strips["right"], grid[r][c].strips["left"]
+            a, b = pairs([left, right], [offs[r][c - 1], offs[r][c]], axis=1)
+            a_parts.append(a)
+            b_parts.append(b + (node - 1))
+            node += int(b.max()) if b.size else 0
+    a = np.concatenate(a_parts) if a_parts else np.zeros(0, np.int64)
+    b = np.concatenate(b_parts) if b_parts else np.zeros(0, np.int64)
+    graph = coo_matrix((np.ones(a.size, np.int8), (a, b)), shape=(node, node)).tocsr()
     _, comp = connected_components(graph, directed=False)
-    return labels, comp, records
+    return comp[: n_prov + 1]
+
+
+def _concat_strips(strips, offsets, *, axis) -> _Strip:
+    """Strips of tiles side by side as one, their labels made provisional (tile offsets)."""
+    return _Strip(
+        np.concatenate([s.quat for s in strips], axis=axis + 1),
+        np.concatenate([s.phase for s in strips], axis=axis),
+        np.concatenate([s.valid for s in strips], axis=axis),
+        np.concatenate(
+            [np.where(s.labels > 0, s.labels + o, 0) for s, o in zip(strips, offsets, strict=True)],
+            axis=axis,
+        ),
+    )
 
 
 def _first_per_group(group: np.ndarray, first: np.ndarray, n_groups: int) -> np.ndarray:
@@ -798,7 +999,36 @@ def segment_grains_tiled(
     check_grain_options(min_pixels, small_grains, progress)
     if not isinstance(tmap, TiledMap):
         raise TypeError(f"Expected `tmap` to be a TiledMap, got {type(tmap).__name__}.")
-    labels, comp, prov = _label_tiles(tmap, infos, phases, threshold_deg, progress)
+    h, w = tmap.shape
+    tiles = list(tmap.tiles())
+    labels = np.zeros((h, w), np.int32)
+    code_of = np.zeros(max(p.id for p in infos) + 1, np.uint8)
+    for p in infos:
+        code_of[p.id] = p.code
+    ops = {p.code: symmetry.proper_rotations(p.laue, setting=p.setting) for p in infos}
+    cos_safe = np.float32(np.cos(_IDENTITY_SAFE_RAD / 2))
+    # One read of each tile: its labels, the sums of its components, the strips of its
+    # edges; dask's threaded scheduler runs the tiles on the machine's cores (numpy's
+    # trigonometry and the link kernels release the GIL), a few tiles in memory at a time.
+    results = _on_tiles(
+        lambda r, c: _tile_pass(
+            tmap,
+            r,
+            c,
+            labels,
+            phases=phases,
+            threshold_deg=threshold_deg,
+            code_of=code_of,
+            ops=ops,
+            cos_safe=cos_safe,
+        ),
+        tiles,
+        progress=None if progress is None else (lambda f: progress(0.6 * f)),
+    )
+    offsets = np.r_[0, np.cumsum([r.n_labels for r in results])].astype(np.int64)
+    prov = _provisional_records(results)
+    comp = _join_tiles(tmap, results, offsets, phases=phases, threshold_deg=threshold_deg)
+    del results
     # The components that hold points, numbered in raster order of their first point.
     n_comp = int(comp.max()) + 1
     comp_first = _first_per_group(comp, prov.first, n_comp)
@@ -810,18 +1040,22 @@ def segment_grains_tiled(
     grain_of_comp[order] = np.arange(1, order.size + 1)
     lut = grain_of_comp[comp]
     lut[0] = 0
-    _relabel(labels, lut)
+    # Tile labels to grain ids, tile by tile (each tile's labels are its own 1..n).
+    for t, (rows, cols) in enumerate(tiles):
+        tile_lut = np.r_[0, lut[offsets[t] + 1 : offsets[t + 1] + 1]].astype(np.int32)
+        block = labels[rows, cols]
+        block[:] = tile_lut[block]
     n_grains = int(order.size)
     # The record of each grain's first point: the provisional label that holds it.
     holder = np.zeros(n_grains + 1, np.int64)
     at_first = np.flatnonzero((prov.first >= 0) & (prov.first == comp_first[comp]))
     holder[lut[at_first]] = at_first
-    first = np.full(n_grains + 1, -1, np.int64)
-    first[1:] = prov.first[holder[1:]]
     code = prov.code[holder]
     code[0] = 0
+    first = np.full(n_grains + 1, -1, np.int64)
+    first[1:] = prov.first[holder[1:]]
 
-    area = _bincount_labels(labels, n_grains + 1)
+    area = np.bincount(lut, weights=prov.area, minlength=n_grains + 1).astype(np.int64)
     dissolved = merged = unindexed = 0
     target = np.arange(n_grains + 1)
     if min_pixels > 1:
@@ -855,11 +1089,18 @@ def segment_grains_tiled(
     filled_g = np.zeros(0, np.int64)
     if fill_isolated:
         filled_k, filled_g = _isolated_in_bands(labels, tmap.grid)
+    sums, unsafe = _grain_sums(prov, lut, holder, code, ops, cos_safe)
+    final_of_prov = final[lut]
+    final_of_prov[0] = 0
     table = _grain_table(
         tmap,
         labels,
+        prov=prov,
+        final_of_prov=final_of_prov,
+        sums=sums[own_of],
+        unsafe=unsafe[own_of] & (own_of > 0),
+        ref=prov.ref[holder[own_of]],
         phases=infos,
-        ref=prov.quat[holder[own_of]],
         grain_code=code[own_of],
         n_grains=n_final,
         filled=(filled_k, filled_g),
@@ -885,11 +1126,95 @@ def segment_grains_tiled(
     )
 
 
-def _bincount_labels(labels: np.ndarray, m: int) -> np.ndarray:
-    out = np.zeros(m, np.int64)
-    for r0, r1 in _row_bands(*labels.shape):
-        out += np.bincount(np.abs(labels[r0:r1]).reshape(-1), minlength=m)
+@dataclass(frozen=True)
+class _Provisional:
+    """The tiles' records of every provisional label, index 0 a dummy (see _TilePass)."""
+
+    tile: np.ndarray  # (n + 1,) int64 tile of the label (-1 for the dummy)
+    first: np.ndarray  # (n + 1,) int64; -1 for the dummy
+    code: np.ndarray
+    ref: np.ndarray  # (n + 1, 4) float32
+    area: np.ndarray
+    sum_i: np.ndarray
+    sum_j: np.ndarray
+    sum_odd: np.ndarray
+    touches: np.ndarray
+    quat_sum: np.ndarray  # (n + 1, 4) float64
+    min_dot: np.ndarray
+
+
+def _provisional_records(results) -> _Provisional:
+    def cat(name, dummy):
+        return np.concatenate([dummy] + [getattr(r, name) for r in results])
+
+    return _Provisional(
+        tile=np.r_[-1, np.repeat(np.arange(len(results)), [r.n_labels for r in results])],
+        first=cat("first", np.full(1, -1, np.int64)),
+        code=cat("code", np.zeros(1, np.uint8)),
+        ref=cat("ref", np.zeros((1, 4), np.float32)),
+        area=cat("area", np.zeros(1, np.int64)),
+        sum_i=cat("sum_i", np.zeros(1)),
+        sum_j=cat("sum_j", np.zeros(1)),
+        sum_odd=cat("sum_odd", np.zeros(1)),
+        touches=cat("touches", np.zeros(1, bool)),
+        quat_sum=cat("quat_sum", np.zeros((1, 4))),
+        min_dot=cat("min_dot", np.ones(1)),
+    )
+
+
+#: A component's sum turned onto its grain's reference is the grain's per-point sum when
+#: every point ends within this angle of the reference: below 30° the nearest symmetric
+#: equivalent is the only one there (the smallest non-identity proper rotation turns 60°);
+#: 1° of margin for float rounding.
+_TURNED_SUM_SAFE_RAD = np.deg2rad(29.0)
+
+
+def _nearest_ops(q, ref, codes, ops, cos_safe) -> np.ndarray:
+    """The signed symmetry operations s (n, 4) with s ⊗ q the equivalent nearest ``ref``.
+
+    ``q`` and ``ref`` (n, 4); the rule of :func:`_aligned`, as the operation it applies.
+    """
+    q64 = np.asarray(q, np.float64)
+    r64 = np.asarray(ref, np.float64)
+    d = np.einsum("nc,nc->n", q64, r64)
+    out = np.zeros((q64.shape[0], 4))
+    out[:, 0] = np.where(d < 0, -1.0, 1.0)
+    far = np.flatnonzero(np.abs(d) < cos_safe)
+    for c, op in ops.items():
+        sel = far[codes[far] == c]
+        if sel.size == 0:
+            continue
+        cand = quat_multiply(op[None, :, :], q64[sel][:, None, :])
+        dots = np.einsum("nkc,nc->nk", cand, r64[sel])
+        best = np.argmax(np.abs(dots), axis=1)
+        rows = np.arange(sel.size)
+        out[sel] = op[best] * np.where(dots[rows, best] < 0, -1.0, 1.0)[:, None]
     return out
+
+
+def _grain_sums(prov: _Provisional, lut, holder, code, ops, cos_safe):
+    """Aligned quaternion sums of each grain (before clean-up), from its components' sums.
+
+    A component's points were aligned to its own first point; the symmetry operation that
+    takes that point nearest the grain's first point takes them all there, if each ends
+    within 30° of it (bounded by the component's spread about its point plus that point's
+    angle to the grain's). Returns ``(sums (G + 1, 4), unsafe (G + 1,) bool)``: a grain
+    with a component past that bound gets its sum from its points instead
+    (:func:`_grain_table`).
+    """
+    m = holder.size
+    p = np.flatnonzero(lut > 0)
+    g = lut[p]
+    ref_g = prov.ref[holder[g]]
+    op = _nearest_ops(prov.ref[p], ref_g, code[g], ops, cos_safe)
+    turned = quat_multiply(op, prov.quat_sum[p])
+    sums = np.stack([np.bincount(g, weights=turned[:, c], minlength=m) for c in range(4)], axis=1)
+    ref_turned = quat_multiply(op, prov.ref[p].astype(np.float64))
+    phi = 2.0 * np.arccos(np.clip(np.einsum("nc,nc->n", ref_turned, ref_g), -1.0, 1.0))
+    theta = 2.0 * np.arccos(np.clip(prov.min_dot[p], -1.0, 1.0))
+    beyond = (theta + phi >= _TURNED_SUM_SAFE_RAD) & (p != holder[g])
+    unsafe = np.bincount(g[beyond], minlength=m) > 0
+    return sums, unsafe
 
 
 def _isolated_in_bands(labels: np.ndarray, grid: str):
@@ -907,101 +1232,128 @@ def _isolated_in_bands(labels: np.ndarray, grid: str):
     return np.concatenate(ks), np.concatenate(gs)
 
 
-def _grain_table(tmap, labels, *, phases, ref, grain_code, n_grains, filled, progress):
+def _grain_table(
+    tmap,
+    labels,
+    *,
+    prov,
+    final_of_prov,
+    sums,
+    unsafe,
+    ref,
+    phases,
+    grain_code,
+    n_grains,
+    filled,
+    progress,
+):
     """The grain table (:data:`inclination.grains.GRAIN_COLUMNS`) from sums over tiles.
 
-    ``labels`` holds +g at points that count in g's orientation statistics and -g at
-    points merged into g; ``ref`` (G + 1, 4) each grain's first own point's quaternion.
+    Area, centroid and edge contact are the sums of the provisional labels each final
+    grain took (``final_of_prov``) plus the filled points; ``sums`` (G + 1, 4) the aligned
+    quaternion sums of each grain's own points, recomputed from the points for the
+    ``unsafe`` grains (:func:`_grain_sums`). ``labels`` holds +g at points that count in
+    g's orientation statistics and -g at points merged into g; ``ref`` (G + 1, 4) each
+    grain's first own point's quaternion. The spread about the mean is one more read of
+    each tile.
     """
+    import threading
+
     h, w = tmap.shape
     m = n_grains + 1
     infos = phases
     ops = {p.code: symmetry.proper_rotations(p.laue, setting=p.setting) for p in infos}
     info_of = {p.code: p for p in infos}
     step_x, pitch = float(tmap.step_x_um), float(tmap.row_pitch_um)
-    area = np.zeros(m)
-    sum_x = np.zeros(m)
-    sum_y = np.zeros(m)
-    touches = np.zeros(m, bool)
-    sums = np.zeros((m, 4))
-    ref32 = np.asarray(ref, np.float32)
     cos_safe = np.float32(np.cos(_IDENTITY_SAFE_RAD / 2))
-    filled_k, filled_g = filled
     tiles = list(tmap.tiles())
-    # Pass 1: areas, centroids, edge contact, and the aligned quaternion sums.
-    for t, (rows, cols) in enumerate(tiles):
-        lab = labels[rows, cols]
-        g_all = np.abs(lab).reshape(-1)
-        i, j = np.indices(lab.shape)
-        i = (i + rows.start).reshape(-1)
-        j = (j + cols.start).reshape(-1)
-        x = j * step_x
-        if tmap.grid == "hexagonal":
-            x = x + 0.5 * step_x * (i % 2)
-        area += np.bincount(g_all, minlength=m)
-        sum_x += np.bincount(g_all, weights=x, minlength=m)
-        sum_y += np.bincount(g_all, weights=i * pitch, minlength=m)
-        edge = (i == 0) | (i == h - 1) | (j == 0) | (j == w - 1)
-        touches |= np.bincount(g_all[edge], minlength=m) > 0
-        own = np.flatnonzero(lab.reshape(-1) > 0)
-        if own.size == 0:
-            continue
-        q = np.asarray(tmap.read(rows, cols).quat).reshape(-1, 4)[own]
-        g = g_all[own]
-        aligned = _aligned(q, ref32[g], g, grain_code, ops, cos_safe)
-        for c in range(4):
-            sums[:, c] += np.bincount(g, weights=aligned[:, c], minlength=m)
-        if progress is not None:
-            progress(0.5 + 0.25 * (t + 1) / len(tiles))
+
+    def per_grain(values):
+        return np.bincount(final_of_prov, weights=values, minlength=m)
+
+    area = per_grain(prov.area)
+    sum_i, sum_j, sum_odd = per_grain(prov.sum_i), per_grain(prov.sum_j), per_grain(prov.sum_odd)
+    touches = per_grain(prov.touches) > 0
+    filled_k, filled_g = filled
     if filled_k.size:
         fi, fj = np.divmod(filled_k, w)
-        fx = fj * step_x + (0.5 * step_x * (fi % 2) if tmap.grid == "hexagonal" else 0.0)
         area += np.bincount(filled_g, minlength=m)
-        sum_x += np.bincount(filled_g, weights=fx, minlength=m)
-        sum_y += np.bincount(filled_g, weights=fi * pitch, minlength=m)
+        sum_i += np.bincount(filled_g, weights=fi, minlength=m)
+        sum_j += np.bincount(filled_g, weights=fj, minlength=m)
+        sum_odd += np.bincount(filled_g, weights=fi % 2, minlength=m)
+    sum_x = sum_j * step_x
+    if tmap.grid == "hexagonal":
+        sum_x += sum_odd * (0.5 * step_x)
+    sum_y = sum_i * pitch
+    ref32 = np.asarray(ref, np.float32)
+    if unsafe.any():
+        # The points of the grains whose components could not be turned as a whole.
+        sums = np.array(sums, copy=True)
+        sums[unsafe] = 0.0
+        hit = np.unique(prov.tile[(final_of_prov > 0) & unsafe[final_of_prov]])
+        for t in hit.tolist():
+            rows, cols = tiles[t]
+            lab = labels[rows, cols].reshape(-1)
+            sel = np.flatnonzero(lab > 0)
+            sel = sel[unsafe[lab[sel]]]
+            g = lab[sel].astype(np.int64)
+            q = map_planes(tmap.read(rows, cols)).quat[:, sel].T
+            aligned = _aligned(q, ref32[g], g, grain_code, ops, cos_safe)
+            for c in range(4):
+                sums[:, c] += np.bincount(g, weights=aligned[:, c], minlength=m)
     norm = np.linalg.norm(sums, axis=1)
     mean = np.zeros_like(sums)
     mean[:, 0] = 1.0
     ok = norm > 0
     mean[ok] = sums[ok] / norm[ok, None]
     mean[mean[:, 0] < 0] *= -1
-    mean32 = mean.astype(np.float32)
-    # Pass 2: the spread about the mean (the whole-map formula: 4·asin(|q - m| / 2) in the
-    # mean's hemisphere, the full symmetry test beyond 30°).
+    mean32 = np.ascontiguousarray(mean.T, dtype=np.float32)
+    # The spread about the mean (the whole-map formula: 4·asin(|q - m| / 2) in the
+    # mean's hemisphere, the full symmetry test beyond 30°), one more read of each tile.
     spread_sum = np.zeros(m)
     spread_max = np.zeros(m)
     n_own = np.zeros(m)
     far_chord2 = np.float32(4 * np.sin(_IDENTITY_SAFE_RAD / 4) ** 2)
-    for t, (rows, cols) in enumerate(tiles):
+    lock = threading.Lock()
+
+    def spread(rows, cols):
         lab = labels[rows, cols].reshape(-1)
-        own = np.flatnonzero(lab > 0)
-        if own.size == 0:
-            continue
-        g = lab[own].astype(np.int64)
-        q = np.asarray(tmap.read(rows, cols).quat).reshape(-1, 4)[own]
-        d = q - mean32[g]
-        dn = np.einsum("nc,nc->n", d, d)
+        runs = _label_runs(lab, cols.stop - cols.start)
+        g_run = np.where(runs.label > 0, runs.label, 0)
+        if not g_run.any():
+            return
+        q = map_planes(tmap.read(rows, cols)).quat
+        diff = np.repeat(mean32[:, g_run], runs.length, axis=1)
+        np.subtract(q, diff, out=diff)
+        dn = _dot_columns(diff, diff)
         np.minimum(dn, 4.0 - dn, out=dn)
         np.maximum(dn, np.float32(0.0), out=dn)
-        far = np.flatnonzero(dn > far_chord2)
+        inside = np.repeat(g_run > 0, runs.length)
+        far = np.flatnonzero(inside & (dn > far_chord2))
         angle = 4.0 * np.arcsin(np.minimum(np.sqrt(dn) * np.float32(0.5), np.float32(1.0)))
         if far.size:
-            gf = g[far]
+            gf = g_run[np.searchsorted(runs.start, far, side="right") - 1]
             for c, info in info_of.items():
-                sel = far[grain_code[gf] == c]
+                pick = grain_code[gf] == c
+                sel = far[pick]
                 if sel.size:
-                    cos_half = disorientation_cos_half(mean[g[sel]].T, q[sel].T, info)
+                    cos_half = disorientation_cos_half(mean[gf[pick]].T, q[:, sel], info)
                     angle[sel] = 2.0 * np.arccos(np.minimum(cos_half, 1.0))
-        spread_sum += np.bincount(g, weights=angle, minlength=m)
-        n_own += np.bincount(g, minlength=m)
-        # Per-grain maximum by sorting (ufunc.at is slow on a few hundred thousand points).
-        o = np.argsort(g, kind="stable")
-        gs = g[o]
-        starts = np.flatnonzero(np.r_[True, gs[1:] != gs[:-1]])
-        top = np.maximum.reduceat(angle[o], starts)
-        spread_max[gs[starts]] = np.maximum(spread_max[gs[starts]], top)
-        if progress is not None:
-            progress(0.75 + 0.25 * (t + 1) / len(tiles))
+        angle *= inside
+        part_sum = np.bincount(
+            g_run, weights=np.add.reduceat(angle, runs.start, dtype=np.float64), minlength=m
+        )
+        part_n = np.bincount(g_run, weights=runs.length * (g_run > 0), minlength=m)
+        part_max = np.zeros(m)
+        np.maximum.at(part_max, g_run, np.maximum.reduceat(angle, runs.start))
+        with lock:
+            np.add(spread_sum, part_sum, out=spread_sum)
+            np.add(n_own, part_n, out=n_own)
+            np.maximum(spread_max, part_max, out=spread_max)
+
+    _on_tiles(
+        spread, tiles, progress=None if progress is None else (lambda f: progress(0.75 + 0.25 * f))
+    )
     with np.errstate(invalid="ignore", divide="ignore"):
         spread_mean = np.where(n_own > 0, spread_sum / np.maximum(n_own, 1), np.nan)
     spread_max = np.where(n_own > 0, spread_max, np.nan)
@@ -1089,24 +1441,25 @@ def boundary_network_tiled(
         raise InputError(
             f"Expected `grain_map.labels` to have the map's shape {(h, w)}, got {labels.shape}."
         )
-    parts = []
     band = max(2, (int(tmap.tile_px[0]) + 1) & ~1)
-    for r0 in range(0, h, band):
-        r1 = min(r0 + band, h)
+
+    def edges_of_band(r0, r1):
         # Two rows of halo above (an even first row keeps the grid's row parity, §1) and
         # one below: every vertex of an edge from rows [r0, r1) touches rows r0 - 1 .. r1.
         lo, hi = max(r0 - 2, 0), min(r1 + 1, h)
         sub = tmap.read(slice(lo, hi), slice(0, w))
-        parts.append(
-            boundary_edges(
-                sub,
-                labels[lo:hi],
-                grain_map,
-                phases,
-                own_rows=(r0 - lo, r1 - lo),
-                row_offset=lo,
-            )
+        return boundary_edges(
+            sub,
+            labels[lo:hi],
+            grain_map,
+            phases,
+            own_rows=(r0 - lo, r1 - lo),
+            row_offset=lo,
         )
+
+    # The bands on dask's threaded scheduler, as the tiles (two in flight on two cores).
+    bands = [(r0, min(r0 + band, h)) for r0 in range(0, h, band)]
+    parts = _on_tiles(edges_of_band, bands)
     edges = concat_edges(parts)
     # The bands' tables go before the chains are built: the edge table is the largest
     # array of this stage after the labels.
