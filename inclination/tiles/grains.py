@@ -249,29 +249,48 @@ def _join_tiles(tmap, results, offsets, *, phases, threshold_deg) -> np.ndarray:
     n_prov = int(offsets[-1])
     a_parts, b_parts = [], []
     node = n_prov + 1
-    for r in range(1, n_rows):
-        # Rows of tiles side by side: the strips of one row of tiles concatenate along
-        # the columns, then the rows above and below the border along the rows.
-        above = [t.strips["bottom"] for t in grid[r - 1]]
-        below = [t.strips["top"] for t in grid[r]]
-        row_above = _concat_strips(above, offs[r - 1], axis=1)
-        row_below = _concat_strips(below, offs[r], axis=1)
-        a, b = pairs([row_above, row_below], [0, 0], axis=0)
+    # The strips of one kind go to the link test together, side by side, each followed by
+    # a row or column of points without data, across which nothing links (every call
+    # builds a map record: one per row of tiles, not one per border).
+    if n_rows > 1:
+        horizontal = []
+        for r in range(1, n_rows):
+            # The strips of one row of tiles concatenate along the columns, then the rows
+            # above and below the border along the rows; four rows a border keep every
+            # strip on an even first row.
+            horizontal.append(
+                _concat_strips([t.strips["bottom"] for t in grid[r - 1]], offs[r - 1], axis=1)
+            )
+            horizontal.append(_concat_strips([t.strips["top"] for t in grid[r]], offs[r], axis=1))
+            horizontal.append(_gap((1, tmap.shape[1])))
+        a, b = pairs(horizontal, [0] * len(horizontal), axis=0)
         a_parts.append(a)
         b_parts.append(b + (node - 1))
         node += int(b.max()) if b.size else 0
     for r in range(n_rows):
+        if n_cols < 2:
+            break
+        vertical, vertical_offsets = [], []
         for c in range(1, n_cols):
             left, right = grid[r][c - 1].strips["right"], grid[r][c].strips["left"]
-            a, b = pairs([left, right], [offs[r][c - 1], offs[r][c]], axis=1)
-            a_parts.append(a)
-            b_parts.append(b + (node - 1))
-            node += int(b.max()) if b.size else 0
+            vertical += [left, right, _gap((left.labels.shape[0], 1))]
+            vertical_offsets += [offs[r][c - 1], offs[r][c], 0]
+        a, b = pairs(vertical, vertical_offsets, axis=1)
+        a_parts.append(a)
+        b_parts.append(b + (node - 1))
+        node += int(b.max()) if b.size else 0
     a = np.concatenate(a_parts) if a_parts else np.zeros(0, np.int64)
     b = np.concatenate(b_parts) if b_parts else np.zeros(0, np.int64)
     graph = coo_matrix((np.ones(a.size, np.int8), (a, b)), shape=(node, node)).tocsr()
     _, comp = connected_components(graph, directed=False)
     return comp[: n_prov + 1]
+
+
+def _gap(shape) -> _Strip:
+    """A strip of points without data (identity, phase 0): no link crosses it."""
+    quat = np.zeros((4, *shape), np.float32)
+    quat[0] = 1.0
+    return _Strip(quat, np.zeros(shape, np.int32), np.zeros(shape, bool), np.zeros(shape, np.int64))
 
 
 def _concat_strips(strips, offsets, *, axis) -> _Strip:
