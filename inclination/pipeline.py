@@ -182,11 +182,11 @@ def _phases_by_id(job):
 
 
 @contextlib.contextmanager
-def _work_map(omap, progress):
-    """The map the grain and network stages read: a zarr map converted once into a store.
+def _work_map(omap):
+    """The map the grain and network stages read: a zarr map's tiles kept once converted.
 
-    Those stages read each tile several times; converting Euler angles costs about ten
-    times reading float32 quaternions (docs/performance.md, maps by tiles).
+    Those stages read each tile several times; converting Euler angles costs several
+    times reading float32 quaternion planes (docs/performance.md, maps by tiles).
     """
     if not _is_tiled(omap) or omap.provenance.get("reader") != "zarr arrays":
         yield omap
@@ -194,17 +194,13 @@ def _work_map(omap, progress):
     from .tiles import cache_tiles
 
     with tempfile.TemporaryDirectory(prefix="inclination-tiles-") as folder:
-        update, close = _progress_callback(progress, "surface: convert tiles")
-        try:
-            work = cache_tiles(omap, folder, progress=update)
-        finally:
-            close()
-        yield work
+        # Each tile is converted when the grains first read it (their progress shows it).
+        yield cache_tiles(omap, folder)
 
 
 def _grains_and_segments(omap, job, stage_i, progress, label, *, subgrains):
     """Grains, network and straight segments of one map; the sub-grain segments on request."""
-    with _work_map(omap, progress) as work:
+    with _work_map(omap) as work:
         return _grains_and_segments_of(work, job, stage_i, progress, label, subgrains=subgrains)
 
 

@@ -160,6 +160,105 @@ def test_tiles_of_a_map_in_memory_match_odd_tile_sizes(pair):
     assert_array_equal(tiled.labels, whole.labels)
 
 
+@pytest.mark.parametrize(
+    "change",
+    [
+        {"angles": "rad"},
+        {"axes": {"x": "left", "y": "up"}, "rotation_sense": "active"},
+        {"data_frame_rotation": {"axis": [1, 2, 3], "angle_deg": 35}},
+    ],
+)
+def test_zarr_tiles_are_the_whole_read_of_the_store_for_any_declared_frame(tmp_path, change):
+    # The tile reader converts in blocks; inclination.maps.read_map reads the same store
+    # whole through the readers' own conversion: the same float32 planes, bit for bit.
+    from inclination.crystal.rotations import quat_as_euler_deg, random_quat
+
+    rng = np.random.default_rng(5)
+    euler = quat_as_euler_deg(random_quat(15 * 14, rng=rng)).reshape(15, 14, 3)
+    euler[3, 4] = np.nan
+    phase = np.ones((15, 14), np.int32)
+    phase[7, 2] = 0
+    angles = change.get("angles", "deg")
+    values = np.deg2rad(euler) if angles == "rad" else euler
+    write_zarr_map(tmp_path / "m.zarr", values, phase, chunks_px=(4, 5), angles=angles)
+    spec = {**_spec(tmp_path / "m.zarr", "zarr", "square"), **change}
+    tmap = read_zarr_map(spec, phase_ids=(1,))
+    whole = read_map(spec)
+    tiled = tmap.read(slice(0, 15), slice(0, 14))
+    assert tiled.quat.tobytes() == whole.quat.tobytes()
+    assert_array_equal(tiled.valid, whole.valid)
+    assert not tiled.valid[3, 4] and not tiled.valid[7, 2]
+    # Tile by tile, the same values again.
+    for rows, cols in tmap.tiles():
+        assert tmap.read(rows, cols).quat.tobytes() == whole.quat[rows, cols].tobytes()
+
+
+def test_cache_tiles_converts_each_tile_once_and_gives_the_same_map(pair, tmp_path):
+    # Reads of single tiles, of bands across tiles and of the whole map, from two threads:
+    # each tile is converted once (counted at the source), and every read gives the
+    # source's values bit for bit.
+    import dataclasses
+    import threading
+    from concurrent.futures import ThreadPoolExecutor
+
+    from inclination.tiles import cache_tiles
+
+    omap, tmap = pair
+    calls = []
+    lock = threading.Lock()
+
+    def counting(rows, cols):
+        with lock:
+            calls.append((rows.start, cols.start))
+        return tmap.reader(rows, cols)
+
+    cached = cache_tiles(dataclasses.replace(tmap, reader=counting), tmp_path)
+    tiles = list(tmap.tiles())
+    band = (slice(tiles[0][0].stop - 2, tiles[0][0].stop + 1), slice(0, omap.shape[1]))
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        first = list(pool.map(lambda rc: cached.read(*rc), [band, *tiles]))
+    again = [cached.read(*rc) for rc in tiles]
+    everything = cached.read(slice(0, omap.shape[0]), slice(0, omap.shape[1]))
+    assert sorted(calls) == sorted((r.start, c.start) for r, c in tiles)
+    assert first[0].quat.tobytes() == omap.quat[band].tobytes()
+    for (rows, cols), a, b in zip(tiles, first[1:], again, strict=True):
+        assert a.quat.tobytes() == b.quat.tobytes() == omap.quat[rows, cols].tobytes()
+        assert_array_equal(b.valid, omap.valid[rows, cols])
+    assert everything.quat.tobytes() == omap.quat.tobytes()
+    assert_array_equal(everything.phase, omap.phase)
+
+
+def test_tiled_statistics_of_equivalents_and_of_a_gradient_across_tiles():
+    # Grain A is written as two symmetric equivalents (the right half turned by the cubic
+    # 90° about [001]), one per tile: its tiles' sums are turned onto the grain's first
+    # point. Grain B turns 1.2° a column about the crystal's [001] (56° across the map):
+    # its far tiles' points are nearer another equivalent of the first point than the
+    # tile's own, so its sum comes from its points. Both as the whole map gives them.
+    from inclination.crystal.rotations import quat_from_axis_angle_deg, quat_multiply
+    from inclination.maps import OrientationMap
+
+    h, w = 24, 48
+    a = quat_from_axis_angle_deg([0.3, 0.5, 0.8], 20.0)
+    b = quat_from_axis_angle_deg([0.9, -0.2, 0.4], 55.0)
+    turn = quat_from_axis_angle_deg([0.0, 0.0, 1.0], 90.0)
+    quat = np.zeros((h, w, 4))
+    quat[:12, :24] = a
+    quat[:12, 24:] = quat_multiply(turn, a)
+    steps = quat_from_axis_angle_deg(np.tile([0.0, 0.0, 1.0], (w, 1)), 1.2 * np.arange(w))
+    quat[12:] = quat_multiply(steps, b[None])[None]
+    omap = OrientationMap(quat, np.ones((h, w), int))
+    whole = segment_grains(omap, [CU], min_pixels=1)
+    tiled = segment_grains_tiled(
+        TiledMap.from_orientation_map(omap, tile_px=(8, 12)), [CU], min_pixels=1
+    )
+    assert whole.n_grains == 2
+    assert_array_equal(tiled.labels, whole.labels)
+    qa, qb = tiled.grains["quat"], whole.grains["quat"]
+    assert_allclose(np.abs(np.einsum("ni,ni->n", qa, qb)), 1.0, rtol=0, atol=1e-9)
+    for name in ("spread_mean_deg", "spread_max_deg"):
+        assert_allclose(tiled.grains[name], whole.grains[name], rtol=0, atol=1e-3, err_msg=name)
+
+
 # ----------------------------------------------------------------------------- the pipeline
 
 
