@@ -176,14 +176,19 @@ class _Cells:
         self.planes[planes.shape[0] :, rows] = 0
         self.planes[: planes.shape[0], rows] = planes
 
-    def put_same(self, rows: np.ndarray, text: str) -> None:
-        """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
-        if not rows.any():
+    def put_same(self, mask: np.ndarray, text: str) -> None:
+        """Replace the cells where ``mask`` (boolean) holds by one text (no NUL in it)."""
+        if mask.any():
+            self.put_rows(np.flatnonzero(mask), text)
+
+    def put_rows(self, rows: np.ndarray, text: str) -> None:
+        """Replace the cells of ``rows`` (indices) by one text (no NUL in it)."""
+        if len(rows) == 0:
             return
         raw = b"\0" + text.encode("utf-8")
         self._widen(len(raw))
         words = np.frombuffer(raw.ljust(4 * self.planes.shape[0], b"\0"), np.uint32)
-        self.planes[:, np.flatnonzero(rows)] = words[:, None]
+        self.planes[:, rows] = words[:, None]
 
 
 def _from_strings(cells: Sequence[str]) -> np.ndarray:
@@ -202,24 +207,26 @@ def _gather(table: np.ndarray, index: np.ndarray, out: np.ndarray) -> None:
     np.take(table, index, out=out, mode="wrap")
 
 
-def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) -> _Cells:
-    """``scaled`` = |value|·10^decimals (int64 ≥ 0) as fixed-point text, ``-`` where ``neg``.
+def _fixed_cells(scaled: np.ndarray, neg: np.ndarray | None, decimals: int, trim: str) -> _Cells:
+    """``scaled`` = |value|·10^decimals as fixed-point text, ``-`` where ``neg``.
 
-    ``trim``: ``none`` keeps every decimal; ``all`` drops trailing zeros and a bare
-    point; ``keep_one`` drops trailing zeros but keeps one decimal (``3.0``).
+    ``scaled``: integers ≥ 0 below 2^63, as an integer array or a float one holding
+    integers (below 2^53). ``neg``: boolean, or None for no sign. ``trim``: ``none``
+    keeps every decimal; ``all`` drops trailing zeros and a bare point; ``keep_one``
+    drops trailing zeros but keeps one decimal (``3.0``).
     """
     n = len(scaled)
     largest = int(scaled.max(initial=0))
     # Division of int32 is about three times that of int64: the digits in int32 when
     # they fit, the table indices (intp) only where a gather takes them.
-    if largest < 2**31 and decimals <= 9:
-        scaled = scaled.astype(np.int32)
+    small = largest < 2**31 and decimals <= 9
+    scaled = scaled.astype(np.int32 if small else np.int64, copy=False)
     unit = int(_POW10[decimals])
     whole = scaled // unit if decimals else scaled
     # Byte 0 of the cell stays free: a group of three digits fills the last three bytes of
     # its word, so only a negative number needs a digit of room for its sign ("-dd").
     longest = len(str(largest // unit))
-    if longest % 3 == 0 and neg.any():  # else the sign fits in the leading word anyway
+    if longest % 3 == 0 and neg is not None and neg.any():  # else the sign fits anyway
         longest += bool(np.any(neg & (whole >= 10 ** (longest - 1))))
     groups = -(-longest // 3)
     # The decimals split into words: the first three with the point, then four at a time.
@@ -227,9 +234,12 @@ def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) 
     spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
     planes = np.empty((groups + len(spans), n), np.uint32)
     # The leading word's table offset: 1000 ("dd"), 2000 for a negative number ("-dd").
-    lead = neg.astype(np.intp)
-    lead *= 1000
-    lead += 1000
+    if neg is None:
+        lead = 1000
+    else:
+        lead = neg.astype(np.intp)
+        lead *= 1000
+        lead += 1000
     rest = whole
     for g in range(groups - 1, -1, -1):
         table = _INT_WORDS if g == groups - 1 else _UPPER_WORDS
@@ -353,23 +363,60 @@ def _bool_cells(values: np.ndarray) -> _Cells:
 def _compact_number_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
     """csv / jsonl numbers: |x|·10^d rounded, trailing zeros dropped, big values as repr."""
     null = "null" if style == "jsonl" else ""
-    x = np.asarray(values, float if kind == "float" else np.int64)
-    d = decimals if kind == "float" else 0
-    absent = ~np.isfinite(x) if kind == "float" else x < 0
-    big = ~absent & (np.abs(x) >= _FIXED_LIMIT)
-    ok = ~(absent | big)
-    y = np.abs(np.where(ok, x, 0.0)) * 10.0**d
-    # |x| < 1e15 but |x|·10^d past int64 exactness: the digits the rounding intends, in Python.
-    huge = y >= _EXACT_LIMIT
-    scaled = np.rint(np.where(huge, 0.0, y)).astype(np.int64)
-    neg = (x < 0) & (scaled != 0)
-    cells = _fixed_cells(scaled, neg, d, "all")
-    cells.put_same(absent, null)
-    rows = np.flatnonzero(big)
-    cells.put(rows, [repr(float(v)) for v in x[rows].tolist()])
-    rows = np.flatnonzero(huge)
-    cells.put(rows, [_trimmed(v, d) for v in x[rows].tolist()])
+    if kind != "float":
+        x = np.asarray(values, np.int64)
+        rows = np.flatnonzero((x < 0) | (x >= _FIXED_LIMIT))
+        cells = _fixed_cells(_zeroed(x, rows), None, 0, "all")
+        sub = x[rows]
+        cells.put_rows(rows[sub < 0], null)
+        cells.put(rows[sub >= 0], [repr(float(v)) for v in sub[sub >= 0].tolist()])
+        return cells
+    x = np.asarray(values, float)
+    d = decimals
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(x) * 10.0**d
+        # The fast cells: |x| < 1e15 (else repr) and |x|·10^d within exact int64 digits
+        # (else Python writes the digits the rounding intends); NaN and ±inf fail both.
+        rows = np.flatnonzero(~(y < min(_EXACT_LIMIT, _FIXED_LIMIT * 10.0**d)))
+    scaled = np.rint(y)
+    scaled[rows] = 0.0
+    # (x < 0) & (scaled != 0): "-0" never.
+    cells = _fixed_cells(scaled, np.copysign(scaled, x) < 0, d, "all")
+    sub = x[rows]
+    absent = ~np.isfinite(sub)
+    big = ~absent & (np.abs(sub) >= _FIXED_LIMIT)
+    cells.put_rows(rows[absent], null)
+    cells.put(rows[big], [repr(float(v)) for v in sub[big].tolist()])
+    huge = ~(absent | big)
+    cells.put(rows[huge], [_trimmed(v, d) for v in sub[huge].tolist()])
     return cells
+
+
+def _zeroed(x: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``x`` with the entries of ``rows`` set to 0 (a copy if there are any)."""
+    if len(rows):
+        x = x.copy()
+        x[rows] = 0
+    return x
+
+
+def _rounded_scaled(x: np.ndarray, decimals: int) -> tuple[np.ndarray, np.ndarray]:
+    """|x|·10^decimals rounded as Python rounds the exact binary value, and the other rows.
+
+    Returns ``(scaled, rows)``: ``scaled`` (float, exact integers, 0 at ``rows``) and the
+    indices of the cells the float product cannot decide: NaN, ±inf, |x|·10^d ≥ 2^50,
+    and a product within 1e-15 of a decimal tie (it carries one rounding error, at most
+    1.2e-16 relative, so the exact value lies between the two products tried; where
+    they round alike, so does it: 0.0005 at 3 decimals is a tie Python rounds to
+    ``0.001``, the float product to ``0.000``).
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(x) * 10.0**decimals
+        low = np.rint(y * (1.0 - 1e-15))
+        high = np.rint(y * (1.0 + 1e-15))
+        rows = np.flatnonzero(~((low == high) & (high < _EXACT_LIMIT)))
+    low[rows] = 0.0
+    return low, rows
 
 
 def _trimmed(value: float, decimals: int) -> str:
@@ -389,26 +436,19 @@ def _csv_float(value: float, decimals: int) -> str:
 def _fixed_csv_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     """write_csv numbers: ints as str(), floats as f"{x:.{d}f}" (never -0), absent empty."""
     if kind == "int":
-        x = np.asarray(values).astype(np.int64)
-        absent = x < 0
-        cells = _fixed_cells(np.where(absent, 0, x), np.zeros(len(x), bool), 0, "none")
-        cells.put_same(absent, "")
+        x = np.asarray(values).astype(np.int64, copy=False)
+        rows = np.flatnonzero(x < 0)
+        cells = _fixed_cells(_zeroed(x, rows), None, 0, "none")
+        cells.put_rows(rows, "")
         return cells
-    x = np.asarray(values).astype(float)
-    absent = ~np.isfinite(x)
-    with np.errstate(over="ignore", invalid="ignore"):
-        # A finite x past 1e305 overflows here; such cells take the slow path below.
-        y = np.abs(np.where(absent, 0.0, x)) * 10.0**decimals
-    rounded = np.rint(y)
-    # Python rounds the exact binary value; the product y carries one rounding error, so a
-    # cell within a few ulps of a tie (0.0005 at 3 decimals) is left to Python.
-    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15  # ≥ 4 ulp of y
-    slow = ~absent & ((y >= _EXACT_LIMIT) | near_tie)
-    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
-    cells = _fixed_cells(scaled, (x < 0) & (scaled != 0), decimals, "none")
-    cells.put_same(absent, "")
-    rows = np.flatnonzero(slow)
-    cells.put(rows, [_csv_float(v, decimals) for v in x[rows].tolist()])
+    x = np.asarray(values).astype(float, copy=False)
+    scaled, rows = _rounded_scaled(x, decimals)
+    # (x < 0) & (scaled != 0): "-0.000" reads as a sign that is not there.
+    cells = _fixed_cells(scaled, np.copysign(scaled, x) < 0, decimals, "none")
+    sub = x[rows]
+    finite = np.isfinite(sub)
+    cells.put_rows(rows[~finite], "")
+    cells.put(rows[finite], [_csv_float(v, decimals) for v in sub[finite].tolist()])
     return cells
 
 
@@ -444,41 +484,32 @@ def _json_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     return cells
 
 
-def _put_non_finite(cells: _Cells, x: np.ndarray) -> None:
-    """``nan``, ``inf`` and ``-inf``, as Python's ``%`` writes them (the sign of a NaN is not)."""
-    if np.isfinite(x).all():
-        return
-    for mask, text in ((np.isnan(x), "nan"), (x == np.inf, "inf"), (x == -np.inf, "-inf")):
-        if mask.any():
-            cells.put_same(mask, text)
+def _put_non_finite(cells: _Cells, x: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``nan``, ``inf`` and ``-inf`` among ``rows``, as Python's ``%`` writes them (the sign
+    of a NaN is not); returns the finite rows among them."""
+    sub = x[rows]
+    for mask, text in ((np.isnan(sub), "nan"), (sub == np.inf, "inf"), (sub == -np.inf, "-inf")):
+        cells.put_rows(rows[mask], text)
+    return rows[np.isfinite(sub)]
 
 
 def _printf_int_cells(values: np.ndarray) -> _Cells:
     """``%d``: the integer with its sign (a float is cut toward zero, as ``%d`` does)."""
-    x = np.asarray(values).astype(np.int64)
+    x = np.asarray(values).astype(np.int64, copy=False)
     # -2^63 has no int64 magnitude: Python writes it.
-    slow = x == np.iinfo(np.int64).min
-    cells = _fixed_cells(np.abs(np.where(slow, 0, x)), x < 0, 0, "none")
-    rows = np.flatnonzero(slow)
+    rows = np.flatnonzero(x == np.iinfo(np.int64).min)
+    cells = _fixed_cells(np.abs(_zeroed(x, rows)), x < 0, 0, "none")
     cells.put(rows, ["%d" % v for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
 
 def _printf_fixed_cells(values: np.ndarray, decimals: int) -> _Cells:
     """``%.{decimals}f``: correctly rounded, the sign of a negative zero kept (``-0.000``)."""
-    x = np.asarray(values).astype(float)
-    finite = np.isfinite(x)
-    with np.errstate(over="ignore", invalid="ignore"):
-        y = np.abs(np.where(finite, x, 0.0)) * 10.0**decimals
-    rounded = np.rint(y)
-    # As in fixed_csv: a cell within a few ulps of a decimal tie, or past exact int64
-    # digits, is left to Python, which rounds the exact binary value.
-    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15
-    slow = finite & ((y >= _EXACT_LIMIT) | near_tie)
-    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
-    cells = _fixed_cells(scaled, finite & np.signbit(x), decimals, "none")
-    _put_non_finite(cells, x)
-    rows = np.flatnonzero(slow)
+    x = np.asarray(values).astype(float, copy=False)
+    scaled, rows = _rounded_scaled(x, decimals)
+    # The sign bit of a non-finite cell does not matter: put_rows replaces the cell.
+    cells = _fixed_cells(scaled, np.signbit(x), decimals, "none")
+    rows = _put_non_finite(cells, x, rows)
     cells.put(rows, ["%.*f" % (decimals, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
@@ -547,7 +578,7 @@ def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
         mantissa = _fixed_cells(m[rows], neg[rows], digits - 1, "all").planes
         words = _EXPONENT_WORDS[e[rows] - _EXPONENT_MIN]
         cells.put_planes(rows, np.concatenate([mantissa, words[None]]))
-    _put_non_finite(cells, x)
+    _put_non_finite(cells, x, np.flatnonzero(~finite))
     rows = np.flatnonzero(slow)
     cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
     return cells
