@@ -519,6 +519,12 @@ _EXPONENT_MIN = -23
 _EXPONENT_WORDS = _words_left(b"e%+03d" % e for e in range(_EXPONENT_MIN, 24 + 23))
 
 
+# Nearest float64 of each power of ten from 10^-330 to 10^310 (the decimal exponent
+# guess of %g compares |x| with them; a wrong guess is caught afterwards).
+_POW10_MIN = -330
+_POW10_NEAR = np.array([float(f"1e{k}") for k in range(_POW10_MIN, 311)])
+
+
 def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
     """``%.{digits}g``: ``digits`` significant digits, fixed or exponent form, zeros dropped.
 
@@ -529,58 +535,70 @@ def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
     exact power of ten, so one rounding error; a cell near a tie or with a wrong guess
     e0 of the exponent (near a power of ten) is left to Python.
     """
-    x = np.asarray(values).astype(float)
-    n = len(x)
+    x = np.asarray(values).astype(float, copy=False)
     digits = max(digits, 1)  # %.0g writes one digit, as %.1g
-    finite = np.isfinite(x)
-    nonzero = finite & (x != 0)
-    a = np.abs(np.where(nonzero, x, 1.0))
-    e0 = np.floor(np.log10(a)).astype(np.int64)
+    a = np.abs(x)
+    # The decimal exponent from the binary one: a = f·2^b with f in [0.5, 1), so
+    # log10(a) is in [(b - 1)·log10(2), b·log10(2)): e0 = floor((b - 1)·log10(2)), as
+    # (b - 1)·78913 >> 18 (exact for |b| < 1650), plus one where a reaches the next
+    # power of ten.
+    _, b = np.frexp(a)
+    b -= 1
+    b *= 78913
+    b >>= 18
+    e0 = b
+    e0 += a >= np.take(_POW10_NEAR, e0 + (1 - _POW10_MIN), mode="clip")
     k = (digits - 1) - e0
     # Mostly k ≥ 0 (|x| < 10^(digits-1)): a product; the rest a division, never by an
-    # inexact power (|k| > 22 goes to Python).
-    y = a * _POW10_FLOAT[np.clip(k, 0, 22)]
-    down = k < 0
-    if down.any():
-        y[down] = a[down] / _POW10_FLOAT[np.minimum(-k[down], 22)]
-    m = np.rint(y)
+    # inexact power (past |k| = 22 the power is clipped, so y falls out of range below).
+    y = a * np.take(_POW10_FLOAT, k, mode="clip")
+    down = np.flatnonzero(k < 0)
+    if len(down):
+        y[down] = a[down] / np.take(_POW10_FLOAT, -k[down], mode="clip")
     low, high = float(10 ** (digits - 1)), float(10**digits)
-    gap = np.abs(y - m)
-    gap -= 0.5
-    slow = np.abs(gap) <= y * 1e-15  # near a tie
-    slow |= (y < low) | (y >= high) | (np.abs(k) > 22)
-    slow &= nonzero
+    with np.errstate(invalid="ignore", over="ignore"):
+        # As in _rounded_scaled: the exact product lies between these two, so where they
+        # round alike it rounds the same; NaN and ±inf fail the range.
+        m = np.rint(y * (1.0 - 1e-15))
+        fast = m == np.rint(y * (1.0 + 1e-15))
+        fast &= y >= low
+        fast &= y < high
+    fast |= a == 0.0
     if high > _EXACT_LIMIT:
-        slow = nonzero
+        fast = a == 0.0
+    others = np.flatnonzero(~fast)
     carry = m == high  # 9999999.6 -> 1000000, one exponent up
-    e = e0 + carry
-    m[carry] = low
-    m[~nonzero | slow] = 0.0
-    m = m.astype(np.int64)
-    neg = np.signbit(x) & finite
-    fixed = nonzero & ~slow & (e >= -4) & (e < digits)
-    exponent = nonzero & ~slow & ~fixed
-    # The fixed form has digits - 1 - e decimals. Written with the block's most decimals
-    # (top), m·10^(top - d), in one pass: the zeros this appends are dropped with the
-    # other trailing zeros. Zero, and every cell replaced below, is m = 0: "0" or "-0".
-    d = digits - 1 - e
-    top = int(d[fixed].max(initial=0))
+    if carry.any():
+        m[carry] = low
+        e0 += carry
+    e = e0
+    # Zero, and every cell replaced below, is m = 0 in the fixed form: "0" or "-0".
+    zero_or_other = np.flatnonzero(~fast | (a == 0.0))
+    m[zero_or_other] = 0.0
+    e[zero_or_other] = digits - 1
+    neg = np.signbit(x)
+    # The fixed form has d = digits - 1 - e decimals, for 0 ≤ d ≤ digits + 3. Written with
+    # the block's most decimals (top), m·10^(top - d), in one pass: the zeros this appends
+    # are dropped with the other trailing zeros.
+    d = (digits - 1) - e
+    fixed = (d >= 0) & (d <= digits + 3)
+    exponent = np.flatnonzero(~fixed)
+    top = int(np.max(d, where=fixed, initial=0)) if len(exponent) else int(d.max(initial=0))
     if digits + top <= 18:  # m·10^(top - d) < 10^(digits + top) fits int64
-        shift = _POW10[np.clip(top - d, 0, 18)]
-        cells = _fixed_cells(np.where(fixed, m * shift, 0), neg, top, "all")
+        scaled = m.astype(np.int64) * np.take(_POW10, top - d, mode="clip")
+        scaled[exponent] = 0
+        cells = _fixed_cells(scaled, neg, top, "all")
     else:  # one pass per number of decimals
-        cells = _fixed_cells(np.zeros(n, np.int64), neg, 0, "none")
+        cells = _fixed_cells(np.zeros(len(x)), neg, 0, "none")
         for k in np.unique(d[fixed]).tolist():
             rows = np.flatnonzero(fixed & (d == k))
             cells.put_planes(rows, _fixed_cells(m[rows], neg[rows], k, "all").planes)
-    if exponent.any():
-        rows = np.flatnonzero(exponent)
-        mantissa = _fixed_cells(m[rows], neg[rows], digits - 1, "all").planes
-        words = _EXPONENT_WORDS[e[rows] - _EXPONENT_MIN]
-        cells.put_planes(rows, np.concatenate([mantissa, words[None]]))
-    _put_non_finite(cells, x, np.flatnonzero(~finite))
-    rows = np.flatnonzero(slow)
-    cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+    if len(exponent):
+        mantissa = _fixed_cells(m[exponent], neg[exponent], digits - 1, "all").planes
+        words = _EXPONENT_WORDS[e[exponent] - _EXPONENT_MIN]
+        cells.put_planes(exponent, np.concatenate([mantissa, words[None]]))
+    others = _put_non_finite(cells, x, others)
+    cells.put(others, ["%.*g" % (digits, v) for v in x[others].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
 
