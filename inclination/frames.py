@@ -271,7 +271,8 @@ def _signed_permutation(a: np.ndarray, v: np.ndarray) -> np.ndarray:
     for r in range(2):
         c = int(np.flatnonzero(a[r])[0])
         np.multiply(v[..., c], a[r, c], out=out[..., r])
-    return out + 0.0
+    out += 0.0
+    return out
 
 
 def _wrap(angle_deg: np.ndarray, period: float) -> np.ndarray:
