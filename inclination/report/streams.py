@@ -294,6 +294,15 @@ def _json_text(text: str) -> str:
     return json.dumps(text, ensure_ascii=False)
 
 
+def _rows_with(flags: np.ndarray) -> np.ndarray:
+    """Per row of a boolean (n, 8k) matrix: does it hold a True? (k 1-D passes, as uint64)."""
+    seen = np.zeros(flags.shape[0], np.uint64)
+    if flags.any():
+        for column in flags.view(np.uint64).T:
+            seen |= column
+    return seen != 0
+
+
 def _text_cells(values: np.ndarray, style: str) -> _Cells:
     """Text cells: printable ASCII that needs no quoting is copied, the rest quoted once."""
     n = len(values)
@@ -319,33 +328,36 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
         return cells
     codes = np.ascontiguousarray(arr).view(np.uint32).reshape(n, width)
     # Room for the quotes, and rows of whole 8-byte words, so that a row's flags OR in a
-    # few 1-D passes (a reduction along a short axis is slow in numpy).
+    # few 1-D passes (a reduction along a short axis is slow in numpy). The code points
+    # are narrowed to bytes first (a contiguous cast) and copied as one item per row.
     mat = np.zeros((n, -(-(width + 3) // 8) * 8), np.uint8)
-    mat[:, 2 : 2 + width] = codes
-    needs_quote = (mat == ord('"')) | ((mat - 1) < 0x1F)  # a quote or a control character
+    mat[:, 2 : 2 + width].view(f"V{width}")[...] = codes.astype(np.uint8).view(f"V{width}")
+    # A quote or a control character (the NUL padding is neither), or a JSON backslash.
+    special = mat < 0x20
+    special &= mat != 0
+    special |= mat == _QUOTE
     if json_like:
-        needs_quote |= mat == ord("\\")
-    flags = needs_quote.view(np.uint8) << 1
-    if not json_like:
-        flags |= (mat == ord(",")).view(np.uint8)
-    seen = np.zeros(n, np.uint64)
-    if flags.any():
-        for column in flags.view(np.uint64).T:
-            seen |= column
-    comma = (seen & np.uint64(0x0101010101010101)) != 0
-    other = (seen & np.uint64(0x0202020202020202)) != 0
+        special |= mat == ord("\\")
+    other = _rows_with(special)
+    comma = np.zeros(n, bool) if json_like else _rows_with(mat == ord(","))
     if codes.max(initial=0) >= 0x7F:
         other |= (codes >= 0x7F).any(axis=1)  # past printable ASCII: to the reference
-    length = np.char.str_len(arr)
-    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the reference.
-    if np.count_nonzero(codes) != length.sum():
+    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the
+    # reference. Each non-empty row turns from NUL to text once (at its first character,
+    # its byte 2) unless a NUL is inside it or leads it: count those turns.
+    first = mat[:, 2] != 0
+    text = mat.reshape(-1) != 0
+    turns = np.count_nonzero(text[1:] & ~text[:-1])
+    if turns != np.count_nonzero(first):
+        length = np.char.str_len(arr)
         other |= np.count_nonzero(codes, axis=1) != length
+        first = length != 0
     # Quotes around every JSON string, and around CSV text whose only special is a comma
     # (what csv.writer does to a field holding the delimiter and no quote or line break).
     mat[:, 1] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
     mat[:, -1] = mat[:, 1]
     cells = _Cells(mat.view(np.uint32).T)
-    cells.put_same(~other & (length == 0), null)
+    cells.put_same(~other & ~first, null)
     rows = np.flatnonzero(other)
     if len(rows):
         uniq, inverse = np.unique(arr[rows], return_inverse=True)
