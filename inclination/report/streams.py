@@ -2,12 +2,13 @@
 
 A table (a dict of equal-length 1-D arrays, with the column definitions of
 :mod:`inclination.report.columns`) becomes text bytes a block of rows at a time.
-Each column of a block turns into a byte matrix, a row per cell, whose NUL bytes
-are padding: numbers in a few numpy passes (digits three or four to a uint32
-word, each word one gather from a table of ASCII words), text by copying the code
-points of the strings that need no escaping and one call of the reference per
-*distinct* other string. The matrices are laid side by side with the separators
-and the NUL bytes deleted in one ``bytes.translate``. Memory stays a few tens of MB
+Each column of a block turns into a few planes of uint32 words, a word per cell and
+plane, whose NUL bytes are padding: numbers in a few numpy passes (digits three or
+four to a word, each plane one ``np.take`` from a table of ASCII words, in int32
+arithmetic where the digits fit), text by copying the code points of the strings that
+need no escaping and one call of the reference per *distinct* other string. The
+planes are laid side by side with the separators and the NUL bytes deleted in one
+``bytes.translate``. Memory stays a few tens of MB
 whatever the table's length, and the throughput is that of numpy, not of
 ``str.format`` (docs/performance.md, "Table writers").
 
