@@ -293,3 +293,12 @@ def test_number_and_text_cells_at_their_edges(tmp_path):
             x = t[c.name]
             x[(np.abs(x) < 1e15) & (np.abs(x) * 10.0**c.decimals >= 2**50)] = 2.5
     assert b"".join(encode_rows(t, COLUMNS, style="jsonl")) == _jsonl_oracle(t, COLUMNS)
+
+
+def test_tables_longer_than_one_squeeze(tmp_path):
+    # A block's rows are squeezed 4,096 at a time (report.streams): the pieces of a
+    # 16,384-row block join up, also where write_table_json turns line breaks into ",\n".
+    t = _table(7, 10_000)
+    got = write_table_json(tmp_path / "l.json", t, COLUMNS, schema_version="1", meta={})
+    assert got.read_bytes() == _json_oracle(t, COLUMNS, {})
+    assert write_csv(tmp_path / "l.csv", t, COLUMNS).read_bytes() == _csv_oracle(t, COLUMNS)
