@@ -12,12 +12,14 @@ every row (quoted in every row). MB/s is output bytes over wall time (the file w
 into a temporary folder); ``peak MB`` is the growth of the process's maximum resident
 size during the write (an upper bound of what the writer holds, 0 when the write stays
 under an earlier peak); ``cpu MB/s`` is output bytes over the process's CPU time, less
-sensitive to other jobs on the machine than the wall time. ``map.csv`` is the orientation
-map's text export (``io.writers.write_csv``) of a square map of ``--map-side``² points
-(random orientations, 5 % not indexed, quality channels ``ci`` 0-1, ``iq`` 0-5000 and
-``fit_deg`` 0-3), timed from the map record to the file, the conversion of the
-orientations to declared Euler angles included. The first line times
-``np.arange(10**7) * 3`` (about 0.02 s on a quiet core) to record how loaded the machine was.
+sensitive to other jobs on the machine than the wall time, split into user and system
+seconds (the system part, mostly the kernel caching the file's pages, is the noisier).
+``map.csv`` is the orientation map's text export (``io.writers.write_csv``) of a
+square map of ``--map-side``² points (random orientations, 5 % not indexed, quality
+channels ``ci`` 0-1, ``iq`` 0-5000 and ``fit_deg`` 0-3), timed from the map record to the
+file, the conversion of the orientations to declared Euler angles included. The first
+line times ``np.arange(10**7) * 3`` (about 0.02 s on a quiet core) to record how loaded
+the machine was.
 """
 
 from __future__ import annotations
@@ -86,13 +88,18 @@ def _peak_mb() -> float:
 
 def _time(label: str, write) -> None:
     before = _peak_mb()
+    usage = resource.getrusage(resource.RUSAGE_SELF)
     start, cpu = time.perf_counter(), time.process_time()
     path = write()
     dt, dt_cpu = time.perf_counter() - start, time.process_time() - cpu
+    after = resource.getrusage(resource.RUSAGE_SELF)
     size = path.stat().st_size
+    # The system part is mostly the kernel taking the file's pages into its cache; it
+    # varies with what the machine's other jobs hold there, the user part much less.
     print(
         f"{label:<28} {size / 1e6:8.1f} MB {dt:7.2f} s {size / dt / 1e6:8.1f} MB/s "
-        f"cpu {size / dt_cpu / 1e6:6.1f} MB/s peak +{_peak_mb() - before:6.0f} MB"
+        f"cpu {size / dt_cpu / 1e6:6.1f} MB/s (user {after.ru_utime - usage.ru_utime:5.2f} s, "
+        f"sys {after.ru_stime - usage.ru_stime:5.2f} s) peak +{_peak_mb() - before:6.0f} MB"
     )
 
 

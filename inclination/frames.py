@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validation import as_float_array, check_last_axis, check_one_of
+from ._validation import as_float_array, check_finite, check_last_axis, check_one_of
 from .crystal.rotations import (
     quat_from_axis_angle_deg,
     quat_from_matrix,
@@ -271,7 +271,8 @@ def _signed_permutation(a: np.ndarray, v: np.ndarray) -> np.ndarray:
     for r in range(2):
         c = int(np.flatnonzero(a[r])[0])
         np.multiply(v[..., c], a[r, c], out=out[..., r])
-    return out + 0.0
+    out += 0.0
+    return out
 
 
 def _wrap(angle_deg: np.ndarray, period: float) -> np.ndarray:
@@ -425,7 +426,15 @@ def orientations_to_declared(
     """
     check_one_of(rotation_sense, "rotation_sense", ROTATION_SENSES)
     dfr = np.array([1.0, 0.0, 0.0, 0.0]) if data_frame_rotation is None else data_frame_rotation
-    q = quat_multiply(quat_sample, quat_inverse(_sample_to_data_quat(axes, dfr)))
+    if axes.is_sample_frame and np.array_equal(np.asarray(dfr, float), [1.0, 0.0, 0.0, 0.0]):
+        # R is the identity: each component of q ⊗ (1, -0, -0, -0) is that of q plus
+        # signed zeros, the same bits but for the sign of a zero, which the + 0.0 below
+        # makes +0.0 either way; so the product is skipped.
+        q = as_float_array(quat_sample, "quat_sample")
+        check_last_axis(q, "quat_sample", 4)
+        check_finite(q, "quat_sample")
+    else:
+        q = quat_multiply(quat_sample, quat_inverse(_sample_to_data_quat(axes, dfr)))
     if rotation_sense == "active":
         q = q * _CONJUGATE
     return np.where(q[..., :1] < 0, -q, q) + 0.0

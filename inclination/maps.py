@@ -355,11 +355,13 @@ class OrientationMap:
         hexagonal grid rows are step·√3/2 apart and odd rows shift by step/2.
         """
         h, w = self.shape
-        x = np.broadcast_to(np.arange(w) * self.step_x_um, (h, w)).astype(np.float64)
+        # Written into place: a map export's positions are tens of MB.
+        out = np.empty((h, w, 2))
+        out[..., 0] = np.arange(w) * self.step_x_um
         if self.grid == "hexagonal":
-            x = x + 0.5 * self.step_x_um * (np.arange(h) % 2)[:, None]
-        y = np.broadcast_to((np.arange(h) * self.row_pitch_um)[:, None], (h, w))
-        return np.stack([x, y], axis=-1)
+            out[..., 0] += 0.5 * self.step_x_um * (np.arange(h) % 2)[:, None]
+        out[..., 1] = (np.arange(h) * self.row_pitch_um)[:, None]
+        return out
 
     def euler_deg_declared(self) -> np.ndarray:
         """Bunge angles (H, W, 3) of the orientations in the data frame, as read; NaN if invalid.

@@ -7,7 +7,12 @@ import pytest
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy.spatial.transform import Rotation
 
-from inclination.crystal.rotations import quat_as_matrix, quat_from_euler_deg, random_quat
+from inclination.crystal.rotations import (
+    quat_as_matrix,
+    quat_from_euler_deg,
+    quat_multiply,
+    random_quat,
+)
 from inclination.errors import InputError
 from inclination.frames import (
     NAMED_TURNS,
@@ -196,3 +201,22 @@ def test_orientation_round_trip_random():
     turn = data_frame_quat("y270")
     back = orientations_to_sample(orientations_to_declared(q, axes, turn), axes, turn)
     assert_allclose(quat_as_matrix(back), quat_as_matrix(q), rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("sense", ["passive", "active"])
+def test_orientations_to_declared_in_the_sample_frame_is_the_product_by_the_identity(sense):
+    # Declared axes = S and no data-frame turn: the product by R = identity is skipped
+    # (conventions §2–§3); the bits are those of the product q ⊗ (1, -0, -0, -0) written out
+    # (quat_multiply), signed zeros and negative scalar parts included.
+    rng = np.random.default_rng(31)
+    q = rng.normal(size=(3000, 4))
+    q[rng.random(q.shape) < 0.2] = 0.0
+    q[rng.random(q.shape) < 0.1] = -0.0
+    got = orientations_to_declared(q, DeclaredAxes(), rotation_sense=sense)
+    p = quat_multiply(q, [1.0, -0.0, -0.0, -0.0])
+    if sense == "active":
+        p = p * np.array([1.0, -1.0, -1.0, -1.0])
+    want = np.where(p[..., :1] < 0, -p, p) + 0.0
+    assert np.array_equal(got.view(np.int64), want.view(np.int64))
+    with pytest.raises(InputError, match="quat_sample"):
+        orientations_to_declared([[np.nan, 0.0, 0.0, 1.0]], DeclaredAxes())

@@ -185,3 +185,42 @@ def test_declared_euler_angles_do_not_depend_on_the_block(monkeypatch):
     monkeypatch.setattr(maps, "_BLOCK", 7)
     assert np.array_equal(omap.euler_deg_declared(), whole, equal_nan=True)
     assert np.isnan(whole[~np.asarray(omap.valid)]).all()
+
+
+def _edge_values():
+    """Values at the edges of the printf fast paths, each next to its float neighbours."""
+    powers = np.array([float(f"1e{k}") for k in range(-323, 309)])  # nearest float64 of 10^k
+    rng = np.random.default_rng(11)
+    with np.errstate(over="ignore"):
+        near = [powers, np.nextafter(powers, 0), np.nextafter(powers, np.inf), powers * 9.99999995]
+    subnormal = np.frombuffer(rng.integers(1, 2**52, 300).astype(np.int64).tobytes(), np.float64)
+    ties = [
+        (rng.integers(0, 10**7, 2000) + 0.5) * 10.0 ** -rng.integers(0, 10, 2000),  # x.5 at a digit
+        rng.integers(-(10**9), 10**9, 2000) * 5e-6,  # ties at the fifth and sixth decimals
+        (rng.integers(10**6, 10**7, 2000) * 10 + 5) * 10.0 ** rng.integers(-20, 20, 2000),
+    ]
+    big = [2.0**53 + rng.integers(-50, 50, 200), 2.0**50 + rng.integers(-50, 50, 200)]
+    special = [0.0, -0.0, np.nan, -np.nan, np.inf, -np.inf, 1e-7, -1e-7, 1e16, -1e16, 5e-324,
+               2.2250738585072014e-308, 1.7976931348623157e308, 0.0005, 0.125, 2.675]  # fmt: skip
+    x = np.concatenate([*near, subnormal, -subnormal, *ties, *big, special])
+    with np.errstate(over="ignore"):
+        return np.concatenate([x, -x[::3], np.nextafter(x[: len(x) // 2], np.inf)])
+
+
+@pytest.mark.parametrize("digits", [1, 2, 7, 12, 15, 16])
+def test_printf_general_at_powers_of_ten_ties_and_subnormals(digits):
+    # %g's decimal exponent is guessed from the float's binary exponent and checked; next to
+    # every power of ten, at ties of the last digit and for subnormals, against % itself.
+    x = _edge_values()
+    got = b"".join(encode_rows({"g": x}, [Column("g", "general", digits)], style="printf"))
+    assert got == "".join("%.*g\n" % (digits, v) for v in x.tolist()).encode()  # noqa: UP031
+
+
+@pytest.mark.parametrize("decimals", [0, 1, 3, 5, 6, 9, 12])
+def test_printf_fixed_at_ties_and_exact_limits(decimals):
+    # The rounding of %.Nf is settled by two float products around |x|·10^N; at and next to
+    # ties, 2^50 and 2^53, and for subnormals, against % itself.
+    x = _edge_values()
+    x = x[np.abs(x) < 1e200]  # %.12f of 1e300 is 313 digits: fine, but slow to compare
+    got = b"".join(encode_rows({"f": x}, [Column("f", "float", decimals)], style="printf"))
+    assert got == "".join("%.*f\n" % (decimals, v) for v in x.tolist()).encode()  # noqa: UP031

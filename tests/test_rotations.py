@@ -209,3 +209,26 @@ def test_float32_euler_conversion_precision():
     assert angle.max() < 5e-5
     with pytest.raises(ValueError, match="float64 or float32"):
         quat_from_euler_deg(e[:2], dtype=np.int32)
+
+
+def test_euler_angles_of_a_row_do_not_depend_on_the_other_rows():
+    # quat_as_euler_deg works out the degenerate rows (Φ = 0 or 180°) apart from the others;
+    # every step is elementwise, so a row's bits are the same alone or among any others.
+    rng = np.random.default_rng(21)
+    q = rng.normal(size=(400, 4))
+    e = np.array([[30.0, 0.0, 60.0], [359.0, 180.0, 2.0], [0.0, 0.0, 0.0], [200.0, 180.0, 0.0]])
+    q[::9] = quat_from_euler_deg(e)[rng.integers(0, 4, len(q[::9]))]
+    q[5::11, 1:] *= 1e-13  # chi below the degenerate limit, not exactly zero
+    q[7::13] *= -1.0
+    whole = quat_as_euler_deg(q)
+    alone = np.array([quat_as_euler_deg(row) for row in q])
+    assert np.array_equal(whole.view(np.int64), alone.view(np.int64))
+    assert np.array_equal(quat_as_euler_deg(q[3:10]).view(np.int64), whole[3:10].view(np.int64))
+    # And the angles are scipy's: our q is scipy's R.inv() (scalar first, see above), and
+    # R's intrinsic ZXZ angles are Bunge's; away from the degenerate rows, where only
+    # φ1 ± φ2 is defined, and wrapped to [0, 360) here.
+    general = np.abs(whole[:, 1] % 180.0) > 1e-3
+    theirs = Rotation.from_quat(np.roll(q[general], -1, axis=-1)).inv()
+    ref = theirs.as_euler("ZXZ", degrees=True) % 360.0
+    diff = (whole[general] - ref + 180.0) % 360.0 - 180.0
+    assert_allclose(diff, 0.0, rtol=0, atol=1e-9)

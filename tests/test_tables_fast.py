@@ -260,3 +260,45 @@ def test_boundary_columns_round_trip_through_the_csv_module(tmp_path):
     for c, cells in zip(BOUNDARY_COLUMNS, zip(*rows[1:], strict=True), strict=True):
         if c.kind == "str":
             assert list(cells) == t[c.name].tolist()
+
+
+def test_number_and_text_cells_at_their_edges(tmp_path):
+    # Ties at the last decimal and next to them, 2^50 (the digits' exact limit), 2^53,
+    # subnormals, 1e15 (where jsonl turns to repr); text with NUL inside or leading and
+    # code points whose low byte is NUL. Against csv.writer and json.dumps, cell by cell.
+    rng = np.random.default_rng(12)
+    n = 6000
+    edges = np.concatenate(
+        [
+            (rng.integers(-(10**7), 10**7, n) + 0.5) * 10.0 ** -rng.integers(0, 9, n),
+            rng.integers(-(10**9), 10**9, n) * 5e-4,
+            2.0**50 / 10.0 ** rng.integers(0, 9, n) + rng.integers(-3, 3, n),
+            2.0**53 + rng.integers(-50, 50, n),
+            np.frombuffer(rng.integers(1, 2**52, n).astype(np.int64).tobytes(), np.float64),
+            [1e15, -1e15, np.nextafter(1e15, 0), 0.0, -0.0, np.nan, np.inf, -np.inf, 1e-7],
+        ]
+    )
+    edges = rng.permutation(edges)
+    m = len(edges)
+    t = {c.name: edges.copy() for c in COLUMNS if c.kind == "float"}
+    t["id"] = rng.integers(-2, 2**40, m)
+    t["ok"] = rng.random(m) < 0.5
+    texts = np.array(TEXTS + ["\x00lead", "\u0100", "a\u0100b", "\u0100\u0200", "x\x00"])
+    t["text"] = rng.choice(texts, m)
+    got = write_csv(tmp_path / "e.csv", t, COLUMNS)
+    assert got.read_bytes() == _csv_oracle(t, COLUMNS)
+    # The jsonl rule rounds the float product itself; past 2^50 its old oracle is inexact.
+    for c in COLUMNS:
+        if c.kind == "float":
+            x = t[c.name]
+            x[(np.abs(x) < 1e15) & (np.abs(x) * 10.0**c.decimals >= 2**50)] = 2.5
+    assert b"".join(encode_rows(t, COLUMNS, style="jsonl")) == _jsonl_oracle(t, COLUMNS)
+
+
+def test_tables_longer_than_one_squeeze(tmp_path):
+    # A block's rows are squeezed 4,096 at a time (report.streams): the pieces of a
+    # 16,384-row block join up, also where write_table_json turns line breaks into ",\n".
+    t = _table(7, 10_000)
+    got = write_table_json(tmp_path / "l.json", t, COLUMNS, schema_version="1", meta={})
+    assert got.read_bytes() == _json_oracle(t, COLUMNS, {})
+    assert write_csv(tmp_path / "l.csv", t, COLUMNS).read_bytes() == _csv_oracle(t, COLUMNS)

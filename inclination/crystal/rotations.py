@@ -161,26 +161,39 @@ def quat_as_euler_deg(quat) -> np.ndarray:
     q12 = q1 * q1 + q2 * q2
     chi = np.sqrt(q03 * q12)
     general = chi > _DEGENERATE
-    safe_chi = np.where(general, chi, 1.0)
-    phi1 = np.arctan2((q1 * q3 - q0 * q2) / safe_chi, (-q0 * q1 - q2 * q3) / safe_chi)
-    big_phi = np.arctan2(2.0 * chi, q03 - q12)
-    phi2 = np.arctan2((q0 * q2 + q1 * q3) / safe_chi, (q2 * q3 - q0 * q1) / safe_chi)
-    # Degenerate cases (Rowenhorst et al. 2015, eq. for chi = 0).
-    near_zero = q12 <= q03
-    phi1_deg = np.where(
-        near_zero,
-        np.arctan2(-2.0 * q0 * q3, q0 * q0 - q3 * q3),
-        np.arctan2(2.0 * q1 * q2, q1 * q1 - q2 * q2),
-    )
-    phi1 = np.where(general, phi1, phi1_deg)
-    big_phi = np.where(general, big_phi, np.where(near_zero, 0.0, np.pi))
-    phi2 = np.where(general, phi2, 0.0)
-    out = np.rad2deg(np.stack([phi1, big_phi, phi2], axis=-1))
-    out[..., 0] %= 360.0
-    out[..., 2] %= 360.0
-    # Values a hair below 360 after the modulo are 0 for every purpose.
-    out[..., [0, 2]] = np.where(out[..., [0, 2]] >= 360.0 - 1e-10, 0.0, out[..., [0, 2]])
-    return out
+    # Every step is elementwise, so the degenerate rows (few, if any) are worked out on
+    # their own below and the general formula's value of theirs is overwritten.
+    degenerate = np.flatnonzero(~general)
+    safe_chi = chi
+    if len(degenerate):
+        safe_chi = np.where(general, chi, 1.0)
+    # asarray: a single quaternion's angles are numpy scalars, not arrays to write into.
+    phi1 = np.asarray(np.arctan2((q1 * q3 - q0 * q2) / safe_chi, (-q0 * q1 - q2 * q3) / safe_chi))
+    big_phi = np.asarray(np.arctan2(2.0 * chi, q03 - q12))
+    phi2 = np.asarray(np.arctan2((q0 * q2 + q1 * q3) / safe_chi, (q2 * q3 - q0 * q1) / safe_chi))
+    if len(degenerate):
+        # Degenerate cases (Rowenhorst et al. 2015, eq. for chi = 0).
+        d0, d1, d2, d3 = (c.reshape(-1)[degenerate] for c in (q0, q1, q2, q3))
+        near_zero = q12.reshape(-1)[degenerate] <= q03.reshape(-1)[degenerate]
+        phi1.reshape(-1)[degenerate] = np.where(
+            near_zero,
+            np.arctan2(-2.0 * d0 * d3, d0 * d0 - d3 * d3),
+            np.arctan2(2.0 * d1 * d2, d1 * d1 - d2 * d2),
+        )
+        big_phi.reshape(-1)[degenerate] = np.where(near_zero, 0.0, np.pi)
+        phi2.reshape(-1)[degenerate] = 0.0
+    return np.stack([_turn_deg(phi1), np.rad2deg(big_phi), _turn_deg(phi2)], axis=-1)
+
+
+def _turn_deg(angle_rad: np.ndarray) -> np.ndarray:
+    """An angle of [-π, π] in degrees of [0, 360); a hair below 360 is 0 for every purpose."""
+    deg = np.rad2deg(angle_rad)
+    # deg % 360.0 for deg in [-180, 180]: numpy's remainder is fmod (deg itself), plus
+    # 360 where deg is negative, and +0.0 for ±0.0; written out, as it is several times
+    # faster than the remainder's branch on the sign.
+    turned = np.where(deg < 0.0, deg + 360.0, deg + 0.0)
+    turned[turned >= 360.0 - 1e-10] = 0.0
+    return turned
 
 
 def quat_as_matrix(quat) -> np.ndarray:

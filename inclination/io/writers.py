@@ -184,11 +184,10 @@ def write_csv(path: str | os.PathLike, omap: OrientationMap, *, delimiter: str =
 
     def write(fh):
         fh.write((delimiter.join(header) + "\n").encode("utf-8"))
-        # 65,536 rows a block (about 10 MB of words): fewer numpy calls per byte than the
-        # tables' 16,384, for a table of eight or nine short number columns.
-        for block in encode_rows(
-            cells, columns, style="printf", delimiter=delimiter, block_rows=65_536
-        ):
+        # The tables' 16,384 rows a block (about 2 MB of words): with 65,536 the block's
+        # buffers (8 MB) went back to the system and were faulted in again each block,
+        # half a second of system time on a 2000 x 2000 map (docs/performance.md).
+        for block in encode_rows(cells, columns, style="printf", delimiter=delimiter):
             fh.write(block)
 
     return _atomic(path, write)

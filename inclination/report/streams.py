@@ -2,12 +2,13 @@
 
 A table (a dict of equal-length 1-D arrays, with the column definitions of
 :mod:`inclination.report.columns`) becomes text bytes a block of rows at a time.
-Each column of a block turns into a byte matrix, a row per cell, whose NUL bytes
-are padding: numbers in a few numpy passes (digits three or four to a uint32
-word, each word one gather from a table of ASCII words), text by copying the code
-points of the strings that need no escaping and one call of the reference per
-*distinct* other string. The matrices are laid side by side with the separators
-and the NUL bytes deleted in one ``bytes.translate``. Memory stays a few tens of MB
+Each column of a block turns into a few planes of uint32 words, a word per cell and
+plane, whose NUL bytes are padding: numbers in a few numpy passes (digits three or
+four to a word, each plane one ``np.take`` from a table of ASCII words, in int32
+arithmetic where the digits fit), text by copying the code points of the strings that
+need no escaping and one call of the reference per *distinct* other string. The
+planes are laid side by side with the separators and the NUL bytes deleted in one
+``bytes.translate``. Memory stays a few tens of MB
 whatever the table's length, and the throughput is that of numpy, not of
 ``str.format`` (docs/performance.md, "Table writers").
 
@@ -58,6 +59,8 @@ __all__ = ["STYLES", "encode_rows"]
 STYLES = ("csv", "jsonl", "fixed_csv", "json_rows", "printf")
 
 _BLOCK_ROWS = 16_384
+# Rows laid side by side and squeezed at a time (_join), a few MB of words.
+_JOIN_ROWS = 4096
 # csv / jsonl write |x| from this magnitude on as Python's repr (the styles' rule).
 _FIXED_LIMIT = 1e15
 # |value·10^d| below 2^50: the int64 digits are exact, and for json_rows two numbers
@@ -81,16 +84,18 @@ def _words_left(texts) -> np.ndarray:
 
 # Integer digits three to a word, so that the leading group has room for the sign; entry
 # q + 1000 * state, state 0: a group after the leading one ("\0ddd"), 1: the leading
-# group ("\0\0dd"), 2: the leading group of a negative number ("\0-dd"), 3: a group
-# above the number (NUL).
+# group ("\0\0dd"), 2: the leading group of a negative number ("\0-dd").
 _INT_WORDS = np.concatenate(
     [
         _words(b"%03d" % q for q in range(1000)),
         _words(b"%d" % q for q in range(1000)),
         _words(b"-%d" % q for q in range(1000)),
-        np.zeros(1000, np.uint32),
     ]
 )
+# The same for a group above the units: there a leading group of value 0 is above the
+# number, so it is NUL (the units write "0" / "-0").
+_UPPER_WORDS = _INT_WORDS.copy()
+_UPPER_WORDS[[1000, 2000]] = 0
 # Decimals: the point and up to three digits in the first word, then four to a word.
 # _POINT_WORDS[k, trim] / _DIGIT_WORDS[k]: entry q is the word of k digits of value q, entry
 # 10^k + q the same word when every later digit is zero, its trailing zeros dropped: to
@@ -132,26 +137,28 @@ def _padded(width: int) -> int:
 
 
 class _Cells:
-    """A block of one column: row ``i`` of ``mat`` with its NUL bytes left out is its text.
+    """A block of one column: word ``j`` of row ``i`` is ``planes[j, i]``.
 
-    ``mat`` is (n, 4k) uint8, C-contiguous, so that it is also k uint32 words a row. Byte
-    0 of every row is NUL: room for a one-byte separator before the cell (:func:`_join`).
+    ``planes`` is (k, n) uint32, any strides (a number's words are contiguous planes, the
+    gathers' own output; a text's a transposed view of its byte matrix). Row ``i``'s k
+    words in memory order, their NUL bytes left out, are its text; byte 0 of the first
+    word is NUL: room for a one-byte separator before the cell (:func:`_join`).
     ``nul_texts`` holds the few cells whose text itself holds a NUL character (only a
     CSV string can), by row.
     """
 
-    __slots__ = ("mat", "nul_texts")
+    __slots__ = ("planes", "nul_texts")
 
-    def __init__(self, mat: np.ndarray):
-        self.mat = mat
+    def __init__(self, planes: np.ndarray):
+        self.planes = planes
         self.nul_texts: dict[int, bytes] = {}
 
     def _widen(self, width: int) -> None:
-        width = _padded(width)
-        if width > self.mat.shape[1]:
-            wider = np.zeros((self.mat.shape[0], width), np.uint8)
-            wider[:, : self.mat.shape[1]] = self.mat
-            self.mat = wider
+        words = -(-width // 4)
+        if words > self.planes.shape[0]:
+            wider = np.zeros((words, self.planes.shape[1]), np.uint32)
+            wider[: self.planes.shape[0]] = self.planes
+            self.planes = wider
 
     def put(self, rows: np.ndarray, texts: Sequence[str]) -> None:
         """Replace the cells of ``rows`` by ``texts`` (the fallbacks)."""
@@ -159,24 +166,32 @@ class _Cells:
             return
         block = _from_strings(texts)
         self._widen(1 + block.shape[1])
-        self.mat[rows] = 0
-        self.mat[rows, 1 : 1 + block.shape[1]] = block
+        mat = np.zeros((len(rows), 4 * self.planes.shape[0]), np.uint8)
+        mat[:, 1 : 1 + block.shape[1]] = block
+        self.planes[:, rows] = mat.view(np.uint32).T
         for i, t in zip(rows.tolist(), texts, strict=True):
             if "\0" in t:
                 self.nul_texts[i] = t.encode("utf-8")
 
-    def put_mat(self, rows: np.ndarray, mat: np.ndarray) -> None:
-        """Replace the cells of ``rows`` (indices) by the rows of another cell matrix."""
-        self._widen(mat.shape[1])
-        self.mat[rows] = 0
-        self.mat[rows, : mat.shape[1]] = mat
+    def put_planes(self, rows: np.ndarray, planes: np.ndarray) -> None:
+        """Replace the cells of ``rows`` (indices) by the words of other cells, (k, len(rows))."""
+        self._widen(4 * planes.shape[0])
+        self.planes[planes.shape[0] :, rows] = 0
+        self.planes[: planes.shape[0], rows] = planes
 
-    def put_same(self, rows: np.ndarray, text: str) -> None:
-        """Replace the cells of ``rows`` (a boolean mask) by one text (no NUL in it)."""
+    def put_same(self, mask: np.ndarray, text: str) -> None:
+        """Replace the cells where ``mask`` (boolean) holds by one text (no NUL in it)."""
+        if mask.any():
+            self.put_rows(np.flatnonzero(mask), text)
+
+    def put_rows(self, rows: np.ndarray, text: str) -> None:
+        """Replace the cells of ``rows`` (indices) by one text (no NUL in it)."""
+        if len(rows) == 0:
+            return
         raw = b"\0" + text.encode("utf-8")
         self._widen(len(raw))
-        words = self.mat.view(np.uint32)
-        words[rows] = np.frombuffer(raw.ljust(self.mat.shape[1], b"\0"), np.uint32)
+        words = np.frombuffer(raw.ljust(4 * self.planes.shape[0], b"\0"), np.uint32)
+        self.planes[:, rows] = words[:, None]
 
 
 def _from_strings(cells: Sequence[str]) -> np.ndarray:
@@ -189,51 +204,80 @@ def _from_strings(cells: Sequence[str]) -> np.ndarray:
     return mat
 
 
-def _fixed_cells(scaled: np.ndarray, neg: np.ndarray, decimals: int, trim: str) -> _Cells:
-    """``scaled`` = |value|·10^decimals (int64 ≥ 0) as fixed-point text, ``-`` where ``neg``.
+def _gather(table: np.ndarray, index: np.ndarray, out: np.ndarray) -> None:
+    # Every index is in range by construction; mode "wrap" skips numpy's bounds error
+    # path (about twice as fast as table[index] into a strided column).
+    np.take(table, index, out=out, mode="wrap")
 
-    ``trim``: ``none`` keeps every decimal; ``all`` drops trailing zeros and a bare
-    point; ``keep_one`` drops trailing zeros but keeps one decimal (``3.0``).
+
+def _fixed_cells(scaled: np.ndarray, neg: np.ndarray | None, decimals: int, trim: str) -> _Cells:
+    """``scaled`` = |value|·10^decimals as fixed-point text, ``-`` where ``neg``.
+
+    ``scaled``: integers ≥ 0 below 2^63, as an integer array or a float one holding
+    integers (below 2^53). ``neg``: boolean, or None for no sign. ``trim``: ``none``
+    keeps every decimal; ``all`` drops trailing zeros and a bare point; ``keep_one``
+    drops trailing zeros but keeps one decimal (``3.0``).
     """
     n = len(scaled)
-    unit = _POW10[decimals]
-    whole = scaled // unit
-    frac = scaled - whole * unit
+    largest = int(scaled.max(initial=0))
+    # Division of int32 is about three times that of int64: the digits in int32 when
+    # they fit, the table indices (intp) only where a gather takes them.
+    small = largest < 2**31 and decimals <= 9
+    scaled = scaled.astype(np.int32 if small else np.int64, copy=False)
+    unit = int(_POW10[decimals])
+    whole = scaled // unit if decimals else scaled
     # Byte 0 of the cell stays free: a group of three digits fills the last three bytes of
     # its word, so only a negative number needs a digit of room for its sign ("-dd").
-    longest = len(str(int(whole.max(initial=0))))
-    if longest % 3 == 0 and neg.any():  # else the sign fits in the leading word anyway
-        longest = max(longest, len(str(int(np.max(whole, where=neg, initial=0)))) + 1)
+    longest = len(str(largest // unit))
+    if longest % 3 == 0 and neg is not None and neg.any():  # else the sign fits anyway
+        longest += bool(np.any(neg & (whole >= 10 ** (longest - 1))))
     groups = -(-longest // 3)
     # The decimals split into words: the first three with the point, then four at a time.
     cuts = [0, min(3, decimals), *range(7, decimals, 4)] + ([decimals] if decimals > 3 else [])
     spans = list(zip(cuts[:-1], cuts[1:], strict=True)) if decimals else []
-    words = np.empty((n, groups + len(spans)), np.uint32)
-    sign = neg.astype(np.int64)
+    planes = np.empty((groups + len(spans), n), np.uint32)
+    # The leading word's table offset: 1000 ("dd"), 2000 for a negative number ("-dd").
+    if neg is None:
+        lead = 1000
+    else:
+        lead = neg.astype(np.intp)
+        lead *= 1000
+        lead += 1000
     rest = whole
     for g in range(groups - 1, -1, -1):
+        table = _INT_WORDS if g == groups - 1 else _UPPER_WORDS
+        if g == 0:  # the number's leading group, whatever its value
+            _gather(table, lead + rest, planes[g])
+            break
         above = rest // 1000
         q = rest - above * 1000
-        top = above == 0
-        # Leading group: state 1 + sign; a group above the number (never the units): 3.
-        state = top * (1 + sign)
-        if g < groups - 1:
-            state += (top & (q == 0)) * (2 - sign)
-        words[:, g] = _INT_WORDS[q + 1000 * state]
+        q = q + (above == 0) * lead
+        _gather(table, q, planes[g])
         rest = above
-    # Trailing zeros are dropped word by word from the last, while every later one is zero.
-    zeros_after = np.ones(n, np.int64) if trim != "none" else np.zeros(n, np.int64)
-    rest = frac
-    for j in range(len(spans) - 1, -1, -1):
-        size = spans[j][1] - spans[j][0]
-        above = rest // _POW10[size]
-        q = rest - above * _POW10[size]
-        table = _POINT_WORDS[size, trim] if j == 0 else _DIGIT_WORDS[size]
-        words[:, groups + j] = table[q + _POW10[size] * zeros_after]
-        if trim != "none":
-            zeros_after &= q == 0
-        rest = above
-    return _Cells(words.view(np.uint8))
+    if spans:
+        frac = scaled - whole * unit
+        # Trailing zeros are dropped word by word from the last, while every later one is zero.
+        zeros_after = None
+        rest = frac
+        for j in range(len(spans) - 1, -1, -1):
+            size = spans[j][1] - spans[j][0]
+            table = _POINT_WORDS[size, trim] if j == 0 else _DIGIT_WORDS[size]
+            if j:
+                above = rest // int(_POW10[size])
+                q = rest - above * int(_POW10[size])
+            else:
+                above, q = None, rest
+            if trim == "none":
+                index = q
+            elif zeros_after is None:
+                index = q + int(_POW10[size])
+                zeros_after = q == 0
+            else:
+                index = q + zeros_after * int(_POW10[size])
+                zeros_after &= q == 0
+            _gather(table, index, planes[groups + j])
+            rest = above
+    return _Cells(planes)
 
 
 def _csv_text(text: str) -> str:
@@ -251,6 +295,15 @@ def _csv_module_text(text: str) -> str:
 
 def _json_text(text: str) -> str:
     return json.dumps(text, ensure_ascii=False)
+
+
+def _rows_with(flags: np.ndarray) -> np.ndarray:
+    """Per row of a boolean (n, 8k) matrix: does it hold a True? (k 1-D passes, as uint64)."""
+    seen = np.zeros(flags.shape[0], np.uint64)
+    if flags.any():
+        for column in flags.view(np.uint64).T:
+            seen |= column
+    return seen != 0
 
 
 def _text_cells(values: np.ndarray, style: str) -> _Cells:
@@ -273,38 +326,41 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
     }[style]
     width = arr.dtype.itemsize // 4
     if width == 0:
-        cells = _Cells(np.zeros((n, 4), np.uint8))
+        cells = _Cells(np.zeros((1, n), np.uint32))
         cells.put_same(np.ones(n, bool), null)
         return cells
     codes = np.ascontiguousarray(arr).view(np.uint32).reshape(n, width)
     # Room for the quotes, and rows of whole 8-byte words, so that a row's flags OR in a
-    # few 1-D passes (a reduction along a short axis is slow in numpy).
+    # few 1-D passes (a reduction along a short axis is slow in numpy). The code points
+    # are narrowed to bytes first (a contiguous cast) and copied as one item per row.
     mat = np.zeros((n, -(-(width + 3) // 8) * 8), np.uint8)
-    mat[:, 2 : 2 + width] = codes
-    needs_quote = (mat == ord('"')) | ((mat - 1) < 0x1F)  # a quote or a control character
+    mat[:, 2 : 2 + width].view(f"V{width}")[...] = codes.astype(np.uint8).view(f"V{width}")
+    # A quote or a control character (the NUL padding is neither), or a JSON backslash.
+    special = mat < 0x20
+    special &= mat != 0
+    special |= mat == _QUOTE
     if json_like:
-        needs_quote |= mat == ord("\\")
-    flags = needs_quote.view(np.uint8) << 1
-    if not json_like:
-        flags |= (mat == ord(",")).view(np.uint8)
-    seen = np.zeros(n, np.uint64)
-    if flags.any():
-        for column in flags.view(np.uint64).T:
-            seen |= column
-    comma = (seen & np.uint64(0x0101010101010101)) != 0
-    other = (seen & np.uint64(0x0202020202020202)) != 0
+        special |= mat == ord("\\")
+    other = _rows_with(special)
+    comma = np.zeros(n, bool) if json_like else _rows_with(mat == ord(","))
     if codes.max(initial=0) >= 0x7F:
         other |= (codes >= 0x7F).any(axis=1)  # past printable ASCII: to the reference
-    length = np.char.str_len(arr)
-    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the reference.
-    if np.count_nonzero(codes) != length.sum():
+    # numpy pads a string with NUL past its end; one with a NUL of its own goes to the
+    # reference. Each non-empty row turns from NUL to text once (at its first character,
+    # its byte 2) unless a NUL is inside it or leads it: count those turns.
+    first = mat[:, 2] != 0
+    text = mat.reshape(-1) != 0
+    turns = np.count_nonzero(text[1:] & ~text[:-1])
+    if turns != np.count_nonzero(first):
+        length = np.char.str_len(arr)
         other |= np.count_nonzero(codes, axis=1) != length
+        first = length != 0
     # Quotes around every JSON string, and around CSV text whose only special is a comma
     # (what csv.writer does to a field holding the delimiter and no quote or line break).
     mat[:, 1] = _QUOTE if json_like else np.where(comma, _QUOTE, 0)
     mat[:, -1] = mat[:, 1]
-    cells = _Cells(mat)
-    cells.put_same(~other & (length == 0), null)
+    cells = _Cells(mat.view(np.uint32).T)
+    cells.put_same(~other & ~first, null)
     rows = np.flatnonzero(other)
     if len(rows):
         uniq, inverse = np.unique(arr[rows], return_inverse=True)
@@ -315,30 +371,67 @@ def _text_cells(values: np.ndarray, style: str) -> _Cells:
 
 def _bool_cells(values: np.ndarray) -> _Cells:
     flags = np.asarray(values).astype(bool)
-    words = np.frombuffer(b"\0false\0\0\0true\0\0\0", np.uint8).reshape(2, 8)
-    return _Cells(words[flags.astype(np.intp)])
+    words = np.frombuffer(b"\0false\0\0\0true\0\0\0", np.uint32).reshape(2, 2)
+    return _Cells(words[flags.astype(np.intp)].T)
 
 
 def _compact_number_cells(values: np.ndarray, kind: str, decimals: int, style: str) -> _Cells:
     """csv / jsonl numbers: |x|·10^d rounded, trailing zeros dropped, big values as repr."""
     null = "null" if style == "jsonl" else ""
-    x = np.asarray(values, float if kind == "float" else np.int64)
-    d = decimals if kind == "float" else 0
-    absent = ~np.isfinite(x) if kind == "float" else x < 0
-    big = ~absent & (np.abs(x) >= _FIXED_LIMIT)
-    ok = ~(absent | big)
-    y = np.abs(np.where(ok, x, 0.0)) * 10.0**d
-    # |x| < 1e15 but |x|·10^d past int64 exactness: the digits the rounding intends, in Python.
-    huge = y >= _EXACT_LIMIT
-    scaled = np.rint(np.where(huge, 0.0, y)).astype(np.int64)
-    neg = (x < 0) & (scaled != 0)
-    cells = _fixed_cells(scaled, neg, d, "all")
-    cells.put_same(absent, null)
-    rows = np.flatnonzero(big)
-    cells.put(rows, [repr(float(v)) for v in x[rows].tolist()])
-    rows = np.flatnonzero(huge)
-    cells.put(rows, [_trimmed(v, d) for v in x[rows].tolist()])
+    if kind != "float":
+        x = np.asarray(values, np.int64)
+        rows = np.flatnonzero((x < 0) | (x >= _FIXED_LIMIT))
+        cells = _fixed_cells(_zeroed(x, rows), None, 0, "all")
+        sub = x[rows]
+        cells.put_rows(rows[sub < 0], null)
+        cells.put(rows[sub >= 0], [repr(float(v)) for v in sub[sub >= 0].tolist()])
+        return cells
+    x = np.asarray(values, float)
+    d = decimals
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(x) * 10.0**d
+        # The fast cells: |x| < 1e15 (else repr) and |x|·10^d within exact int64 digits
+        # (else Python writes the digits the rounding intends); NaN and ±inf fail both.
+        rows = np.flatnonzero(~(y < min(_EXACT_LIMIT, _FIXED_LIMIT * 10.0**d)))
+    scaled = np.rint(y)
+    scaled[rows] = 0.0
+    # (x < 0) & (scaled != 0): "-0" never.
+    cells = _fixed_cells(scaled, np.copysign(scaled, x) < 0, d, "all")
+    sub = x[rows]
+    absent = ~np.isfinite(sub)
+    big = ~absent & (np.abs(sub) >= _FIXED_LIMIT)
+    cells.put_rows(rows[absent], null)
+    cells.put(rows[big], [repr(float(v)) for v in sub[big].tolist()])
+    huge = ~(absent | big)
+    cells.put(rows[huge], [_trimmed(v, d) for v in sub[huge].tolist()])
     return cells
+
+
+def _zeroed(x: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``x`` with the entries of ``rows`` set to 0 (a copy if there are any)."""
+    if len(rows):
+        x = x.copy()
+        x[rows] = 0
+    return x
+
+
+def _rounded_scaled(x: np.ndarray, decimals: int) -> tuple[np.ndarray, np.ndarray]:
+    """|x|·10^decimals rounded as Python rounds the exact binary value, and the other rows.
+
+    Returns ``(scaled, rows)``: ``scaled`` (float, exact integers, 0 at ``rows``) and the
+    indices of the cells the float product cannot decide: NaN, ±inf, |x|·10^d ≥ 2^50,
+    and a product within 1e-15 of a decimal tie (it carries one rounding error, at most
+    1.2e-16 relative, so the exact value lies between the two products tried; where
+    they round alike, so does it: 0.0005 at 3 decimals is a tie Python rounds to
+    ``0.001``, the float product to ``0.000``).
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        y = np.abs(x) * 10.0**decimals
+        low = np.rint(y * (1.0 - 1e-15))
+        high = np.rint(y * (1.0 + 1e-15))
+        rows = np.flatnonzero(~((low == high) & (high < _EXACT_LIMIT)))
+    low[rows] = 0.0
+    return low, rows
 
 
 def _trimmed(value: float, decimals: int) -> str:
@@ -358,26 +451,19 @@ def _csv_float(value: float, decimals: int) -> str:
 def _fixed_csv_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     """write_csv numbers: ints as str(), floats as f"{x:.{d}f}" (never -0), absent empty."""
     if kind == "int":
-        x = np.asarray(values).astype(np.int64)
-        absent = x < 0
-        cells = _fixed_cells(np.where(absent, 0, x), np.zeros(len(x), bool), 0, "none")
-        cells.put_same(absent, "")
+        x = np.asarray(values).astype(np.int64, copy=False)
+        rows = np.flatnonzero(x < 0)
+        cells = _fixed_cells(_zeroed(x, rows), None, 0, "none")
+        cells.put_rows(rows, "")
         return cells
-    x = np.asarray(values).astype(float)
-    absent = ~np.isfinite(x)
-    with np.errstate(over="ignore", invalid="ignore"):
-        # A finite x past 1e305 overflows here; such cells take the slow path below.
-        y = np.abs(np.where(absent, 0.0, x)) * 10.0**decimals
-    rounded = np.rint(y)
-    # Python rounds the exact binary value; the product y carries one rounding error, so a
-    # cell within a few ulps of a tie (0.0005 at 3 decimals) is left to Python.
-    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15  # ≥ 4 ulp of y
-    slow = ~absent & ((y >= _EXACT_LIMIT) | near_tie)
-    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
-    cells = _fixed_cells(scaled, (x < 0) & (scaled != 0), decimals, "none")
-    cells.put_same(absent, "")
-    rows = np.flatnonzero(slow)
-    cells.put(rows, [_csv_float(v, decimals) for v in x[rows].tolist()])
+    x = np.asarray(values).astype(float, copy=False)
+    scaled, rows = _rounded_scaled(x, decimals)
+    # (x < 0) & (scaled != 0): "-0.000" reads as a sign that is not there.
+    cells = _fixed_cells(scaled, np.copysign(scaled, x) < 0, decimals, "none")
+    sub = x[rows]
+    finite = np.isfinite(sub)
+    cells.put_rows(rows[~finite], "")
+    cells.put(rows[finite], [_csv_float(v, decimals) for v in sub[finite].tolist()])
     return cells
 
 
@@ -413,41 +499,32 @@ def _json_number_cells(values: np.ndarray, kind: str, decimals: int) -> _Cells:
     return cells
 
 
-def _put_non_finite(cells: _Cells, x: np.ndarray) -> None:
-    """``nan``, ``inf`` and ``-inf``, as Python's ``%`` writes them (the sign of a NaN is not)."""
-    if np.isfinite(x).all():
-        return
-    for mask, text in ((np.isnan(x), "nan"), (x == np.inf, "inf"), (x == -np.inf, "-inf")):
-        if mask.any():
-            cells.put_same(mask, text)
+def _put_non_finite(cells: _Cells, x: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """``nan``, ``inf`` and ``-inf`` among ``rows``, as Python's ``%`` writes them (the sign
+    of a NaN is not); returns the finite rows among them."""
+    sub = x[rows]
+    for mask, text in ((np.isnan(sub), "nan"), (sub == np.inf, "inf"), (sub == -np.inf, "-inf")):
+        cells.put_rows(rows[mask], text)
+    return rows[np.isfinite(sub)]
 
 
 def _printf_int_cells(values: np.ndarray) -> _Cells:
     """``%d``: the integer with its sign (a float is cut toward zero, as ``%d`` does)."""
-    x = np.asarray(values).astype(np.int64)
+    x = np.asarray(values).astype(np.int64, copy=False)
     # -2^63 has no int64 magnitude: Python writes it.
-    slow = x == np.iinfo(np.int64).min
-    cells = _fixed_cells(np.abs(np.where(slow, 0, x)), x < 0, 0, "none")
-    rows = np.flatnonzero(slow)
+    rows = np.flatnonzero(x == np.iinfo(np.int64).min)
+    cells = _fixed_cells(np.abs(_zeroed(x, rows)), x < 0, 0, "none")
     cells.put(rows, ["%d" % v for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
 
 def _printf_fixed_cells(values: np.ndarray, decimals: int) -> _Cells:
     """``%.{decimals}f``: correctly rounded, the sign of a negative zero kept (``-0.000``)."""
-    x = np.asarray(values).astype(float)
-    finite = np.isfinite(x)
-    with np.errstate(over="ignore", invalid="ignore"):
-        y = np.abs(np.where(finite, x, 0.0)) * 10.0**decimals
-    rounded = np.rint(y)
-    # As in fixed_csv: a cell within a few ulps of a decimal tie, or past exact int64
-    # digits, is left to Python, which rounds the exact binary value.
-    near_tie = np.abs(np.abs(y - rounded) - 0.5) <= y * 1e-15
-    slow = finite & ((y >= _EXACT_LIMIT) | near_tie)
-    scaled = np.where(slow, 0.0, rounded).astype(np.int64)
-    cells = _fixed_cells(scaled, finite & np.signbit(x), decimals, "none")
-    _put_non_finite(cells, x)
-    rows = np.flatnonzero(slow)
+    x = np.asarray(values).astype(float, copy=False)
+    scaled, rows = _rounded_scaled(x, decimals)
+    # The sign bit of a non-finite cell does not matter: put_rows replaces the cell.
+    cells = _fixed_cells(scaled, np.signbit(x), decimals, "none")
+    rows = _put_non_finite(cells, x, rows)
     cells.put(rows, ["%.*f" % (decimals, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
@@ -455,6 +532,12 @@ def _printf_fixed_cells(values: np.ndarray, decimals: int) -> _Cells:
 # The exponent of %g as one word, "e+dd" / "e-dd", for the exponents of the fast path.
 _EXPONENT_MIN = -23
 _EXPONENT_WORDS = _words_left(b"e%+03d" % e for e in range(_EXPONENT_MIN, 24 + 23))
+
+
+# Nearest float64 of each power of ten from 10^-330 to 10^310 (the decimal exponent
+# guess of %g compares |x| with them; a wrong guess is caught afterwards).
+_POW10_MIN = -330
+_POW10_NEAR = np.array([float(f"1e{k}") for k in range(_POW10_MIN, 311)])
 
 
 def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
@@ -467,58 +550,70 @@ def _printf_general_cells(values: np.ndarray, digits: int) -> _Cells:
     exact power of ten, so one rounding error; a cell near a tie or with a wrong guess
     e0 of the exponent (near a power of ten) is left to Python.
     """
-    x = np.asarray(values).astype(float)
-    n = len(x)
+    x = np.asarray(values).astype(float, copy=False)
     digits = max(digits, 1)  # %.0g writes one digit, as %.1g
-    finite = np.isfinite(x)
-    nonzero = finite & (x != 0)
-    a = np.abs(np.where(nonzero, x, 1.0))
-    e0 = np.floor(np.log10(a)).astype(np.int64)
+    a = np.abs(x)
+    # The decimal exponent from the binary one: a = f·2^b with f in [0.5, 1), so
+    # log10(a) is in [(b - 1)·log10(2), b·log10(2)): e0 = floor((b - 1)·log10(2)), as
+    # (b - 1)·78913 >> 18 (exact for |b| < 1650), plus one where a reaches the next
+    # power of ten.
+    _, b = np.frexp(a)
+    b -= 1
+    b *= 78913
+    b >>= 18
+    e0 = b
+    e0 += a >= np.take(_POW10_NEAR, e0 + (1 - _POW10_MIN), mode="clip")
     k = (digits - 1) - e0
     # Mostly k ≥ 0 (|x| < 10^(digits-1)): a product; the rest a division, never by an
-    # inexact power (|k| > 22 goes to Python).
-    y = a * _POW10_FLOAT[np.clip(k, 0, 22)]
-    down = k < 0
-    if down.any():
-        y[down] = a[down] / _POW10_FLOAT[np.minimum(-k[down], 22)]
-    m = np.rint(y)
+    # inexact power (past |k| = 22 the power is clipped, so y falls out of range below).
+    y = a * np.take(_POW10_FLOAT, k, mode="clip")
+    down = np.flatnonzero(k < 0)
+    if len(down):
+        y[down] = a[down] / np.take(_POW10_FLOAT, -k[down], mode="clip")
     low, high = float(10 ** (digits - 1)), float(10**digits)
-    gap = np.abs(y - m)
-    gap -= 0.5
-    slow = np.abs(gap) <= y * 1e-15  # near a tie
-    slow |= (y < low) | (y >= high) | (np.abs(k) > 22)
-    slow &= nonzero
+    with np.errstate(invalid="ignore", over="ignore"):
+        # As in _rounded_scaled: the exact product lies between these two, so where they
+        # round alike it rounds the same; NaN and ±inf fail the range.
+        m = np.rint(y * (1.0 - 1e-15))
+        fast = m == np.rint(y * (1.0 + 1e-15))
+        fast &= y >= low
+        fast &= y < high
+    fast |= a == 0.0
     if high > _EXACT_LIMIT:
-        slow = nonzero
+        fast = a == 0.0
+    others = np.flatnonzero(~fast)
     carry = m == high  # 9999999.6 -> 1000000, one exponent up
-    e = e0 + carry
-    m[carry] = low
-    m[~nonzero | slow] = 0.0
-    m = m.astype(np.int64)
-    neg = np.signbit(x) & finite
-    fixed = nonzero & ~slow & (e >= -4) & (e < digits)
-    exponent = nonzero & ~slow & ~fixed
-    # The fixed form has digits - 1 - e decimals. Written with the block's most decimals
-    # (top), m·10^(top - d), in one pass: the zeros this appends are dropped with the
-    # other trailing zeros. Zero, and every cell replaced below, is m = 0: "0" or "-0".
-    d = digits - 1 - e
-    top = int(d[fixed].max(initial=0))
+    if carry.any():
+        m[carry] = low
+        e0 += carry
+    e = e0
+    # Zero, and every cell replaced below, is m = 0 in the fixed form: "0" or "-0".
+    zero_or_other = np.flatnonzero(~fast | (a == 0.0))
+    m[zero_or_other] = 0.0
+    e[zero_or_other] = digits - 1
+    neg = np.signbit(x)
+    # The fixed form has d = digits - 1 - e decimals, for 0 ≤ d ≤ digits + 3. Written with
+    # the block's most decimals (top), m·10^(top - d), in one pass: the zeros this appends
+    # are dropped with the other trailing zeros.
+    d = (digits - 1) - e
+    fixed = (d >= 0) & (d <= digits + 3)
+    exponent = np.flatnonzero(~fixed)
+    top = int(np.max(d, where=fixed, initial=0)) if len(exponent) else int(d.max(initial=0))
     if digits + top <= 18:  # m·10^(top - d) < 10^(digits + top) fits int64
-        shift = _POW10[np.clip(top - d, 0, 18)]
-        cells = _fixed_cells(np.where(fixed, m * shift, 0), neg, top, "all")
+        scaled = m.astype(np.int64) * np.take(_POW10, top - d, mode="clip")
+        scaled[exponent] = 0
+        cells = _fixed_cells(scaled, neg, top, "all")
     else:  # one pass per number of decimals
-        cells = _fixed_cells(np.zeros(n, np.int64), neg, 0, "none")
+        cells = _fixed_cells(np.zeros(len(x)), neg, 0, "none")
         for k in np.unique(d[fixed]).tolist():
             rows = np.flatnonzero(fixed & (d == k))
-            cells.put_mat(rows, _fixed_cells(m[rows], neg[rows], k, "all").mat)
-    if exponent.any():
-        rows = np.flatnonzero(exponent)
-        mantissa = _fixed_cells(m[rows], neg[rows], digits - 1, "all").mat
-        words = _EXPONENT_WORDS[e[rows] - _EXPONENT_MIN].view(np.uint8).reshape(-1, 4)
-        cells.put_mat(rows, np.concatenate([mantissa, words], axis=1))
-    _put_non_finite(cells, x)
-    rows = np.flatnonzero(slow)
-    cells.put(rows, ["%.*g" % (digits, v) for v in x[rows].tolist()])  # noqa: UP031 (% is the rule)
+            cells.put_planes(rows, _fixed_cells(m[rows], neg[rows], k, "all").planes)
+    if len(exponent):
+        mantissa = _fixed_cells(m[exponent], neg[exponent], digits - 1, "all").planes
+        words = _EXPONENT_WORDS[e[exponent] - _EXPONENT_MIN]
+        cells.put_planes(exponent, np.concatenate([mantissa, words[None]]))
+    others = _put_non_finite(cells, x, others)
+    cells.put(others, ["%.*g" % (digits, v) for v in x[others].tolist()])  # noqa: UP031 (% is the rule)
     return cells
 
 
@@ -562,8 +657,11 @@ def _literal_words(raw: bytes) -> np.ndarray:
     return np.frombuffer(raw.ljust(_padded(len(raw)), b"\0"), np.uint32)
 
 
-def _join(pieces: list, n: int) -> bytes:
-    """Lay literals and cells side by side as words and drop the NUL padding: the rows."""
+def _join(pieces: list, n: int) -> list[bytes]:
+    """Lay literals and cells side by side as words and drop the NUL padding: the rows.
+
+    Returns the rows as consecutive pieces of at most :data:`_JOIN_ROWS` rows each.
+    """
     # A one-byte literal (",", "[") goes into the free byte 0 of the cell after it.
     plan: list[tuple[object, bytes]] = []
     k = 0
@@ -580,25 +678,37 @@ def _join(pieces: list, n: int) -> bytes:
                 plan.append((raw, b""))
         k += 1
     parts = [
-        (item.mat.view(np.uint32) if isinstance(item, _Cells) else _literal_words(item), prefix)
+        (item.planes if isinstance(item, _Cells) else _literal_words(item), prefix)
         for item, prefix in plan
     ]
-    matrix = np.empty((n, sum(words.shape[-1] for words, _ in parts)), np.uint32)
-    at = 0
-    # One word column at a time: a 1-D strided copy is several times faster than a 2-D
-    # one a few words wide.
-    for words, prefix in parts:
-        for j in range(words.shape[-1]):
-            if j == 0 and prefix:
-                byte0 = np.frombuffer(prefix + b"\0\0\0", np.uint32)[0]
-                np.bitwise_or(words[:, 0], byte0, out=matrix[:, at])
-            else:
-                matrix[:, at] = words[..., j]
-            at += 1
     overrides = [item.nul_texts for item, _ in plan if isinstance(item, _Cells) and item.nul_texts]
+    # A few thousand rows at a time: the words, their bytes and the text stay a few MB,
+    # buffers the allocator keeps (past about 8 MB they went back to the system and were
+    # faulted in again, block after block: a third of the time of a wide table).
+    step = n if overrides else _JOIN_ROWS
+    buffer = np.empty((min(n, step), sum(words.shape[0] for words, _ in parts)), np.uint32)
+    out = []
+    for start in range(0, n, step):
+        stop = min(start + step, n)
+        matrix = buffer[: stop - start]
+        at = 0
+        # One word column at a time: a 1-D strided copy is several times faster than a
+        # 2-D one a few words wide.
+        for words, prefix in parts:
+            for j in range(words.shape[0]):
+                column = words[j, start:stop] if words.ndim == 2 else words[j]
+                if j == 0 and prefix:
+                    byte0 = np.frombuffer(prefix + b"\0\0\0", np.uint32)[0]
+                    np.bitwise_or(column, byte0, out=matrix[:, at])
+                else:
+                    matrix[:, at] = column
+                at += 1
+        if not overrides:
+            out.append(matrix.tobytes().translate(None, b"\0"))
     if not overrides:
-        return matrix.tobytes().translate(None, b"\0")
+        return out
     # A text with a NUL of its own (a CSV cell only): the rows that hold one, cell by cell.
+    matrix = buffer
     rows = []
     for i, line in enumerate(matrix.view(np.uint8)):
         if not any(i in o for o in overrides):
@@ -606,12 +716,12 @@ def _join(pieces: list, n: int) -> bytes:
             continue
         at, cells = 0, []
         for (item, prefix), (words, _) in zip(plan, parts, strict=True):
-            cell = line[4 * at : 4 * (at + words.shape[-1])].tobytes()
-            at += words.shape[-1]
+            cell = line[4 * at : 4 * (at + words.shape[0])].tobytes()
+            at += words.shape[0]
             own = item.nul_texts.get(i) if isinstance(item, _Cells) else None
             cells.append(prefix + own if own is not None else cell.translate(None, b"\0"))
         rows.append(b"".join(cells))
-    return b"".join(rows)
+    return [b"".join(rows)]
 
 
 def encode_rows(
@@ -697,7 +807,7 @@ def encode_rows(
             cells = _column_cells(arr[start:stop], c.kind, c.decimals, style)
             if style == "fixed_csv" and len(columns) == 1:
                 # csv.writer writes a row of one empty field as "" (else it would be a blank line).
-                cells.put_same(~cells.mat.any(axis=1), '""')
+                cells.put_same(~cells.planes.any(axis=0), '""')
             pieces += [cells, after]
-        rows = _join(pieces, stop - start)
-        yield rows.replace(b"\1", b"\0") if nul else rows
+        for rows in _join(pieces, stop - start):
+            yield rows.replace(b"\1", b"\0") if nul else rows
