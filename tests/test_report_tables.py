@@ -233,3 +233,70 @@ def test_ambiguous_rows_give_a_dip_range_not_a_dip(demo_run):
         angle = np.degrees(np.arccos(min(1.0, abs(m @ n) / np.linalg.norm(m) / np.linalg.norm(n))))
         sigma = np.hypot(float(r["measured_dip_sigma_deg"]), c["tolerance_deg"] / 2.0)
         assert angle <= 3.0 * sigma + 1e-3
+
+
+def _awkward_floats(n=20000, seed=5):
+    g = np.random.default_rng(seed)
+    x = np.concatenate(
+        [
+            g.uniform(-400, 400, n),
+            np.round(g.uniform(-90, 90, n), 4) + 0.00005,  # ties at the fifth decimal
+            g.uniform(0, 1, n) ** 12,  # many decades, down to 1e-24
+            [0.0, -0.0, 1e-320, 5e-324, 2.0**50, 2.0**53 + 2, 1e13, -9.9999e13],
+            [np.nan, np.inf, -np.inf, np.nan],
+        ]
+    )
+    return g.permutation(x)
+
+
+@pytest.mark.parametrize("decimals", [0, 3, 4, 6])
+def test_json_number_array_is_pythons_rounding(decimals):
+    from inclination.report.tables import json_number_array
+
+    x = _awkward_floats()
+    got = json.loads(json_number_array(x, decimals))
+    # Reference: numpy.round (half to even on x·10^d, numpy's documented rounding), and
+    # within half a unit of the last decimal of Python's correctly rounded f-string.
+    rounded = np.round(x, decimals)
+    want = [float(r) if np.isfinite(v) else None for v, r in zip(x, rounded, strict=True)]
+    assert got == want
+    python = np.array([float(f"{v:.{decimals}f}") for v in x[np.isfinite(x)]])
+    ours = np.array([v for v in got if v is not None])
+    assert np.max(np.abs(ours - python)) <= 1.0000001 * 10.0**-decimals
+    assert "-0," not in json_number_array(np.array([-0.0, -1e-9, 1.0]), decimals)
+
+
+@pytest.mark.parametrize("digits", [1, 6, 12])
+def test_json_number_array_significant_is_pythons_g(digits):
+    from inclination.report.tables import json_number_array
+
+    for x in (_awkward_floats(), np.array([1e300, np.nan, -1e200]), np.array([np.inf])):
+        got = json.loads(json_number_array(x, digits, significant=True))
+        # Reference: Python's "g" format with that precision (as "%.*g"), read back.
+        want = [float(f"{v:.{digits}g}") if np.isfinite(v) else None for v in x]
+        assert got == want
+
+
+def test_sections_json_rounds_by_unit_and_keeps_ids():
+    from inclination.report.atomic import dumps_json
+    from inclination.report.outputs import section_table_json
+
+    table = {
+        "segment_id": np.array([7, -1, 3]),
+        "along_um": np.array([1.23456789, np.nan, 2.0]),
+        "beta_deg": np.array([52.000049, 0.5, np.inf]),
+        "normal_x": np.array([0.123456789, -0.0, 1.0]),
+        "reversal_probability": np.array([3.2e-31, np.nan, 0.25]),
+        "status": np.array(["measured", "unmatched", "measured"]),
+        "dip_source": np.array(["serial-section", "", "serial-section"], dtype=object),
+    }
+    back = json.loads(dumps_json(section_table_json(table)))
+    assert back == {
+        "segment_id": [7, -1, 3],
+        "along_um": [1.23457, None, 2],
+        "beta_deg": [52.0, 0.5, None],
+        "normal_x": [0.123457, 0, 1],
+        "reversal_probability": [3.2e-31, None, 0.25],
+        "status": ["measured", "unmatched", "measured"],
+        "dip_source": ["serial-section", "", "serial-section"],
+    }

@@ -13,6 +13,7 @@ import os
 import shutil
 import tempfile
 from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -20,6 +21,8 @@ import numpy as np
 from ..errors import InputError
 
 __all__ = [
+    "RawJSON",
+    "dumps_json",
     "json_ready",
     "staged_output_dir",
     "write_bytes_atomic",
@@ -88,8 +91,8 @@ def json_ready(value: object) -> object:
     if isinstance(value, list | tuple):
         return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
-        # Numbers in bulk: a table column of 10⁵ values is not walked value by value.
-        if value.dtype.kind in "biu":
+        # Numbers and text in bulk: a table column of 10⁵ values is not walked value by value.
+        if value.dtype.kind in "biuU":
             return value.tolist()
         if value.dtype.kind == "f":
             bad = ~np.isfinite(value)
@@ -104,6 +107,23 @@ def json_ready(value: object) -> object:
     if isinstance(value, float) and not np.isfinite(value):
         return None
     return value
+
+
+@dataclass(frozen=True)
+class RawJSON:
+    """JSON text already encoded, written as it is by :func:`write_json_atomic`.
+
+    For a column encoded in bulk (:func:`inclination.report.tables.json_number_array`).
+
+    Examples
+    --------
+    >>> print(dumps_json({"a": RawJSON("[1.5, null]")}))
+    {
+      "a": [1.5, null]
+    }
+    """
+
+    text: str
 
 
 #: Longest string of a list written on one line: a column of codes is, a list of notes is not.
@@ -121,8 +141,20 @@ def _is_column(value: list) -> bool:
 
 def _pieces(value, depth: int) -> Iterator[str]:
     """``json.dumps(indent=2)`` of ``value`` in pieces, a column on one line."""
+    if isinstance(value, RawJSON):
+        yield value.text
+        return
     ready = isinstance(value, np.ndarray)
     if ready:
+        if value.ndim == 1 and value.dtype.kind in "biufU":
+            # A column of numbers or of text: one line, and no test value by value.
+            yield json.dumps(json_ready(value), allow_nan=False)
+            return
+        if value.ndim == 1 and value.dtype.kind == "O":
+            items = value.tolist()
+            if all(type(v) is str for v in items):  # text held as objects: a column too
+                yield json.dumps(items)
+                return
         value = json_ready(value)  # numbers in bulk, before the column test below
     if isinstance(value, dict) and value:
         inner = "\n" + "  " * (depth + 1)

@@ -14,10 +14,10 @@ import numpy as np
 
 from ..compare.comparison import TRUSTED_IDENTIFICATIONS
 from ..run_tables import aligned_columns
-from .atomic import write_json_atomic, write_text_atomic
+from .atomic import RawJSON, write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
-from .tables import write_csv, write_table_json
+from .tables import json_number_array, write_csv, write_table_json
 
 __all__ = ["write_all", "grains_table", "segments_table", "boundaries_table"]
 
@@ -476,6 +476,53 @@ def _relocated(value, staging: str, final: str):
     return value
 
 
+#: Decimals of the float columns of ``sections.json`` by the ending of their names: 1e-4°,
+#: 10 pm and 1e-6 for a unit normal's components lie far below what any section measures.
+SECTION_DECIMALS = (("_deg", 4), ("_um", 5))
+NORMAL_DECIMALS = 6
+#: Significant digits of a probability (it may be 1e-30: decimals would make it 0).
+PROBABILITY_DIGITS = 6
+
+
+def section_table_json(table) -> dict:
+    """A section's table for ``sections.json``: float columns rounded and encoded in bulk.
+
+    Columns in degrees get 4 decimals, in µm 5, the normal's components 6, probabilities
+    6 significant digits (``%.6g``); any other float column keeps every digit of Python's
+    ``repr``; integers and text as they are (-1 for no segment, as the table has it).
+    NaN is ``null``. Encoded in bulk (:func:`~inclination.report.tables.json_number_array`).
+
+    Examples
+    --------
+    >>> from inclination.report.atomic import dumps_json
+    >>> t = {"segment_id": np.array([4, -1]), "beta_deg": np.array([52.123456, np.nan]),
+    ...      "normal_z": np.array([0.5, 1.0]), "reversal_probability": np.array([1e-30, 1 / 3])}
+    >>> print(dumps_json(section_table_json(t)))
+    {
+      "segment_id": [4, -1],
+      "beta_deg": [52.1235, null],
+      "normal_z": [0.5, 1],
+      "reversal_probability": [1e-30, 0.333333]
+    }
+    """
+    out = {}
+    for name, values in table.items():
+        values = np.asarray(values)
+        decimals = NORMAL_DECIMALS if name.startswith("normal_") else None
+        for ending, d in SECTION_DECIMALS:
+            if name.endswith(ending):
+                decimals = d
+        if values.dtype.kind != "f" or values.ndim != 1:
+            out[name] = values
+        elif "probability" in name:
+            out[name] = RawJSON(json_number_array(values, PROBABILITY_DIGITS, significant=True))
+        elif decimals is not None:
+            out[name] = RawJSON(json_number_array(values, decimals))
+        else:
+            out[name] = values
+    return out
+
+
 def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, progress=None):
     """Write every file of ``analysis`` into ``out_dir``; returns (paths, summary).
 
@@ -552,7 +599,7 @@ def write_all(analysis, out_dir: Path, *, summary_base: dict, relocate=None, pro
                     "sections": [
                         {
                             "note": note,
-                            "table": {k: np.asarray(v) for k, v in table.items()},
+                            "table": section_table_json(table),
                         }
                         for note, table in zip(
                             analysis.section_notes, analysis.section_tables, strict=True
