@@ -300,3 +300,19 @@ def test_sections_json_rounds_by_unit_and_keeps_ids():
         "status": ["measured", "unmatched", "measured"],
         "dip_source": ["serial-section", "", "serial-section"],
     }
+
+
+def test_json_int_array_is_json_dumps():
+    from inclination.report.tables import json_int_array
+
+    g = np.random.default_rng(2)
+    cases = [
+        g.integers(-(2**63), 2**63 - 1, 5000, dtype=np.int64),
+        np.array([-1, 0, 1, -(2**63), 2**63 - 1]),
+        np.arange(-300, 300, dtype=np.int16),
+        np.array([2**64 - 1, 0], dtype=np.uint64),
+        np.zeros(0, np.int32),
+    ]
+    for x in cases:
+        # Reference: the standard library's encoder on the same integers.
+        assert json.loads(json_int_array(x)) == json.loads(json.dumps(x.tolist()))

@@ -17,7 +17,7 @@ from ..run_tables import aligned_columns
 from .atomic import RawJSON, write_json_atomic, write_text_atomic
 from .columns import BOUNDARY_COLUMNS, GEOMETRY_COLUMNS, GRAIN_COLUMNS, SEGMENT_COLUMNS
 from .schemas import SCHEMA_VERSION
-from .tables import json_number_array, write_csv, write_table_json
+from .tables import json_int_array, json_number_array, write_csv, write_table_json
 
 __all__ = ["write_all", "grains_table", "segments_table", "boundaries_table"]
 
@@ -512,7 +512,9 @@ def section_table_json(table) -> dict:
         for ending, d in SECTION_DECIMALS:
             if name.endswith(ending):
                 decimals = d
-        if values.dtype.kind != "f" or values.ndim != 1:
+        if values.dtype.kind in "iu" and values.ndim == 1:
+            out[name] = RawJSON(json_int_array(values))
+        elif values.dtype.kind != "f" or values.ndim != 1:
             out[name] = values
         elif "probability" in name:
             out[name] = RawJSON(json_number_array(values, PROBABILITY_DIGITS, significant=True))

@@ -33,6 +33,7 @@ from .streams import encode_rows
 
 __all__ = [
     "format_cell",
+    "json_int_array",
     "json_number_array",
     "table_rows",
     "write_csv",
@@ -152,6 +153,25 @@ def write_csv(path, table, columns):
         yield from encode_rows(table, columns, style="fixed_csv")
 
     return write_chunks_atomic(path, chunks())
+
+
+def json_int_array(values) -> str:
+    """An integer column as the text of a JSON array, encoded in bulk (``%d`` cells).
+
+    Examples
+    --------
+    >>> json_int_array(np.array([7, -1, 0]))
+    '[7, -1, 0]'
+    >>> json_int_array(np.zeros(0, int))
+    '[]'
+    """
+    from .columns import Column
+
+    values = np.asarray(values).ravel()
+    if values.dtype.kind == "u" and values.size and int(values.max()) >= 2**63:
+        return json.dumps(values.tolist())  # past int64, which the cells are written in
+    text = b"".join(encode_rows({"value": values}, [Column("value", "int")], style="printf"))
+    return "[" + text[:-1].replace(b"\n", b", ").decode("ascii") + "]"
 
 
 def json_number_array(values, decimals: int, *, significant: bool = False) -> str:
