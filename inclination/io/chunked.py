@@ -144,7 +144,8 @@ def check_store_address(address: str, *, path=None, pointer=None) -> None:
     """
     fsspec = _fsspec(address, path, pointer)
     scheme = _ADDRESS.match(address).group(1).lower()
-    known = set(fsspec.available_protocols())
+    # The built-in names and any registered since (fsspec.register_implementation).
+    known = set(fsspec.available_protocols()) | set(fsspec.registry)
     if scheme not in known:
         raise InputError(
             f"Expected a store address with a scheme fsspec knows (s3, gs, az, https, file, "

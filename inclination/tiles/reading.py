@@ -562,7 +562,12 @@ def on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
 
     out = []
     for t in range(0, len(tiles), batch):
-        done = dask.compute(*[dask.delayed(guarded)(r, c) for r, c in tiles[t : t + batch]])
+        # Threads named here: a distributed Client made default in this process (a
+        # notebook's, or `inclination batch` run on in-process workers) would otherwise
+        # take the tiles, whose closures over the map do not travel.
+        done = dask.compute(
+            *[dask.delayed(guarded)(r, c) for r, c in tiles[t : t + batch]], scheduler="threads"
+        )
         for _, exc in done:
             if exc is not None:
                 raise exc
