@@ -301,7 +301,8 @@ def run_job(job_path: str, name: str, out_dir: str) -> dict:
             job = load_job(job_path)
             rec["inputs"] = input_hashes(job)
             rec["settings_sha256"] = settings_sha256(job)
-            result = analyse(job_path, out / name, overwrite=True)
+            with _threads_inside():
+                result = analyse(job_path, out / name, overwrite=True)
         except InclinationError as exc:
             rec["error"] = f"inclination: error: {exc}"
             if not rec["inputs"]:
@@ -339,6 +340,22 @@ def run_job(job_path: str, name: str, out_dir: str) -> dict:
     write_json_atomic(record_path, rec)
     # NaN (no Σ3 boundary: no fraction) as null, as the stored record and batch.json hold it.
     return json_ready(rec)
+
+
+def _threads_inside():
+    """Within the task, dask's threaded scheduler for the job's own dask work.
+
+    A zarr map's arrays are dask arrays (inclination.io.chunked). On a worker, dask's
+    default scheduler is the worker's client: a job computing on it from its one thread
+    would wait on tasks queued behind itself. The job runs as ``analyse`` does alone.
+    """
+    import contextlib
+
+    try:
+        import dask
+    except ImportError:
+        return contextlib.nullcontext()
+    return dask.config.set(scheduler="threads")
 
 
 def _finished(out: Path, name: str, job_path: str) -> dict | None:

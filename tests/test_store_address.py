@@ -31,7 +31,6 @@ from inclination.crystal.phases import Phase  # noqa: E402
 from inclination.errors import InputError  # noqa: E402
 from inclination.io.chunked import (  # noqa: E402
     is_store_address,
-    open_zarr_arrays,
     write_zarr_map,
     zarr_metadata_sha256,
 )
