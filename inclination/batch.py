@@ -132,10 +132,15 @@ def file_sha256(path: str | os.PathLike) -> str:
 
 
 def input_hashes(job) -> list[dict]:
-    """``{"path", "sha256"}`` of every file a loaded job reads, the job file first.
+    """``{"path", "sha256", "content"}`` of every input of a loaded job, the job file first.
 
-    The files are those of :func:`inclination.pipeline.input_files` (job file, maps,
-    sidecars, section maps, face images).
+    The inputs are those of :func:`inclination.pipeline.input_files` (job file, maps,
+    sidecars, section maps, face images). A file is hashed whole (``content`` "file"). A
+    zarr map, a local folder or a store address kept as given (``s3://…``), is hashed by
+    its metadata documents read through fsspec (``content`` "zarr metadata",
+    :func:`inclination.io.chunked.zarr_metadata_sha256`): its chunks are not read, so
+    values rewritten in place into the same arrays do not rerun the job (docs/batch.md,
+    "The rerun rule").
 
     Raises
     ------
@@ -157,15 +162,33 @@ def input_hashes(job) -> list[dict]:
     ...     "map": {"path": "m.npz", "format": "npz", "step_um": 1, "grid": "square",
     ...             "angles": "deg", "axes": {"x": "right", "y": "down"}}}
     >>> _ = (folder / "job.json").write_text(json.dumps(spec))
-    >>> [Path(h["path"]).name for h in input_hashes(load_job(folder / "job.json"))]
-    ['job.json', 'm.npz']
+    >>> [(Path(h["path"]).name, h["content"]) for h in input_hashes(load_job(folder / "job.json"))]
+    [('job.json', 'file'), ('m.npz', 'file')]
     """
+    from .io.chunked import zarr_metadata_sha256
     from .pipeline import input_files
 
+    zarr_maps = {}
+    specs = [("/map", job.map)] + [
+        (f"/sections/{i}/map", s["map"]) for i, s in enumerate(job.sections) if "map" in s
+    ]
+    for pointer, spec in specs:
+        if isinstance(spec, dict) and spec.get("format") == "zarr":
+            zarr_maps[str(spec["path"])] = (pointer, spec.get("storage_options"))
     out = []
     for f in input_files(job):
+        if str(f) in zarr_maps:
+            pointer, options = zarr_maps[str(f)]
+            digest = zarr_metadata_sha256(
+                str(f),
+                storage_options=options,
+                path_for_errors=job.source_path,
+                pointer=f"{pointer}/path",
+            )
+            out.append({"path": str(f), "sha256": digest, "content": "zarr metadata"})
+            continue
         try:
-            out.append({"path": str(f), "sha256": file_sha256(f)})
+            out.append({"path": str(f), "sha256": file_sha256(f), "content": "file"})
         except OSError as exc:
             raise InputError(
                 f"Expected a readable input file, got {exc.strerror}.", path=f
@@ -278,12 +301,15 @@ def run_job(job_path: str, name: str, out_dir: str) -> dict:
             job = load_job(job_path)
             rec["inputs"] = input_hashes(job)
             rec["settings_sha256"] = settings_sha256(job)
-            result = analyse(job_path, out / name, overwrite=True)
+            with _threads_inside():
+                result = analyse(job_path, out / name, overwrite=True)
         except InclinationError as exc:
             rec["error"] = f"inclination: error: {exc}"
             if not rec["inputs"]:
                 try:
-                    rec["inputs"] = [{"path": job_path, "sha256": file_sha256(job_path)}]
+                    rec["inputs"] = [
+                        {"path": job_path, "sha256": file_sha256(job_path), "content": "file"}
+                    ]
                 except OSError:
                     pass
             write_json_atomic(record_path, rec)
@@ -314,6 +340,22 @@ def run_job(job_path: str, name: str, out_dir: str) -> dict:
     write_json_atomic(record_path, rec)
     # NaN (no Σ3 boundary: no fraction) as null, as the stored record and batch.json hold it.
     return json_ready(rec)
+
+
+def _threads_inside():
+    """Within the task, dask's threaded scheduler for the job's own dask work.
+
+    A zarr map's arrays are dask arrays (inclination.io.chunked). On a worker, dask's
+    default scheduler is the worker's client: a job computing on it from its one thread
+    would wait on tasks queued behind itself. The job runs as ``analyse`` does alone.
+    """
+    import contextlib
+
+    try:
+        import dask
+    except ImportError:
+        return contextlib.nullcontext()
+    return dask.config.set(scheduler="threads")
 
 
 def _finished(out: Path, name: str, job_path: str) -> dict | None:

@@ -111,16 +111,27 @@ def batch_schema() -> dict:
                 **_nullable("string"),
             },
             "inputs": {
-                "description": "SHA-256 of every input file (job file first, then maps, "
+                "description": "SHA-256 of every input (job file first, then maps, "
                 "sidecars, section maps, face images) as hashed when the job last ran.",
                 "type": "array",
                 "items": {
                     "type": "object",
-                    "required": ["path", "sha256"],
+                    "required": ["path", "sha256", "content"],
                     "additionalProperties": False,
                     "properties": {
-                        "path": {"type": "string"},
+                        "path": {
+                            "description": "The file, folder or store address as the job "
+                            "names it (an address such as s3://… as given).",
+                            "type": "string",
+                        },
                         "sha256": {"type": "string", "pattern": "^[0-9a-f]{64}$"},
+                        "content": {
+                            "description": "What sha256 covers: file (every byte), or zarr "
+                            "metadata (a zarr map's group and array metadata documents; its "
+                            "chunks are not read, so values rewritten in place into the same "
+                            "arrays do not rerun the job).",
+                            "enum": ["file", "zarr metadata"],
+                        },
                     },
                 },
             },

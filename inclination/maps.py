@@ -37,6 +37,7 @@ from .frames import (
     orientations_to_sample,
 )
 from .io.arrays import read_npz_arrays, read_tiff_arrays
+from .io.chunked import is_store_address
 from .io.text import TABLE_DELIMITERS, place_on_grid, read_table
 
 __all__ = [
@@ -668,11 +669,21 @@ def read_map(
             pointer=f"{pointer}/rotation_sense",
         )
     step_x, step_y = _steps_sample(spec, axes, grid, job_path, pointer)
-    path = Path(spec["path"])
-    if base_dir is not None and not path.is_absolute():
+    address = is_store_address(spec["path"])
+    if address and fmt != "zarr":
+        raise InputError(
+            f"Expected a local file path for a {fmt} map (only zarr maps may be given as a "
+            f"store address), got {spec['path']!r}.",
+            path=job_path,
+            pointer=f"{pointer}/path",
+        )
+    # A store address stays the string given (inclination.io.chunked), never a Path.
+    path = spec["path"] if address else Path(spec["path"])
+    if not address and base_dir is not None and not path.is_absolute():
         path = Path(base_dir) / path
-    # A zarr map is a folder of chunks (inclination.io.chunked), not a file.
-    if fmt == "zarr" and not path.is_dir():
+    # A zarr map is a folder of chunks (inclination.io.chunked), not a file; a store
+    # address is looked for when the group is opened.
+    if fmt == "zarr" and not address and not path.is_dir():
         raise InputError(
             f"Expected an existing zarr map (a folder), got no folder at {str(path)!r}.",
             path=job_path,
@@ -724,8 +735,24 @@ def read_map(
             # inclination.tiles reads the same store tile by tile.
             from .io.chunked import open_zarr_arrays
 
-            chunked = open_zarr_arrays(path, angles=angles)
-            euler, phase_raw, quality = np.asarray(chunked.euler), np.asarray(chunked.phase), {}
+            chunked = open_zarr_arrays(
+                path,
+                angles=angles,
+                storage_options=spec.get("storage_options"),
+                path_for_errors=job_path,
+                pointer=pointer,
+            )
+            try:
+                euler, phase_raw = np.asarray(chunked.euler), np.asarray(chunked.phase)
+            except OSError as exc:
+                # A store lost mid-read (network, credentials expired): one line.
+                raise InputError(
+                    f"Expected to read the chunks of {str(path)!r}, got "
+                    f"{type(exc).__name__}: {exc}.",
+                    path=job_path,
+                    pointer=f"{pointer}/path",
+                ) from None
+            quality = {}
             settings["chunks_px"] = list(chunked.chunks_px)
             reader = "zarr arrays"
         elif fmt == "hdf5":
@@ -771,7 +798,7 @@ def read_map(
     settings.update(omap_args.pop("settings", {}))
     reader = omap_args.pop("provenance_reader")
     provenance = {
-        "source_path": str(path.resolve()),
+        "source_path": path if address else str(path.resolve()),
         "sha256": omap_args.pop("sha256", None) or (None if fmt == "zarr" else _sha256(path)),
         "reader": reader,
         "settings": settings,

@@ -158,6 +158,7 @@ SERIAL_SECTION_EXAMPLE = {
 #: Examples of fields the worked examples leave out (other branches of a choice).
 EXTRA_EXAMPLES = {
     "map.sidecar": "surface.tif.json",
+    "map.storage_options": {"anon": True},
     "tiles": {"tile_px": 2048, "memory_mib": 6144},
     "tiles.tile_px": 2048,
     "tiles.memory_mib": 6144,

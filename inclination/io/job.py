@@ -275,7 +275,27 @@ def _declared_step(map_spec) -> float | None:
 
 
 def _resolve_map(spec, base: Path, path, pointer) -> dict:
+    from .chunked import check_store_address, is_store_address
+
     out = copy.deepcopy(spec)
+    if is_store_address(spec["path"]):
+        # Kept as the string given (inclination.io.chunked): never joined to the job's folder.
+        if spec["format"] != "zarr":
+            raise InputError(
+                f"Expected a local file path for a {spec['format']} map (only zarr maps may "
+                f"be given as a store address), got {spec['path']!r}.",
+                path=path,
+                pointer=f"{pointer}/path",
+            )
+        check_store_address(spec["path"], path=path, pointer=f"{pointer}/path")
+        return out
+    if "storage_options" in spec:
+        raise InputError(
+            f"Expected 'storage_options' only beside a store address (s3://…, gs://…) of a "
+            f"zarr map, got it beside the local path {spec['path']!r}.",
+            path=path,
+            pointer=f"{pointer}/storage_options",
+        )
     target = base / spec["path"]
     if spec["format"] == "zarr":
         # A zarr map is a folder of chunks (inclination.io.chunked).

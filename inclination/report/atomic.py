@@ -396,9 +396,12 @@ def glob_escape(text: str) -> str:
 
 
 def _input_folders(inputs) -> list[Path]:
+    from ..io.chunked import is_store_address
+
     folders = []
     for p in inputs:
-        if p is None:
+        # A store address (s3://…) is no folder of this machine: nothing to stay out of.
+        if p is None or is_store_address(p):
             continue
         p = Path(p)
         with contextlib.suppress(OSError):

@@ -251,11 +251,13 @@ def read_zarr_map(
     from pathlib import Path
 
     from ..frames import data_frame_quat
-    from ..io.chunked import open_zarr_arrays
+    from ..io.chunked import is_store_address, open_zarr_arrays
     from ..maps import GRIDS
 
-    path = Path(spec["path"])
-    if base_dir is not None and not path.is_absolute():
+    # A store address stays the string given (inclination.io.chunked), never a Path.
+    address = is_store_address(spec["path"])
+    path = spec["path"] if address else Path(spec["path"])
+    if not address and base_dir is not None and not path.is_absolute():
         path = Path(base_dir) / path
     angles = spec.get("angles", "deg")
     check_one_of(angles, "angles", ("deg", "rad"))
@@ -274,7 +276,13 @@ def read_zarr_map(
         pointer=f"{pointer}/data_frame_rotation",
     )
     sense = spec.get("rotation_sense", "passive")
-    arrays = open_zarr_arrays(path, angles=angles)
+    arrays = open_zarr_arrays(
+        path,
+        angles=angles,
+        storage_options=spec.get("storage_options"),
+        path_for_errors=path_for_errors,
+        pointer=pointer,
+    )
     h, w = (int(v) for v in arrays.phase.shape)
     known = np.asarray(sorted({int(p) for p in phase_ids}), np.int64)
     same_frame = axes.is_sample_frame and np.array_equal(np.asarray(dfr, float), _IDENTITY32)
@@ -288,8 +296,17 @@ def read_zarr_map(
     axes = axes.with_origin(-declared.min(axis=0) + 0.0)
 
     def reader(rows, cols):
-        raw_phase = np.asarray(arrays.phase[rows, cols])
-        euler = np.asarray(arrays.euler[rows, cols])
+        try:
+            raw_phase = np.asarray(arrays.phase[rows, cols])
+            euler = np.asarray(arrays.euler[rows, cols])
+        except OSError as exc:
+            # A store lost mid-run (network, credentials expired): one line, not a trace.
+            raise InputError(
+                f"Expected to read the chunks of rows {rows.start}-{rows.stop}, columns "
+                f"{cols.start}-{cols.stop} of {str(path)!r}, got {type(exc).__name__}: {exc}.",
+                path=path_for_errors,
+                pointer=f"{pointer}/path",
+            ) from None
         phase = _phase_ids_checked(raw_phase, known, path, rows.start or 0, cols.start or 0)
         valid = (phase != 0) & np.isfinite(euler).all(axis=-1)
         planes = np.empty((4, valid.size), np.float32)
@@ -328,7 +345,7 @@ def read_zarr_map(
         )
 
     provenance = {
-        "source_path": str(path.resolve()),
+        "source_path": path if address else str(path.resolve()),
         "sha256": None,
         "reader": "zarr arrays",
         "settings": {
@@ -545,7 +562,12 @@ def on_tiles(fn, tiles, *, progress=None, batch: int = 8) -> list:
 
     out = []
     for t in range(0, len(tiles), batch):
-        done = dask.compute(*[dask.delayed(guarded)(r, c) for r, c in tiles[t : t + batch]])
+        # Threads named here: a distributed Client made default in this process (a
+        # notebook's, or `inclination batch` run on in-process workers) would otherwise
+        # take the tiles, whose closures over the map do not travel.
+        done = dask.compute(
+            *[dask.delayed(guarded)(r, c) for r, c in tiles[t : t + batch]], scheduler="threads"
+        )
         for _, exc in done:
             if exc is not None:
                 raise exc
