@@ -197,20 +197,11 @@ def json_number_array(values, decimals: int, *, significant: bool = False) -> st
     column = Column("value", "general" if significant else "float", int(decimals))
     table = {"value": np.asarray(values, float).ravel()}
     if significant:
-        # printf cells, a row per line. A non-finite value is written as 9e14 first (a cell
-        # "9e+14" that no other value can have when every finite one is below 1e14, and
-        # one the streams' fast path writes), and that cell then becomes null.
-        values = table["value"]
-        finite = np.isfinite(values)
-        if not finite.all() and not np.any(np.abs(values[finite]) >= 1e14):
-            table = {"value": np.where(finite, values, 9e14)}
-            top = b"%.*g" % (int(decimals), 9e14)
-            text = b"".join(encode_rows(table, [column], style="printf"))[:-1]
-            text = (b"\n" + text + b"\n").replace(b"\n" + top, b"\nnull")[1:-1]
-        else:
-            text = b"".join(encode_rows(table, [column], style="printf"))[:-1]
-            for word in (b"-inf", b"inf", b"nan"):
-                text = text.replace(word, b"null")
+        # printf cells, a row per line; "nan", "inf" and "-inf" are the only cells with
+        # letters other than the exponent's "e", so a bytes replace makes them null.
+        text = b"".join(encode_rows(table, [column], style="printf"))[:-1]
+        for word in (b"-inf", b"inf", b"nan"):
+            text = text.replace(word, b"null")
         text = text.replace(b"\n", b", ")
         return "[" + text.decode("ascii") + "]"
     # Each row of the jsonl style is "[number]\n" and a number never holds "]": the rows
