@@ -56,6 +56,7 @@ __all__ = [
     "SMALL_GRAIN_MODES",
     "check_grain_options",
     "segment_grains",
+    "strongest_neighbours",
 ]
 
 #: What to do with grains under ``min_pixels``.
@@ -336,23 +337,47 @@ def _dissolve_small(
             )
             if not ok.any():
                 break
-            # Shared edges per (small grain, neighbour); most shared wins, ties to the lower id.
-            key = g_own[ok].astype(np.int64) * (n_grains + 1) + g_other[ok]
-            pairs, counts = np.unique(key, return_counts=True)
-            ga, gb = np.divmod(pairs, n_grains + 1)
-            order = np.lexsort((gb, -counts, ga))
-            ga, gb = ga[order], gb[order]
-            first = np.r_[True, ga[1:] != ga[:-1]]
+            # One shared edge per (small run, neighbouring run) pair.
+            ga, gb = strongest_neighbours(g_own[ok], g_other[ok], None, n_grains + 1)
             target = np.arange(n_grains + 1)
-            target[ga[first]] = gb[first]
+            target[ga] = gb
             moving = small[run_grain] & (target[run_grain] != run_grain)
             merged += int(run_len[moving].sum())
             run_grain[moving] = target[run_grain[moving]]
-            small[ga[first]] = False
+            small[ga] = False
     left = small[run_grain] & (run_grain > 0)
     unindexed = int(run_len[left].sum())
     run_grain[left] = 0
     return run_grain, dissolved, merged, unindexed
+
+
+def strongest_neighbours(own, other, weight, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """For each grain in ``own``, the grain of ``other`` it shares the most with.
+
+    The small-grain clean-up's rule (:func:`segment_grains`): the neighbour with the
+    largest summed ``weight`` over the pairs ``(own[k], other[k])`` wins, ties to the lower
+    id. ``weight=None`` counts each pair once. Ids are below ``n``.
+
+    Returns
+    -------
+    grain, neighbour : ndarray of int64
+        One row per distinct grain of ``own``, in increasing order.
+
+    Examples
+    --------
+    >>> g, nb = strongest_neighbours(np.array([5, 5, 5, 2, 2]), np.array([7, 3, 7, 9, 4]),
+    ...                              None, 10)
+    >>> g.tolist(), nb.tolist()  # 5 shares two with 7; 2 shares one each: 4 is lower
+    ([2, 5], [4, 7])
+    """
+    key = np.asarray(own, np.int64) * n + np.asarray(other, np.int64)
+    pairs, inverse = np.unique(key, return_inverse=True)
+    shared = np.bincount(inverse, weights=weight, minlength=pairs.size)
+    ga, gb = np.divmod(pairs, n)
+    order = np.lexsort((gb, -shared, ga))
+    ga, gb = ga[order], gb[order]
+    first = np.r_[True, ga[1:] != ga[:-1]]
+    return ga[first], gb[first]
 
 
 def _fill_isolated(labels, grid):

@@ -17,7 +17,13 @@ from scipy.sparse.csgraph import connected_components
 from ..crystal import symmetry
 from ..crystal.rotations import quat_multiply
 from ..errors import InputError
-from ..grains import GrainMap, check_grain_options, isolated_points, link_labels
+from ..grains import (
+    GrainMap,
+    check_grain_options,
+    isolated_points,
+    link_labels,
+    strongest_neighbours,
+)
 from ..links import (
     disorientation_cos_half,
     forward_pair_mask,
@@ -391,16 +397,10 @@ def _dissolve_small(area, code, adjacency, *, min_pixels, mode):
             ok = (g_other > 0) & ~small[g_other] & (code[g_other] == code[g_own])
             if not ok.any():
                 break
-            key = g_own[ok] * n + g_other[ok]
-            pairs, inverse = np.unique(key, return_inverse=True)
-            shared = np.bincount(inverse, weights=count[sel][ok]).astype(np.int64)
-            ga, gb = np.divmod(pairs, n)
-            order = np.lexsort((gb, -shared, ga))
-            ga, gb = ga[order], gb[order]
-            first = np.r_[True, ga[1:] != ga[:-1]]
-            target[ga[first]] = gb[first]
-            merged += int(area[ga[first]].sum())
-            small[ga[first]] = False
+            ga, gb = strongest_neighbours(g_own[ok], g_other[ok], count[sel][ok], n)
+            target[ga] = gb
+            merged += int(area[ga].sum())
+            small[ga] = False
     left = small
     unindexed = int(area[left].sum())
     target[left] = 0
