@@ -55,6 +55,8 @@ __all__ = [
     "GRAIN_COLUMNS",
     "SMALL_GRAIN_MODES",
     "check_grain_options",
+    "nearest_equivalent",
+    "nearest_operation",
     "segment_grains",
     "strongest_neighbours",
 ]
@@ -558,15 +560,52 @@ def _nearest_equivalents(qs, refs, g, grain_info):
     """Equivalents ``s ⊗ q`` nearest each point's reference, as (n, 4), signed toward it."""
     out = np.empty((qs.shape[1], 4))
     for info, sel in _by_phase(g, grain_info):
-        ops = grain_info.ops[info.code]
-        q = qs[:, sel].T
-        cand = quat_multiply(ops[None, :, :], q[:, None, :])  # (n, K, 4)
-        dots = np.einsum("nkc,nc->nk", cand, refs[sel])
-        best = np.argmax(np.abs(dots), axis=1)
-        pick = cand[np.arange(sel.size), best]
-        sign = np.where(dots[np.arange(sel.size), best] < 0, -1.0, 1.0)
-        out[sel] = pick * sign[:, None]
+        out[sel] = nearest_equivalent(qs[:, sel].T, refs[sel], grain_info.ops[info.code])
     return out
+
+
+def nearest_operation(q, ref, ops) -> np.ndarray:
+    """For each quaternion, the symmetry operation s that takes it nearest its reference.
+
+    Parameters
+    ----------
+    q, ref : ndarray, shape (n, 4)
+        Orientations and the references they are brought next to (conventions §3).
+    ops : ndarray, shape (K, 4)
+        The phase's proper symmetry operations s (crystal frame, left factor).
+
+    Returns
+    -------
+    ndarray, shape (n, 4)
+        The s with the largest ``|s ⊗ q · ref|``, times the sign of that dot product
+        (q and −q are one orientation), so that ``s ⊗ q`` points toward ``ref``.
+
+    Examples
+    --------
+    >>> ops = np.array([[1.0, 0, 0, 0], [0.0, 0, 0, 1]])  # identity, 180° about Z
+    >>> nearest_operation(np.array([[0.0, 0, 0, 1]]), np.array([[-1.0, 0, 0, 0]]), ops)
+    array([[0., 0., 0., 1.]])
+    """
+    cand = quat_multiply(ops[None, :, :], q[:, None, :])  # (n, K, 4)
+    dots = np.einsum("nkc,nc->nk", cand, ref)
+    rows = np.arange(len(q))
+    best = np.argmax(np.abs(dots), axis=1)
+    return ops[best] * np.where(dots[rows, best] < 0, -1.0, 1.0)[:, None]
+
+
+def nearest_equivalent(q, ref, ops) -> np.ndarray:
+    """Each quaternion's symmetric equivalent ``s ⊗ q`` nearest its reference, signed toward it.
+
+    ``s`` from :func:`nearest_operation`; the product is the candidate's own, bit for bit
+    (a sign flip is exact).
+
+    Examples
+    --------
+    >>> ops = np.array([[1.0, 0, 0, 0], [0.0, 0, 0, 1]])  # identity, 180° about Z
+    >>> nearest_equivalent(np.array([[0.0, 0, 0, 1]]), np.array([[1.0, 0, 0, 0]]), ops)
+    array([[1., 0., 0., 0.]])
+    """
+    return quat_multiply(nearest_operation(q, ref, ops), q)
 
 
 def _max_scalar_to(qs, means, g, grain_info):

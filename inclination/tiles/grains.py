@@ -22,6 +22,8 @@ from ..grains import (
     check_grain_options,
     isolated_points,
     link_labels,
+    nearest_equivalent,
+    nearest_operation,
     strongest_neighbours,
 )
 from ..links import (
@@ -640,11 +642,7 @@ def _nearest_ops(q, ref, codes, ops, cos_safe) -> np.ndarray:
         sel = far[codes[far] == c]
         if sel.size == 0:
             continue
-        cand = quat_multiply(op[None, :, :], q64[sel][:, None, :])
-        dots = np.einsum("nkc,nc->nk", cand, r64[sel])
-        best = np.argmax(np.abs(dots), axis=1)
-        rows = np.arange(sel.size)
-        out[sel] = op[best] * np.where(dots[rows, best] < 0, -1.0, 1.0)[:, None]
+        out[sel] = nearest_operation(q64[sel], r64[sel], op)
     return out
 
 
@@ -842,10 +840,7 @@ def _aligned(q, ref, g, grain_code, ops, cos_safe):
             sel = far[codes == c]
             if sel.size == 0:
                 continue
-            cand = quat_multiply(op[None, :, :], q[sel][:, None, :].astype(np.float64))
-            dots = np.einsum("nkc,nc->nk", cand, ref[sel].astype(np.float64))
-            best = np.argmax(np.abs(dots), axis=1)
-            rows = np.arange(sel.size)
-            pick = cand[rows, best]
-            out[sel] = pick * np.where(dots[rows, best] < 0, -1.0, 1.0)[:, None]
+            out[sel] = nearest_equivalent(
+                q[sel].astype(np.float64), ref[sel].astype(np.float64), op
+            )
     return out
